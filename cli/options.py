@@ -1,0 +1,34 @@
+"""Options shared by several commands, defined once."""
+
+from __future__ import annotations
+
+import click
+
+from cluttersim.config import SimulationConfig, default_config
+
+
+def out_dir_option(default=None):
+    return click.option(
+        "--out",
+        "out_dir",
+        type=click.Path(file_okay=False),
+        required=default is None,
+        default=default,
+        show_default=default is not None,
+        help="Directory for the products (created if missing).",
+    )
+
+
+overwrite_option = click.option("--overwrite", is_flag=True, help="Replace existing products.")
+quiet_option = click.option("--quiet", "-q", is_flag=True, help="No progress bar or summary.")
+radar_option = click.option(
+    "--radar",
+    "radar_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Radar TOML ([radar] and [surface] tables); the built-in radar if omitted.",
+)
+
+
+def load_config(radar_path) -> SimulationConfig:
+    return SimulationConfig.from_toml(radar_path) if radar_path else default_config()

@@ -1,0 +1,158 @@
+"""Simulation configuration: the radar TOML file as frozen dataclasses.
+
+A radar TOML has two tables::
+
+    [radar]      # RadarConfig: instrument settings
+    [surface]    # SurfaceConfig: backscatter law and its parameters
+
+Unknown tables or keys, wrong types and out-of-range values raise
+:class:`~cluttersim.errors.ConfigError` naming the file, table and key.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import tomllib
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+
+from .errors import ConfigError
+from .radar import RadarConfig
+from .scattering import LAWS
+
+
+@dataclass(frozen=True)
+class SurfaceConfig:
+    """Backscatter law (the ``[surface]`` table): ``law`` and its parameters.
+
+    Parameters not given take the law's defaults from
+    :data:`cluttersim.scattering.LAWS`.
+    """
+
+    law: str = "hagfors"
+    params: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        if self.law not in LAWS:
+            raise ConfigError(f"[surface] law = {self.law!r}: expected one of {', '.join(LAWS)}")
+        spec = LAWS[self.law]
+        full = {}
+        for name, default in zip(spec.params, spec.defaults):
+            value = self.params.get(name, default)
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+                raise ConfigError(f"[surface] {name} = {value!r}: expected a finite number")
+            full[name] = float(value)
+        for name in self.params:
+            if name not in spec.params:
+                raise ConfigError(
+                    f"[surface] unknown key {name!r} for law {self.law!r}: expected {', '.join(spec.params) or 'no parameters'}"
+                )
+        for name, value in full.items():
+            if name == "rms_slope_deg" and not 0 < value < 90:
+                raise ConfigError(f"[surface] rms_slope_deg = {value!r}: expected an angle between 0 and 90 degrees")
+            elif name == "rho" and not 0 < value <= 1:
+                raise ConfigError(f"[surface] rho = {value!r}: expected a reflectivity in (0, 1]")
+            elif name in ("sigma0", "k", "C") and not value > 0:
+                raise ConfigError(f"[surface] {name} = {value!r}: expected a positive number")
+            elif name == "n" and not value >= 0:
+                raise ConfigError(f"[surface] n = {value!r}: expected a non-negative exponent")
+        object.__setattr__(self, "params", full)
+
+    @property
+    def law_code(self) -> int:
+        return LAWS[self.law].code
+
+    def kernel_params(self) -> tuple[float, float]:
+        """The law's parameters as the kernel's two floats (unused ones are 0)."""
+        values = [self.params[name] for name in LAWS[self.law].params] + [0.0, 0.0]
+        return values[0], values[1]
+
+    def to_dict(self) -> dict:
+        return {"law": self.law, **self.params}
+
+
+@dataclass(frozen=True)
+class SimulationConfig:
+    """Everything in a radar TOML: the instrument and the surface law."""
+
+    radar: RadarConfig = field(default_factory=RadarConfig)
+    surface: SurfaceConfig = field(default_factory=SurfaceConfig)
+
+    @classmethod
+    def from_toml(cls, path) -> "SimulationConfig":
+        """Read and validate a radar TOML file."""
+        path = Path(path)
+        try:
+            text = path.read_text(encoding="utf-8")
+        except FileNotFoundError:
+            raise ConfigError(f"{path}: radar file not found") from None
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ConfigError(f"{path}: cannot read radar file ({exc})") from None
+        try:
+            data = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as exc:
+            raise ConfigError(f"{path}: not valid TOML ({exc})") from None
+        try:
+            return cls.from_dict(data)
+        except ConfigError as exc:
+            raise ConfigError(f"{path}: {exc}") from None
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "SimulationConfig":
+        """Build from a parsed TOML mapping, rejecting unknown tables and keys by name."""
+        if not isinstance(data, dict):
+            raise ConfigError("expected a table with [radar] and [surface]")
+        for table in data:
+            if table not in ("radar", "surface"):
+                raise ConfigError(f"unknown table [{table}]: expected [radar] and [surface]")
+        radar_data = data.get("radar", {})
+        surface_data = dict(data.get("surface", {}))
+        if not isinstance(radar_data, dict) or not isinstance(surface_data, dict):
+            raise ConfigError("[radar] and [surface] must be tables")
+        return cls(radar=_radar_from_dict(radar_data), surface=_surface_from_dict(surface_data))
+
+    def to_dict(self) -> dict:
+        return {"radar": self.radar.to_dict(), "surface": self.surface.to_dict()}
+
+
+def default_config() -> SimulationConfig:
+    """The built-in radar (the demo's), read from the packaged ``default_radar.toml``."""
+    with resources.as_file(resources.files("cluttersim") / "data" / "default_radar.toml") as p:
+        return SimulationConfig.from_toml(p)
+
+
+def _radar_from_dict(data: dict) -> RadarConfig:
+    fields = {f.name: f for f in dataclasses.fields(RadarConfig)}
+    kwargs = {}
+    for key, value in data.items():
+        if key not in fields:
+            raise ConfigError(f"[radar] unknown key {key!r}: expected one of {', '.join(fields)}")
+        if key == "samples":
+            if isinstance(value, bool) or not isinstance(value, int):
+                if isinstance(value, float) and value.is_integer():
+                    value = int(value)
+                else:
+                    raise ConfigError(f"[radar] samples = {value!r}: expected an integer")
+        elif key == "range_window":
+            if not isinstance(value, str):
+                raise ConfigError(f"[radar] range_window = {value!r}: expected a string")
+        elif key == "window_start_s":
+            if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+                raise ConfigError(f"[radar] window_start_s = {value!r}: expected \"auto\" or a delay in seconds")
+            if not isinstance(value, str):
+                value = float(value)
+        else:
+            if isinstance(value, bool) or not isinstance(value, (int, float)):
+                raise ConfigError(f"[radar] {key} = {value!r}: expected a number")
+            value = float(value)
+        kwargs[key] = value
+    return RadarConfig(**kwargs)
+
+
+def _surface_from_dict(data: dict) -> SurfaceConfig:
+    law = data.pop("law", SurfaceConfig.law)
+    if not isinstance(law, str):
+        raise ConfigError(f"[surface] law = {law!r}: expected a string")
+    return SurfaceConfig(law=law, params=data)

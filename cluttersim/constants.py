@@ -1,0 +1,4 @@
+"""Physical constants used throughout cluttersim (SI units)."""
+
+#: Speed of light in vacuum, exact by the SI definition of the metre (BIPM, SI Brochure, 9th ed., 2019).
+SPEED_OF_LIGHT_M_S = 299_792_458.0

@@ -1,0 +1,222 @@
+"""Digital elevation models: open, locate, and read only the window a track needs.
+
+Any single-band raster GDAL reads is accepted (through rasterio). Heights are
+metres above the reference surface of the DEM's CRS; the body (ellipsoid or
+sphere) comes from that CRS, or from ``body_radius_m`` for a DEM without one.
+Nodata and non-finite cells become NaN ("holes").
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pyproj
+import rasterio
+from affine import Affine
+from rasterio.windows import Window
+
+from .body import Body
+from .errors import DemError
+
+
+@dataclass(frozen=True)
+class DemSource:
+    """An opened DEM's metadata (the pixels are read on demand by :meth:`read`).
+
+    Attributes
+    ----------
+    path : Path
+    crs : pyproj.CRS or None
+        None for a DEM without CRS read as a geographic grid on a sphere.
+    body : Body
+    transform : Affine
+        Pixel (col, row) → CRS (x, y) of pixel corners, as in GDAL.
+    width, height : int
+    """
+
+    path: Path
+    crs: pyproj.CRS | None
+    body: Body
+    transform: Affine
+    width: int
+    height: int
+    nodata: float | None
+
+    @property
+    def is_geographic(self) -> bool:
+        return self.crs is None or self.crs.is_geographic
+
+    @property
+    def pixel_size(self) -> tuple[float, float]:
+        """(x, y) pixel size in CRS units (degrees for geographic DEMs)."""
+        return abs(self.transform.a), abs(self.transform.e)
+
+    @classmethod
+    def open(cls, path, body_radius_m: float | None = None) -> "DemSource":
+        """Open a DEM and check it is usable; read no pixels.
+
+        ``body_radius_m`` is required for a DEM without a CRS (its grid is then
+        taken as geographic degrees on a sphere of that radius) and overrides
+        nothing otherwise.
+        """
+        path = Path(path)
+        if not path.exists():
+            raise DemError(f"{path}: DEM file not found")
+        try:
+            with rasterio.open(path) as ds:
+                count, width, height = ds.count, ds.width, ds.height
+                transform, nodata, rcrs = ds.transform, ds.nodata, ds.crs
+        except rasterio.errors.RasterioIOError as exc:
+            raise DemError(f"{path}: not a raster GDAL can read ({str(exc).splitlines()[0]})") from None
+        if count != 1:
+            raise DemError(f"{path}: has {count} bands, expected a single-band elevation raster")
+        if transform.b != 0 or transform.d != 0:
+            raise DemError(f"{path}: rotated rasters are not supported, expected a north-up grid")
+        if transform == Affine.identity():
+            raise DemError(f"{path}: has no georeferencing (no geotransform)")
+        if rcrs is None:
+            if body_radius_m is None:
+                raise DemError(f"{path}: DEM has no CRS; give --body-radius-m to read it as lon/lat degrees on a sphere")
+            crs = None
+            body = Body.sphere(body_radius_m)
+        else:
+            try:
+                crs = pyproj.CRS.from_wkt(rcrs.to_wkt())
+            except pyproj.exceptions.CRSError as exc:
+                raise DemError(f"{path}: CRS not understood by pyproj ({exc})") from None
+            body = Body.from_crs(crs)
+            if body_radius_m is not None:
+                body = Body.sphere(body_radius_m, name=f"sphere overriding {body.name}")
+        return cls(path=path, crs=crs, body=body, transform=transform, width=width, height=height, nodata=nodata)
+
+    # ----------------------------------------------------------------- coordinates
+
+    def _to_crs(self) -> pyproj.Transformer | None:
+        if self.crs is None or self.crs.is_geographic:
+            return None
+        return pyproj.Transformer.from_crs(self.crs.geodetic_crs, self.crs, always_xy=True)
+
+    def lonlat_to_xy(self, lon_deg, lat_deg):
+        """Geodetic lon/lat (degrees) → DEM CRS x, y. For geographic DEMs,
+        longitudes are wrapped into the DEM's own longitude range."""
+        lon = np.asarray(lon_deg, dtype=np.float64)
+        lat = np.asarray(lat_deg, dtype=np.float64)
+        tr = self._to_crs()
+        if tr is None:
+            west = self.transform.c
+            return (lon - west) % 360.0 + west, lat
+        x, y = tr.transform(lon, lat)
+        return np.asarray(x), np.asarray(y)
+
+    def xy_to_lonlat(self, x, y):
+        """DEM CRS x, y → geodetic lon/lat in degrees."""
+        if self.crs is None or self.crs.is_geographic:
+            return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
+        tr = pyproj.Transformer.from_crs(self.crs, self.crs.geodetic_crs, always_xy=True)
+        lon, lat = tr.transform(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+        return np.asarray(lon), np.asarray(lat)
+
+    def lonlat_to_rowcol(self, lon_deg, lat_deg):
+        """Fractional (row, col) in the full DEM, with integers at pixel centres."""
+        x, y = self.lonlat_to_xy(lon_deg, lat_deg)
+        col, row = ~self.transform @ (x, y)
+        return np.asarray(row) - 0.5, np.asarray(col) - 0.5
+
+    # ----------------------------------------------------------------- reading
+
+    def window_around(self, rows, cols, pad: int = 2) -> Window | None:
+        """Smallest window holding fractional pixel positions ``rows``, ``cols`` plus ``pad`` pixels.
+
+        Returns None when the positions do not overlap the DEM at all.
+        """
+        r0 = int(math.floor(np.nanmin(rows))) - pad
+        r1 = int(math.ceil(np.nanmax(rows))) + pad + 1
+        c0 = int(math.floor(np.nanmin(cols))) - pad
+        c1 = int(math.ceil(np.nanmax(cols))) + pad + 1
+        r0, c0 = max(r0, 0), max(c0, 0)
+        r1, c1 = min(r1, self.height), min(c1, self.width)
+        if r1 <= r0 or c1 <= c0:
+            return None
+        return Window(c0, r0, c1 - c0, r1 - r0)
+
+    def read(self, window: Window, out_shape: tuple[int, int] | None = None) -> "DemWindow":
+        """Read a window of elevations (holes as NaN), optionally decimated to ``out_shape``."""
+        try:
+            with rasterio.open(self.path) as ds:
+                data = ds.read(1, window=window, out_shape=out_shape, masked=True)
+        except (rasterio.errors.RasterioIOError, rasterio.errors.RasterioError) as exc:
+            raise DemError(f"{self.path}: cannot read elevations ({str(exc).splitlines()[0]})") from None
+        elev = np.ma.filled(data.astype(np.float64), np.nan)
+        elev[~np.isfinite(elev)] = np.nan
+        wt = rasterio.windows.transform(window, self.transform)
+        if out_shape is not None:
+            wt = wt @ Affine.scale(window.width / out_shape[1], window.height / out_shape[0])
+        return DemWindow(source=self, window=window, transform=wt, elevation_m=elev)
+
+
+@dataclass(frozen=True)
+class DemWindow:
+    """A block of DEM elevations in memory, with its own geotransform."""
+
+    source: DemSource
+    window: Window
+    transform: Affine
+    elevation_m: np.ndarray
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.elevation_m.shape
+
+    def cell_lonlat(self) -> tuple[np.ndarray, np.ndarray]:
+        """Geodetic (lon, lat) in degrees of every cell centre, each (ny, nx)."""
+        ny, nx = self.shape
+        cols = np.arange(nx) + 0.5
+        rows = np.arange(ny) + 0.5
+        if self.source.is_geographic:
+            x = self.transform.c + self.transform.a * cols
+            y = self.transform.f + self.transform.e * rows
+            lon, lat = np.meshgrid(x, y)
+            if np.nanmax(np.abs(lat)) > 90 + 1e-9:
+                raise DemError(f"{self.source.path}: latitudes beyond ±90° in a geographic DEM")
+            return lon, np.clip(lat, -90.0, 90.0)
+        cc, rr = np.meshgrid(cols, rows)
+        x, y = self.transform @ (cc, rr)
+        return self.source.xy_to_lonlat(x, y)
+
+    def bilinear_m(self, lon_deg, lat_deg) -> np.ndarray:
+        """Elevation at points by bilinear interpolation between cell centres (NaN outside or in holes)."""
+        x, y = self.source.lonlat_to_xy(lon_deg, lat_deg)
+        col, row = ~self.transform @ (np.asarray(x), np.asarray(y))
+        col = np.asarray(col, dtype=np.float64) - 0.5
+        row = np.asarray(row, dtype=np.float64) - 0.5
+        ny, nx = self.shape
+        inside = (row >= 0) & (row <= ny - 1) & (col >= 0) & (col <= nx - 1)
+        r0 = np.clip(np.floor(row).astype(np.int64), 0, max(ny - 2, 0))
+        c0 = np.clip(np.floor(col).astype(np.int64), 0, max(nx - 2, 0))
+        fr = row - r0
+        fc = col - c0
+        r1 = np.minimum(r0 + 1, ny - 1)
+        c1 = np.minimum(c0 + 1, nx - 1)
+        z = self.elevation_m
+        val = (
+            z[r0, c0] * (1 - fr) * (1 - fc) + z[r0, c1] * (1 - fr) * fc + z[r1, c0] * fr * (1 - fc) + z[r1, c1] * fr * fc
+        )
+        return np.where(inside, val, np.nan)
+
+    def hole_fraction(self) -> float:
+        return float(np.isnan(self.elevation_m).mean())
+
+
+def warn_holes(window: DemWindow) -> None:
+    """Warn (once) with the fraction of nodata cells in the window read for a track."""
+    frac = window.hole_fraction()
+    if frac > 0:
+        warnings.warn(
+            f"{window.source.path.name}: {100 * frac:.2f}% of the DEM cells around the track are nodata; "
+            "they are skipped (no echo from holes)",
+            stacklevel=3,
+        )

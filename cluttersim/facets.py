@@ -1,0 +1,116 @@
+"""Facets: the DEM as small planar patches on the curved body, grouped in tiles.
+
+Every valid DEM cell becomes one facet: body-fixed position (relative to a
+local origin), unit outward normal, true (sloping, curved-body) area, and the
+two edge vectors whose projections on the line of sight give its range extent.
+Facets are stored tile by tile (square blocks of cells) so the kernel can cull
+a whole tile with one bounding-sphere test per trace.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import kernels
+from .dem import DemWindow
+from .errors import DemError
+
+#: Side of a culling tile, in DEM cells.
+TILE_CELLS = 32
+
+
+@dataclass(frozen=True)
+class Facets:
+    """Facet geometry of a DEM window in tile order (see module docstring).
+
+    Positions are metres relative to ``origin_m`` (body-fixed Cartesian).
+    ``cell`` holds the flat index ``row * nx + col`` of each facet's DEM cell in
+    the window, so results can be mapped back to the ground.
+    """
+
+    origin_m: np.ndarray
+    pos_m: np.ndarray
+    normal: np.ndarray
+    e_col_m: np.ndarray
+    e_row_m: np.ndarray
+    area_m2: np.ndarray
+    cell: np.ndarray
+    tile_offsets: np.ndarray
+    tile_centre_m: np.ndarray
+    tile_radius_m: np.ndarray
+    tile_extent_m: np.ndarray
+    grid_shape: tuple[int, int]
+
+    def __len__(self) -> int:
+        return self.pos_m.shape[0]
+
+    @property
+    def nbytes(self) -> int:
+        return sum(a.nbytes for a in (self.pos_m, self.normal, self.e_col_m, self.e_row_m, self.area_m2, self.cell))
+
+
+def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: int = TILE_CELLS) -> Facets:
+    """Build facets for every valid cell of a DEM window.
+
+    Holes (NaN) produce no facet; their neighbours use the nearest valid
+    height for their edge vectors. Raises :class:`DemError` if no cell is valid.
+    """
+    elev = window.elevation_m
+    valid = np.isfinite(elev)
+    if not valid.any():
+        raise DemError(f"{window.source.path}: every DEM cell around the track is nodata")
+    filled = _fill_holes(elev, valid)
+    body = window.source.body
+    lon, lat = window.cell_lonlat()
+    ny, nx = elev.shape
+    if origin_m is None:
+        origin_m = body.geodetic_to_ecef_m(lat[ny // 2, nx // 2], lon[ny // 2, nx // 2], 0.0)
+    origin_m = np.asarray(origin_m, dtype=np.float64)
+    grid = np.empty((ny, nx, 3))
+    kernels.grid_to_ecef(
+        np.ascontiguousarray(lat), np.ascontiguousarray(lon), filled, body.semi_major_m, body.eccentricity_sq, origin_m, grid
+    )
+    up = body.up_unit(lat, lon)
+    nty, ntx = -(-ny // tile), -(-nx // tile)
+    padded = np.zeros((nty * tile, ntx * tile), dtype=bool)
+    padded[:ny, :nx] = valid
+    counts = padded.reshape(nty, tile, ntx, tile).sum(axis=(1, 3)).ravel()
+    offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    n = int(offsets[-1])
+    pos = np.empty((n, 3))
+    normal = np.empty((n, 3), dtype=np.float32)
+    e_col = np.empty((n, 3), dtype=np.float32)
+    e_row = np.empty((n, 3), dtype=np.float32)
+    area = np.empty(n, dtype=np.float32)
+    cell = np.empty(n, dtype=np.int64)
+    ntile = nty * ntx
+    tcentre = np.zeros((ntile, 3))
+    tradius = np.full(ntile, -1.0)
+    textent = np.zeros(ntile)
+    kernels.build_tiled_facets(grid, valid, up, tile, offsets, pos, normal, e_col, e_row, area, cell, tcentre, tradius, textent)
+    return Facets(
+        origin_m=origin_m,
+        pos_m=pos,
+        normal=normal,
+        e_col_m=e_col,
+        e_row_m=e_row,
+        area_m2=area,
+        cell=cell,
+        tile_offsets=offsets,
+        tile_centre_m=tcentre,
+        tile_radius_m=tradius,
+        tile_extent_m=textent,
+        grid_shape=(ny, nx),
+    )
+
+
+def _fill_holes(elev: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    """Heights with each hole replaced by its nearest valid cell (for neighbours' geometry only)."""
+    if valid.all():
+        return np.ascontiguousarray(elev, dtype=np.float64)
+    from scipy import ndimage
+
+    idx = ndimage.distance_transform_edt(~valid, return_distances=False, return_indices=True)
+    return np.ascontiguousarray(elev[tuple(idx)], dtype=np.float64)

@@ -1,0 +1,368 @@
+"""Compiled kernels (numba). Arrays in, arrays out; no I/O, no Python objects.
+
+Everything that runs per facet or per grid cell lives here. Orchestration
+(windowing, culling set-up, progress, chunking) is in :mod:`cluttersim.simulate`
+and :mod:`cluttersim.facets`. All kernels are compiled with ``cache=True`` so a
+second run loads them from disk instead of recompiling.
+
+Conventions
+-----------
+* Positions are body-fixed Cartesian metres relative to a local origin (the
+  centre of the DEM window), in float64; directions and areas are float32.
+* Delay bins: bin ``k`` of a trace covers two-way delays
+  ``[bin0_s + k dt, bin0_s + (k + 1) dt)``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from . import scattering
+from .constants import SPEED_OF_LIGHT_M_S
+
+_JIT = dict(cache=True, nogil=True)
+
+_sigma0_constant = numba.njit(**_JIT)(scattering.sigma0_constant)
+_sigma0_lambert = numba.njit(**_JIT)(scattering.sigma0_lambert)
+_sigma0_cosine = numba.njit(**_JIT)(scattering.sigma0_cosine)
+_sigma0_hagfors = numba.njit(**_JIT)(scattering.sigma0_hagfors)
+_sigma0_gaussian = numba.njit(**_JIT)(scattering.sigma0_gaussian)
+
+
+@numba.njit(**_JIT)
+def sigma0_by_code(code, cos_inc, p0, p1):
+    """σ0 of the law with numeric ``code`` (see :data:`cluttersim.scattering.LAWS`)."""
+    if code == 3:
+        return _sigma0_hagfors(cos_inc, p0, p1)
+    if code == 0:
+        return _sigma0_constant(cos_inc, p0)
+    if code == 1:
+        return _sigma0_lambert(cos_inc, p0)
+    if code == 2:
+        return _sigma0_cosine(cos_inc, p0, p1)
+    return _sigma0_gaussian(cos_inc, p0, p1)
+
+
+# --------------------------------------------------------------------------- geodesy
+
+
+@numba.njit(**_JIT)
+def geodetic_to_ecef(lat_deg, lon_deg, h_m, a_m, e2):
+    """Geodetic → body-fixed Cartesian (see :meth:`cluttersim.body.Body.geodetic_to_ecef_m`)."""
+    lat = math.radians(lat_deg)
+    lon = math.radians(lon_deg)
+    s = math.sin(lat)
+    c = math.cos(lat)
+    n = a_m / math.sqrt(1.0 - e2 * s * s)
+    return (n + h_m) * c * math.cos(lon), (n + h_m) * c * math.sin(lon), (n * (1.0 - e2) + h_m) * s
+
+
+@numba.njit(parallel=True, **_JIT)
+def geodetic_to_ecef_array(lat_deg, lon_deg, h_m, a_m, e2, out):
+    """Vectorised :func:`geodetic_to_ecef` over 1-D arrays into ``out`` (n, 3)."""
+    for i in numba.prange(lat_deg.shape[0]):
+        x, y, z = geodetic_to_ecef(lat_deg[i], lon_deg[i], h_m[i], a_m, e2)
+        out[i, 0] = x
+        out[i, 1] = y
+        out[i, 2] = z
+
+
+# --------------------------------------------------------------------------- facets
+
+
+@numba.njit(parallel=True, **_JIT)
+def grid_to_ecef(lat_deg, lon_deg, h_m, a_m, e2, origin, out):
+    """Cell-centre positions (ny, nx, 3) relative to ``origin`` from 2-D geodetic grids."""
+    ny, nx = h_m.shape
+    for i in numba.prange(ny):
+        for j in range(nx):
+            x, y, z = geodetic_to_ecef(lat_deg[i, j], lon_deg[i, j], h_m[i, j], a_m, e2)
+            out[i, j, 0] = x - origin[0]
+            out[i, j, 1] = y - origin[1]
+            out[i, j, 2] = z - origin[2]
+
+
+@numba.njit(parallel=True, **_JIT)
+def build_tiled_facets(
+    grid, valid, up, tile, tile_offsets, pos, normal, e_col, e_row, area, cell, tile_centre, tile_radius, tile_extent
+):
+    """Facet geometry from a grid of cell-centre positions, written tile by tile.
+
+    For cell (i, j) the edge vectors are the central differences
+    ``e_col = (P[i, j+1] − P[i, j−1]) / 2`` and ``e_row = (P[i+1, j] − P[i−1, j]) / 2``
+    (one-sided at the window border). The facet is the parallelogram they span:
+    true area ``|e_col × e_row|`` on the curved, sloping surface, and unit normal
+    along ``e_col × e_row`` turned to point away from the body (``up``).
+    Valid cells of tile ``t`` go to rows ``tile_offsets[t]:tile_offsets[t+1]``.
+    Each tile also gets a bounding sphere (centre, radius) and the largest facet
+    half-extent, used to cull whole tiles per trace.
+    """
+    ny, nx = valid.shape
+    nty = (ny + tile - 1) // tile
+    ntx = (nx + tile - 1) // tile
+    for t in numba.prange(nty * ntx):
+        ti = t // ntx
+        tj = t % ntx
+        k = tile_offsets[t]
+        cx = 0.0
+        cy = 0.0
+        cz = 0.0
+        ext = 0.0
+        for i in range(ti * tile, min((ti + 1) * tile, ny)):
+            i0 = max(i - 1, 0)
+            i1 = min(i + 1, ny - 1)
+            for j in range(tj * tile, min((tj + 1) * tile, nx)):
+                if not valid[i, j]:
+                    continue
+                j0 = max(j - 1, 0)
+                j1 = min(j + 1, nx - 1)
+                fc = 1.0 / (j1 - j0)
+                fr = 1.0 / (i1 - i0)
+                ax = (grid[i, j1, 0] - grid[i, j0, 0]) * fc
+                ay = (grid[i, j1, 1] - grid[i, j0, 1]) * fc
+                az = (grid[i, j1, 2] - grid[i, j0, 2]) * fc
+                bx = (grid[i1, j, 0] - grid[i0, j, 0]) * fr
+                by = (grid[i1, j, 1] - grid[i0, j, 1]) * fr
+                bz = (grid[i1, j, 2] - grid[i0, j, 2]) * fr
+                nxv = ay * bz - az * by
+                nyv = az * bx - ax * bz
+                nzv = ax * by - ay * bx
+                nn = math.sqrt(nxv * nxv + nyv * nyv + nzv * nzv)
+                if nxv * up[i, j, 0] + nyv * up[i, j, 1] + nzv * up[i, j, 2] < 0.0:
+                    nxv = -nxv
+                    nyv = -nyv
+                    nzv = -nzv
+                for d in range(3):
+                    pos[k, d] = grid[i, j, d]
+                e_col[k, 0] = ax
+                e_col[k, 1] = ay
+                e_col[k, 2] = az
+                e_row[k, 0] = bx
+                e_row[k, 1] = by
+                e_row[k, 2] = bz
+                if nn > 0.0:
+                    normal[k, 0] = nxv / nn
+                    normal[k, 1] = nyv / nn
+                    normal[k, 2] = nzv / nn
+                else:
+                    normal[k, 0] = up[i, j, 0]
+                    normal[k, 1] = up[i, j, 1]
+                    normal[k, 2] = up[i, j, 2]
+                area[k] = nn
+                cell[k] = i * nx + j
+                half = 0.5 * (math.sqrt(ax * ax + ay * ay + az * az) + math.sqrt(bx * bx + by * by + bz * bz))
+                ext = max(ext, half)
+                cx += grid[i, j, 0]
+                cy += grid[i, j, 1]
+                cz += grid[i, j, 2]
+                k += 1
+        n = k - tile_offsets[t]
+        if n == 0:
+            tile_radius[t] = -1.0
+            continue
+        cx /= n
+        cy /= n
+        cz /= n
+        r2 = 0.0
+        for m in range(tile_offsets[t], k):
+            dx = pos[m, 0] - cx
+            dy = pos[m, 1] - cy
+            dz = pos[m, 2] - cz
+            r2 = max(r2, dx * dx + dy * dy + dz * dz)
+        tile_centre[t, 0] = cx
+        tile_centre[t, 1] = cy
+        tile_centre[t, 2] = cz
+        tile_radius[t] = math.sqrt(r2) + ext
+        tile_extent[t] = ext
+
+
+# --------------------------------------------------------------------------- delay spreading
+
+
+@numba.njit(inline="always", **_JIT)
+def _ramp2(t):
+    return t * t if t > 0.0 else 0.0
+
+
+@numba.njit(**_JIT)
+def trapezoid_cdf(z, wa, wb):
+    """CDF at offset ``z`` of the sum of two centred uniform variables of widths wa ≥ wb.
+
+    This is the distribution of range over a parallelogram facet whose edges
+    project onto the line of sight as ``wa`` and ``wb``: a trapezoid, the
+    convolution of two boxes. Closed form:
+    F(z) = [G(z + (a+b)/2) − G(z + (a−b)/2) − G(z − (a−b)/2) + G(z − (a+b)/2)] / (2ab),
+    G(t) = max(t, 0)². A box of width wa when wb ≪ wa.
+    """
+    if wb < 1e-4 * wa:
+        f = (z + 0.5 * wa) / wa
+        return min(max(f, 0.0), 1.0)
+    s = 0.5 * (wa + wb)
+    d = 0.5 * (wa - wb)
+    f = (_ramp2(z + s) - _ramp2(z + d) - _ramp2(z - d) + _ramp2(z - s)) / (2.0 * wa * wb)
+    return min(max(f, 0.0), 1.0)
+
+
+@numba.njit(**_JIT)
+def spread_into_bins(row, x, wa, wb, p):
+    """Add power ``p`` to ``row`` spread over bins by the trapezoid centred at bin coordinate ``x``.
+
+    Bin ``k`` spans [k, k+1) in bin units; ``wa``, ``wb`` are the two projected
+    widths in bins. Each bin receives the fraction of the facet's delay
+    distribution that falls inside it, so total power is conserved.
+    """
+    if wa < wb:
+        wa, wb = wb, wa
+    nb = row.shape[0]
+    half = 0.5 * (wa + wb)
+    k0 = int(math.floor(x - half))
+    k1 = int(math.floor(x + half))
+    if k1 < 0 or k0 >= nb:
+        return
+    if k0 == k1 or wa < 1e-9:
+        k = int(math.floor(x))
+        if 0 <= k < nb:
+            row[k] += p
+        return
+    ks = max(k0, 0)
+    ke = min(k1, nb - 1)
+    prev = 0.0 if ks == k0 else trapezoid_cdf(ks - x, wa, wb)
+    for k in range(ks, ke + 1):
+        f = 1.0 if k == k1 else trapezoid_cdf(k + 1 - x, wa, wb)
+        row[k] += p * (f - prev)
+        prev = f
+
+
+# --------------------------------------------------------------------------- per-trace kernels
+
+
+@numba.njit(parallel=True, **_JIT)
+def earliest_range(ant, tile_centre, tile_radius, tile_offsets, pos, normal, e_col, e_row, out):
+    """Per trace, the smallest range (m) from the antenna to any front-facing facet's near edge.
+
+    Tiles are visited in order of their lower range bound and the search stops
+    once that bound exceeds the best range found.
+    """
+    ntile = tile_radius.shape[0]
+    for t in numba.prange(ant.shape[0]):
+        ax = ant[t, 0]
+        ay = ant[t, 1]
+        az = ant[t, 2]
+        lb = np.empty(ntile)
+        for m in range(ntile):
+            if tile_radius[m] < 0.0:
+                lb[m] = np.inf
+            else:
+                dx = tile_centre[m, 0] - ax
+                dy = tile_centre[m, 1] - ay
+                dz = tile_centre[m, 2] - az
+                lb[m] = math.sqrt(dx * dx + dy * dy + dz * dz) - tile_radius[m]
+        order = np.argsort(lb)
+        best = np.inf
+        for q in range(ntile):
+            m = order[q]
+            if lb[m] >= best:
+                break
+            for f in range(tile_offsets[m], tile_offsets[m + 1]):
+                vx = pos[f, 0] - ax
+                vy = pos[f, 1] - ay
+                vz = pos[f, 2] - az
+                r = math.sqrt(vx * vx + vy * vy + vz * vz)
+                ux = vx / r
+                uy = vy / r
+                uz = vz / r
+                if ux * normal[f, 0] + uy * normal[f, 1] + uz * normal[f, 2] >= 0.0:
+                    continue
+                span = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) + abs(
+                    ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]
+                )
+                near = r - 0.5 * span
+                if near < best:
+                    best = near
+        out[t] = best
+
+
+@numba.njit(parallel=True, **_JIT)
+def accumulate_power(
+    ant,
+    bin0_s,
+    dt_s,
+    tile_centre,
+    tile_radius,
+    tile_extent,
+    tile_offsets,
+    pos,
+    normal,
+    e_col,
+    e_row,
+    area,
+    law_code,
+    p0,
+    p1,
+    power_const,
+    out,
+):
+    """Received power per delay bin from every facet, one trace per thread.
+
+    For each facet at range R with local incidence θ (cos θ = −û·n̂) the radar
+    equation (e.g. Skolnik, *Introduction to Radar Systems*, 3rd ed., eq. 1.7)
+
+        P = Pt G² λ² σ0(θ) A / ((4π)³ R⁴) = power_const · σ0(θ) A / R⁴
+
+    is spread over the delay bins its range extent covers
+    (:func:`spread_into_bins`). Facets seen from behind contribute nothing.
+    Tiles whose bounding sphere cannot reach the window are skipped whole.
+    ``out`` (ntrace, nbins) is accumulated into (not cleared); returns the
+    number of facet evaluations performed.
+    """
+    half_c = 0.5 * SPEED_OF_LIGHT_M_S
+    nb = out.shape[1]
+    ntile = tile_radius.shape[0]
+    inv_bin_m = 1.0 / (half_c * dt_s)
+    counts = np.zeros(ant.shape[0], dtype=np.int64)
+    for t in numba.prange(ant.shape[0]):
+        ax = ant[t, 0]
+        ay = ant[t, 1]
+        az = ant[t, 2]
+        r_lo = bin0_s[t] * half_c
+        r_hi = (bin0_s[t] + nb * dt_s) * half_c
+        row = out[t]
+        n_eval = 0
+        for m in range(ntile):
+            rad = tile_radius[m]
+            if rad < 0.0:
+                continue
+            dx = tile_centre[m, 0] - ax
+            dy = tile_centre[m, 1] - ay
+            dz = tile_centre[m, 2] - az
+            d = math.sqrt(dx * dx + dy * dy + dz * dz)
+            if d - rad > r_hi or d + rad < r_lo:
+                continue
+            ext = tile_extent[m]
+            for f in range(tile_offsets[m], tile_offsets[m + 1]):
+                vx = pos[f, 0] - ax
+                vy = pos[f, 1] - ay
+                vz = pos[f, 2] - az
+                r2 = vx * vx + vy * vy + vz * vz
+                r = math.sqrt(r2)
+                if r - ext > r_hi or r + ext < r_lo:
+                    continue
+                n_eval += 1
+                inv_r = 1.0 / r
+                ux = vx * inv_r
+                uy = vy * inv_r
+                uz = vz * inv_r
+                cos_inc = -(ux * normal[f, 0] + uy * normal[f, 1] + uz * normal[f, 2])
+                if cos_inc <= 0.0:
+                    continue
+                s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
+                p = power_const * s0 * area[f] / (r2 * r2)
+                wa = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) * inv_bin_m
+                wb = abs(ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]) * inv_bin_m
+                x = (r * inv_bin_m) - bin0_s[t] / dt_s
+                spread_into_bins(row, x, wa, wb, p)
+        counts[t] = n_eval
+    return counts.sum()

@@ -1,0 +1,101 @@
+"""Run products on disk: the netCDF radargram and its figures, written atomically.
+
+These are the library functions the command line calls; each works the same
+from Python.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .body import Body
+from .constants import SPEED_OF_LIGHT_M_S
+from .dem import DemSource
+from .outputs import atomic_paths, check_new
+from .radargram import write_netcdf_to
+from .simulate import _window_for_radius, ground_radius_m, simulate
+from .track import Track, great_circle_track
+
+#: File names of a simulation run directory.
+RUN_FILES = {"radargram": "radargram.nc", "radargram_png": "radargram.png", "track_map": "track_map.png"}
+
+#: Largest side (pixels) of the relief image in the track map.
+_MAP_CELLS = 900
+
+
+def simulate_to_dir(
+    dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None
+) -> dict[str, Path]:
+    """Simulate and write ``radargram.nc``, ``radargram.png`` and ``track_map.png`` into ``out_dir``.
+
+    Existing products are refused before any work unless ``overwrite``; all
+    three are written under temporary names and renamed together at the end.
+    """
+    out_dir = Path(out_dir)
+    paths = {k: out_dir / v for k, v in RUN_FILES.items()}
+    check_new(paths.values(), overwrite)
+    src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
+    track = track if isinstance(track, Track) else Track.from_csv(track)
+    ds = simulate(src, track, config, progress=progress, stats=stats)
+    write_run(ds, src, paths)
+    return paths
+
+
+def write_run(ds, src: DemSource, paths: dict[str, Path]) -> None:
+    """Write a radargram and its two figures atomically to ``paths`` (keys of :data:`RUN_FILES`)."""
+    from . import plots
+
+    keys = list(RUN_FILES)
+    with atomic_paths([paths[k] for k in keys]) as temps:
+        tmp = dict(zip(keys, temps))
+        write_netcdf_to(ds, tmp["radargram"])
+        plots.plot_radargram(ds, tmp["radargram_png"], title=f"simulated clutter — {src.path.name}")
+        elevation, extent, tx, ty, labels = track_map_data(src, ds)
+        plots.plot_track_map(elevation, extent, tx, ty, tmp["track_map"], title=f"track over {src.path.name}", axis_labels=labels)
+
+
+def track_map_data(src: DemSource, ds):
+    """Decimated DEM around a run's track for the track map, in the DEM's own coordinates.
+
+    Returns ``(elevation, extent, track_x, track_y, axis_labels)``; geographic
+    DEMs are shown in degrees, projected ones in kilometres of their CRS.
+    """
+    track = Track(ds["lat"].values, ds["lon"].values, ds["alt"].values, source="run")
+    on_dem = ds["on_dem"].values.astype(bool)
+    end_s = ds["window_start"].values + ds.sizes["sample"] * float(ds["delay"][1] - ds["delay"][0])
+    h = track.alt_m - 0.5 * SPEED_OF_LIGHT_M_S * ds["nadir_delay"].values
+    h_lo, h_hi = float(np.nanmin(h)), float(np.nanmax(h))
+    radius = ground_radius_m(src.body, track.alt_m, 0.5 * SPEED_OF_LIGHT_M_S * np.nan_to_num(end_s), h_lo, h_hi)
+    window = _window_for_radius(src, track, on_dem, radius)
+    scale = max(1, int(np.ceil(max(window.height, window.width) / _MAP_CELLS)))
+    dw = src.read(window, out_shape=(max(1, window.height // scale), max(1, window.width // scale)))
+    t = dw.transform
+    ny, nx = dw.shape
+    x0, y0 = t.c, t.f
+    x1, y1 = t.c + t.a * nx, t.f + t.e * ny
+    tx, ty = src.lonlat_to_xy(track.lon_deg, track.lat_deg)
+    if src.is_geographic:
+        return dw.elevation_m, (x0, x1, y1, y0), tx, ty, ("longitude (°E)", "latitude (°N)")
+    k = 1e-3
+    return dw.elevation_m, (x0 * k, x1 * k, y1 * k, y0 * k), tx * k, ty * k, ("easting (km)", "northing (km)")
+
+
+def planned_track_to_csv(
+    out_path, start, end, alt_m, spacing_m, *, speed_m_s=None, dem_path=None, body_radius_m=None, overwrite=False
+) -> int:
+    """Write a planned geodesic track CSV; the body comes from a DEM's CRS or a sphere radius.
+
+    Returns the number of traces written.
+    """
+    out_path = Path(out_path)
+    check_new([out_path], overwrite)
+    if body_radius_m is not None:
+        body = Body.sphere(body_radius_m)
+    else:
+        body = DemSource.open(dem_path).body
+    track = great_circle_track(body, start[0], start[1], end[0], end[1], alt_m, spacing_m, speed_m_s=speed_m_s)
+    with atomic_paths([out_path]) as (tmp,):
+        track.to_csv(tmp)
+    return len(track)

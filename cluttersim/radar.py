@@ -1,0 +1,167 @@
+"""Radar instrument: configuration and the pure physics of ranging.
+
+Functions here are pure and carry their units in their names. The instrument
+configuration :class:`RadarConfig` mirrors the ``[radar]`` table of the radar
+TOML (see :mod:`cluttersim.config`).
+
+References
+----------
+.. [1] Skolnik, M. I. (2001). *Introduction to Radar Systems*, 3rd ed.,
+       McGraw-Hill. Radar equation (eq. 1.7), range resolution ΔR = c/(2B).
+.. [2] Curlander, J. C. & McDonough, R. N. (1991). *Synthetic Aperture Radar:
+       Systems and Signal Processing*, Wiley, ch. 3 (matched-filter response of a
+       linear FM pulse: |sinc(Bt)|, and its weighting by Hann/Hamming windows).
+.. [3] Harris, F. J. (1978). On the use of windows for harmonic analysis with
+       the discrete Fourier transform. Proc. IEEE 66(1), 51–83 (window
+       coefficients: Hann a0 = 0.5, Hamming a0 = 0.54).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from .constants import SPEED_OF_LIGHT_M_S
+from .errors import ConfigError
+
+#: Raised-cosine window coefficients a0 in w(f) = a0 + (1 − a0) cos(2πf/B), |f| ≤ B/2 ([3]_).
+RANGE_WINDOWS = {"none": 1.0, "hann": 0.5, "hamming": 0.54}
+
+#: Auto window: sample 0 lies this many samples before the earliest surface echo
+#: (or a quarter of the window for very short windows).
+AUTO_WINDOW_MARGIN_SAMPLES = 32
+
+
+def wavelength_m(frequency_hz: float) -> float:
+    """Free-space wavelength λ = c / f in metres."""
+    return SPEED_OF_LIGHT_M_S / frequency_hz
+
+
+def two_way_delay_s(range_m):
+    """Two-way travel time t = 2R / c in seconds of a one-way range in metres."""
+    return 2.0 * np.asarray(range_m, dtype=np.float64) / SPEED_OF_LIGHT_M_S
+
+
+def range_from_delay_m(delay_s):
+    """One-way range R = c t / 2 in metres of a two-way delay in seconds."""
+    return 0.5 * SPEED_OF_LIGHT_M_S * np.asarray(delay_s, dtype=np.float64)
+
+
+def range_resolution_m(bandwidth_hz: float) -> float:
+    """Free-space range resolution of a compressed pulse, ΔR = c / (2B) in metres ([1]_)."""
+    return SPEED_OF_LIGHT_M_S / (2.0 * bandwidth_hz)
+
+
+def radar_equation_power_w(transmit_power_w, gain_linear, wavelength_m_, sigma_m2, range_m):
+    """Monostatic radar equation ([1]_): Pr = Pt G² λ² σ / ((4π)³ R⁴), in watts."""
+    return transmit_power_w * gain_linear**2 * wavelength_m_**2 * sigma_m2 / ((4.0 * math.pi) ** 3 * np.asarray(range_m) ** 4)
+
+
+def compressed_pulse_amplitude(t_s, bandwidth_hz: float, window: str = "hann"):
+    """Amplitude response of a range-compressed pulse, normalised to 1 at t = 0.
+
+    For spectral weighting w(f) = a0 + (1 − a0) cos(2πf/B) over |f| ≤ B/2 the
+    inverse Fourier transform is, with x = Bt ([2]_):
+
+        h(x) = a0 sinc(x) + (1 − a0)/2 [sinc(x − 1) + sinc(x + 1)]
+
+    ("none": a0 = 1, the |sinc| response of an unweighted chirp).
+    """
+    a0 = RANGE_WINDOWS[window]
+    x = bandwidth_hz * np.asarray(t_s, dtype=np.float64)
+    return (a0 * np.sinc(x) + 0.5 * (1.0 - a0) * (np.sinc(x - 1.0) + np.sinc(x + 1.0))) / a0
+
+
+def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: str = "hann", oversample: int = 64):
+    """Compressed-pulse power response integrated over delay samples.
+
+    Returns ``(offsets, weights)``: integer sample offsets and the fraction of
+    the echo energy |h(t)|² falling into each sample, summing to 1 (energy is
+    preserved when a radargram is convolved with it). The response is
+    truncated where the window's sidelobes have decayed (±16/B for Hann and
+    Hamming, ±64/B unweighted).
+    """
+    extent_s = (64.0 if window == "none" else 16.0) / bandwidth_hz
+    half = int(math.ceil(extent_s / sample_interval_s))
+    offsets = np.arange(-half, half + 1)
+    sub = (np.arange(oversample) + 0.5) / oversample - 0.5
+    t = (offsets[:, None] + sub[None, :]) * sample_interval_s
+    power = compressed_pulse_amplitude(t, bandwidth_hz, window) ** 2
+    weights = power.mean(axis=1)
+    weights /= weights.sum()
+    return offsets, weights
+
+
+@dataclass(frozen=True)
+class RadarConfig:
+    """Instrument settings (the ``[radar]`` TOML table). Units are in the names.
+
+    ``window_start_s`` is either a number — the absolute two-way delay of
+    sample 0, the same for every trace — or ``"auto"``: per trace, sample 0 is
+    placed :data:`AUTO_WINDOW_MARGIN_SAMPLES` samples (at most a quarter of the
+    window) before the earliest surface echo.
+    """
+
+    center_frequency_hz: float = 20e6
+    bandwidth_hz: float = 10e6
+    sample_interval_s: float = 37.5e-9
+    samples: int = 2048
+    window_start_s: float | str = "auto"
+    transmit_power_w: float = 10.0
+    antenna_gain_dbi: float = 0.0
+    range_window: str = "hann"
+
+    def __post_init__(self):
+        for key in ("center_frequency_hz", "bandwidth_hz", "sample_interval_s", "transmit_power_w"):
+            value = getattr(self, key)
+            if not (math.isfinite(value) and value > 0):
+                raise ConfigError(f"[radar] {key} = {value!r}: expected a positive number")
+        if self.samples < 2:
+            raise ConfigError(f"[radar] samples = {self.samples!r}: expected an integer of at least 2")
+        if self.samples > 1_000_000:
+            raise ConfigError(f"[radar] samples = {self.samples!r}: expected at most 1,000,000 samples per trace")
+        if self.bandwidth_hz > 2.0 * self.center_frequency_hz:
+            raise ConfigError(
+                f"[radar] bandwidth_hz = {self.bandwidth_hz!r}: expected at most twice center_frequency_hz "
+                f"({self.center_frequency_hz!r})"
+            )
+        if isinstance(self.window_start_s, str):
+            if self.window_start_s != "auto":
+                raise ConfigError(f"[radar] window_start_s = {self.window_start_s!r}: expected \"auto\" or a delay in seconds")
+        elif not (math.isfinite(self.window_start_s) and self.window_start_s >= 0):
+            raise ConfigError(f"[radar] window_start_s = {self.window_start_s!r}: expected \"auto\" or a delay >= 0 s")
+        if not math.isfinite(self.antenna_gain_dbi) or abs(self.antenna_gain_dbi) > 100:
+            raise ConfigError(f"[radar] antenna_gain_dbi = {self.antenna_gain_dbi!r}: expected a gain between -100 and 100 dBi")
+        if self.range_window not in RANGE_WINDOWS:
+            raise ConfigError(
+                f"[radar] range_window = {self.range_window!r}: expected one of {', '.join(sorted(RANGE_WINDOWS))}"
+            )
+
+    @property
+    def wavelength_m(self) -> float:
+        """Free-space wavelength at the centre frequency, metres."""
+        return wavelength_m(self.center_frequency_hz)
+
+    @property
+    def gain_linear(self) -> float:
+        """Antenna gain as a power ratio."""
+        return 10.0 ** (self.antenna_gain_dbi / 10.0)
+
+    @property
+    def window_length_s(self) -> float:
+        """Duration of the recording window, samples × sample interval."""
+        return self.samples * self.sample_interval_s
+
+    @property
+    def auto_margin_samples(self) -> int:
+        """Samples placed before the earliest surface echo in ``"auto"`` mode."""
+        return min(AUTO_WINDOW_MARGIN_SAMPLES, self.samples // 4)
+
+    def radar_constant_w_m2(self) -> float:
+        """Pt G² λ² / (4π)³, the factor multiplying σ0 A / R⁴ in the radar equation (W m²)."""
+        return self.transmit_power_w * self.gain_linear**2 * self.wavelength_m**2 / (4.0 * math.pi) ** 3
+
+    def to_dict(self) -> dict:
+        return asdict(self)

@@ -1,0 +1,279 @@
+"""Orchestration of a clutter simulation: DEM window, facets, culling, kernels, pulse.
+
+Data flow::
+
+    DemSource ──(window around the track)──► DemWindow ──► Facets (tiled)
+    Track ──► antenna positions ─┐                              │
+    SimulationConfig ────────────┴──► kernels.earliest_range ──► window starts
+                                      kernels.accumulate_power (chunks of traces, progress)
+                                      ──► convolution with the compressed pulse ──► Dataset
+
+The physics lives in :mod:`cluttersim.kernels` (per facet), :mod:`cluttersim.radar`
+and :mod:`cluttersim.scattering`; this module only decides what to compute.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+from scipy.ndimage import convolve1d
+from tqdm.auto import tqdm
+
+from . import __version__, kernels
+from .config import SimulationConfig, default_config
+from .constants import SPEED_OF_LIGHT_M_S
+from .dem import DemSource, DemWindow, warn_holes
+from .errors import GeometryError, TrackError
+from .facets import Facets, build_facets
+from .radar import pulse_power_kernel
+from .radargram import build_dataset, flatten_config_attrs
+from .track import Track
+
+#: Largest decimated grid (cells per side) used to estimate the terrain's height range.
+_PREVIEW_CELLS = 1024
+
+
+@dataclass
+class RunStats:
+    """Counters of one simulation, for progress reports and benchmarks."""
+
+    facets: int = 0
+    facet_evaluations: int = 0
+    dem_window_shape: tuple[int, int] = (0, 0)
+    seconds_facets: float = 0.0
+    seconds_kernel: float = 0.0
+    seconds_total: float = 0.0
+
+
+def simulate(
+    dem,
+    track,
+    config: SimulationConfig | None = None,
+    *,
+    body_radius_m: float | None = None,
+    progress: bool = False,
+    stats: RunStats | None = None,
+) -> xr.Dataset:
+    """Simulate the surface-clutter radargram of a track over a DEM.
+
+    Parameters
+    ----------
+    dem : path or DemSource
+        Single-band elevation raster (metres above the CRS's reference surface).
+    track : path or Track
+        Antenna positions (CSV with lat, lon, alt[, time]).
+    config : SimulationConfig, optional
+        Radar and surface law; the built-in default radar if omitted.
+    body_radius_m : float, optional
+        Sphere radius for a DEM without CRS.
+    progress : bool
+        Show a progress bar (appears only if the run lasts more than a second).
+    stats : RunStats, optional
+        Filled in with counters and timings.
+
+    Returns
+    -------
+    xarray.Dataset
+        The radargram (see :mod:`cluttersim.radargram` for the variables).
+    """
+    t_start = time.perf_counter()
+    stats = stats if stats is not None else RunStats()
+    config = config if config is not None else default_config()
+    radar = config.radar
+    src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
+    track = track if isinstance(track, Track) else Track.from_csv(track)
+    body = src.body
+
+    rows, cols = src.lonlat_to_rowcol(track.lon_deg, track.lat_deg)
+    on_dem = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
+    if not on_dem.any():
+        raise TrackError(f"{track.source}: no trace lies over the DEM {src.path.name}; check lat/lon and the DEM's extent")
+    if not on_dem.all():
+        warnings.warn(
+            f"{track.source}: {int((~on_dem).sum())} of {len(track)} traces are not over the DEM; they are filled with NaN",
+            stacklevel=2,
+        )
+
+    kernel_offsets, kernel_weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
+    pad = int(kernel_offsets[-1])
+
+    window = read_track_window(src, track, on_dem, config, pad_samples=pad)
+    warn_holes(window)
+    t0 = time.perf_counter()
+    facets = build_facets(window)
+    stats.seconds_facets = time.perf_counter() - t0
+    stats.facets = len(facets)
+    stats.dem_window_shape = window.shape
+
+    ant = body.geodetic_to_ecef_m(track.lat_deg, track.lon_deg, track.alt_m) - facets.origin_m
+    h_nadir = window.bilinear_m(track.lon_deg, track.lat_deg)
+    below = np.flatnonzero(on_dem & (track.alt_m <= h_nadir))
+    if below.size:
+        i = below[0]
+        raise TrackError(
+            f"{track.source}: row {i + 2} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
+            f"({h_nadir[i]:.1f} m); expected the antenna above the surface"
+        )
+    nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S
+
+    idx = np.flatnonzero(on_dem)
+    ant_on = np.ascontiguousarray(ant[idx])
+    earliest_m = np.empty(idx.size)
+    kernels.earliest_range(
+        ant_on, facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets,
+        facets.pos_m, facets.normal, facets.e_col_m, facets.e_row_m, earliest_m,
+    )  # fmt: skip
+    earliest_delay = 2.0 * earliest_m / SPEED_OF_LIGHT_M_S
+    dt = radar.sample_interval_s
+    if radar.window_start_s == "auto":
+        start = earliest_delay - radar.auto_margin_samples * dt
+    else:
+        start = np.full(idx.size, float(radar.window_start_s))
+        end = start + radar.window_length_s
+        if np.all(end < earliest_delay):
+            raise GeometryError(
+                f"[radar] window_start_s = {radar.window_start_s!r}: the window ends at {end[0] * 1e6:.3f} µs, before "
+                f"the earliest surface echo ({earliest_delay.min() * 1e6:.3f} µs); expected a window that contains it"
+            )
+
+    nbins = radar.samples + 2 * pad
+    binned = np.zeros((idx.size, nbins))
+    bin0 = start - (pad + 0.5) * dt
+    law_p0, law_p1 = config.surface.kernel_params()
+    chunk = max(8, min(256, idx.size // 50 or 1))
+    t0 = time.perf_counter()
+    with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
+        for a in range(0, idx.size, chunk):
+            b = min(a + chunk, idx.size)
+            stats.facet_evaluations += kernels.accumulate_power(
+                ant_on[a:b], bin0[a:b], dt,
+                facets.tile_centre_m, facets.tile_radius_m, facets.tile_extent_m, facets.tile_offsets,
+                facets.pos_m, facets.normal, facets.e_col_m, facets.e_row_m, facets.area_m2,
+                config.surface.law_code, law_p0, law_p1, config.radar.radar_constant_w_m2(), binned[a:b],
+            )  # fmt: skip
+            bar.update(b - a)
+    stats.seconds_kernel = time.perf_counter() - t0
+    if not binned.any():
+        raise GeometryError(
+            "no surface echo falls inside the recording window of any trace; check [radar] window_start_s and samples"
+        )
+    compressed = convolve1d(binned, kernel_weights, axis=1, mode="constant")[:, pad : pad + radar.samples]
+
+    ntr = len(track)
+    power = np.full((ntr, radar.samples), np.nan)
+    power[idx] = compressed
+    window_start = np.full(ntr, np.nan)
+    window_start[idx] = start
+    earliest = np.full(ntr, np.nan)
+    earliest[idx] = earliest_delay
+    attrs = {
+        **flatten_config_attrs(config),
+        "dem_file": src.path.name,
+        **body.to_attrs(),
+        "cluttersim_version": __version__,
+        "title": "cluttersim synthetic surface-clutter radargram",
+        "facet_evaluations": stats.facet_evaluations,
+    }
+    ds = build_dataset(power, window_start, dt, track, nadir_delay, earliest, on_dem, attrs)
+    stats.seconds_total = time.perf_counter() - t_start
+    return ds
+
+
+# --------------------------------------------------------------------------- DEM window
+
+
+def ground_radius_m(body, alt_m, max_range_m, h_min_m: float, h_max_m: float) -> np.ndarray:
+    """Largest ground distance (m) from nadir at which terrain can reach ``max_range_m``.
+
+    On a sphere of radius Rp, a point at height h and central angle γ from the
+    antenna (height H) is at range R² = (Rp+H)² + (Rp+h)² − 2(Rp+H)(Rp+h)cos γ
+    (law of cosines). The bound uses the highest terrain (nearest possible)
+    and is capped by the horizon over which a peak of height ``h_max_m`` can
+    still be seen from above a surface at ``h_min_m``. A 2 % margin covers the
+    ellipsoid's departure from the sphere.
+    """
+    rp = body.semi_major_m
+    ra = rp + np.asarray(alt_m, dtype=np.float64)
+    rh = rp + h_max_m
+    cos_g = (ra**2 + rh**2 - np.asarray(max_range_m) ** 2) / (2.0 * ra * rh)
+    g_range = np.arccos(np.clip(cos_g, -1.0, 1.0))
+    rl = rp + h_min_m
+    g_horizon = np.arccos(np.clip(rl / ra, -1.0, 1.0)) + np.arccos(np.clip(rl / rh, -1.0, 1.0))
+    return 1.02 * rp * np.minimum(g_range, g_horizon)
+
+
+def _max_range_m(track: Track, config: SimulationConfig, h_min_m: float, pad_samples: int) -> np.ndarray:
+    """Upper bound of the range each trace's window can reach."""
+    radar = config.radar
+    extra = (pad_samples + 1) * radar.sample_interval_s
+    if radar.window_start_s == "auto":
+        # the earliest echo is never later than the nadir echo, which is at most alt - h_min away
+        end_s = 2.0 * (track.alt_m - h_min_m) / SPEED_OF_LIGHT_M_S + radar.window_length_s + extra
+    else:
+        end_s = np.full(len(track), radar.window_start_s + radar.window_length_s + extra)
+    return 0.5 * SPEED_OF_LIGHT_M_S * end_s
+
+
+def _window_for_radius(src: DemSource, track: Track, on_dem, radius_m: np.ndarray):
+    """DEM window holding every point within ``radius_m`` of the track's on-DEM traces."""
+    body = src.body
+    if np.max(radius_m) > 0.5 * math.pi * body.semi_minor_m:
+        return src.window_around([0, src.height - 1], [0, src.width - 1], pad=0)
+    idx = np.flatnonzero(on_dem)
+    step = max(1, idx.size // 400)
+    keep = np.unique(np.concatenate([idx[::step], idx[-1:]]))
+    az = np.linspace(0.0, 360.0, 24, endpoint=False)
+    lon0 = np.repeat(track.lon_deg[keep], az.size)
+    lat0 = np.repeat(track.lat_deg[keep], az.size)
+    lon, lat, _ = body.geod().fwd(lon0, lat0, np.tile(az, keep.size), np.repeat(radius_m[keep], az.size))
+    lon = np.concatenate([lon, track.lon_deg[idx]])
+    lat = np.concatenate([lat, track.lat_deg[idx]])
+    rows, cols = src.lonlat_to_rowcol(lon, lat)
+    return src.window_around(rows, cols, pad=2)
+
+
+def read_track_window(src: DemSource, track: Track, on_dem, config: SimulationConfig, pad_samples: int = 0) -> DemWindow:
+    """Read the part of the DEM whose echoes can fall inside any trace's window.
+
+    The needed ground radius depends on the terrain's height range, which is
+    not known before reading: it is estimated on decimated reads until stable,
+    then the full-resolution window is read (and widened if its true height
+    range asks for more).
+    """
+    h_lo = h_hi = 0.0
+    window = None
+    for _ in range(8):
+        radius = ground_radius_m(src.body, track.alt_m, _max_range_m(track, config, h_lo, pad_samples), h_lo, h_hi)
+        new = _window_for_radius(src, track, on_dem, radius)
+        if new is None:
+            raise TrackError(f"{track.source}: the track's footprint does not overlap the DEM {src.path.name}")
+        if window is not None and new == window:
+            break
+        window = new
+        shape = (min(window.height, _PREVIEW_CELLS), min(window.width, _PREVIEW_CELLS))
+        preview = src.read(window, out_shape=shape).elevation_m
+        if np.isnan(preview).all():
+            continue
+        lo, hi = float(np.nanmin(preview)), float(np.nanmax(preview))
+        margin = 0.05 * (hi - lo)
+        h_lo, h_hi = min(h_lo, lo - margin), max(h_hi, hi + margin)
+    for _ in range(4):
+        full = src.read(window)
+        if np.isnan(full.elevation_m).all():
+            return full  # build_facets reports the all-nodata window
+        lo, hi = float(np.nanmin(full.elevation_m)), float(np.nanmax(full.elevation_m))
+        if lo >= h_lo and hi <= h_hi:
+            return full
+        h_lo, h_hi = min(h_lo, lo), max(h_hi, hi)
+        radius = ground_radius_m(src.body, track.alt_m, _max_range_m(track, config, h_lo, pad_samples), h_lo, h_hi)
+        new = _window_for_radius(src, track, on_dem, radius)
+        if new == window:
+            return full
+        window = new
+    return src.read(window)

@@ -1,0 +1,157 @@
+"""Tracks: antenna positions along the ground track, read from CSV or planned.
+
+A track CSV has a header row and the columns ``lat`` and ``lon`` (degrees on
+the DEM's body), ``alt`` (metres above the same reference surface as the DEM
+heights) and optionally ``time`` (seconds). Other columns are ignored.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .body import Body
+from .errors import TrackError
+
+REQUIRED_COLUMNS = ("lat", "lon", "alt")
+
+
+@dataclass(frozen=True)
+class Track:
+    """Antenna positions, one per trace.
+
+    Attributes
+    ----------
+    lat_deg, lon_deg : ndarray
+        Geodetic latitude and longitude of the antenna, degrees.
+    alt_m : ndarray
+        Height above the body's reference surface, metres.
+    time_s : ndarray or None
+        Time of each trace, seconds (any epoch), if known.
+    source : str
+        Where the track came from (file name or description), for messages.
+    """
+
+    lat_deg: np.ndarray
+    lon_deg: np.ndarray
+    alt_m: np.ndarray
+    time_s: np.ndarray | None = None
+    source: str = "track"
+
+    def __post_init__(self):
+        n = len(self.lat_deg)
+        if n == 0:
+            raise TrackError(f"{self.source}: the track has no traces")
+        for name, values in (("lat", self.lat_deg), ("lon", self.lon_deg), ("alt", self.alt_m)):
+            if len(values) != n:
+                raise TrackError(f"{self.source}: column {name!r} has {len(values)} values, expected {n}")
+            bad = np.flatnonzero(~np.isfinite(values))
+            if bad.size:
+                raise TrackError(f"{self.source}: column {name!r} row {bad[0] + 1}: expected a finite number")
+        bad = np.flatnonzero(np.abs(self.lat_deg) > 90)
+        if bad.size:
+            raise TrackError(f"{self.source}: column 'lat' row {bad[0] + 1} = {self.lat_deg[bad[0]]}: expected -90..90 degrees")
+        if self.time_s is not None:
+            if len(self.time_s) != n:
+                raise TrackError(f"{self.source}: column 'time' has {len(self.time_s)} values, expected {n}")
+            steps = np.diff(self.time_s)
+            bad = np.flatnonzero(~(steps > 0))
+            if bad.size:
+                raise TrackError(f"{self.source}: column 'time' row {bad[0] + 2}: expected times increasing strictly")
+
+    def __len__(self) -> int:
+        return len(self.lat_deg)
+
+    @classmethod
+    def from_csv(cls, path) -> "Track":
+        """Read a track CSV (see module docstring)."""
+        path = Path(path)
+        try:
+            with open(path, newline="", encoding="utf-8") as fh:
+                reader = csv.reader(fh)
+                header = next(reader, None)
+                rows = list(reader)
+        except FileNotFoundError:
+            raise TrackError(f"{path}: track file not found") from None
+        except (OSError, UnicodeDecodeError, csv.Error) as exc:
+            raise TrackError(f"{path}: cannot read track CSV ({exc})") from None
+        if not header:
+            raise TrackError(f"{path}: empty file, expected a header with columns lat, lon, alt")
+        names = [h.strip().lower() for h in header]
+        missing = [c for c in REQUIRED_COLUMNS if c not in names]
+        if missing:
+            raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; expected lat, lon, alt (and optional time)")
+        wanted = list(REQUIRED_COLUMNS) + (["time"] if "time" in names else [])
+        cols = {c: np.empty(len(rows)) for c in wanted}
+        for r, row in enumerate(rows):
+            for c in wanted:
+                idx = names.index(c)
+                cell = row[idx].strip() if idx < len(row) else ""
+                try:
+                    cols[c][r] = float(cell)
+                except ValueError:
+                    raise TrackError(f"{path}: row {r + 2} column {c!r} = {cell!r}: expected a number") from None
+        return cls(
+            lat_deg=cols["lat"], lon_deg=cols["lon"], alt_m=cols["alt"], time_s=cols.get("time"), source=str(path)
+        )
+
+    def to_csv(self, path) -> None:
+        """Write the track as CSV (columns lat, lon, alt[, time]) to ``path``."""
+        with open(path, "w", newline="", encoding="utf-8") as fh:
+            writer = csv.writer(fh)
+            writer.writerow(["lat", "lon", "alt"] + (["time"] if self.time_s is not None else []))
+            for i in range(len(self)):
+                row = [f"{self.lat_deg[i]:.9f}", f"{self.lon_deg[i]:.9f}", f"{self.alt_m[i]:.3f}"]
+                if self.time_s is not None:
+                    row.append(f"{self.time_s[i]:.6f}")
+                writer.writerow(row)
+
+    def along_track_m(self, body: Body) -> np.ndarray:
+        """Cumulative geodesic distance of each trace's ground point from the first, metres."""
+        if len(self) == 1:
+            return np.zeros(1)
+        _, _, d = body.geod().inv(self.lon_deg[:-1], self.lat_deg[:-1], self.lon_deg[1:], self.lat_deg[1:])
+        return np.concatenate([[0.0], np.cumsum(d)])
+
+
+def great_circle_track(
+    body: Body,
+    start_lat_deg: float,
+    start_lon_deg: float,
+    end_lat_deg: float,
+    end_lon_deg: float,
+    alt_m: float,
+    spacing_m: float,
+    speed_m_s: float | None = None,
+) -> Track:
+    """A planned track along the geodesic (great circle on a sphere) between two points.
+
+    Traces are ``spacing_m`` apart along the geodesic of the body's ellipsoid,
+    starting at the first point; the last trace is the last one that fits
+    before the end point. With ``speed_m_s``, a ``time`` column (s from the
+    first trace) is added at that ground speed.
+    """
+    for name, lat in (("start latitude", start_lat_deg), ("end latitude", end_lat_deg)):
+        if not -90 <= lat <= 90:
+            raise TrackError(f"{name} {lat}: expected -90..90 degrees")
+    if not (math.isfinite(spacing_m) and spacing_m > 0):
+        raise TrackError(f"trace spacing {spacing_m} m: expected a positive distance")
+    if not math.isfinite(alt_m):
+        raise TrackError(f"altitude {alt_m} m: expected a number")
+    geod = body.geod()
+    az, _, length = geod.inv(start_lon_deg, start_lat_deg, end_lon_deg, end_lat_deg)
+    if length == 0:
+        raise TrackError("start and end points coincide: expected two distinct points")
+    n = int(math.floor(length / spacing_m + 1e-9)) + 1
+    if n > 10_000_000:
+        raise TrackError(f"trace spacing {spacing_m} m gives {n} traces: expected at most 10,000,000")
+    dist = np.arange(n) * spacing_m
+    lon, lat, _ = geod.fwd(np.full(n, start_lon_deg), np.full(n, start_lat_deg), np.full(n, az), dist)
+    time = dist / speed_m_s if speed_m_s else None
+    return Track(
+        lat_deg=np.asarray(lat), lon_deg=np.asarray(lon), alt_m=np.full(n, float(alt_m)), time_s=time, source="planned track"
+    )
