@@ -18,7 +18,7 @@ from .dem import DemWindow
 from .errors import DemError
 
 #: Side of a culling tile, in DEM cells.
-TILE_CELLS = 32
+TILE_CELLS = 16
 
 
 @dataclass(frozen=True)

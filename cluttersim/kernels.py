@@ -32,7 +32,7 @@ _sigma0_hagfors = numba.njit(**_JIT)(scattering.sigma0_hagfors)
 _sigma0_gaussian = numba.njit(**_JIT)(scattering.sigma0_gaussian)
 
 
-@numba.njit(**_JIT)
+@numba.njit(inline="always", **_JIT)
 def sigma0_by_code(code, cos_inc, p0, p1):
     """σ0 of the law with numeric ``code`` (see :data:`cluttersim.scattering.LAWS`)."""
     if code == 3:
@@ -187,7 +187,7 @@ def _ramp2(t):
     return t * t if t > 0.0 else 0.0
 
 
-@numba.njit(**_JIT)
+@numba.njit(inline="always", **_JIT)
 def trapezoid_cdf(z, wa, wb):
     """CDF at offset ``z`` of the sum of two centred uniform variables of widths wa ≥ wb.
 
@@ -206,7 +206,7 @@ def trapezoid_cdf(z, wa, wb):
     return min(max(f, 0.0), 1.0)
 
 
-@numba.njit(**_JIT)
+@numba.njit(inline="always", **_JIT)
 def spread_into_bins(row, x, wa, wb, p):
     """Add power ``p`` to ``row`` spread over bins by the trapezoid centred at bin coordinate ``x``.
 
@@ -234,6 +234,73 @@ def spread_into_bins(row, x, wa, wb, p):
         f = 1.0 if k == k1 else trapezoid_cdf(k + 1 - x, wa, wb)
         row[k] += p * (f - prev)
         prev = f
+
+
+#: Facets whose delay extent (wa + wb) exceeds this many bins are spread through the
+#: second-difference accumulator (constant cost) instead of bin by bin.
+WIDE_FACET_BINS = 3.0
+#: Smallest projected width (bins) used for a wide facet's narrow side; keeps the
+#: accumulator's weights bounded (a 0.1-bin box is far below the pulse width).
+_MIN_NARROW_BINS = 0.1
+
+
+@numba.njit(inline="always", **_JIT)
+def _add_corner(dd, c, w):
+    """Add w·[G(k+1−c) − G(k−c)], G(t) = max(t, 0)², for every bin k, as second differences.
+
+    For k = floor(c) the term is (1 − f)², beyond it 2(k − c) + 1 (f = c − floor c):
+    three impulses in ``dd``; a corner before bin 0 leaves only its linear part.
+    """
+    nb = dd.shape[0]
+    m = int(math.floor(c))
+    if m >= nb:
+        return
+    if m < 0:
+        dd[0] += w * (1.0 - 2.0 * c)
+        if nb > 1:
+            dd[1] += w * (1.0 + 2.0 * c)
+        return
+    f = c - m
+    dd[m] += w * (1.0 - f) * (1.0 - f)
+    if m + 1 < nb:
+        dd[m + 1] += w * (1.0 + 2.0 * f - 2.0 * f * f)
+    if m + 2 < nb:
+        dd[m + 2] += w * f * f
+
+
+@numba.njit(inline="always", **_JIT)
+def spread_wide(dd, x, wa, wb, p):
+    """Accumulate a wide facet's trapezoid (see :func:`trapezoid_cdf`) into second differences ``dd``.
+
+    Bin k receives p [F(k+1) − F(k)] with F the trapezoid's CDF, a sum of four
+    shifted G(t) = max(t, 0)² terms, each of which is three impulses in the
+    second difference: cost independent of the facet's width. Two running sums
+    (:func:`integrate_second_differences`) turn ``dd`` into power per bin.
+    """
+    if wa < wb:
+        wa, wb = wb, wa
+    wb = max(wb, _MIN_NARROW_BINS)
+    s = 0.5 * (wa + wb)
+    if x + s < 0.0 or x - s >= dd.shape[0]:
+        return
+    d = 0.5 * (wa - wb)
+    w = p / (2.0 * wa * wb)
+    _add_corner(dd, x - s, w)
+    _add_corner(dd, x - d, -w)
+    _add_corner(dd, x + d, -w)
+    _add_corner(dd, x + s, w)
+
+
+@numba.njit(**_JIT)
+def integrate_second_differences(dd, row):
+    """row[k] += max(0, Σ_{j≤k} Σ_{i≤j} dd[i]) (two running sums; tiny negative round-off clipped)."""
+    s1 = 0.0
+    s2 = 0.0
+    for k in range(row.shape[0]):
+        s1 += dd[k]
+        s2 += s1
+        if s2 > 0.0:
+            row[k] += s2
 
 
 # --------------------------------------------------------------------------- per-trace kernels
@@ -313,7 +380,7 @@ def accumulate_power(
         P = Pt G² λ² σ0(θ) A / ((4π)³ R⁴) = power_const · σ0(θ) A / R⁴
 
     is spread over the delay bins its range extent covers
-    (:func:`spread_into_bins`). Facets seen from behind contribute nothing.
+    (:func:`spread_into_bins` for narrow facets, :func:`spread_wide` for wide ones). Facets seen from behind contribute nothing.
     Tiles whose bounding sphere cannot reach the window are skipped whole.
     ``out`` (ntrace, nbins) is accumulated into (not cleared); returns the
     number of facet evaluations performed.
@@ -330,6 +397,7 @@ def accumulate_power(
         r_lo = bin0_s[t] * half_c
         r_hi = (bin0_s[t] + nb * dt_s) * half_c
         row = out[t]
+        dd = np.zeros(nb)
         n_eval = 0
         for m in range(ntile):
             rad = tile_radius[m]
@@ -363,6 +431,10 @@ def accumulate_power(
                 wa = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) * inv_bin_m
                 wb = abs(ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]) * inv_bin_m
                 x = (r * inv_bin_m) - bin0_s[t] / dt_s
-                spread_into_bins(row, x, wa, wb, p)
+                if wa + wb > WIDE_FACET_BINS:
+                    spread_wide(dd, x, wa, wb, p)
+                else:
+                    spread_into_bins(row, x, wa, wb, p)
+        integrate_second_differences(dd, row)
         counts[t] = n_eval
     return counts.sum()

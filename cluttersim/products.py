@@ -53,7 +53,10 @@ def write_run(ds, src: DemSource, paths: dict[str, Path]) -> None:
         write_netcdf_to(ds, tmp["radargram"])
         plots.plot_radargram(ds, tmp["radargram_png"], title=f"simulated clutter — {src.path.name}")
         elevation, extent, tx, ty, labels = track_map_data(src, ds)
-        plots.plot_track_map(elevation, extent, tx, ty, tmp["track_map"], title=f"track over {src.path.name}", axis_labels=labels)
+        plots.plot_track_map(
+            elevation, extent, tx, ty, tmp["track_map"],
+            title=f"track over {src.path.name}", axis_labels=labels, geographic=src.is_geographic,
+        )  # fmt: skip
 
 
 def track_map_data(src: DemSource, ds):

@@ -57,7 +57,8 @@ def sigma0_hagfors(cos_inc, c, rho):
     """
     cos2 = cos_inc * cos_inc
     sin2 = 1.0 - cos2
-    return 0.5 * c * rho * (cos2 * cos2 + c * sin2) ** -1.5
+    v = cos2 * cos2 + c * sin2
+    return 0.5 * c * rho / (v * np.sqrt(v))
 
 
 def sigma0_gaussian(cos_inc, rms_slope_deg, rho):
