@@ -117,7 +117,7 @@ def simulate(
     if below.size:
         i = below[0]
         raise TrackError(
-            f"{track.source}: row {i + 2} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
+            f"{track.source}: row {i + 1} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
             f"({h_nadir[i]:.1f} m); expected the antenna above the surface"
         )
     nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S

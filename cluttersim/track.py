@@ -3,6 +3,7 @@
 A track CSV has a header row and the columns ``lat`` and ``lon`` (degrees on
 the DEM's body), ``alt`` (metres above the same reference surface as the DEM
 heights) and optionally ``time`` (seconds). Other columns are ignored.
+Messages count data rows from 1, after the header.
 """
 
 from __future__ import annotations
@@ -94,7 +95,7 @@ class Track:
                 try:
                     cols[c][r] = float(cell)
                 except ValueError:
-                    raise TrackError(f"{path}: row {r + 2} column {c!r} = {cell!r}: expected a number") from None
+                    raise TrackError(f"{path}: row {r + 1} column {c!r} = {cell!r}: expected a number") from None
         return cls(
             lat_deg=cols["lat"], lon_deg=cols["lon"], alt_m=cols["alt"], time_s=cols.get("time"), source=str(path)
         )

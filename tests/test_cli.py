@@ -98,7 +98,7 @@ BAD_CASES = {
     "non-numeric": (
         lambda d, dem, tr, ra: ["--dem", dem, "--track", _bad(d, "t.csv", "lat,lon,alt\n0,0,abc\n")],
         1,
-        "row 2 column 'alt' = 'abc': expected a number",
+        "row 1 column 'alt' = 'abc': expected a number",
     ),
     "outside DEM": (
         lambda d, dem, tr, ra: ["--dem", dem, "--track", _bad(d, "t.csv", "lat,lon,alt\n30,30,250000\n31,30,250000\n")],
@@ -108,7 +108,7 @@ BAD_CASES = {
     "below terrain": (
         lambda d, dem, tr, ra: ["--dem", dem, "--track", _bad(d, "t.csv", "lat,lon,alt\n0,0.25,250000\n0,0.25,500\n")],
         1,
-        "row 3 alt = 500.0 m is at or below the terrain",
+        "row 2 alt = 500.0 m is at or below the terrain",
     ),
     "zero frequency": (
         lambda d, dem, tr, ra: ["--dem", dem, "--track", tr, "--radar", _bad(d, "r.toml", "[radar]\ncenter_frequency_hz = 0\n")],
