@@ -352,9 +352,15 @@ def earliest_range(ant, tile_centre, tile_radius, tile_offsets, pos, normal, e_c
         out[t] = best
 
 
+#: Side codes of the source record: within the nadir strip, left or right of the track.
+SIDE_NADIR, SIDE_LEFT, SIDE_RIGHT = 0, 1, 2
+
+
 @numba.njit(parallel=True, **_JIT)
 def accumulate_power(
     ant,
+    right_unit,
+    strip_half_m,
     bin0_s,
     dt_s,
     tile_centre,
@@ -371,6 +377,7 @@ def accumulate_power(
     p1,
     power_const,
     out,
+    best_facet,
 ):
     """Received power per delay bin from every facet, one trace per thread.
 
@@ -380,13 +387,23 @@ def accumulate_power(
         P = Pt G² λ² σ0(θ) A / ((4π)³ R⁴) = power_const · σ0(θ) A / R⁴
 
     is spread over the delay bins its range extent covers
-    (:func:`spread_into_bins` for narrow facets, :func:`spread_wide` for wide ones). Facets seen from behind contribute nothing.
-    Tiles whose bounding sphere cannot reach the window are skipped whole.
-    ``out`` (ntrace, nbins) is accumulated into (not cleared); returns the
-    number of facet evaluations performed.
+    (:func:`spread_into_bins` for narrow facets, :func:`spread_wide` for wide ones).
+    Facets seen from behind contribute nothing. Tiles whose bounding sphere
+    cannot reach the window are skipped whole.
+
+    ``out`` has shape (ntrace, nside, nbins) and is accumulated into. With
+    ``nside == 3`` each facet's power goes to the row of its side
+    (:data:`SIDE_NADIR` when its cross-track offset ``(P − A)·right_unit[t]`` is
+    within ``strip_half_m[t]``, else :data:`SIDE_LEFT` / :data:`SIDE_RIGHT`), and
+    ``best_facet`` (ntrace, nbins) receives, per bin, the facet with the largest
+    power density there (−1 where none). With ``nside == 1`` neither is
+    tracked and ``best_facet`` may be empty. Returns the number of facet
+    evaluations.
     """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
-    nb = out.shape[1]
+    nside = out.shape[1]
+    nb = out.shape[2]
+    attribute = nside == 3
     ntile = tile_radius.shape[0]
     inv_bin_m = 1.0 / (half_c * dt_s)
     counts = np.zeros(ant.shape[0], dtype=np.int64)
@@ -394,10 +411,14 @@ def accumulate_power(
         ax = ant[t, 0]
         ay = ant[t, 1]
         az = ant[t, 2]
+        cx = right_unit[t, 0]
+        cy = right_unit[t, 1]
+        cz = right_unit[t, 2]
+        strip = strip_half_m[t]
         r_lo = bin0_s[t] * half_c
         r_hi = (bin0_s[t] + nb * dt_s) * half_c
-        row = out[t]
-        dd = np.zeros(nb)
+        dd = np.zeros((nside, nb))
+        best_val = np.zeros(nb if attribute else 0)
         n_eval = 0
         for m in range(ntile):
             rad = tile_radius[m]
@@ -431,10 +452,57 @@ def accumulate_power(
                 wa = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) * inv_bin_m
                 wb = abs(ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]) * inv_bin_m
                 x = (r * inv_bin_m) - bin0_s[t] / dt_s
+                side = 0
+                if attribute:
+                    cross = vx * cx + vy * cy + vz * cz
+                    if cross > strip:
+                        side = SIDE_RIGHT
+                    elif cross < -strip:
+                        side = SIDE_LEFT
+                    _track_best(best_val, best_facet[t], x, wa, wb, p, f)
                 if wa + wb > WIDE_FACET_BINS:
-                    spread_wide(dd, x, wa, wb, p)
+                    spread_wide(dd[side], x, wa, wb, p)
                 else:
-                    spread_into_bins(row, x, wa, wb, p)
-        integrate_second_differences(dd, row)
+                    spread_into_bins(out[t, side], x, wa, wb, p)
+        for q in range(nside):
+            integrate_second_differences(dd[q], out[t, q])
         counts[t] = n_eval
     return counts.sum()
+
+
+@numba.njit(inline="always", **_JIT)
+def _track_best(best_val, best_row, x, wa, wb, p, f):
+    """Make facet ``f`` the source of the bins it covers where its power density
+    p / max(wa, wb, 1) (power per bin at the trapezoid's plateau) is the largest so far."""
+    nb = best_val.shape[0]
+    half = 0.5 * (wa + wb)
+    k0 = max(int(math.floor(x - half)), 0)
+    k1 = min(int(math.floor(x + half)), nb - 1)
+    density = p / max(wa, wb, 1.0)
+    for k in range(k0, k1 + 1):
+        if density > best_val[k]:
+            best_val[k] = density
+            best_row[k] = f
+
+
+@numba.njit(parallel=True, **_JIT)
+def dominant_source(binned, best_facet, weights, first, nsamples, out):
+    """Per output sample, the facet of the binned sample that contributes most to it after
+    convolution with the pulse ``weights`` (centred): argmax_j binned[j] · w[k − j].
+
+    ``binned`` (ntrace, nbins) is total power before convolution; output sample
+    ``s`` is bin ``first + s``. ``out`` (ntrace, nsamples) gets facet indices (−1: none).
+    """
+    half = weights.shape[0] // 2
+    nb = binned.shape[1]
+    for t in numba.prange(binned.shape[0]):
+        for s in range(nsamples):
+            k = first + s
+            best = 0.0
+            src = -1
+            for j in range(max(k - half, 0), min(k + half + 1, nb)):
+                v = binned[t, j] * weights[half + k - j]
+                if v > best and best_facet[t, j] >= 0:
+                    best = v
+                    src = best_facet[t, j]
+            out[t, s] = src

@@ -54,6 +54,34 @@ def range_resolution_m(bandwidth_hz: float) -> float:
     return SPEED_OF_LIGHT_M_S / (2.0 * bandwidth_hz)
 
 
+def pulse_limited_radius_m(height_m, bandwidth_hz: float, body_radius_m: float = math.inf):
+    """Radius of the pulse-limited footprint over a level surface, in metres.
+
+    r = sqrt(2 h ΔR / (1 + h/Rp)), ΔR = c/(2B) the range resolution, h the height
+    above the surface and Rp the body's radius (Chelton, Walsh & MacArthur 1989,
+    J. Atmos. Oceanic Technol. 6(3), eq. 2, with cτ = 2ΔR): the ground radius
+    within which echoes arrive less than one range cell after the nadir echo.
+    """
+    h = np.asarray(height_m, dtype=np.float64)
+    return np.sqrt(2.0 * h * range_resolution_m(bandwidth_hz) / (1.0 + h / body_radius_m))
+
+
+def apparent_depth_m(delay_after_surface_s, permittivity: float = 3.15):
+    """Depth below the surface at which an echo delayed by Δt would lie in a medium
+    of real relative permittivity ε′: d = c Δt / (2 √ε′) (common practice; ε′ = 3.15
+    is water ice). With ε′ = 1 this is the extra free-space range c Δt / 2."""
+    if not permittivity >= 1.0:
+        raise ValueError(f"permittivity {permittivity!r}: expected a real relative permittivity >= 1")
+    return SPEED_OF_LIGHT_M_S * np.asarray(delay_after_surface_s, dtype=np.float64) / (2.0 * math.sqrt(permittivity))
+
+
+def delay_after_surface_s(depth_m, permittivity: float = 3.15):
+    """Inverse of :func:`apparent_depth_m`: Δt = 2 d √ε′ / c in seconds."""
+    if not permittivity >= 1.0:
+        raise ValueError(f"permittivity {permittivity!r}: expected a real relative permittivity >= 1")
+    return 2.0 * np.asarray(depth_m, dtype=np.float64) * math.sqrt(permittivity) / SPEED_OF_LIGHT_M_S
+
+
 def radar_equation_power_w(transmit_power_w, gain_linear, wavelength_m_, sigma_m2, range_m):
     """Monostatic radar equation ([1]_): Pr = Pt G² λ² σ / ((4π)³ R⁴), in watts."""
     return transmit_power_w * gain_linear**2 * wavelength_m_**2 * sigma_m2 / ((4.0 * math.pi) ** 3 * np.asarray(range_m) ** 4)

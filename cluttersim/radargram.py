@@ -20,6 +20,18 @@ variable               dims             units meaning
 ``time``               trace            s     trace time, when the track has one
 =====================  ===============  ====  ==============================================
 
+With the source record (the default) also:
+
+=========================  ==============  ====  ===========================================
+``source_lat``,            trace, sample   deg   position of the facet contributing most power
+``source_lon``                                   to the sample (NaN: none)
+``left_fraction``,         trace, sample   1     share of the sample's power from left / right
+``right_fraction``                               of the track (the rest: the nadir strip)
+``first_return_delay``     trace           s     absolute two-way delay of the first return
+``first_return_lat/lon``   trace           deg   its source
+``first_return_offnadir``  trace           m     its ground distance from nadir
+=========================  ==============  ====  ===========================================
+
 Global attributes hold the full radar and surface configuration (flattened as
 ``radar_<key>`` / ``surface_<key>`` and as JSON in ``cluttersim_config``), the
 DEM file name, the body and the package version.
@@ -46,6 +58,7 @@ def build_dataset(
     earliest_echo_delay_s,
     on_dem,
     attrs: dict,
+    extra: dict | None = None,
 ) -> xr.Dataset:
     """Assemble the radargram Dataset (see module docstring for the contract)."""
     ntrace, nsample = power_w.shape
@@ -69,6 +82,8 @@ def build_dataset(
     }
     for name, (values, units, long_name) in trace_vars.items():
         data_vars[name] = ("trace", np.asarray(values), {"units": units, "long_name": long_name})
+    for name, (dims, values, units, long_name) in (extra or {}).items():
+        data_vars[name] = (dims, values, {"units": units, "long_name": long_name})
     coords = {
         "trace": ("trace", np.arange(ntrace), {"long_name": "trace index along the track"}),
         "delay": (
@@ -102,7 +117,11 @@ def write_netcdf(ds: xr.Dataset, path, *, overwrite: bool = False) -> Path:
 
 def write_netcdf_to(ds: xr.Dataset, path) -> None:
     """Write without the overwrite/atomic checks (the caller handles them)."""
-    encoding = {"power": {"zlib": True, "complevel": 4, "shuffle": True}}
+    encoding = {
+        name: {"zlib": True, "complevel": 4, "shuffle": True}
+        for name in ("power", "source_lat", "source_lon", "left_fraction", "right_fraction")
+        if name in ds
+    }
     ds.to_netcdf(path, engine="h5netcdf", encoding=encoding, format="NETCDF4")
 
 

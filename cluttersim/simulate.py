@@ -18,7 +18,6 @@ import math
 import time
 import warnings
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import xarray as xr
@@ -31,7 +30,8 @@ from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
-from .radar import pulse_power_kernel
+from .attribution import first_return, right_unit_vectors, side_fractions
+from .radar import pulse_limited_radius_m, pulse_power_kernel
 from .radargram import build_dataset, flatten_config_attrs
 from .track import Track
 
@@ -59,6 +59,9 @@ def simulate(
     body_radius_m: float | None = None,
     progress: bool = False,
     stats: RunStats | None = None,
+    sources: bool = True,
+    nadir_strip_m: float | None = None,
+    first_return_db: float = -20.0,
 ) -> xr.Dataset:
     """Simulate the surface-clutter radargram of a track over a DEM.
 
@@ -76,6 +79,15 @@ def simulate(
         Show a progress bar (appears only if the run lasts more than a second).
     stats : RunStats, optional
         Filled in with counters and timings.
+    sources : bool
+        Keep the per-sample source record (``source_lat``, ``source_lon``,
+        ``left_fraction``, ``right_fraction``) and the first return; off saves
+        memory and about a third of the kernel time.
+    nadir_strip_m : float, optional
+        Half-width (m, cross-track) of the nadir strip; default the
+        pulse-limited footprint radius of each trace.
+    first_return_db : float
+        Threshold, relative to the nadir echo's power, of the first return.
 
     Returns
     -------
@@ -89,6 +101,114 @@ def simulate(
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
     body = src.body
+    scene = prepare_scene(src, track, config, stats)
+    facets, window, idx, pad = scene.facets, scene.window, scene.idx, scene.pad
+    kernel_weights, start, h_nadir = scene.pulse_weights, scene.start_s, scene.h_nadir_m
+    nadir_delay, earliest_delay, on_dem = scene.nadir_delay_s, scene.earliest_delay_s, scene.on_dem
+    ant_on = np.ascontiguousarray(scene.ant_m[idx])
+    dt = radar.sample_interval_s
+
+    nbins = radar.samples + 2 * pad
+    bin0 = start - (pad + 0.5) * dt
+    law_p0, law_p1 = config.surface.kernel_params()
+    ntr = len(track)
+    right_unit = right_unit_vectors(body, track)[idx]
+    strip_m = nadir_strip_m
+    if strip_m is None:
+        strip_m = pulse_limited_radius_m(np.nan_to_num(track.alt_m - h_nadir)[idx], radar.bandwidth_hz, body.mean_radius_m)
+    strip_m = np.broadcast_to(np.asarray(strip_m, dtype=np.float64), (idx.size,)).copy()
+    nside = 3 if sources else 1
+    mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
+
+    power = np.full((ntr, radar.samples), np.nan, dtype=np.float32)
+    record = SourceRecord.empty(ntr, radar.samples) if sources else None
+    chunk = max(8, min(256, idx.size // 50 or 1))
+    t0 = time.perf_counter()
+    with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
+        for a in range(0, idx.size, chunk):
+            b = min(a + chunk, idx.size)
+            binned = np.zeros((b - a, nside, nbins))
+            best = np.full((b - a, nbins) if sources else (0, 0), -1, dtype=np.int32)
+            stats.facet_evaluations += kernels.accumulate_power(
+                ant_on[a:b], right_unit[a:b], strip_m[a:b], bin0[a:b], dt,
+                facets.tile_centre_m, facets.tile_radius_m, facets.tile_extent_m, facets.tile_offsets,
+                facets.pos_m, facets.normal, facets.e_col_m, facets.e_row_m, facets.area_m2,
+                config.surface.law_code, law_p0, law_p1, config.radar.radar_constant_w_m2(), binned, best,
+            )  # fmt: skip
+            total = binned.sum(axis=1)
+            rows = idx[a:b]
+            compressed = _compress(total, kernel_weights, pad, radar.samples)
+            power[rows] = compressed
+            if sources:
+                record.add(rows, binned, best, compressed, kernel_weights, pad, radar.samples, _compress)
+            bar.update(b - a)
+    stats.seconds_kernel = time.perf_counter() - t0
+    if not np.nanmax(power, initial=0.0) > 0:
+        raise GeometryError(
+            "no surface echo falls inside the recording window of any trace; check [radar] window_start_s and samples"
+        )
+
+    window_start = np.full(ntr, np.nan)
+    window_start[idx] = start
+    earliest = np.full(ntr, np.nan)
+    earliest[idx] = earliest_delay
+    extra = {}
+    if sources:
+        extra = record.to_variables(facets, window, body, track, power, window_start, nadir_delay, dt, first_return_db, mainlobe)
+    attrs = {
+        **flatten_config_attrs(config),
+        "dem_file": src.path.name,
+        "dem_path": str(src.path.resolve()),
+        **body.to_attrs(),
+        "cluttersim_version": __version__,
+        "title": "cluttersim synthetic surface-clutter radargram",
+        "facet_evaluations": stats.facet_evaluations,
+    }
+    if sources:
+        attrs["first_return_threshold_db"] = first_return_db
+        attrs["nadir_strip"] = "pulse-limited footprint radius" if nadir_strip_m is None else f"{nadir_strip_m} m"
+    ds = build_dataset(power, window_start, dt, track, nadir_delay, earliest, on_dem, attrs, extra)
+    stats.seconds_total = time.perf_counter() - t_start
+    return ds
+
+
+# --------------------------------------------------------------------------- DEM window
+
+
+@dataclass
+class Scene:
+    """Everything a track over a DEM needs before the per-facet kernels run.
+
+    Arrays named ``*_s`` over the traces on the DEM (``idx``) hold their window
+    start and earliest echo; ``ant_m`` holds every trace's antenna position
+    relative to ``facets.origin_m``.
+    """
+
+    src: DemSource
+    track: Track
+    config: SimulationConfig
+    window: DemWindow
+    facets: Facets
+    ant_m: np.ndarray
+    on_dem: np.ndarray
+    idx: np.ndarray
+    h_nadir_m: np.ndarray
+    nadir_delay_s: np.ndarray
+    earliest_delay_s: np.ndarray
+    start_s: np.ndarray
+    pad: int
+    pulse_weights: np.ndarray
+
+
+def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats: RunStats | None = None) -> Scene:
+    """Read the DEM window a track needs, build its facets and each trace's recording window.
+
+    Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
+    below the terrain, or windows that cannot hold any surface echo.
+    """
+    stats = stats if stats is not None else RunStats()
+    radar = config.radar
+    body = src.body
 
     rows, cols = src.lonlat_to_rowcol(track.lon_deg, track.lat_deg)
     on_dem = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
@@ -97,7 +217,7 @@ def simulate(
     if not on_dem.all():
         warnings.warn(
             f"{track.source}: {int((~on_dem).sum())} of {len(track)} traces are not over the DEM; they are filled with NaN",
-            stacklevel=2,
+            stacklevel=3,
         )
 
     kernel_offsets, kernel_weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
@@ -142,50 +262,70 @@ def simulate(
                 f"the earliest surface echo ({earliest_delay.min() * 1e6:.3f} µs); expected a window that contains it"
             )
 
-    nbins = radar.samples + 2 * pad
-    binned = np.zeros((idx.size, nbins))
-    bin0 = start - (pad + 0.5) * dt
-    law_p0, law_p1 = config.surface.kernel_params()
-    chunk = max(8, min(256, idx.size // 50 or 1))
-    t0 = time.perf_counter()
-    with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
-        for a in range(0, idx.size, chunk):
-            b = min(a + chunk, idx.size)
-            stats.facet_evaluations += kernels.accumulate_power(
-                ant_on[a:b], bin0[a:b], dt,
-                facets.tile_centre_m, facets.tile_radius_m, facets.tile_extent_m, facets.tile_offsets,
-                facets.pos_m, facets.normal, facets.e_col_m, facets.e_row_m, facets.area_m2,
-                config.surface.law_code, law_p0, law_p1, config.radar.radar_constant_w_m2(), binned[a:b],
-            )  # fmt: skip
-            bar.update(b - a)
-    stats.seconds_kernel = time.perf_counter() - t0
-    if not binned.any():
-        raise GeometryError(
-            "no surface echo falls inside the recording window of any trace; check [radar] window_start_s and samples"
+    return Scene(
+        src=src, track=track, config=config, window=window, facets=facets, ant_m=ant, on_dem=on_dem, idx=idx,
+        h_nadir_m=h_nadir, nadir_delay_s=nadir_delay, earliest_delay_s=earliest_delay, start_s=start,
+        pad=pad, pulse_weights=kernel_weights,
+    )  # fmt: skip
+
+
+def _compress(binned, weights, pad, samples):
+    """Convolve binned power with the compressed-pulse power response and crop to the window."""
+    return convolve1d(binned, weights, axis=-1, mode="constant")[..., pad : pad + samples]
+
+
+@dataclass
+class SourceRecord:
+    """The per-sample source record while traces are being simulated (bounded: float32/int32)."""
+
+    left: np.ndarray
+    right: np.ndarray
+    facet: np.ndarray
+
+    @classmethod
+    def empty(cls, ntrace: int, nsamples: int) -> "SourceRecord":
+        return cls(
+            left=np.full((ntrace, nsamples), np.nan, dtype=np.float32),
+            right=np.full((ntrace, nsamples), np.nan, dtype=np.float32),
+            facet=np.full((ntrace, nsamples), -1, dtype=np.int32),
         )
-    compressed = convolve1d(binned, kernel_weights, axis=1, mode="constant")[:, pad : pad + radar.samples]
 
-    ntr = len(track)
-    power = np.full((ntr, radar.samples), np.nan)
-    power[idx] = compressed
-    window_start = np.full(ntr, np.nan)
-    window_start[idx] = start
-    earliest = np.full(ntr, np.nan)
-    earliest[idx] = earliest_delay
-    attrs = {
-        **flatten_config_attrs(config),
-        "dem_file": src.path.name,
-        **body.to_attrs(),
-        "cluttersim_version": __version__,
-        "title": "cluttersim synthetic surface-clutter radargram",
-        "facet_evaluations": stats.facet_evaluations,
-    }
-    ds = build_dataset(power, window_start, dt, track, nadir_delay, earliest, on_dem, attrs)
-    stats.seconds_total = time.perf_counter() - t_start
-    return ds
+    def add(self, rows, binned, best, total, weights, pad, samples, compress) -> None:
+        left = compress(binned[:, kernels.SIDE_LEFT], weights, pad, samples)
+        right = compress(binned[:, kernels.SIDE_RIGHT], weights, pad, samples)
+        self.left[rows], self.right[rows] = side_fractions(left, right, total)
+        facet = np.empty((len(rows), samples), dtype=np.int32)
+        kernels.dominant_source(binned.sum(axis=1), best, weights, pad, samples, facet)
+        self.facet[rows] = facet
 
-
-# --------------------------------------------------------------------------- DEM window
+    def to_variables(self, facets, window, body, track, power, window_start, nadir_delay, dt, threshold_db, mainlobe):
+        """The Dataset variables of the source record and the first return."""
+        lon_grid, lat_grid = window.cell_lonlat()
+        cell = facets.cell[np.maximum(self.facet, 0)]
+        none = self.facet < 0
+        src_lat = np.where(none, np.nan, lat_grid.ravel()[cell]).astype(np.float32)
+        src_lon = np.where(none, np.nan, lon_grid.ravel()[cell]).astype(np.float32)
+        fr_delay, fr_sample = first_return(power, window_start, nadir_delay, dt, threshold_db, mainlobe)
+        has = fr_sample >= 0
+        rows = np.flatnonzero(has)
+        fr_lat = np.full(len(track), np.nan)
+        fr_lon = np.full(len(track), np.nan)
+        fr_lat[rows] = src_lat[rows, fr_sample[rows]]
+        fr_lon[rows] = src_lon[rows, fr_sample[rows]]
+        fr_dist = np.full(len(track), np.nan)
+        ok = np.isfinite(fr_lat)
+        if ok.any():
+            _, _, fr_dist[ok] = body.geod().inv(track.lon_deg[ok], track.lat_deg[ok], fr_lon[ok], fr_lat[ok])
+        return {
+            "source_lat": (("trace", "sample"), src_lat, "degrees_north", "latitude of the facet contributing most power"),
+            "source_lon": (("trace", "sample"), src_lon, "degrees_east", "longitude of the facet contributing most power"),
+            "left_fraction": (("trace", "sample"), self.left, "1", "share of the sample's power from left of the track"),
+            "right_fraction": (("trace", "sample"), self.right, "1", "share of the sample's power from right of the track"),
+            "first_return_delay": ("trace", fr_delay, "s", "absolute two-way delay of the first return"),
+            "first_return_lat": ("trace", fr_lat, "degrees_north", "latitude of the first return's source"),
+            "first_return_lon": ("trace", fr_lon, "degrees_east", "longitude of the first return's source"),
+            "first_return_offnadir": ("trace", fr_dist, "m", "ground distance of the first return's source from nadir"),
+        }
 
 
 def ground_radius_m(body, alt_m, max_range_m, h_min_m: float, h_max_m: float) -> np.ndarray:
