@@ -506,3 +506,71 @@ def dominant_source(binned, best_facet, weights, first, nsamples, out):
                     best = v
                     src = best_facet[t, j]
             out[t, s] = src
+
+
+@numba.njit(inline="always", **_JIT)
+def _window_fraction(x, wa, wb, lo, hi):
+    """Share of a facet's trapezoidal delay distribution (centre x, widths wa, wb; bin
+    units) that falls in [lo, hi)."""
+    if wa < wb:
+        wa, wb = wb, wa
+    if wa < 1e-9:
+        return 1.0 if lo <= x < hi else 0.0
+    return trapezoid_cdf(hi - x, wa, wb) - trapezoid_cdf(lo - x, wa, wb)
+
+
+@numba.njit(parallel=True, **_JIT)
+def facet_power_in_windows(
+    ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile_extent, tile_offsets,
+    pos, normal, e_col, e_row, area, law_code, p0, p1, power_const, out,
+):  # fmt: skip
+    """Power each facet sends into a delay window, summed over traces.
+
+    For trace t the window is the two-way delays [lo_s[t], hi_s[t]); a facet
+    contributes its radar-equation power (as in :func:`accumulate_power`) times
+    the share of its delay extent inside the window. Parallel over tiles, so
+    each facet's sum ``out[f]`` (accumulated into) belongs to one thread.
+    """
+    half_c = 0.5 * SPEED_OF_LIGHT_M_S
+    inv_bin_m = 1.0 / (half_c * dt_s)
+    for m in numba.prange(tile_radius.shape[0]):
+        rad = tile_radius[m]
+        if rad < 0.0:
+            continue
+        ext = tile_extent[m]
+        for t in range(ant.shape[0]):
+            ax = ant[t, 0]
+            ay = ant[t, 1]
+            az = ant[t, 2]
+            r_lo = lo_s[t] * half_c
+            r_hi = hi_s[t] * half_c
+            dx = tile_centre[m, 0] - ax
+            dy = tile_centre[m, 1] - ay
+            dz = tile_centre[m, 2] - az
+            d = math.sqrt(dx * dx + dy * dy + dz * dz)
+            if d - rad > r_hi or d + rad < r_lo:
+                continue
+            lo = lo_s[t] / dt_s
+            hi = hi_s[t] / dt_s
+            for f in range(tile_offsets[m], tile_offsets[m + 1]):
+                vx = pos[f, 0] - ax
+                vy = pos[f, 1] - ay
+                vz = pos[f, 2] - az
+                r2 = vx * vx + vy * vy + vz * vz
+                r = math.sqrt(r2)
+                if r - ext > r_hi or r + ext < r_lo:
+                    continue
+                inv_r = 1.0 / r
+                ux = vx * inv_r
+                uy = vy * inv_r
+                uz = vz * inv_r
+                cos_inc = -(ux * normal[f, 0] + uy * normal[f, 1] + uz * normal[f, 2])
+                if cos_inc <= 0.0:
+                    continue
+                wa = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) * inv_bin_m
+                wb = abs(ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]) * inv_bin_m
+                share = _window_fraction(r * inv_bin_m, wa, wb, lo, hi)
+                if share <= 0.0:
+                    continue
+                s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
+                out[f] += share * power_const * s0 * area[f] / (r2 * r2)

@@ -155,6 +155,9 @@ def simulate(
     extra = {}
     if sources:
         extra = record.to_variables(facets, window, body, track, power, window_start, nadir_delay, dt, first_return_db, mainlobe)
+        strip_full = np.full(ntr, np.nan)
+        strip_full[idx] = strip_m
+        extra["nadir_strip_half_width"] = ("trace", strip_full, "m", "cross-track half-width of the nadir strip")
     attrs = {
         **flatten_config_attrs(config),
         "dem_file": src.path.name,
@@ -164,6 +167,8 @@ def simulate(
         "title": "cluttersim synthetic surface-clutter radargram",
         "facet_evaluations": stats.facet_evaluations,
     }
+    if body_radius_m is not None:
+        attrs["body_radius_given_m"] = float(body_radius_m)
     if sources:
         attrs["first_return_threshold_db"] = first_return_db
         attrs["nadir_strip"] = "pulse-limited footprint radius" if nadir_strip_m is None else f"{nadir_strip_m} m"

@@ -36,3 +36,33 @@ def flat_geographic(path, res_deg, half_width_deg=2.0, height_m=0.0, crs=MARS_SP
     """A constant-elevation square centred on (0, 0)."""
     n = int(round(2 * half_width_deg / res_deg))
     return write_geotiff(path, np.full((n, n), height_m), -half_width_deg, half_width_deg, res_deg, crs=crs)
+
+
+UTM = "EPSG:32633"  # UTM zone 33N on WGS 84
+UTM_X0_M, UTM_Y0_M = 500_000.0, 5_000_000.0  # scene centre on the zone's central meridian (15°E)
+
+
+def utm_grid(n, res_m):
+    """Easting/northing (n, n) of cell centres of an n×n grid of res_m cells centred on the scene centre."""
+    offs = (np.arange(n) + 0.5) * res_m - n * res_m / 2
+    return np.meshgrid(UTM_X0_M + offs, UTM_Y0_M - offs)
+
+
+def write_utm(path, elevation, res_m):
+    """Write an n×n UTM GeoTIFF centred on the scene centre."""
+    n = elevation.shape[0]
+    return write_geotiff(path, elevation, UTM_X0_M - n * res_m / 2, UTM_Y0_M + n * res_m / 2, res_m, crs=UTM)
+
+
+def utm_track(east_m, north_m, alt_m):
+    """Track (lat, lon, alt) from UTM eastings/northings (arrays of equal length)."""
+    from cluttersim import Track
+
+    to_geo = pyproj.Transformer.from_crs(UTM, "EPSG:4326", always_xy=True)
+    lon, lat = to_geo.transform(np.asarray(east_m, float), np.asarray(north_m, float))
+    return Track(np.asarray(lat), np.asarray(lon), np.broadcast_to(float(alt_m), np.shape(lat)).copy(), source="utm track")
+
+
+def to_utm(lon_deg, lat_deg):
+    tr = pyproj.Transformer.from_crs("EPSG:4326", UTM, always_xy=True)
+    return tr.transform(np.asarray(lon_deg, float), np.asarray(lat_deg, float))

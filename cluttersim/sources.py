@@ -1,0 +1,249 @@
+"""Clutter sources on the ground: what echoes into a depth window, and what made one echo.
+
+Both questions are answered from a finished run directory: the DEM window,
+facets and recording windows are rebuilt exactly as the simulation built them
+(:func:`cluttersim.simulate.prepare_scene`) and a compiled kernel
+(:func:`cluttersim.kernels.facet_power_in_windows`) sums each facet's power
+into the delay window asked for. Delay windows refer to a facet's own delay
+extent; the compressed pulse's spreading is not applied here.
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+from tqdm.auto import tqdm
+
+from . import kernels
+from .attribution import right_unit_vectors
+from .config import SimulationConfig
+from .dem import DemSource
+from .errors import ClutterSimError, ConfigError
+from .radar import delay_after_surface_s
+from .radargram import open_radargram
+from .simulate import Scene, prepare_scene
+from .track import Track
+
+
+@dataclass
+class Run:
+    """A finished simulation: its radargram and the rebuilt scene."""
+
+    run_dir: Path
+    ds: xr.Dataset
+    scene: Scene
+
+    @property
+    def config(self) -> SimulationConfig:
+        return self.scene.config
+
+
+def load_run(run_dir, dem=None) -> Run:
+    """Open ``RUN_DIR/radargram.nc`` and rebuild its scene from the DEM it was made from.
+
+    ``dem`` overrides the DEM path recorded in the run (e.g. after moving files).
+    """
+    run_dir = Path(run_dir)
+    ds = open_radargram(run_dir / "radargram.nc")
+    try:
+        config = SimulationConfig.from_dict(json.loads(ds.attrs["cluttersim_config"]))
+        dem_path = dem or ds.attrs["dem_path"]
+    except KeyError as exc:
+        raise ClutterSimError(f"{run_dir}/radargram.nc: attribute {exc} missing; expected a cluttersim run") from None
+    radius = ds.attrs.get("body_radius_given_m")
+    src = DemSource.open(dem_path, body_radius_m=float(radius) if radius is not None else None)
+    time_s = ds["time"].values if "time" in ds else None
+    track = Track(ds["lat"].values, ds["lon"].values, ds["alt"].values, time_s, source=f"{run_dir}/radargram.nc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the run already reported holes and traces off the DEM
+        scene = prepare_scene(src, track, config)
+    recorded = ds["window_start"].values[scene.idx]
+    if not np.allclose(recorded, scene.start_s, rtol=0, atol=1e-3 * config.radar.sample_interval_s):
+        raise ClutterSimError(f"{src.path}: the DEM no longer gives the run's recording windows; was it changed?")
+    return Run(run_dir=run_dir, ds=ds, scene=scene)
+
+
+def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
+    """Per-facet power (W) into [lo_s, hi_s) summed over ``traces`` (indices into the track)."""
+    f = scene.facets
+    surface = scene.config.surface
+    p0, p1 = surface.kernel_params()
+    out = np.zeros(len(f))
+    kernels.facet_power_in_windows(
+        np.ascontiguousarray(scene.ant_m[traces]), np.asarray(lo_s, dtype=np.float64), np.asarray(hi_s, dtype=np.float64),
+        scene.config.radar.sample_interval_s, f.tile_centre_m, f.tile_radius_m, f.tile_extent_m, f.tile_offsets,
+        f.pos_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, surface.law_code, p0, p1,
+        scene.config.radar.radar_constant_w_m2(), out,
+    )  # fmt: skip
+    return out
+
+
+# --------------------------------------------------------------------------- depth-window map
+
+
+@dataclass
+class SourceMap:
+    """Power (W) each DEM cell sends into an apparent-depth window, summed over the track.
+
+    ``power_w`` has the shape of the DEM window read for the run (NaN in
+    holes); ``transform`` and ``crs`` are that window's.
+    """
+
+    power_w: np.ndarray
+    elevation_m: np.ndarray
+    transform: object
+    crs: object
+    depth_min_m: float
+    depth_max_m: float
+    permittivity: float
+
+
+def depth_window_map(run: Run, depth_min_m: float, depth_max_m: float, permittivity: float = 3.15,
+                     progress: bool = False) -> SourceMap:  # fmt: skip
+    """Map the terrain that echoes into apparent depths [min, max) below the nadir surface.
+
+    For each trace the delay window is nadir_delay + 2 d √ε′ / c for d in the
+    depth range (the depth convention of :func:`cluttersim.radar.apparent_depth_m`):
+    the ground that would masquerade as subsurface at those depths.
+    """
+    _check_depths(depth_min_m, depth_max_m, permittivity)
+    scene = run.scene
+    nadir = scene.nadir_delay_s
+    traces = scene.idx[np.isfinite(nadir[scene.idx])]
+    lo = nadir[traces] + delay_after_surface_s(depth_min_m, permittivity)
+    hi = nadir[traces] + delay_after_surface_s(depth_max_m, permittivity)
+    per_facet = np.zeros(len(scene.facets))
+    step = max(1, len(traces) // 20)
+    with tqdm(total=len(traces), unit="trace", delay=1.0, disable=not progress, desc="mapping sources") as bar:
+        for a in range(0, len(traces), step):
+            b = min(a + step, len(traces))
+            per_facet += _kernel_power(scene, traces[a:b], lo[a:b], hi[a:b])
+            bar.update(b - a)
+    window = scene.window
+    grid = np.full(window.shape[0] * window.shape[1], np.nan)
+    grid[scene.facets.cell] = per_facet
+    return SourceMap(
+        power_w=grid.reshape(window.shape).astype(np.float32),
+        elevation_m=window.elevation_m,
+        transform=window.transform,
+        crs=scene.src.crs,
+        depth_min_m=float(depth_min_m),
+        depth_max_m=float(depth_max_m),
+        permittivity=float(permittivity),
+    )
+
+
+def _check_depths(depth_min_m, depth_max_m, permittivity):
+    if not (np.isfinite(depth_min_m) and np.isfinite(depth_max_m) and 0 <= depth_min_m < depth_max_m):
+        raise ConfigError(f"depth window {depth_min_m} {depth_max_m} m: expected 0 <= A < B")
+    if not (np.isfinite(permittivity) and permittivity >= 1):
+        raise ConfigError(f"permittivity {permittivity}: expected a real relative permittivity >= 1")
+
+
+# --------------------------------------------------------------------------- one echo
+
+
+@dataclass(frozen=True)
+class EchoSource:
+    """One ground cell behind an echo, ranked by its share of the echo's power."""
+
+    rank: int
+    lat_deg: float
+    lon_deg: float
+    side: str
+    cross_track_m: float
+    offnadir_m: float
+    share: float
+    power_w: float
+
+
+@dataclass
+class EchoAnswer:
+    """The ranked cells behind the sample ``sample`` of trace ``trace``."""
+
+    trace: int
+    sample: int
+    delay_s: float
+    depth_m: float
+    permittivity: float
+    antenna_lat_deg: float
+    antenna_lon_deg: float
+    total_power_w: float
+    cells: list[EchoSource]
+
+
+def ask_echo(run: Run, trace: int, *, delay_s: float | None = None, depth_m: float | None = None,
+             permittivity: float = 3.15, top: int = 10) -> EchoAnswer:  # fmt: skip
+    """Rank the ground cells that echo into one sample of one trace.
+
+    The sample is given either by ``delay_s`` after the trace's window start
+    (the radargram's ``delay`` coordinate) or by ``depth_m``, an apparent depth
+    below the nadir surface. Cells are ranked by the power they send into that
+    sample's delay interval, widened to the compressed pulse's half-power
+    resolution (1/B) when samples are finer.
+    """
+    ds, scene = run.ds, run.scene
+    radar = scene.config.radar
+    ntrace = ds.sizes["trace"]
+    if not 0 <= trace < ntrace:
+        raise ConfigError(f"trace {trace}: expected 0..{ntrace - 1}")
+    if not scene.on_dem[trace]:
+        raise ConfigError(f"trace {trace}: its nadir is not on the DEM (no simulated echo)")
+    if (delay_s is None) == (depth_m is None):
+        raise ConfigError("give exactly one of a delay or a depth")
+    if not (np.isfinite(permittivity) and permittivity >= 1):
+        raise ConfigError(f"permittivity {permittivity}: expected a real relative permittivity >= 1")
+    start = float(ds["window_start"][trace])
+    nadir = float(ds["nadir_delay"][trace])
+    dt = radar.sample_interval_s
+    if depth_m is not None:
+        if not np.isfinite(nadir):
+            raise ConfigError(f"trace {trace}: no nadir surface (DEM hole), give a delay instead of a depth")
+        delay_s = nadir + float(delay_after_surface_s(depth_m, permittivity)) - start
+    sample = int(round(delay_s / dt))
+    if not 0 <= sample < radar.samples:
+        raise ConfigError(f"delay {delay_s * 1e6:.3f} µs: expected 0..{radar.samples * dt * 1e6:.3f} µs after the window start")
+    centre = start + sample * dt
+    half = max(0.5 * dt, 0.5 / radar.bandwidth_hz)
+    per_facet = _kernel_power(scene, np.array([trace]), [centre - half], [centre + half])
+    total = float(per_facet.sum())
+    order = np.argsort(per_facet)[::-1][:top]
+    order = order[per_facet[order] > 0]
+    lon_grid, lat_grid = scene.window.cell_lonlat()
+    cells = scene.facets.cell[order]
+    lat = lat_grid.ravel()[cells]
+    lon = lon_grid.ravel()[cells]
+    right = right_unit_vectors(scene.src.body, scene.track)[trace]
+    cross = (scene.facets.pos_m[order] - scene.ant_m[trace]) @ right
+    strip = float(ds["nadir_strip_half_width"][trace]) if "nadir_strip_half_width" in ds else 0.0
+    track = scene.track
+    if order.size:
+        _, _, dist = scene.src.body.geod().inv(
+            np.full(order.size, track.lon_deg[trace]), np.full(order.size, track.lat_deg[trace]), lon, lat
+        )
+    else:
+        dist = np.array([])
+    ranked = [
+        EchoSource(
+            rank=i + 1,
+            lat_deg=float(lat[i]),
+            lon_deg=float(lon[i]),
+            side="nadir strip" if abs(cross[i]) <= strip else ("right" if cross[i] > 0 else "left"),
+            cross_track_m=float(cross[i]),
+            offnadir_m=float(dist[i]),
+            share=float(per_facet[order[i]] / total) if total > 0 else 0.0,
+            power_w=float(per_facet[order[i]]),
+        )
+        for i in range(order.size)
+    ]
+    depth = float((centre - nadir) * 299_792_458.0 / (2 * np.sqrt(permittivity))) if np.isfinite(nadir) else np.nan
+    return EchoAnswer(
+        trace=trace, sample=sample, delay_s=sample * dt, depth_m=depth, permittivity=permittivity,
+        antenna_lat_deg=float(track.lat_deg[trace]), antenna_lon_deg=float(track.lon_deg[trace]),
+        total_power_w=total, cells=ranked,
+    )  # fmt: skip
