@@ -51,11 +51,12 @@ def cli(ctx, debug):
 
 
 def _register():
-    from . import demo, simulate, track
+    from . import demo, simulate, sources, track
 
     cli.add_command(simulate.simulate_cmd)
     cli.add_command(track.track_cmd)
     cli.add_command(demo.demo_cmd)
+    cli.add_command(sources.sources_cmd)
 
 
 _register()

@@ -32,3 +32,11 @@ radar_option = click.option(
 
 def load_config(radar_path) -> SimulationConfig:
     return SimulationConfig.from_toml(radar_path) if radar_path else default_config()
+
+permittivity_option = click.option(
+    "--permittivity",
+    type=click.FloatRange(min=1.0),
+    default=3.15,
+    show_default=True,
+    help="Real relative permittivity for apparent depths (3.15: water ice); depth = c·Δt / (2√ε′).",
+)

@@ -6,7 +6,7 @@ import click
 
 from cluttersim.products import simulate_to_dir
 
-from .options import load_config, out_dir_option, overwrite_option, quiet_option, radar_option
+from .options import load_config, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option
 
 
 @click.command("simulate")
@@ -14,13 +14,22 @@ from .options import load_config, out_dir_option, overwrite_option, quiet_option
 @click.option("--track", "track_path", required=True, type=click.Path(dir_okay=False), help="Track CSV: lat, lon, alt[, time].")
 @radar_option
 @click.option("--body-radius-m", type=float, default=None, help="Sphere radius (m) for a DEM without CRS.")
+@click.option("--no-sources", is_flag=True, help="Skip the per-sample source record (less memory, faster).")
+@click.option("--nadir-strip-m", type=click.FloatRange(min=0.0), default=None,
+              help="Cross-track half-width of the nadir strip, m [default: pulse-limited footprint radius].")
+@click.option("--first-return-db", type=float, default=-20.0, show_default=True,
+              help="First return: earliest echo at this level relative to the nadir echo, dB.")
+@permittivity_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
-def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, out_dir, overwrite, quiet):
+def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
+                 permittivity, out_dir, overwrite, quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
-    Writes OUT/radargram.nc (netCDF4), OUT/radargram.png and OUT/track_map.png.
+    Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
+    axis for --permittivity), OUT/radargram_sides.png (which side of the track each echo
+    comes from) and OUT/track_map.png (track and first returns over shaded relief).
 
     \b
     Example:
@@ -28,8 +37,9 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, out_dir, overw
     """
     config = load_config(radar_path)
     paths = simulate_to_dir(
-        dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet
-    )
+        dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
+        sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,
+    )  # fmt: skip
     if not quiet:
         for p in paths.values():
             click.echo(f"wrote {p}")

@@ -1,4 +1,4 @@
-"""Figures: the simulated radargram and a shaded-relief map of the track.
+"""Figures: radargrams (power, side of the track) and maps (track, echo sources).
 
 Figures are built on :class:`matplotlib.figure.Figure` with an explicit Agg
 canvas; pyplot is never imported, so using this module changes no global
@@ -19,16 +19,23 @@ import numpy as np
 from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.cm import ScalarMappable
-from matplotlib.colors import LightSource, ListedColormap, Normalize
+from matplotlib.collections import LineCollection
+from matplotlib.colors import LightSource, ListedColormap, Normalize, to_rgb
 from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
+from matplotlib.patheffects import withStroke
+
+from .radar import apparent_depth_m, delay_after_surface_s
 
 #: Output resolution of every figure (dots per inch).
 DPI = 120
 #: Radargram figure size in inches (width, height).
 RADARGRAM_FIGSIZE_IN = (10.0, 5.0)
-#: Track map figure size in inches (width, height).
+#: Track map and source map figure size in inches (width, height).
 TRACK_MAP_FIGSIZE_IN = (8.0, 7.0)
+#: Size of the map of one echo's ground sources, in inches (width, height).
+ECHO_SOURCES_FIGSIZE_IN = (7.0, 6.0)
 
 #: Colormap of the radargram (perceptually uniform, dark = weak echo).
 RADARGRAM_CMAP = "magma"
@@ -39,6 +46,38 @@ OVERLAY_COLOUR = "#3fd0ff"
 
 #: Terrain colours without the blue "sea" part of matplotlib's ``terrain``.
 TERRAIN_CMAP = ListedColormap(colormaps["terrain"](np.linspace(0.25, 0.95, 256)), name="terrain_land")
+#: Colour of the track line on every map.
+TRACK_COLOUR = "#c0142c"
+#: Colour of the first-return markers on the track map.
+FIRST_RETURN_COLOUR = "#1d1d6b"
+#: Colormap of the power overlaid on the source map.
+SOURCE_MAP_CMAP = "viridis"
+#: Colour of the ranked ground cells on the echo-sources map.
+ECHO_CELL_COLOUR = "#f0e442"
+#: At most this many ranked cells are listed in the echo-sources legend.
+_MAX_RANKS_LISTED = 10
+
+# Side-of-track radargram. Orange / sky blue / grey stay distinct under the
+# common colour-vision deficiencies (they separate along the blue-yellow and
+# the lightness-neutral directions, not along red-green), and all three have
+# the same relative luminance (~0.41), so brightness shows echo power alone,
+# whatever the side. No colour mixed from them is lighter than that, which
+# keeps the light no-data colour unambiguous.
+#: Colour of power from left of the direction of travel (at full brightness).
+SIDE_LEFT_COLOUR = "#e69f00"
+#: Colour of power from right of the direction of travel (at full brightness).
+SIDE_RIGHT_COLOUR = "#56b4e9"
+#: Colour of power from the nadir strip (at full brightness).
+SIDE_NADIR_COLOUR = "#ababab"
+#: Colour of samples without data (or with power but an unknown side).
+SIDE_NO_DATA_COLOUR = "#e4e4e4"
+#: Hatching over traces without data, so they cannot be read as an echo colour.
+SIDE_NO_DATA_HATCH_COLOUR = "#8c8c8c"
+#: Colour of the nadir line on the side radargram (contrasts with all three sides).
+SIDE_OVERLAY_COLOUR = "#ffffff"
+
+_LEGEND_STYLE = {"fontsize": "small", "framealpha": 0.85}
+_LABEL_BOX = {"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.7}
 
 
 def power_db(power_w, floor_db: float | None = None) -> np.ndarray:
@@ -96,6 +135,13 @@ class RadargramLayers:
     nadir_us: np.ndarray | None
 
 
+def _db_limits(db: np.ndarray, dynamic_range_db: float) -> tuple[float, float]:
+    """Display range (max − dynamic_range_db, max) of finite dB values; max is 0 if there are none."""
+    finite = np.isfinite(db)
+    vmax_db = float(db[finite].max()) if finite.any() else 0.0
+    return vmax_db - float(dynamic_range_db), vmax_db
+
+
 def radargram_layers(ds, dynamic_range_db: float = 60.0) -> RadargramLayers:
     """Convert a radargram Dataset into the arrays :func:`plot_radargram` draws.
 
@@ -132,10 +178,7 @@ def radargram_layers(ds, dynamic_range_db: float = 60.0) -> RadargramLayers:
         if not np.isfinite(nadir_us).any():
             nadir_us = None
 
-    db = power_db(power_w)
-    positive = np.isfinite(db)
-    vmax_db = float(db[positive].max()) if positive.any() else 0.0
-    vmin_db = vmax_db - float(dynamic_range_db)
+    vmin_db, vmax_db = _db_limits(power_db(power_w), dynamic_range_db)
     image_db = power_db(power_w, floor_db=vmin_db).T
     return RadargramLayers(
         image_db=image_db,
@@ -148,7 +191,14 @@ def radargram_layers(ds, dynamic_range_db: float = 60.0) -> RadargramLayers:
     )
 
 
-def plot_radargram(ds, path, *, dynamic_range_db: float = 60.0, title: str | None = None) -> Path:
+def plot_radargram(
+    ds,
+    path,
+    *,
+    dynamic_range_db: float = 60.0,
+    title: str | None = None,
+    permittivity: float | None = None,
+) -> Path:
     """Draw a radargram (echo power in dB, trace vs delay) to a PNG file.
 
     Parameters
@@ -164,17 +214,20 @@ def plot_radargram(ds, path, *, dynamic_range_db: float = 60.0, title: str | Non
         Colour scale spans [max − dynamic_range_db, max] dBW; weaker echoes
         and zero power are drawn at the bottom of the scale.
     title : str, optional
+    permittivity : float, optional
+        Real relative permittivity ε′ ≥ 1. If given, a second y axis on the
+        right shows the apparent depth below the nadir surface,
+        :func:`cluttersim.radar.apparent_depth_m` of the delay after the
+        median nadir delay (see :func:`plot_side_radargram`).
 
     Returns
     -------
     Path
         ``path``.
     """
+    _check_permittivity(permittivity)
     layers = radargram_layers(ds, dynamic_range_db)
-    nsample, ntrace = layers.image_db.shape
-
-    fig = Figure(figsize=RADARGRAM_FIGSIZE_IN, dpi=DPI, layout="constrained")
-    FigureCanvasAgg(fig)
+    fig = _new_figure(RADARGRAM_FIGSIZE_IN)
     ax = fig.add_subplot()
     cmap = colormaps[RADARGRAM_CMAP].with_extremes(bad=NO_DATA_COLOUR)
     image = ax.imshow(
@@ -186,24 +239,327 @@ def plot_radargram(ds, path, *, dynamic_range_db: float = 60.0, title: str | Non
         interpolation="antialiased",  # average, not skip, samples when there are more than pixels
         interpolation_stage="rgba",
         origin="upper",
-        extent=(-0.5, ntrace - 0.5, layers.delay_bottom_us, layers.delay_top_us),
+        extent=_radargram_extent(layers),
     )
     handles = []
-    if layers.nadir_us is not None:
-        (line,) = ax.plot(np.arange(ntrace), layers.nadir_us, color=OVERLAY_COLOUR, lw=0.8, ls=(0, (4, 3)),
-                          label="nadir surface")
+    line = _draw_nadir_line(ax, layers, OVERLAY_COLOUR)
+    if line is not None:
         handles.append(line)
-        ax.set_ylim(layers.delay_bottom_us, layers.delay_top_us)  # keep the image frame
     if np.isnan(layers.image_db).all(axis=0).any():
         handles.append(Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data"))
     if handles:
-        ax.legend(handles=handles, loc="lower right", fontsize="small", framealpha=0.8)
+        ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
+    _label_radargram(ax, layers, title)
+    _add_depth_axis(ax, layers, permittivity)
+    fig.colorbar(image, ax=ax, label="echo power (dBW)", pad=0.01)
+    return _save_atomic(fig, path)
+
+
+# --------------------------------------------------------------------- side radargram
+
+
+def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float = 60.0) -> np.ndarray:
+    """RGB image of a radargram coloured by the side of the track each echo comes from.
+
+    Each sample's colour is the mix ``left·C_left + right·C_right +
+    nadir·C_nadir`` of :data:`SIDE_LEFT_COLOUR`, :data:`SIDE_RIGHT_COLOUR` and
+    :data:`SIDE_NADIR_COLOUR` with ``nadir = 1 − left − right``, multiplied by
+    the brightness ``(P_dB − (max − dynamic_range_db)) / dynamic_range_db``
+    clipped to [0, 1] (max: the strongest sample of the whole image).
+
+    Parameters
+    ----------
+    power_w : array_like (trace, sample)
+        Echo power in W; NaN for no data.
+    left_fraction, right_fraction : array_like (trace, sample)
+        Shares of each sample's power from left and right of the direction of
+        travel, in [0, 1]; NaN where unknown. Values are clipped to [0, 1] and,
+        if their sum exceeds 1, scaled down to sum to 1.
+    dynamic_range_db : float
+        Power range mapped to brightness 0 … 1, in dB below the maximum.
+
+    Returns
+    -------
+    ndarray of float64, shape (sample, trace, 3)
+        RGB in [0, 1], ready for ``imshow`` (delay down, trace across). Power
+        at or below ``max − dynamic_range_db`` (and zero power) is black
+        whatever its side; NaN power, and power above that floor whose side
+        is unknown, get :data:`SIDE_NO_DATA_COLOUR`.
+    """
+    p = np.asarray(power_w, dtype=np.float64)
+    left = np.asarray(left_fraction, dtype=np.float64)
+    right = np.asarray(right_fraction, dtype=np.float64)
+    if p.ndim != 2:
+        raise ValueError(f"power_w must be 2-D (trace, sample), got shape {p.shape}")
+    if left.shape != p.shape or right.shape != p.shape:
+        raise ValueError(
+            f"left_fraction {left.shape} and right_fraction {right.shape} must have the shape of power_w {p.shape}"
+        )
+    if not dynamic_range_db > 0:
+        raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
+    db = power_db(p)
+    vmin_db, _ = _db_limits(db, dynamic_range_db)
+    with np.errstate(invalid="ignore"):
+        brightness = np.clip((db - vmin_db) / float(dynamic_range_db), 0.0, 1.0)  # -inf → 0, NaN stays
+    known = np.isfinite(left) & np.isfinite(right)
+    left = np.where(known, np.clip(left, 0.0, 1.0), 0.0)
+    right = np.where(known, np.clip(right, 0.0, 1.0), 0.0)
+    total = left + right
+    scale = np.where(total > 1.0, 1.0 / np.where(total > 1.0, total, 1.0), 1.0)
+    left, right = left * scale, right * scale
+    nadir = 1.0 - left - right
+    fractions = np.stack([left, right, nadir], axis=-1)  # (trace, sample, 3 sides)
+    rgb = (fractions @ _side_palette()) * np.nan_to_num(brightness)[..., None]
+    no_data = np.isnan(p) | (~known & (brightness > 0))
+    rgb[no_data] = to_rgb(SIDE_NO_DATA_COLOUR)
+    return rgb.transpose(1, 0, 2)
+
+
+def plot_side_radargram(
+    ds,
+    path,
+    *,
+    dynamic_range_db: float = 60.0,
+    permittivity: float | None = 3.15,
+    title: str | None = None,
+) -> Path:
+    """Draw a radargram coloured by the side of the track each echo comes from, to a PNG.
+
+    Hue tells the side (see :func:`side_colours`): orange left of the direction
+    of travel, sky blue right of it, grey the nadir strip, mixtures in
+    proportion. Brightness tells the echo power over the top
+    ``dynamic_range_db``; a key on the right maps brightness to dBW. Axes,
+    frames (relative or absolute delay) and the nadir line are those of
+    :func:`plot_radargram`.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        As for :func:`plot_radargram`, plus ``left_fraction`` and
+        ``right_fraction`` (trace, sample) from the source record.
+    path : str or Path
+        Output PNG; its directory must exist.
+    dynamic_range_db : float
+        Power range shown, in dB below the strongest sample.
+    permittivity : float or None
+        Real relative permittivity ε′ ≥ 1 of the apparent-depth axis on the
+        right (default 3.15, water ice); None for no depth axis. Depth zero is
+        the median nadir delay over the traces, in the frame of the y axis; a
+        note says so when the nadir line varies by more than one sample.
+    title : str, optional
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Raises
+    ------
+    ValueError
+        If ``left_fraction`` or ``right_fraction`` is missing (the run was made
+        without the source record), or as :func:`plot_radargram`.
+    """
+    for name in ("left_fraction", "right_fraction"):
+        if name not in ds:
+            raise ValueError(
+                f"side radargram needs the variable {name!r} (trace, sample), which is written with "
+                "the per-sample source record; this dataset has none"
+            )
+    _check_permittivity(permittivity)
+    layers = radargram_layers(ds, dynamic_range_db)
+    power_w = ds["power"].values
+    left, right = (_trace_by_sample(ds[name]) for name in ("left_fraction", "right_fraction"))
+    rgb = side_colours(power_w, left, right, dynamic_range_db)
+
+    fig = _new_figure(RADARGRAM_FIGSIZE_IN)
+    ax, key = fig.subplots(1, 2, width_ratios=(1.0, 0.045))
+    ax.imshow(
+        rgb,
+        aspect="auto",
+        interpolation="antialiased",
+        interpolation_stage="rgba",
+        origin="upper",
+        extent=_radargram_extent(layers),
+    )
+    handles = [
+        Patch(facecolor=SIDE_LEFT_COLOUR, edgecolor="none", label="left of track"),
+        Patch(facecolor=SIDE_RIGHT_COLOUR, edgecolor="none", label="right of track"),
+        Patch(facecolor=SIDE_NADIR_COLOUR, edgecolor="none", label="nadir strip"),
+    ]
+    line = _draw_nadir_line(ax, layers, SIDE_OVERLAY_COLOUR)
+    if line is not None:  # white dashes with a dark edge: visible on black, grey and colour alike
+        line.set_path_effects([withStroke(linewidth=2.0, foreground="0.2")])
+        handles.append(line)
+    no_data_traces = np.isnan(np.asarray(power_w, dtype=np.float64)).all(axis=1)
+    if no_data_traces.any():
+        hatch = {"edgecolor": SIDE_NO_DATA_HATCH_COLOUR, "hatch": "///"}
+        for first, last in _runs(no_data_traces):
+            ax.axvspan(first - 0.5, last + 0.5, facecolor="none", linewidth=0.0, **hatch)
+        handles.append(Patch(facecolor=SIDE_NO_DATA_COLOUR, linewidth=0.5, label="no data", **hatch))
+    _label_radargram(ax, layers, title)
+    _add_depth_axis(ax, layers, permittivity)
+    _side_key(key, layers.vmin_db, layers.vmax_db)
+    fig.legend(
+        handles=handles,
+        loc="outside lower center",
+        ncols=len(handles),
+        title=(
+            f"brightness: echo power, top {dynamic_range_db:g} dB      "
+            "left/right relative to the direction of travel (trace 0 → last)"
+        ),
+        title_fontsize="small",
+        **_LEGEND_STYLE,
+    )
+    return _save_atomic(fig, path)
+
+
+def _side_palette() -> np.ndarray:
+    """RGB rows (3, 3) of the left, right and nadir-strip colours."""
+    return np.array([to_rgb(c) for c in (SIDE_LEFT_COLOUR, SIDE_RIGHT_COLOUR, SIDE_NADIR_COLOUR)])
+
+
+def _side_key(key, vmin_db: float, vmax_db: float) -> None:
+    """Fill ``key`` with three brightness ramps (left, nadir, right) against echo power in dBW."""
+    brightness = np.linspace(0.0, 1.0, 256)
+    left, right, nadir = _side_palette()
+    ramps = brightness[:, None, None] * np.stack([left, nadir, right])[None, :, :]
+    key.imshow(ramps, origin="lower", aspect="auto", interpolation="nearest", extent=(-0.5, 2.5, vmin_db, vmax_db))
+    key.set_xticks([0, 1, 2], ["left", "nadir", "right"], rotation=90, fontsize="small")
+    key.yaxis.tick_right()
+    key.yaxis.set_label_position("right")
+    key.set_ylabel("echo power (dBW)")
+
+
+def _trace_by_sample(da) -> np.ndarray:
+    """Values of a (trace, sample) DataArray in that dimension order."""
+    if set(da.dims) == {"trace", "sample"}:
+        da = da.transpose("trace", "sample")
+    return np.asarray(da.values)
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """(first, last) indices of each run of True in a 1-D boolean array."""
+    edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    return list(zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1))
+
+
+# --------------------------------------------------------------------- radargram parts
+
+
+def _radargram_extent(layers: RadargramLayers) -> tuple[float, float, float, float]:
+    """imshow extent: traces centred on integers, delay increasing downwards."""
+    ntrace = layers.image_db.shape[1]
+    return (-0.5, ntrace - 0.5, layers.delay_bottom_us, layers.delay_top_us)
+
+
+def _draw_nadir_line(ax, layers: RadargramLayers, colour: str):
+    """Dashed nadir-surface line (the Line2D), or None if there is no nadir delay."""
+    if layers.nadir_us is None:
+        return None
+    ntrace = layers.image_db.shape[1]
+    (line,) = ax.plot(np.arange(ntrace), layers.nadir_us, color=colour, lw=0.8, ls=(0, (4, 3)), label="nadir surface")
+    ax.set_ylim(layers.delay_bottom_us, layers.delay_top_us)  # keep the image frame
+    return line
+
+
+def _label_radargram(ax, layers: RadargramLayers, title: str | None) -> None:
     ax.set_xlabel("trace")
     ax.set_ylabel(layers.delay_label)
     if title:
         ax.set_title(title)
-    fig.colorbar(image, ax=ax, label="echo power (dBW)", pad=0.01)
-    return _save_atomic(fig, path)
+
+
+def _check_permittivity(permittivity) -> None:
+    """Raise ValueError unless ``permittivity`` is None or a real relative permittivity ≥ 1."""
+    if permittivity is not None:
+        apparent_depth_m(0.0, float(permittivity))  # validates (ε′ ≥ 1, not NaN)
+
+
+def nadir_reference_us(layers: RadargramLayers) -> tuple[float, float] | None:
+    """Zero of the apparent-depth axis: the median nadir delay on the y axis, and its spread.
+
+    Parameters
+    ----------
+    layers : RadargramLayers
+        From :func:`radargram_layers`; its ``nadir_us`` is in the frame of the
+        y axis (absolute, or relative to each trace's window start).
+
+    Returns
+    -------
+    (float, float) or None
+        Median over traces and peak-to-peak range of the finite nadir delays,
+        in µs; None if no trace has a nadir delay.
+    """
+    if layers.nadir_us is None:
+        return None
+    nadir_us = layers.nadir_us[np.isfinite(layers.nadir_us)]
+    if nadir_us.size == 0:
+        return None
+    return float(np.median(nadir_us)), float(np.ptp(nadir_us))
+
+
+def depth_axis_functions(surface_us: float, permittivity: float):
+    """Forward and inverse maps between the delay axis (µs) and apparent depth (m).
+
+    depth_m = :func:`~cluttersim.radar.apparent_depth_m` ((delay_us −
+    surface_us) · 1e-6 s, ε′), and its inverse through
+    :func:`~cluttersim.radar.delay_after_surface_s`; for
+    ``Axes.secondary_yaxis(functions=...)``.
+
+    Parameters
+    ----------
+    surface_us : float
+        Delay of depth zero on the delay axis, in µs.
+    permittivity : float
+        Real relative permittivity ε′ ≥ 1.
+
+    Returns
+    -------
+    (callable, callable)
+        ``delay_us → depth_m`` and ``depth_m → delay_us``, both on arrays.
+    """
+    eps = float(permittivity)
+    apparent_depth_m(0.0, eps)  # validates ε′
+
+    def depth_m(delay_us):
+        return apparent_depth_m((np.asarray(delay_us, dtype=np.float64) - surface_us) * 1e-6, eps)
+
+    def delay_us(depth):
+        return delay_after_surface_s(depth, eps) * 1e6 + surface_us
+
+    return depth_m, delay_us
+
+
+def _add_depth_axis(ax, layers: RadargramLayers, permittivity: float | None):
+    """Right-hand apparent-depth axis below the median nadir surface; returns it (None if not drawn).
+
+    Without a nadir delay there is no surface to measure from: a note
+    replaces the axis. If the nadir line spans more than one sample, a note
+    says that depth zero is the median nadir delay.
+    """
+    if permittivity is None:
+        return None
+    reference = nadir_reference_us(layers)
+    if reference is None:
+        _note_below(ax, "no nadir surface delay: depth axis omitted")
+        return None
+    surface_us, spread_us = reference
+    depth_axis = ax.secondary_yaxis("right", functions=depth_axis_functions(surface_us, permittivity))
+    depth_axis.set_ylabel(f"apparent depth below nadir surface (m, ε′ = {float(permittivity):g})")
+    sample_us = (layers.delay_bottom_us - layers.delay_top_us) / layers.image_db.shape[0]
+    if spread_us > sample_us:
+        _note_below(
+            ax,
+            f"depth 0 m: median nadir delay ({surface_us:.2f} µs); "
+            f"the nadir line spans {spread_us:.2f} µs along the track",
+        )
+    return depth_axis
+
+
+def _note_below(ax, text: str) -> None:
+    """Small grey note under the x-axis label, right-aligned (constrained layout makes room)."""
+    ax.annotate(text, xy=(1.0, 0.0), xycoords="axes fraction", xytext=(0.0, -36.0), textcoords="offset points",
+                ha="right", va="top", fontsize="x-small", color="0.3")  # fmt: skip
 
 
 # --------------------------------------------------------------------- track map
@@ -219,6 +575,7 @@ def plot_track_map(
     title: str | None = None,
     axis_labels: tuple[str, str] | None = None,
     geographic: bool | None = None,
+    first_return=None,
 ) -> Path:
     """Draw a shaded-relief map of a DEM with the track on top, to a PNG file.
 
@@ -244,6 +601,12 @@ def plot_track_map(
         (e.g. km), drawn with equal aspect and no wrapping. By default,
         geographic unless ``axis_labels`` are given and the x label does not
         mention longitude or degrees.
+    first_return : (array_like, array_like), optional
+        ``(x, y)`` of each trace's first-return source, in the coordinates of
+        the track and one per track point. Drawn as small markers, each joined
+        by a thin faint line to the track point of the same index, so
+        off-nadir first returns stand out. Points with a NaN (in the first
+        return or its track point) are skipped.
 
     Returns
     -------
@@ -255,33 +618,299 @@ def plot_track_map(
     The hillshade's vertical exaggeration is chosen from the data so relief is
     visible on flat and rugged DEMs alike; the shading is therefore not to scale.
     """
-    elev = np.asarray(elevation_m, dtype=np.float64)
-    if elev.ndim != 2:
-        raise ValueError(f"elevation_m must be 2-D, got shape {elev.shape}")
-    west, east, south, north = (float(v) for v in extent)
-    lon = np.asarray(lon_deg, dtype=np.float64).ravel()
+    elev = _grid(elevation_m, "elevation_m")
+    axis_labels, geographic = _map_axes(axis_labels, geographic)
+    lon = _map_x(lon_deg, extent, geographic)
     lat = np.asarray(lat_deg, dtype=np.float64).ravel()
+    if first_return is not None:
+        if len(first_return) != 2:
+            raise ValueError("first_return must be a pair (x, y) of arrays")
+        fr_x = _map_x(first_return[0], extent, geographic)
+        fr_y = np.asarray(first_return[1], dtype=np.float64).ravel()
+        if not fr_x.size == fr_y.size == lon.size:
+            raise ValueError(
+                f"first_return needs one (x, y) per track point ({lon.size}), got {fr_x.size} x and {fr_y.size} y"
+            )
+
+    rgb, norm = _shaded_relief_rgba(elev)
+    fig = _new_figure(TRACK_MAP_FIGSIZE_IN)
+    ax = fig.add_subplot()
+    _draw_relief(ax, rgb, extent)
+    _draw_track(ax, lon, lat)
+    if first_return is not None:
+        _draw_first_returns(ax, lon, lat, fr_x, fr_y)
+    _frame_map(ax, extent, axis_labels, geographic)
+    ax.legend(loc="upper right", **_LEGEND_STYLE)
+    if title:
+        ax.set_title(title)
+    fig.colorbar(ScalarMappable(norm=norm, cmap=TERRAIN_CMAP), ax=ax, label="elevation (m)", shrink=0.8)
+    return _save_atomic(fig, path)
+
+
+def _draw_first_returns(ax, track_x, track_y, x, y) -> None:
+    """First-return markers under the track line, each tied to its track point by a faint line."""
+    ok = np.isfinite(track_x) & np.isfinite(track_y) & np.isfinite(x) & np.isfinite(y)
+    if not ok.any():
+        return
+    ties = np.stack([np.column_stack([track_x[ok], track_y[ok]]), np.column_stack([x[ok], y[ok]])], axis=1)
+    ax.add_collection(LineCollection(ties, colors=FIRST_RETURN_COLOUR, linewidths=0.5, alpha=0.3, zorder=1.8))
+    # Below the track line (zorder 2): returns from nadir hide under it, off-nadir ones stand out.
+    ax.plot(x[ok], y[ok], ls="none", marker="o", ms=2.5, mew=0, color=FIRST_RETURN_COLOUR, label="first return",
+            zorder=1.9)  # fmt: skip
+
+
+# --------------------------------------------------------------------- source maps
+
+
+def plot_source_map(
+    power_w,
+    elevation_m,
+    extent,
+    track_x,
+    track_y,
+    path,
+    *,
+    title: str | None = None,
+    axis_labels: tuple[str, str] = ("longitude (°E)", "latitude (°N)"),
+    geographic: bool = True,
+    label: str = "power into the depth window (dBW, summed over the track)",
+    dynamic_range_db: float = 50.0,
+) -> Path:
+    """Map where on the ground the echo power comes from, over a grey hillshade, to a PNG.
+
+    Parameters
+    ----------
+    power_w : array_like (ny, nx)
+        Power in W per ground cell (e.g. summed over the track), on the grid of
+        ``elevation_m``. Cells with zero, negative or NaN power, or more than
+        ``dynamic_range_db`` below the strongest cell, are not coloured.
+    elevation_m : array_like (ny, nx)
+        Heights in metres, row 0 at the north (top) edge; NaN holes left blank.
+    extent : tuple of float
+        (west, east, south, north) outer edges of the grid.
+    track_x, track_y : array_like
+        Track positions in the same coordinates (NaN breaks the line).
+    path : str or Path
+        Output PNG; its directory must exist.
+    title : str, optional
+    axis_labels : (str, str)
+        x and y axis labels.
+    geographic : bool
+        As for :func:`plot_track_map`: True for lon/lat degrees (aspect
+        1/cos(mean latitude), longitudes wrapped), False for projected
+        coordinates (equal aspect).
+    label : str
+        Colour-bar label.
+    dynamic_range_db : float
+        Colour scale spans [max − dynamic_range_db, max] dBW.
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
+    power = _grid(power_w, "power_w")
+    elev = _grid(elevation_m, "elevation_m")
+    if power.shape != elev.shape:
+        raise ValueError(f"power_w {power.shape} and elevation_m {elev.shape} must have the same shape")
+    if not dynamic_range_db > 0:
+        raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
+    tx = _map_x(track_x, extent, geographic)
+    ty = np.asarray(track_y, dtype=np.float64).ravel()
+    db = power_db(power)
+    vmin_db, vmax_db = _db_limits(db, dynamic_range_db)
+    with np.errstate(invalid="ignore"):
+        shown = np.ma.masked_where(~(db >= vmin_db), db)  # NaN, −inf and weak cells transparent
+
+    fig = _new_figure(TRACK_MAP_FIGSIZE_IN)
+    ax = fig.add_subplot()
+    _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
+    image = ax.imshow(
+        shown,
+        cmap=colormaps[SOURCE_MAP_CMAP].with_extremes(bad=(0.0, 0.0, 0.0, 0.0)),
+        norm=Normalize(vmin=vmin_db, vmax=vmax_db),
+        extent=_image_extent(extent),
+        origin="upper",
+        interpolation="antialiased",
+        interpolation_stage="rgba",
+        alpha=0.85,  # a hint of the relief shows through
+    )
+    _draw_track(ax, tx, ty, halo=True)
+    _frame_map(ax, extent, axis_labels, geographic)
+    handles, _ = ax.get_legend_handles_labels()
+    handles.append(Patch(facecolor=_HILLSHADE_MID_GREY, edgecolor="0.4", linewidth=0.5,
+                         label=f"grey only: no power, or > {dynamic_range_db:g} dB below the maximum"))  # fmt: skip
+    ax.legend(handles=handles, loc="upper right", **_LEGEND_STYLE)
+    if title:
+        ax.set_title(title)
+    fig.colorbar(image, ax=ax, label=label, shrink=0.8)
+    return _save_atomic(fig, path)
+
+
+def plot_echo_sources(
+    elevation_m,
+    extent,
+    track_x,
+    track_y,
+    antenna_xy,
+    cells_xy,
+    shares,
+    path,
+    *,
+    title: str | None = None,
+    axis_labels: tuple[str, str] = ("longitude (°E)", "latitude (°N)"),
+    geographic: bool = True,
+    view=None,
+) -> Path:
+    """Map the ground cells that make up one echo, ranked by their share of its power, to a PNG.
+
+    Parameters
+    ----------
+    elevation_m : array_like (ny, nx)
+        Heights in metres, row 0 at the north (top) edge; drawn as a grey hillshade.
+    extent : tuple of float
+        (west, east, south, north) outer edges of the grid.
+    track_x, track_y : array_like
+        Track positions in the same coordinates (NaN breaks the line).
+    antenna_xy : (float, float)
+        The antenna's nadir point when it recorded the echo.
+    cells_xy : array_like (N, 2)
+        Ground cells in rank order (row 0 = strongest); rows with NaN skipped.
+    shares : array_like (N,)
+        Each cell's fraction of the echo's power (sum ≤ 1); marker area is
+        proportional to it (with a minimum, so that small shares stay visible).
+        The legend lists the first ten ranks with their shares.
+    path : str or Path
+        Output PNG; its directory must exist.
+    title : str, optional
+    axis_labels : (str, str)
+        x and y axis labels.
+    geographic : bool
+        As for :func:`plot_source_map`.
+    view : (float, float, float, float), optional
+        (west, east, south, north) of the area shown, e.g. a box around the
+        antenna nadir and the cells; default the whole ``extent``.
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
+    elev = _grid(elevation_m, "elevation_m")
+    cells = np.asarray(cells_xy, dtype=np.float64)
+    if cells.size == 0:
+        cells = np.empty((0, 2))
+    if cells.ndim != 2 or cells.shape[1] != 2:
+        raise ValueError(f"cells_xy must be an (N, 2) array, got shape {cells.shape}")
+    share = np.asarray(shares, dtype=np.float64).ravel()
+    if share.size != cells.shape[0]:
+        raise ValueError(f"shares needs one value per cell ({cells.shape[0]}), got {share.size}")
+    antenna = np.asarray(antenna_xy, dtype=np.float64).ravel()
+    if antenna.size != 2:
+        raise ValueError(f"antenna_xy must be one (x, y) point, got {antenna.size} values")
+    tx = _map_x(track_x, extent, geographic)
+    ty = np.asarray(track_y, dtype=np.float64).ravel()
+    cell_x = _map_x(cells[:, 0], extent, geographic)
+    cell_y = cells[:, 1]
+    antenna_x = _map_x(antenna[:1], extent, geographic)[0]
+
+    fig = _new_figure(ECHO_SOURCES_FIGSIZE_IN)
+    ax = fig.add_subplot()
+    _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
+    _draw_track(ax, tx, ty, halo=True)
+    ok = np.isfinite(cell_x) & np.isfinite(cell_y) & np.isfinite(share)
+    area_pt2 = _share_marker_area_pt2(share)
+    for rank in np.flatnonzero(ok)[::-1]:  # rank 1 drawn last, on top
+        ax.scatter(cell_x[rank], cell_y[rank], s=area_pt2[rank], c=ECHO_CELL_COLOUR, edgecolors="black",
+                   linewidths=0.8, zorder=5 + 1.0 / (rank + 1))  # fmt: skip
+        ax.annotate(str(rank + 1), (cell_x[rank], cell_y[rank]), xytext=(5, 5), textcoords="offset points",
+                    fontsize="small", fontweight="bold", bbox=_LABEL_BOX, zorder=6)  # fmt: skip
+    ax.plot(antenna_x, antenna[1], ls="none", marker="*", ms=15, mfc="white", mec="black", mew=1.2, zorder=7,
+            label="antenna nadir at this echo")  # fmt: skip
+    _frame_map(ax, extent if view is None else view, axis_labels, geographic)
+    features = ax.legend(loc="upper right", **_LEGEND_STYLE)
+    ranked = np.flatnonzero(ok)
+    if ranked.size:
+        listed = ranked[:_MAX_RANKS_LISTED]
+        handles = [
+            Line2D(
+                [], [], ls="none", marker="o", ms=np.sqrt(area_pt2[rank]), mfc=ECHO_CELL_COLOUR, mec="black",
+                mew=0.8, label=f"{rank + 1}:  {100.0 * share[rank]:.1f} %",
+            )
+            for rank in listed
+        ]  # fmt: skip
+        lines = ["ground cells, by rank", "(1 = strongest):", "share of echo power,", "marker area ∝ share"]
+        if ranked.size > listed.size:
+            lines.append(f"({ranked.size - listed.size} more not listed)")
+        lines.append(f"all {ranked.size}: {100.0 * share[ranked].sum():.1f} %")
+        ax.add_artist(features)  # keep the first legend when adding the second
+        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0,
+                  title="\n".join(lines), title_fontsize="small", labelspacing=1.0, borderpad=0.8,
+                  **_LEGEND_STYLE)  # fmt: skip
+    if title:
+        ax.set_title(title)
+    return _save_atomic(fig, path)
+
+
+def _share_marker_area_pt2(share: np.ndarray) -> np.ndarray:
+    """Marker area in points² for a share of echo power in [0, 1]: 600 pt² × share, at least 12 pt²."""
+    return np.maximum(600.0 * np.clip(np.nan_to_num(share), 0.0, 1.0), 12.0)
+
+
+# --------------------------------------------------------------------- map parts
+
+
+def _grid(values, name: str) -> np.ndarray:
+    """A 2-D float64 array, or ValueError naming the argument."""
+    grid = np.asarray(values, dtype=np.float64)
+    if grid.ndim != 2:
+        raise ValueError(f"{name} must be 2-D, got shape {grid.shape}")
+    return grid
+
+
+def _map_axes(axis_labels, geographic) -> tuple[tuple[str, str], bool]:
+    """Default axis labels (degrees) and, unless given, geographic iff the x label speaks of longitude/degrees."""
     if axis_labels is None:
         axis_labels = ("longitude (°E)", "latitude (°N)")
     if geographic is None:
         geographic = any(word in axis_labels[0].lower() for word in ("longitude", "°", "deg"))
+    return tuple(axis_labels), bool(geographic)
+
+
+def _map_x(x, extent, geographic: bool) -> np.ndarray:
+    """x coordinates as a flat float array; in degrees, wrapped to within 180° of the map centre."""
+    x = np.asarray(x, dtype=np.float64).ravel()
     if geographic:
-        centre_lon = 0.5 * (west + east)
-        lon = (lon - centre_lon + 180.0) % 360.0 - 180.0 + centre_lon
+        centre = 0.5 * (float(extent[0]) + float(extent[1]))
+        x = (x - centre + 180.0) % 360.0 - 180.0 + centre
+    return x
 
-    rgb, norm = _shaded_relief_rgba(elev)
 
-    fig = Figure(figsize=TRACK_MAP_FIGSIZE_IN, dpi=DPI, layout="constrained")
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
-    ax.imshow(rgb, extent=(west, east, south, north), origin="upper", interpolation="antialiased")
-    ax.plot(lon, lat, color="#c0142c", lw=1.6, label="track")
-    start = np.flatnonzero(np.isfinite(lon) & np.isfinite(lat))
+def _image_extent(extent) -> tuple[float, float, float, float]:
+    west, east, south, north = (float(v) for v in extent)
+    return (west, east, south, north)
+
+
+def _draw_relief(ax, rgba: np.ndarray, extent) -> None:
+    """A north-up relief image (row 0 at the top) filling ``extent``."""
+    ax.imshow(rgba, extent=_image_extent(extent), origin="upper", interpolation="antialiased")
+
+
+def _draw_track(ax, x: np.ndarray, y: np.ndarray, *, halo: bool = False) -> None:
+    """The track line (label "track") and a labelled marker at its first valid point."""
+    effects = [withStroke(linewidth=3.4, foreground="white")] if halo else None
+    ax.plot(x, y, color=TRACK_COLOUR, lw=1.6, label="track", path_effects=effects)
+    start = np.flatnonzero(np.isfinite(x) & np.isfinite(y))
     if start.size:
         i = start[0]
-        ax.plot(lon[i], lat[i], "o", ms=8, mfc="white", mec="#c0142c", mew=2, label="start", zorder=3)
-        ax.annotate("start", (lon[i], lat[i]), xytext=(6, 6), textcoords="offset points", fontsize="small",
-                    color="black", bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.7))
+        ax.plot(x[i], y[i], "o", ms=8, mfc="white", mec=TRACK_COLOUR, mew=2, label="start", zorder=3)
+        ax.annotate("start", (x[i], y[i]), xytext=(6, 6), textcoords="offset points", fontsize="small",
+                    color="black", bbox=_LABEL_BOX)  # fmt: skip
+
+
+def _frame_map(ax, extent, axis_labels: tuple[str, str], geographic: bool) -> None:
+    """Limits to ``extent``, true-shape aspect and axis labels."""
+    west, east, south, north = _image_extent(extent)
     ax.set_xlim(west, east)
     ax.set_ylim(south, north)
     if geographic:  # one degree of longitude is cos(latitude) of one of latitude
@@ -291,15 +920,10 @@ def plot_track_map(
         ax.set_aspect("equal")
     ax.set_xlabel(axis_labels[0])
     ax.set_ylabel(axis_labels[1])
-    ax.legend(loc="upper right", fontsize="small", framealpha=0.85)
-    if title:
-        ax.set_title(title)
-    fig.colorbar(ScalarMappable(norm=norm, cmap=TERRAIN_CMAP), ax=ax, label="elevation (m)", shrink=0.8)
-    return _save_atomic(fig, path)
 
 
-def _shaded_relief_rgba(elev: np.ndarray) -> tuple[np.ndarray, Normalize]:
-    """Hillshaded terrain colours as RGBA (ny, nx, 4), transparent in holes, and the colour norm."""
+def _relief_inputs(elev: np.ndarray) -> tuple[np.ndarray, np.ndarray, Normalize, float]:
+    """Hole-filled heights, validity mask, height norm and hillshade vertical exaggeration."""
     valid = np.isfinite(elev)
     if valid.any():
         lo, hi = float(elev[valid].min()), float(elev[valid].max())
@@ -317,13 +941,41 @@ def _shaded_relief_rgba(elev: np.ndarray) -> tuple[np.ndarray, Normalize]:
     if typical_step <= 0 and step.size:
         typical_step = float(step.max())
     vert_exag = 0.2 / typical_step if typical_step > 0 else 1.0
-    light = LightSource(azdeg=315.0, altdeg=40.0)  # lit from the north-west
-    rgba = light.shade(filled, cmap=TERRAIN_CMAP, norm=norm, blend_mode="soft", vert_exag=vert_exag)
+    return filled, valid, norm, vert_exag
+
+
+#: Light from the north-west, 40° above the horizon, for every hillshade.
+_LIGHT = LightSource(azdeg=315.0, altdeg=40.0)
+#: Grey levels of the greyscale hillshade (shadow, full light): light enough for overlays.
+_HILLSHADE_GREY_RANGE = (0.38, 0.95)
+_HILLSHADE_MID_GREY = str(round(0.5 * sum(_HILLSHADE_GREY_RANGE), 3))
+
+
+def _shaded_relief_rgba(elev: np.ndarray) -> tuple[np.ndarray, Normalize]:
+    """Hillshaded terrain colours as RGBA (ny, nx, 4), transparent in holes, and the colour norm."""
+    filled, valid, norm, vert_exag = _relief_inputs(elev)
+    rgba = _LIGHT.shade(filled, cmap=TERRAIN_CMAP, norm=norm, blend_mode="soft", vert_exag=vert_exag)
     rgba[..., 3] = np.where(valid, 1.0, 0.0)
     return rgba, norm
 
 
+def _grey_hillshade_rgba(elev: np.ndarray) -> np.ndarray:
+    """Greyscale hillshade as RGBA (ny, nx, 4), transparent in holes (same light and exaggeration rule)."""
+    filled, valid, _, vert_exag = _relief_inputs(elev)
+    intensity = _LIGHT.hillshade(filled, vert_exag=vert_exag) if filled.size else filled
+    dark, light = _HILLSHADE_GREY_RANGE
+    grey = dark + (light - dark) * intensity
+    return np.stack([grey, grey, grey, np.where(valid, 1.0, 0.0)], axis=-1)
+
+
 # --------------------------------------------------------------------- output
+
+
+def _new_figure(figsize_in: tuple[float, float]) -> Figure:
+    """A constrained-layout Figure at :data:`DPI` with its own Agg canvas (no pyplot)."""
+    fig = Figure(figsize=figsize_in, dpi=DPI, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def _save_atomic(fig: Figure, path) -> Path:

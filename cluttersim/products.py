@@ -19,42 +19,61 @@ from .simulate import _window_for_radius, ground_radius_m, simulate
 from .track import Track, great_circle_track
 
 #: File names of a simulation run directory.
-RUN_FILES = {"radargram": "radargram.nc", "radargram_png": "radargram.png", "track_map": "track_map.png"}
+RUN_FILES = {
+    "radargram": "radargram.nc",
+    "radargram_png": "radargram.png",
+    "sides_png": "radargram_sides.png",
+    "track_map": "track_map.png",
+}
 
 #: Largest side (pixels) of the relief image in the track map.
 _MAP_CELLS = 900
 
 
 def simulate_to_dir(
-    dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None
-) -> dict[str, Path]:
-    """Simulate and write ``radargram.nc``, ``radargram.png`` and ``track_map.png`` into ``out_dir``.
+    dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None,
+    sources=True, nadir_strip_m=None, first_return_db=-20.0, permittivity=3.15,
+) -> dict[str, Path]:  # fmt: skip
+    """Simulate and write the run's products (:data:`RUN_FILES`) into ``out_dir``.
 
     Existing products are refused before any work unless ``overwrite``; all
-    three are written under temporary names and renamed together at the end.
+    are written under temporary names and renamed together at the end.
+    ``permittivity`` sets the apparent-depth axis of the figures.
     """
     out_dir = Path(out_dir)
     paths = {k: out_dir / v for k, v in RUN_FILES.items()}
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
-    ds = simulate(src, track, config, progress=progress, stats=stats)
-    write_run(ds, src, paths)
+    ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
+                  nadir_strip_m=nadir_strip_m, first_return_db=first_return_db)  # fmt: skip
+    if not sources:
+        paths.pop("sides_png")
+    write_run(ds, src, paths, permittivity=permittivity)
     return paths
 
 
-def write_run(ds, src: DemSource, paths: dict[str, Path]) -> None:
-    """Write a radargram and its two figures atomically to ``paths`` (keys of :data:`RUN_FILES`)."""
+def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15) -> None:
+    """Write a radargram and its figures atomically to ``paths`` (keys of :data:`RUN_FILES`)."""
     from . import plots
 
-    keys = list(RUN_FILES)
+    keys = list(paths)
     with atomic_paths([paths[k] for k in keys]) as temps:
         tmp = dict(zip(keys, temps))
         write_netcdf_to(ds, tmp["radargram"])
-        plots.plot_radargram(ds, tmp["radargram_png"], title=f"simulated clutter — {src.path.name}")
+        plots.plot_radargram(ds, tmp["radargram_png"], title=f"simulated clutter — {src.path.name}",
+                             permittivity=permittivity)  # fmt: skip
+        if "sides_png" in tmp:
+            plots.plot_side_radargram(ds, tmp["sides_png"], permittivity=permittivity,
+                                      title=f"which side of the track each echo comes from — {src.path.name}")  # fmt: skip
         elevation, extent, tx, ty, labels = track_map_data(src, ds)
+        first = None
+        if "first_return_lat" in ds:
+            fx, fy = src.lonlat_to_xy(ds["first_return_lon"].values, ds["first_return_lat"].values)
+            scale = 1.0 if src.is_geographic else 1e-3
+            first = (fx * scale, fy * scale)
         plots.plot_track_map(
-            elevation, extent, tx, ty, tmp["track_map"],
+            elevation, extent, tx, ty, tmp["track_map"], first_return=first,
             title=f"track over {src.path.name}", axis_labels=labels, geographic=src.is_geographic,
         )  # fmt: skip
 

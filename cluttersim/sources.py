@@ -247,3 +247,104 @@ def ask_echo(run: Run, trace: int, *, delay_s: float | None = None, depth_m: flo
         antenna_lat_deg=float(track.lat_deg[trace]), antenna_lon_deg=float(track.lon_deg[trace]),
         total_power_w=total, cells=ranked,
     )  # fmt: skip
+
+
+# --------------------------------------------------------------------------- products
+
+
+def _depth_tag(a: float, b: float, permittivity: float) -> str:
+    return f"{a:g}-{b:g}m_eps{permittivity:g}"
+
+
+def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> dict[str, Path]:
+    """Write the depth-window map as ``sources_<A>-<B>m_eps<ε>.tif`` (GeoTIFF, W per cell,
+    the run's DEM-window grid and CRS) and a ``.png`` beside it in the run directory."""
+    import rasterio
+    from rasterio.crs import CRS as RioCRS
+
+    from . import plots
+    from .outputs import atomic_paths, check_new
+
+    stem = f"sources_{_depth_tag(smap.depth_min_m, smap.depth_max_m, smap.permittivity)}"
+    paths = {"tif": run.run_dir / f"{stem}.tif", "png": run.run_dir / f"{stem}.png"}
+    check_new(paths.values(), overwrite)
+    ny, nx = smap.power_w.shape
+    profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32", transform=smap.transform,
+                   nodata=np.nan, compress="deflate")  # fmt: skip
+    if smap.crs is not None:
+        profile["crs"] = RioCRS.from_wkt(smap.crs.to_wkt())
+    elevation, extent, tx, ty, labels = _map_frame(run, smap.elevation_m, smap.transform)
+    with atomic_paths([paths["tif"], paths["png"]]) as (tif, png):
+        with rasterio.open(tif, "w", **profile) as dst:
+            dst.write(smap.power_w, 1)
+            dst.update_tags(
+                units="W", quantity="echo power into the apparent-depth window, summed over the track",
+                depth_min_m=smap.depth_min_m, depth_max_m=smap.depth_max_m, permittivity=smap.permittivity,
+            )  # fmt: skip
+        plots.plot_source_map(
+            smap.power_w, elevation, extent, tx, ty, png, axis_labels=labels, geographic=run.scene.src.is_geographic,
+            title=f"ground echoing at apparent depths {smap.depth_min_m:g}–{smap.depth_max_m:g} m (ε′ = {smap.permittivity:g})",
+        )  # fmt: skip
+    return paths
+
+
+def _map_frame(run: Run, elevation_m, transform):
+    """Extent, track coordinates and axis labels of a map drawn on the run's DEM window grid."""
+    ny, nx = elevation_m.shape
+    src = run.scene.src
+    x0, y0 = transform.c, transform.f
+    x1, y1 = x0 + transform.a * nx, y0 + transform.e * ny
+    tx, ty = src.lonlat_to_xy(run.scene.track.lon_deg, run.scene.track.lat_deg)
+    if src.is_geographic:
+        return elevation_m, (x0, x1, y1, y0), tx, ty, ("longitude (°E)", "latitude (°N)")
+    k = 1e-3
+    return elevation_m, (x0 * k, x1 * k, y1 * k, y0 * k), tx * k, ty * k, ("easting (km)", "northing (km)")
+
+
+def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) -> Path:
+    """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory."""
+    from . import plots
+    from .outputs import atomic_paths, check_new
+
+    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us.png"
+    check_new([path], overwrite)
+    src = run.scene.src
+    window = run.scene.window
+    elevation, extent, tx, ty, labels = _map_frame(run, window.elevation_m, window.transform)
+    k = 1.0 if src.is_geographic else 1e-3
+    ax, ay = src.lonlat_to_xy(answer.antenna_lon_deg, answer.antenna_lat_deg)
+    if answer.cells:
+        cx, cy = src.lonlat_to_xy(np.array([c.lon_deg for c in answer.cells]), np.array([c.lat_deg for c in answer.cells]))
+        cells_xy = np.column_stack([cx, cy]) * k
+    else:
+        cells_xy = np.empty((0, 2))
+    pts = np.vstack([cells_xy, [[float(ax) * k, float(ay) * k]]])
+    lo, hi = pts.min(axis=0), pts.max(axis=0)
+    pad = max(0.3 * float(np.max(hi - lo)), 10 * abs(window.transform.a) * k)
+    view = (lo[0] - pad, hi[0] + pad, lo[1] - pad, hi[1] + pad)
+    with atomic_paths([path]) as (tmp,):
+        plots.plot_echo_sources(
+            elevation, extent, tx, ty, (float(ax) * k, float(ay) * k), cells_xy, [c.share for c in answer.cells], tmp,
+            axis_labels=labels, geographic=src.is_geographic, view=view,
+            title=f"trace {answer.trace}, {answer.delay_s * 1e6:.3f} µs after window start",
+        )  # fmt: skip
+    return path
+
+
+def format_echo_answer(answer: EchoAnswer) -> str:
+    """A plain-text table of the ranked cells behind one echo."""
+    lines = [
+        f"trace {answer.trace}, sample {answer.sample}: {answer.delay_s * 1e6:.3f} µs after the window start, "
+        f"apparent depth {answer.depth_m:.1f} m below the nadir surface (ε′ = {answer.permittivity:g})",
+        f"antenna over lat {answer.antenna_lat_deg:.5f}, lon {answer.antenna_lon_deg:.5f}; "
+        f"power in this sample from the ground: {10 * np.log10(answer.total_power_w) if answer.total_power_w > 0 else -np.inf:.1f} dBW",
+        f"{'rank':>4} {'lat':>10} {'lon':>11} {'side':>12} {'cross-track m':>14} {'off-nadir m':>12} {'share':>7}",
+    ]
+    for c in answer.cells:
+        lines.append(
+            f"{c.rank:>4} {c.lat_deg:>10.5f} {c.lon_deg:>11.5f} {c.side:>12} {c.cross_track_m:>14.0f} "
+            f"{c.offnadir_m:>12.0f} {100 * c.share:>6.1f}%"
+        )
+    if not answer.cells:
+        lines.append("   (no ground cell echoes into this sample)")
+    return "\n".join(lines)

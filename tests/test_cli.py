@@ -43,7 +43,7 @@ def test_simulate_writes_the_three_products(scene):
     d, dem, track, radar = scene
     res = run(["simulate", "--dem", dem, "--track", track, "--radar", radar, "--out", d / "run", "-q"])
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in (d / "run").iterdir()) == ["radargram.nc", "radargram.png", "track_map.png"]
+    assert sorted(p.name for p in (d / "run").iterdir()) == ["radargram.nc", "radargram.png", "radargram_sides.png", "track_map.png"]
     with xr.open_dataset(d / "run" / "radargram.nc", engine="h5netcdf") as ds:
         assert ds["power"].dims == ("trace", "sample") and ds["power"].shape == (9, 256)
         assert ds["power"].dtype == np.float32 and ds["power"].attrs["units"] == "W"

@@ -8,17 +8,32 @@ import sys
 import numpy as np
 import pytest
 import xarray as xr
+from matplotlib.colors import to_rgb
 from matplotlib.image import imread
 
 from cluttersim.plots import (
     DPI,
+    ECHO_CELL_COLOUR,
+    ECHO_SOURCES_FIGSIZE_IN,
+    FIRST_RETURN_COLOUR,
     RADARGRAM_FIGSIZE_IN,
+    SIDE_LEFT_COLOUR,
+    SIDE_NADIR_COLOUR,
+    SIDE_NO_DATA_COLOUR,
+    SIDE_RIGHT_COLOUR,
     TRACK_MAP_FIGSIZE_IN,
+    depth_axis_functions,
+    nadir_reference_us,
+    plot_echo_sources,
     plot_radargram,
+    plot_side_radargram,
+    plot_source_map,
     plot_track_map,
     power_db,
     radargram_layers,
+    side_colours,
 )
+from cluttersim.radar import apparent_depth_m
 
 NTRACE, NSAMPLE = 50, 200
 SAMPLE_INTERVAL_S = 50e-9
@@ -48,8 +63,35 @@ def synthetic_radargram(*, varying_window: bool = True) -> xr.Dataset:
     )
 
 
+def with_sides(ds: xr.Dataset) -> xr.Dataset:
+    """Add a source record: samples < 100 all from the left, the rest all from the right."""
+    left = np.zeros((NTRACE, NSAMPLE), np.float32)
+    left[:, :100] = 1.0
+    right = 1.0 - left
+    unknown = ~(ds["power"].values > 0)
+    left[unknown] = np.nan
+    right[unknown] = np.nan
+    return ds.assign(left_fraction=(("trace", "sample"), left), right_fraction=(("trace", "sample"), right))
+
+
 def expected_pixels(figsize_in):
     return round(figsize_in[1] * DPI), round(figsize_in[0] * DPI)
+
+
+def near_colour(img, colour, tol=0.06):
+    """Mask of pixels within ``tol`` of ``colour`` in every RGB channel."""
+    return (np.abs(img[..., :3] - np.asarray(to_rgb(colour))) < tol).all(axis=-1)
+
+
+def relative_luminance(colour):
+    linear = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in to_rgb(colour)]
+    return 0.2126 * linear[0] + 0.7152 * linear[1] + 0.0722 * linear[2]
+
+
+def dome(nx=120, ny=100, west=40.0, east=42.0, south=10.0, north=14.0):
+    """A 500 m dome on a regular lon/lat grid, row 0 at the north."""
+    lon2, lat2 = np.meshgrid(np.linspace(west, east, nx), np.linspace(north, south, ny))
+    return 500.0 * np.exp(-((lon2 - 0.5 * (west + east)) ** 2 + (lat2 - 0.5 * (south + north)) ** 2)), lon2, lat2
 
 
 # ----------------------------------------------------------------- power_db
@@ -177,7 +219,227 @@ def test_plots_do_not_import_pyplot(tmp_path):
     code = (
         "import sys, numpy as np\n"
         "import cluttersim.plots as p\n"
-        f"p.plot_track_map(np.zeros((4, 4)), (0, 1, 0, 1), [0.2, 0.8], [0.5, 0.5], {str(tmp_path / 'm.png')!r})\n"
+        f"p.plot_track_map(np.zeros((4, 4)), (0, 1, 0, 1), [0.2, 0.8], [0.5, 0.5], {str(tmp_path / 'm.png')!r},\n"
+        "                 first_return=([0.3, 0.7], [0.5, 0.6]))\n"
+        f"p.plot_source_map(np.ones((4, 4)), np.zeros((4, 4)), (0, 1, 0, 1), [0.2, 0.8], [0.5, 0.5], "
+        f"{str(tmp_path / 's.png')!r})\n"
+        f"p.plot_echo_sources(np.zeros((4, 4)), (0, 1, 0, 1), [0.2, 0.8], [0.5, 0.5], (0.5, 0.5), [[0.4, 0.4]], [0.9], "
+        f"{str(tmp_path / 'e.png')!r})\n"
+        "rgb = p.side_colours(np.ones((3, 5)), np.ones((3, 5)), np.zeros((3, 5)))\n"
         "assert 'matplotlib.pyplot' not in sys.modules, 'pyplot was imported'\n"
     )
     subprocess.run([sys.executable, "-c", code], check=True)
+
+
+# ----------------------------------------------------------------- depth axis
+
+
+def test_nadir_reference_and_depth_functions():
+    layers = radargram_layers(synthetic_radargram(varying_window=True))
+    surface_us, spread_us = nadir_reference_us(layers)
+    bright = 60 + np.arange(3, NTRACE) // 5  # nadir sample of the traces with a nadir delay
+    assert surface_us == pytest.approx(np.median(bright) * SAMPLE_INTERVAL_S * 1e6)
+    assert spread_us == pytest.approx(np.ptp(bright) * SAMPLE_INTERVAL_S * 1e6)
+    depth_m, delay_us = depth_axis_functions(surface_us, 3.15)
+    assert depth_m(surface_us) == pytest.approx(0.0)
+    # 1 µs after the surface in ice: c · 1 µs / (2 √3.15) ≈ 84.5 m
+    assert depth_m(surface_us + 1.0) == pytest.approx(float(apparent_depth_m(1e-6, 3.15)))
+    assert depth_m(surface_us + 1.0) == pytest.approx(84.45, abs=0.01)
+    delays = np.array([0.0, 2.5, 9.9])
+    np.testing.assert_allclose(delay_us(depth_m(delays)), delays, atol=1e-9)
+    assert depth_m(surface_us - 1.0) < 0  # above the surface
+    with pytest.raises(ValueError, match="permittivity"):
+        depth_axis_functions(0.0, 0.5)
+
+
+def test_nadir_reference_absent():
+    ds = synthetic_radargram()
+    ds["nadir_delay"][:] = np.nan
+    assert nadir_reference_us(radargram_layers(ds)) is None
+    assert nadir_reference_us(radargram_layers(ds.drop_vars("nadir_delay"))) is None
+
+
+def test_plot_radargram_with_depth_axis(tmp_path):
+    plain = imread(plot_radargram(synthetic_radargram(), tmp_path / "plain.png"))
+    deep = imread(plot_radargram(synthetic_radargram(), tmp_path / "deep.png", permittivity=3.15))
+    assert deep.shape == plain.shape == expected_pixels(RADARGRAM_FIGSIZE_IN) + (4,)
+    assert not np.array_equal(plain, deep)  # the depth axis (and the median-nadir note) are drawn
+    # No nadir line: no axis, no failure; fixed window: absolute frame.
+    ds = synthetic_radargram(varying_window=False)
+    plot_radargram(ds, tmp_path / "abs.png", permittivity=1.0)
+    ds["nadir_delay"][:] = np.nan
+    plot_radargram(ds, tmp_path / "no_nadir.png", permittivity=3.15)
+    with pytest.raises(ValueError, match="permittivity"):
+        plot_radargram(ds, tmp_path / "bad.png", permittivity=0.9)
+    assert not (tmp_path / "bad.png").exists()
+    assert not list(tmp_path.glob("*.tmp"))
+
+
+# ----------------------------------------------------------------- side radargram
+
+
+def test_side_palette_is_luminance_matched_and_distinct():
+    """Brightness must show power alone: the three side colours have the same luminance."""
+    lum = [relative_luminance(c) for c in (SIDE_LEFT_COLOUR, SIDE_RIGHT_COLOUR, SIDE_NADIR_COLOUR)]
+    assert max(lum) - min(lum) < 0.02
+    rgb = np.array([to_rgb(c) for c in (SIDE_LEFT_COLOUR, SIDE_RIGHT_COLOUR, SIDE_NADIR_COLOUR)])
+    assert min(np.abs(rgb[i] - rgb[j]).max() for i, j in ((0, 1), (0, 2), (1, 2))) > 0.3
+    # No echo colour can be as light as the no-data colour.
+    assert relative_luminance(SIDE_NO_DATA_COLOUR) > max(lum) + 0.2
+
+
+def test_side_colours_pure_sides_and_brightness():
+    # 2 traces × 4 samples: max power, 30 dB down, 60 dB down (floor), zero.
+    power = np.array([[1.0, 1e-3, 1e-6, 0.0], [1.0, 1e-3, 1e-6, 0.0]])
+    left = np.array([[1.0] * 4, [0.0] * 4])
+    right = np.array([[0.0] * 4, [1.0] * 4])
+    rgb = side_colours(power, left, right, dynamic_range_db=60.0)
+    assert rgb.shape == (4, 2, 3)  # (sample, trace, RGB)
+    c_left, c_right = np.array(to_rgb(SIDE_LEFT_COLOUR)), np.array(to_rgb(SIDE_RIGHT_COLOUR))
+    np.testing.assert_allclose(rgb[0, 0], c_left)
+    np.testing.assert_allclose(rgb[1, 0], 0.5 * c_left)
+    np.testing.assert_allclose(rgb[0, 1], c_right)
+    np.testing.assert_allclose(rgb[1, 1], 0.5 * c_right)
+    np.testing.assert_allclose(rgb[2:], 0.0)  # at the floor and zero power: black
+    assert rgb.min() >= 0.0 and rgb.max() <= 1.0
+
+
+def test_side_colours_nadir_mixtures_and_no_data():
+    c_left, c_right, c_nadir = (np.array(to_rgb(c)) for c in (SIDE_LEFT_COLOUR, SIDE_RIGHT_COLOUR, SIDE_NADIR_COLOUR))
+    no_data = np.array(to_rgb(SIDE_NO_DATA_COLOUR))
+    power = np.array([[1.0, 1.0, 1.0, 1.0, np.nan, 0.0, 1.0]])
+    left = np.array([[0.0, 0.5, 0.25, 0.8, np.nan, np.nan, np.nan]])
+    right = np.array([[0.0, 0.5, 0.25, 0.8, np.nan, np.nan, 0.3]])
+    rgb = side_colours(power, left, right, dynamic_range_db=40.0)[:, 0]
+    np.testing.assert_allclose(rgb[0], c_nadir)  # no side power: nadir strip
+    np.testing.assert_allclose(rgb[1], 0.5 * c_left + 0.5 * c_right)
+    np.testing.assert_allclose(rgb[2], 0.25 * c_left + 0.25 * c_right + 0.5 * c_nadir)
+    np.testing.assert_allclose(rgb[3], 0.5 * c_left + 0.5 * c_right)  # shares summing over 1 are rescaled
+    np.testing.assert_allclose(rgb[4], no_data)  # NaN power
+    np.testing.assert_allclose(rgb[5], 0.0)  # zero power: black, side irrelevant
+    np.testing.assert_allclose(rgb[6], no_data)  # power but unknown side
+
+
+def test_side_colours_rejects_bad_input():
+    with pytest.raises(ValueError, match="shape"):
+        side_colours(np.ones((2, 3)), np.ones((2, 3)), np.ones((3, 2)))
+    with pytest.raises(ValueError, match="2-D"):
+        side_colours(np.ones(3), np.ones(3), np.ones(3))
+    with pytest.raises(ValueError, match="dynamic_range_db"):
+        side_colours(np.ones((2, 3)), np.ones((2, 3)), np.ones((2, 3)), dynamic_range_db=-1.0)
+
+
+def test_plot_side_radargram_colours_by_side(tmp_path):
+    """Upper samples all-left, lower all-right, uniform power: orange above sky blue in the PNG."""
+    ds = synthetic_radargram(varying_window=False)
+    ds["power"][3:] = 1e-12  # uniform: full brightness everywhere with data
+    ds["power"][10] = 0.0
+    out = plot_side_radargram(with_sides(ds), tmp_path / "side.png", title="sides", dynamic_range_db=30.0)
+    img = imread(out)
+    assert img.shape[:2] == expected_pixels(RADARGRAM_FIGSIZE_IN)
+    height, width = img.shape[:2]
+    plot_area = img[: int(0.8 * height), : int(0.75 * width)]  # clear of the legend and the key
+    rows = np.arange(plot_area.shape[0])[:, None]
+    orange = near_colour(plot_area, SIDE_LEFT_COLOUR)
+    blue = near_colour(plot_area, SIDE_RIGHT_COLOUR)
+    assert orange.sum() > 5000 and blue.sum() > 5000
+    assert np.broadcast_to(rows, orange.shape)[orange].mean() < np.broadcast_to(rows, blue.shape)[blue].mean()
+    # Traces 0-2 have no data: the no-data colour is shown; trace 10 (zero power) is black.
+    assert near_colour(plot_area, SIDE_NO_DATA_COLOUR, tol=0.03).sum() > 300
+    assert (plot_area[..., :3].max(axis=-1) < 0.05).sum() > 500
+    assert not list(tmp_path.glob("*.tmp"))
+
+
+def test_plot_side_radargram_options_and_errors(tmp_path):
+    ds = with_sides(synthetic_radargram())
+    plot_side_radargram(ds, tmp_path / "no_depth.png", permittivity=None)
+    for name in ("left_fraction", "right_fraction"):
+        with pytest.raises(ValueError, match=name):
+            plot_side_radargram(ds.drop_vars(name), tmp_path / "x.png")
+    with pytest.raises(ValueError, match="permittivity"):
+        plot_side_radargram(ds, tmp_path / "x.png", permittivity=0.0)
+    ds["power"][:] = np.nan
+    plot_side_radargram(ds, tmp_path / "all_nan.png")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["all_nan.png", "no_depth.png"]
+
+
+# ----------------------------------------------------------------- first returns on the track map
+
+
+def test_plot_track_map_first_returns(tmp_path):
+    elevation, _, _ = dome()
+    extent = (40.0, 42.0, 10.0, 14.0)
+    track_lat = np.linspace(10.5, 13.5, 60)
+    track_lon = np.full_like(track_lat, 41.0)
+    fr_lon = track_lon.copy()
+    fr_lon[20:30] = 41.6  # off-nadir first returns east of the track
+    fr_lat = track_lat.copy()
+    fr_lat[5] = np.nan  # skipped
+    plain = imread(plot_track_map(elevation, extent, track_lon, track_lat, tmp_path / "plain.png"))
+    img = imread(plot_track_map(elevation, extent, track_lon, track_lat, tmp_path / "fr.png",
+                                first_return=(fr_lon, fr_lat)))  # fmt: skip
+    assert img.shape == plain.shape
+    marks = near_colour(img, FIRST_RETURN_COLOUR, tol=0.12)
+    assert marks.sum() > near_colour(plain, FIRST_RETURN_COLOUR, tol=0.12).sum() + 50
+    # The off-nadir markers sit east of the track (to the right of the red line) in the image.
+    track_col = np.argmax(((img[..., 0] > 0.6) & (img[..., 1] < 0.25) & (img[..., 2] < 0.3)).sum(axis=0))
+    assert np.flatnonzero(marks.any(axis=0)).max() > track_col + 50
+    with pytest.raises(ValueError, match="first_return"):
+        plot_track_map(elevation, extent, track_lon, track_lat, tmp_path / "x.png", first_return=(fr_lon[:5], fr_lat))
+    plot_track_map(elevation, extent, track_lon, track_lat, tmp_path / "nan.png",
+                   first_return=(np.full(60, np.nan), fr_lat))  # fmt: skip
+    assert not (tmp_path / "x.png").exists()
+
+
+# ----------------------------------------------------------------- source maps
+
+
+def test_plot_source_map(tmp_path):
+    elevation, lon2, lat2 = dome()
+    elevation[5:10, 5:10] = np.nan
+    extent = (40.0, 42.0, 10.0, 14.0)
+    power = 1e-12 * np.exp(-np.abs(lon2 - 41.0) / 0.1)  # strongest along the track
+    power[lat2 < 11.0] = 0.0
+    power[lat2 > 13.5] = np.nan
+    track_lat = np.linspace(10.5, 13.5, 40)
+    out = plot_source_map(power, elevation, extent, np.full(40, 41.0), track_lat, tmp_path / "src.png", title="t")
+    img = imread(out)
+    assert img.shape[:2] == expected_pixels(TRACK_MAP_FIGSIZE_IN)
+    grey = (np.ptp(img[..., :3], axis=-1) < 0.01) & (img[..., 0] > 0.3) & (img[..., 0] < 0.97)
+    assert grey.sum() > 5000  # hillshade where there is no (or weak) power
+    strong = (img[..., 0] > 0.8) & (img[..., 1] > 0.75) & (img[..., 2] < 0.35)  # top of viridis: yellow
+    assert strong.sum() > 100
+    with pytest.raises(ValueError, match="same shape"):
+        plot_source_map(power[:, :-1], elevation, extent, [41.0], [12.0], tmp_path / "x.png")
+    with pytest.raises(ValueError, match="dynamic_range_db"):
+        plot_source_map(power, elevation, extent, [41.0], [12.0], tmp_path / "x.png", dynamic_range_db=0.0)
+    plot_source_map(np.zeros((4, 5)), np.zeros((4, 5)), (0.0, 5.0, 0.0, 4.0), [1.0, 4.0], [2.0, 2.0],
+                    tmp_path / "zero.png", axis_labels=("easting (km)", "northing (km)"), geographic=False)  # fmt: skip
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["src.png", "zero.png"]
+
+
+def test_plot_echo_sources(tmp_path):
+    elevation, _, _ = dome()
+    extent = (40.0, 42.0, 10.0, 14.0)
+    track_lat = np.linspace(10.5, 13.5, 40)
+    cells = np.array([[41.5, 12.0], [40.6, 12.2], [np.nan, np.nan], [41.0, 11.9]])
+    shares = np.array([0.5, 0.2, 0.1, 0.05])
+    out = plot_echo_sources(elevation, extent, np.full(40, 41.0), track_lat, (41.0, 12.0), cells, shares,
+                            tmp_path / "echo.png", title="echo at trace 20")  # fmt: skip
+    img = imread(out)
+    assert img.shape[:2] == expected_pixels(ECHO_SOURCES_FIGSIZE_IN)
+    assert near_colour(img, ECHO_CELL_COLOUR, tol=0.05).sum() > 200
+    # Zoomed on the cells (rank 2 at 40.6 °E falls outside the view): a different picture, same size.
+    zoom = imread(plot_echo_sources(elevation, extent, np.full(40, 41.0), track_lat, (41.0, 12.0), cells, shares,
+                                    tmp_path / "zoom.png", view=(40.9, 41.6, 11.8, 12.1)))  # fmt: skip
+    assert zoom.shape == img.shape and not np.array_equal(zoom, img)
+    # No cells at all, and projected coordinates.
+    plot_echo_sources(elevation, (0.0, 100.0, 0.0, 80.0), [50.0, 50.0], [0.0, 80.0], (50.0, 40.0), np.empty((0, 2)),
+                      [], tmp_path / "none.png", axis_labels=("x (km)", "y (km)"), geographic=False)  # fmt: skip
+    with pytest.raises(ValueError, match="cells_xy"):
+        plot_echo_sources(elevation, extent, [41.0], [12.0], (41.0, 12.0), [41.0, 12.0, 1.0], [0.5], tmp_path / "x.png")
+    with pytest.raises(ValueError, match="shares"):
+        plot_echo_sources(elevation, extent, [41.0], [12.0], (41.0, 12.0), cells, shares[:2], tmp_path / "x.png")
+    with pytest.raises(ValueError, match="antenna_xy"):
+        plot_echo_sources(elevation, extent, [41.0], [12.0], (41.0,), cells, shares, tmp_path / "x.png")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["echo.png", "none.png", "zoom.png"]
