@@ -25,13 +25,16 @@ TILE_CELLS = 16
 class Facets:
     """Facet geometry of a DEM window in tile order (see module docstring).
 
-    Positions are metres relative to ``origin_m`` (body-fixed Cartesian).
-    ``cell`` holds the flat index ``row * nx + col`` of each facet's DEM cell in
-    the window, so results can be mapped back to the ground.
+    Per-facet arrays are structure-of-arrays of shape (3, nfacet) in float32:
+    ``rel_m`` the position relative to the facet's tile centre, ``normal`` the
+    unit outward normal, ``e_col_m``/``e_row_m`` the edge vectors; ``area_m2``
+    (nfacet,). Tile centres are float64 metres relative to ``origin_m``
+    (body-fixed Cartesian). ``cell`` holds the flat index ``row * nx + col`` of
+    each facet's DEM cell in the window, so results can be mapped to the ground.
     """
 
     origin_m: np.ndarray
-    pos_m: np.ndarray
+    rel_m: np.ndarray
     normal: np.ndarray
     e_col_m: np.ndarray
     e_row_m: np.ndarray
@@ -44,11 +47,21 @@ class Facets:
     grid_shape: tuple[int, int]
 
     def __len__(self) -> int:
-        return self.pos_m.shape[0]
+        return self.rel_m.shape[1]
 
     @property
     def nbytes(self) -> int:
-        return sum(a.nbytes for a in (self.pos_m, self.normal, self.e_col_m, self.e_row_m, self.area_m2, self.cell))
+        return sum(a.nbytes for a in (self.rel_m, self.normal, self.e_col_m, self.e_row_m, self.area_m2, self.cell))
+
+    @property
+    def max_tile_facets(self) -> int:
+        return int(np.diff(self.tile_offsets).max(initial=0))
+
+    def positions_m(self, index) -> np.ndarray:
+        """Positions (n, 3) relative to ``origin_m`` of the facets ``index`` (float64)."""
+        index = np.asarray(index)
+        tile = np.searchsorted(self.tile_offsets, index, side="right") - 1
+        return self.tile_centre_m[tile] + self.rel_m[:, index].T.astype(np.float64)
 
 
 def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: int = TILE_CELLS) -> Facets:
@@ -64,35 +77,36 @@ def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: in
     filled = _fill_holes(elev, valid)
     body = window.source.body
     lon, lat = window.cell_lonlat()
+    lon = np.ascontiguousarray(lon, dtype=np.float64)
+    lat = np.ascontiguousarray(lat, dtype=np.float64)
     ny, nx = elev.shape
     if origin_m is None:
         origin_m = body.geodetic_to_ecef_m(lat[ny // 2, nx // 2], lon[ny // 2, nx // 2], 0.0)
     origin_m = np.asarray(origin_m, dtype=np.float64)
     grid = np.empty((ny, nx, 3))
-    kernels.grid_to_ecef(
-        np.ascontiguousarray(lat), np.ascontiguousarray(lon), filled, body.semi_major_m, body.eccentricity_sq, origin_m, grid
-    )
-    up = body.up_unit(lat, lon)
+    kernels.grid_to_ecef(lat, lon, filled, body.semi_major_m, body.eccentricity_sq, origin_m, grid)
     nty, ntx = -(-ny // tile), -(-nx // tile)
     padded = np.zeros((nty * tile, ntx * tile), dtype=bool)
     padded[:ny, :nx] = valid
     counts = padded.reshape(nty, tile, ntx, tile).sum(axis=(1, 3)).ravel()
     offsets = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     n = int(offsets[-1])
-    pos = np.empty((n, 3))
-    normal = np.empty((n, 3), dtype=np.float32)
-    e_col = np.empty((n, 3), dtype=np.float32)
-    e_row = np.empty((n, 3), dtype=np.float32)
+    rel = np.empty((3, n), dtype=np.float32)
+    normal = np.empty((3, n), dtype=np.float32)
+    e_col = np.empty((3, n), dtype=np.float32)
+    e_row = np.empty((3, n), dtype=np.float32)
     area = np.empty(n, dtype=np.float32)
-    cell = np.empty(n, dtype=np.int64)
+    cell = np.empty(n, dtype=np.int32 if ny * nx < 2**31 else np.int64)
     ntile = nty * ntx
     tcentre = np.zeros((ntile, 3))
     tradius = np.full(ntile, -1.0)
     textent = np.zeros(ntile)
-    kernels.build_tiled_facets(grid, valid, up, tile, offsets, pos, normal, e_col, e_row, area, cell, tcentre, tradius, textent)
+    kernels.build_tiled_facets(
+        grid, valid, lat, lon, tile, offsets, rel, normal, e_col, e_row, area, cell, tcentre, tradius, textent
+    )
     return Facets(
         origin_m=origin_m,
-        pos_m=pos,
+        rel_m=rel,
         normal=normal,
         e_col_m=e_col,
         e_row_m=e_row,

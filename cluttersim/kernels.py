@@ -7,10 +7,17 @@ second run loads them from disk instead of recompiling.
 
 Conventions
 -----------
-* Positions are body-fixed Cartesian metres relative to a local origin (the
-  centre of the DEM window), in float64; directions and areas are float32.
+* Facets are stored tile by tile as structure-of-arrays, shape (3, nfacet):
+  positions in float32 metres relative to their tile's centre (the tile
+  centres are float64, relative to a local origin at the DEM window's centre),
+  unit normals and edge vectors in float32. A range is therefore computed as
+  |(tile centre − antenna) + offset| in float64 without losing precision.
 * Delay bins: bin ``k`` of a trace covers two-way delays
   ``[bin0_s + k dt, bin0_s + (k + 1) dt)``.
+* ``error_model="numpy"`` (no Python zero-division checks) and a small set of
+  fast-math flags let LLVM vectorise the per-facet loops; results are still
+  deterministic (same inputs, same bits, whatever the thread count: every
+  output element is summed by one thread in a fixed order).
 """
 
 from __future__ import annotations
@@ -23,18 +30,21 @@ import numpy as np
 from . import scattering
 from .constants import SPEED_OF_LIGHT_M_S
 
-_JIT = dict(cache=True, nogil=True)
+_JIT = dict(cache=True, nogil=True, error_model="numpy")
+#: Fast-math flags of the hot loops: no signed zeros, fused multiply-add and
+#: reassociation (for vectorisation); no approximate functions or reciprocals.
+_FAST = {"nsz", "contract", "reassoc"}
 
-_sigma0_constant = numba.njit(**_JIT)(scattering.sigma0_constant)
-_sigma0_lambert = numba.njit(**_JIT)(scattering.sigma0_lambert)
-_sigma0_cosine = numba.njit(**_JIT)(scattering.sigma0_cosine)
-_sigma0_hagfors = numba.njit(**_JIT)(scattering.sigma0_hagfors)
-_sigma0_gaussian = numba.njit(**_JIT)(scattering.sigma0_gaussian)
+_sigma0_constant = numba.njit(inline="always", **_JIT)(scattering.sigma0_constant)
+_sigma0_lambert = numba.njit(inline="always", **_JIT)(scattering.sigma0_lambert)
+_sigma0_cosine = numba.njit(inline="always", **_JIT)(scattering.sigma0_cosine)
+_sigma0_hagfors = numba.njit(inline="always", **_JIT)(scattering.sigma0_hagfors)
+_sigma0_gaussian = numba.njit(inline="always", **_JIT)(scattering.sigma0_gaussian)
 
 
 @numba.njit(inline="always", **_JIT)
 def sigma0_by_code(code, cos_inc, p0, p1):
-    """σ0 of the law with numeric ``code`` (see :data:`cluttersim.scattering.LAWS`)."""
+    """σ0 of the law with numeric ``code`` (see :data:`cluttersim.scattering.LAWS`), one value."""
     if code == 3:
         return _sigma0_hagfors(cos_inc, p0, p1)
     if code == 0:
@@ -70,6 +80,26 @@ def geodetic_to_ecef_array(lat_deg, lon_deg, h_m, a_m, e2, out):
         out[i, 2] = z
 
 
+@numba.njit(inline="always", **_JIT)
+def sigma0_scale(code, cos_inc, p0, p1, values, n):
+    """values[i] *= σ0(cos_inc[i]) for i < n, one loop per law so each vectorises."""
+    if code == 3:
+        for i in range(n):
+            values[i] *= _sigma0_hagfors(cos_inc[i], p0, p1)
+    elif code == 0:
+        for i in range(n):
+            values[i] *= p0
+    elif code == 1:
+        for i in range(n):
+            values[i] *= _sigma0_lambert(cos_inc[i], p0)
+    elif code == 2:
+        for i in range(n):
+            values[i] *= _sigma0_cosine(cos_inc[i], p0, p1)
+    else:
+        for i in range(n):
+            values[i] *= _sigma0_gaussian(cos_inc[i], p0, p1)
+
+
 # --------------------------------------------------------------------------- facets
 
 
@@ -86,19 +116,20 @@ def grid_to_ecef(lat_deg, lon_deg, h_m, a_m, e2, origin, out):
 
 
 @numba.njit(parallel=True, **_JIT)
-def build_tiled_facets(
-    grid, valid, up, tile, tile_offsets, pos, normal, e_col, e_row, area, cell, tile_centre, tile_radius, tile_extent
-):
+def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, normal, e_col, e_row, area, cell,
+                       tile_centre, tile_radius, tile_extent):  # fmt: skip
     """Facet geometry from a grid of cell-centre positions, written tile by tile.
 
     For cell (i, j) the edge vectors are the central differences
     ``e_col = (P[i, j+1] − P[i, j−1]) / 2`` and ``e_row = (P[i+1, j] − P[i−1, j]) / 2``
     (one-sided at the window border). The facet is the parallelogram they span:
     true area ``|e_col × e_row|`` on the curved, sloping surface, and unit normal
-    along ``e_col × e_row`` turned to point away from the body (``up``).
-    Valid cells of tile ``t`` go to rows ``tile_offsets[t]:tile_offsets[t+1]``.
-    Each tile also gets a bounding sphere (centre, radius) and the largest facet
-    half-extent, used to cull whole tiles per trace.
+    along ``e_col × e_row`` turned to point away from the body (the local
+    vertical from ``lat_deg``, ``lon_deg``). Valid cells of tile ``t`` go to
+    columns ``tile_offsets[t]:tile_offsets[t+1]`` of the (3, nfacet) arrays,
+    positions relative to the tile's centre (the mean of its cells). Each tile
+    also gets a bounding-sphere radius and the largest facet half-extent, used
+    to cull whole tiles per trace.
     """
     ny, nx = valid.shape
     nty = (ny + tile - 1) // tile
@@ -106,21 +137,37 @@ def build_tiled_facets(
     for t in numba.prange(nty * ntx):
         ti = t // ntx
         tj = t % ntx
-        k = tile_offsets[t]
+        i_lo, i_hi = ti * tile, min((ti + 1) * tile, ny)
+        j_lo, j_hi = tj * tile, min((tj + 1) * tile, nx)
+        n = tile_offsets[t + 1] - tile_offsets[t]
+        if n == 0:
+            tile_radius[t] = -1.0
+            continue
         cx = 0.0
         cy = 0.0
         cz = 0.0
+        for i in range(i_lo, i_hi):
+            for j in range(j_lo, j_hi):
+                if valid[i, j]:
+                    cx += grid[i, j, 0]
+                    cy += grid[i, j, 1]
+                    cz += grid[i, j, 2]
+        cx /= n
+        cy /= n
+        cz /= n
+        k = tile_offsets[t]
+        r2max = 0.0
         ext = 0.0
-        for i in range(ti * tile, min((ti + 1) * tile, ny)):
+        for i in range(i_lo, i_hi):
             i0 = max(i - 1, 0)
             i1 = min(i + 1, ny - 1)
-            for j in range(tj * tile, min((tj + 1) * tile, nx)):
+            for j in range(j_lo, j_hi):
                 if not valid[i, j]:
                     continue
                 j0 = max(j - 1, 0)
                 j1 = min(j + 1, nx - 1)
-                fc = 1.0 / (j1 - j0)
-                fr = 1.0 / (i1 - i0)
+                fc = 1.0 / max(j1 - j0, 1)
+                fr = 1.0 / max(i1 - i0, 1)
                 ax = (grid[i, j1, 0] - grid[i, j0, 0]) * fc
                 ay = (grid[i, j1, 1] - grid[i, j0, 1]) * fc
                 az = (grid[i, j1, 2] - grid[i, j0, 2]) * fc
@@ -131,55 +178,45 @@ def build_tiled_facets(
                 nyv = az * bx - ax * bz
                 nzv = ax * by - ay * bx
                 nn = math.sqrt(nxv * nxv + nyv * nyv + nzv * nzv)
-                if nxv * up[i, j, 0] + nyv * up[i, j, 1] + nzv * up[i, j, 2] < 0.0:
-                    nxv = -nxv
-                    nyv = -nyv
-                    nzv = -nzv
-                for d in range(3):
-                    pos[k, d] = grid[i, j, d]
-                e_col[k, 0] = ax
-                e_col[k, 1] = ay
-                e_col[k, 2] = az
-                e_row[k, 0] = bx
-                e_row[k, 1] = by
-                e_row[k, 2] = bz
+                la = math.radians(lat_deg[i, j])
+                lo = math.radians(lon_deg[i, j])
+                ux = math.cos(la) * math.cos(lo)
+                uy = math.cos(la) * math.sin(lo)
+                uz = math.sin(la)
                 if nn > 0.0:
-                    normal[k, 0] = nxv / nn
-                    normal[k, 1] = nyv / nn
-                    normal[k, 2] = nzv / nn
+                    sgn = 1.0 if nxv * ux + nyv * uy + nzv * uz >= 0.0 else -1.0
+                    normal[0, k] = sgn * nxv / nn
+                    normal[1, k] = sgn * nyv / nn
+                    normal[2, k] = sgn * nzv / nn
                 else:
-                    normal[k, 0] = up[i, j, 0]
-                    normal[k, 1] = up[i, j, 1]
-                    normal[k, 2] = up[i, j, 2]
+                    normal[0, k] = ux
+                    normal[1, k] = uy
+                    normal[2, k] = uz
+                dx = grid[i, j, 0] - cx
+                dy = grid[i, j, 1] - cy
+                dz = grid[i, j, 2] - cz
+                rel[0, k] = dx
+                rel[1, k] = dy
+                rel[2, k] = dz
+                e_col[0, k] = ax
+                e_col[1, k] = ay
+                e_col[2, k] = az
+                e_row[0, k] = bx
+                e_row[1, k] = by
+                e_row[2, k] = bz
                 area[k] = nn
                 cell[k] = i * nx + j
-                half = 0.5 * (math.sqrt(ax * ax + ay * ay + az * az) + math.sqrt(bx * bx + by * by + bz * bz))
-                ext = max(ext, half)
-                cx += grid[i, j, 0]
-                cy += grid[i, j, 1]
-                cz += grid[i, j, 2]
+                r2max = max(r2max, dx * dx + dy * dy + dz * dz)
+                ext = max(ext, 0.5 * (math.sqrt(ax * ax + ay * ay + az * az) + math.sqrt(bx * bx + by * by + bz * bz)))
                 k += 1
-        n = k - tile_offsets[t]
-        if n == 0:
-            tile_radius[t] = -1.0
-            continue
-        cx /= n
-        cy /= n
-        cz /= n
-        r2 = 0.0
-        for m in range(tile_offsets[t], k):
-            dx = pos[m, 0] - cx
-            dy = pos[m, 1] - cy
-            dz = pos[m, 2] - cz
-            r2 = max(r2, dx * dx + dy * dy + dz * dz)
         tile_centre[t, 0] = cx
         tile_centre[t, 1] = cy
         tile_centre[t, 2] = cz
-        tile_radius[t] = math.sqrt(r2) + ext
+        tile_radius[t] = math.sqrt(r2max) + ext
         tile_extent[t] = ext
 
 
-# --------------------------------------------------------------------------- delay spreading
+# --------------------------------------------------------------------------- facet delay distribution
 
 
 @numba.njit(inline="always", **_JIT)
@@ -207,107 +244,66 @@ def trapezoid_cdf(z, wa, wb):
 
 
 @numba.njit(inline="always", **_JIT)
-def spread_into_bins(row, x, wa, wb, p):
-    """Add power ``p`` to ``row`` spread over bins by the trapezoid centred at bin coordinate ``x``.
+def _kink(dd, row, n, w, nsub):
+    """Add a slope change w at sub-bin ``n`` of second-difference row ``row``.
 
-    Bin ``k`` spans [k, k+1) in bin units; ``wa``, ``wb`` are the two projected
-    widths in bins. Each bin receives the fraction of the facet's delay
-    distribution that falls inside it, so total power is conserved.
+    A kink before sub-bin 0 is folded into the first two entries so that the
+    running sums start with the right value and slope.
     """
-    if wa < wb:
-        wa, wb = wb, wa
-    nb = row.shape[0]
-    half = 0.5 * (wa + wb)
-    k0 = int(math.floor(x - half))
-    k1 = int(math.floor(x + half))
-    if k1 < 0 or k0 >= nb:
+    if n >= nsub:
         return
-    if k0 == k1 or wa < 1e-9:
-        k = int(math.floor(x))
-        if 0 <= k < nb:
-            row[k] += p
-        return
-    ks = max(k0, 0)
-    ke = min(k1, nb - 1)
-    prev = 0.0 if ks == k0 else trapezoid_cdf(ks - x, wa, wb)
-    for k in range(ks, ke + 1):
-        f = 1.0 if k == k1 else trapezoid_cdf(k + 1 - x, wa, wb)
-        row[k] += p * (f - prev)
-        prev = f
-
-
-#: Facets whose delay extent (wa + wb) exceeds this many bins are spread through the
-#: second-difference accumulator (constant cost) instead of bin by bin.
-WIDE_FACET_BINS = 3.0
-#: Smallest projected width (bins) used for a wide facet's narrow side; keeps the
-#: accumulator's weights bounded (a 0.1-bin box is far below the pulse width).
-_MIN_NARROW_BINS = 0.1
+    if n >= 0:
+        dd[row, n] += w
+    else:
+        dd[row, 0] += w * (1 - n)
+        dd[row, 1] += w * n
 
 
 @numba.njit(inline="always", **_JIT)
-def _add_corner(dd, c, w):
-    """Add w·[G(k+1−c) − G(k−c)], G(t) = max(t, 0)², for every bin k, as second differences.
+def deposit_trapezoid(dd, row, x, wa, wb, p, nsub):
+    """Deposit power ``p`` with the trapezoidal delay distribution of a facet.
 
-    For k = floor(c) the term is (1 − f)², beyond it 2(k − c) + 1 (f = c − floor c):
-    three impulses in ``dd``; a corner before bin 0 leaves only its linear part.
-    """
-    nb = dd.shape[0]
-    m = int(math.floor(c))
-    if m >= nb:
-        return
-    if m < 0:
-        dd[0] += w * (1.0 - 2.0 * c)
-        if nb > 1:
-            dd[1] += w * (1.0 + 2.0 * c)
-        return
-    f = c - m
-    dd[m] += w * (1.0 - f) * (1.0 - f)
-    if m + 1 < nb:
-        dd[m + 1] += w * (1.0 + 2.0 * f - 2.0 * f * f)
-    if m + 2 < nb:
-        dd[m + 2] += w * f * f
-
-
-@numba.njit(inline="always", **_JIT)
-def spread_wide(dd, x, wa, wb, p):
-    """Accumulate a wide facet's trapezoid (see :func:`trapezoid_cdf`) into second differences ``dd``.
-
-    Bin k receives p [F(k+1) − F(k)] with F the trapezoid's CDF, a sum of four
-    shifted G(t) = max(t, 0)² terms, each of which is three impulses in the
-    second difference: cost independent of the facet's width. Two running sums
-    (:func:`integrate_second_differences`) turn ``dd`` into power per bin.
+    The facet's range extent projects its two edges onto the line of sight
+    (widths ``wa``, ``wb``, centre ``x``, all in sub-bins): a trapezoid, the
+    convolution of two boxes. Its corners are put on the sub-bin grid (widths
+    rounded to whole sub-bins, at least one; centre to the nearest half
+    sub-bin) and the trapezoid is written as four slope changes of ±w,
+    w = p / (A B), into the second-difference row ``dd[row]``: constant cost
+    whatever the facet's width, and exactly p once integrated
+    (:func:`integrate_rows`).
     """
     if wa < wb:
         wa, wb = wb, wa
-    wb = max(wb, _MIN_NARROW_BINS)
-    s = 0.5 * (wa + wb)
-    if x + s < 0.0 or x - s >= dd.shape[0]:
-        return
-    d = 0.5 * (wa - wb)
-    w = p / (2.0 * wa * wb)
-    _add_corner(dd, x - s, w)
-    _add_corner(dd, x - d, -w)
-    _add_corner(dd, x + d, -w)
-    _add_corner(dd, x + s, w)
+    a = max(1, int(wa + 0.5))
+    b = max(1, int(wb + 0.5))
+    n1 = int(math.floor(x - 0.5 * (a + b) + 0.5))
+    w = p / (a * b)
+    _kink(dd, row, n1, w, nsub)
+    _kink(dd, row, n1 + b, -w, nsub)
+    _kink(dd, row, n1 + a, -w, nsub)
+    _kink(dd, row, n1 + a + b, w, nsub)
 
 
-@numba.njit(**_JIT)
-def integrate_second_differences(dd, row):
-    """row[k] += max(0, Σ_{j≤k} Σ_{i≤j} dd[i]) (two running sums; tiny negative round-off clipped)."""
+@numba.njit(inline="always", **_JIT)
+def integrate_rows(dd, row, oversample, out_row):
+    """out_row[k] += Σ over the ``oversample`` sub-bins of bin k of the twice-summed ``dd[row]``."""
     s1 = 0.0
     s2 = 0.0
-    for k in range(row.shape[0]):
-        s1 += dd[k]
-        s2 += s1
-        if s2 > 0.0:
-            row[k] += s2
+    for k in range(out_row.shape[0]):
+        acc = 0.0
+        for j in range(k * oversample, (k + 1) * oversample):
+            s1 += dd[row, j]
+            s2 += s1
+            acc += s2
+        if acc > 0.0:
+            out_row[k] += acc
 
 
 # --------------------------------------------------------------------------- per-trace kernels
 
 
 @numba.njit(parallel=True, **_JIT)
-def earliest_range(ant, tile_centre, tile_radius, tile_offsets, pos, normal, e_col, e_row, out):
+def earliest_range(ant, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row, out):
     """Per trace, the smallest range (m) from the antenna to any front-facing facet's near edge.
 
     Tiles are visited in order of their lower range bound and the search stops
@@ -315,17 +311,14 @@ def earliest_range(ant, tile_centre, tile_radius, tile_offsets, pos, normal, e_c
     """
     ntile = tile_radius.shape[0]
     for t in numba.prange(ant.shape[0]):
-        ax = ant[t, 0]
-        ay = ant[t, 1]
-        az = ant[t, 2]
         lb = np.empty(ntile)
         for m in range(ntile):
             if tile_radius[m] < 0.0:
                 lb[m] = np.inf
             else:
-                dx = tile_centre[m, 0] - ax
-                dy = tile_centre[m, 1] - ay
-                dz = tile_centre[m, 2] - az
+                dx = tile_centre[m, 0] - ant[t, 0]
+                dy = tile_centre[m, 1] - ant[t, 1]
+                dz = tile_centre[m, 2] - ant[t, 2]
                 lb[m] = math.sqrt(dx * dx + dy * dy + dz * dz) - tile_radius[m]
         order = np.argsort(lb)
         best = np.inf
@@ -333,20 +326,20 @@ def earliest_range(ant, tile_centre, tile_radius, tile_offsets, pos, normal, e_c
             m = order[q]
             if lb[m] >= best:
                 break
+            cx = tile_centre[m, 0] - ant[t, 0]
+            cy = tile_centre[m, 1] - ant[t, 1]
+            cz = tile_centre[m, 2] - ant[t, 2]
             for f in range(tile_offsets[m], tile_offsets[m + 1]):
-                vx = pos[f, 0] - ax
-                vy = pos[f, 1] - ay
-                vz = pos[f, 2] - az
+                vx = cx + rel[0, f]
+                vy = cy + rel[1, f]
+                vz = cz + rel[2, f]
                 r = math.sqrt(vx * vx + vy * vy + vz * vz)
-                ux = vx / r
-                uy = vy / r
-                uz = vz / r
-                if ux * normal[f, 0] + uy * normal[f, 1] + uz * normal[f, 2] >= 0.0:
+                if vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f] >= 0.0:
                     continue
-                span = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) + abs(
-                    ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]
+                span = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) + abs(
+                    vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]
                 )
-                near = r - 0.5 * span
+                near = r - 0.5 * span / r
                 if near < best:
                     best = near
         out[t] = best
@@ -356,133 +349,122 @@ def earliest_range(ant, tile_centre, tile_radius, tile_offsets, pos, normal, e_c
 SIDE_NADIR, SIDE_LEFT, SIDE_RIGHT = 0, 1, 2
 
 
-@numba.njit(parallel=True, **_JIT)
-def accumulate_power(
-    ant,
-    right_unit,
-    strip_half_m,
-    bin0_s,
-    dt_s,
-    tile_centre,
-    tile_radius,
-    tile_extent,
-    tile_offsets,
-    pos,
-    normal,
-    e_col,
-    e_row,
-    area,
-    law_code,
-    p0,
-    p1,
-    power_const,
-    out,
-    best_facet,
-):
-    """Received power per delay bin from every facet, one trace per thread.
+@numba.njit(parallel=True, fastmath=_FAST, **_JIT)
+def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, traces_per_block,
+                     tile_centre, tile_radius, tile_offsets, max_tile, rel, normal, e_col, e_row, area,
+                     law_code, p0, p1, power_const, out, best_facet):  # fmt: skip
+    """Received power per delay bin from every facet, for blocks of traces.
 
     For each facet at range R with local incidence θ (cos θ = −û·n̂) the radar
     equation (e.g. Skolnik, *Introduction to Radar Systems*, 3rd ed., eq. 1.7)
 
         P = Pt G² λ² σ0(θ) A / ((4π)³ R⁴) = power_const · σ0(θ) A / R⁴
 
-    is spread over the delay bins its range extent covers
-    (:func:`spread_into_bins` for narrow facets, :func:`spread_wide` for wide ones).
+    is spread over the delay its range extent covers
+    (:func:`deposit_trapezoid` on a grid of ``oversample`` sub-bins per bin).
     Facets seen from behind contribute nothing. Tiles whose bounding sphere
-    cannot reach the window are skipped whole.
+    cannot reach a trace's window are skipped whole.
+
+    Work is split into blocks of ``traces_per_block`` consecutive traces, one
+    block per thread; within a block each tile's facets are read once and used
+    for every trace of the block while they sit in cache. Per (tile, trace) a
+    vectorised pass computes range, incidence, σ0 and power for all facets
+    into small buffers, then a scalar pass deposits them.
 
     ``out`` has shape (ntrace, nside, nbins) and is accumulated into. With
     ``nside == 3`` each facet's power goes to the row of its side
     (:data:`SIDE_NADIR` when its cross-track offset ``(P − A)·right_unit[t]`` is
     within ``strip_half_m[t]``, else :data:`SIDE_LEFT` / :data:`SIDE_RIGHT`), and
-    ``best_facet`` (ntrace, nbins) receives, per bin, the facet with the largest
-    power density there (−1 where none). With ``nside == 1`` neither is
-    tracked and ``best_facet`` may be empty. Returns the number of facet
-    evaluations.
+    ``best_facet`` (ntrace, nbins) receives, per bin, the facet centred in that
+    bin with the largest power density (−1 where none). Returns the number of
+    facet evaluations (front-facing facets whose delay reaches the window).
     """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
+    nt = ant.shape[0]
     nside = out.shape[1]
     nb = out.shape[2]
+    nsub = nb * oversample
     attribute = nside == 3
     ntile = tile_radius.shape[0]
-    inv_bin_m = 1.0 / (half_c * dt_s)
-    counts = np.zeros(ant.shape[0], dtype=np.int64)
-    for t in numba.prange(ant.shape[0]):
-        ax = ant[t, 0]
-        ay = ant[t, 1]
-        az = ant[t, 2]
-        cx = right_unit[t, 0]
-        cy = right_unit[t, 1]
-        cz = right_unit[t, 2]
-        strip = strip_half_m[t]
-        r_lo = bin0_s[t] * half_c
-        r_hi = (bin0_s[t] + nb * dt_s) * half_c
-        dd = np.zeros((nside, nb))
-        best_val = np.zeros(nb if attribute else 0)
+    inv_sub_m = oversample / (half_c * dt_s)
+    nblk = (nt + traces_per_block - 1) // traces_per_block
+    counts = np.zeros(nblk, dtype=np.int64)
+    for blk in numba.prange(nblk):
+        ta = blk * traces_per_block
+        nbt = min(ta + traces_per_block, nt) - ta
+        dd = np.zeros((nbt * nside, nsub + 2))
+        best_val = np.zeros((nbt, nb if attribute else 0))
+        bx = np.empty(max_tile)
+        bc = np.empty(max_tile)
+        ba = np.empty(max_tile)
+        bb = np.empty(max_tile)
+        bp = np.empty(max_tile)
+        bs = np.zeros(max_tile, dtype=np.int64)
         n_eval = 0
         for m in range(ntile):
             rad = tile_radius[m]
             if rad < 0.0:
                 continue
-            dx = tile_centre[m, 0] - ax
-            dy = tile_centre[m, 1] - ay
-            dz = tile_centre[m, 2] - az
-            d = math.sqrt(dx * dx + dy * dy + dz * dz)
-            if d - rad > r_hi or d + rad < r_lo:
-                continue
-            ext = tile_extent[m]
-            for f in range(tile_offsets[m], tile_offsets[m + 1]):
-                vx = pos[f, 0] - ax
-                vy = pos[f, 1] - ay
-                vz = pos[f, 2] - az
-                r2 = vx * vx + vy * vy + vz * vz
-                r = math.sqrt(r2)
-                if r - ext > r_hi or r + ext < r_lo:
+            f0 = tile_offsets[m]
+            n = tile_offsets[m + 1] - f0
+            for tt in range(nbt):
+                t = ta + tt
+                cx = tile_centre[m, 0] - ant[t, 0]
+                cy = tile_centre[m, 1] - ant[t, 1]
+                cz = tile_centre[m, 2] - ant[t, 2]
+                d = math.sqrt(cx * cx + cy * cy + cz * cz)
+                r_lo = bin0_s[t] * half_c
+                r_hi = r_lo + nb * dt_s * half_c
+                if d - rad > r_hi or d + rad < r_lo:
                     continue
-                n_eval += 1
-                inv_r = 1.0 / r
-                ux = vx * inv_r
-                uy = vy * inv_r
-                uz = vz * inv_r
-                cos_inc = -(ux * normal[f, 0] + uy * normal[f, 1] + uz * normal[f, 2])
-                if cos_inc <= 0.0:
-                    continue
-                s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
-                p = power_const * s0 * area[f] / (r2 * r2)
-                wa = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) * inv_bin_m
-                wb = abs(ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]) * inv_bin_m
-                x = (r * inv_bin_m) - bin0_s[t] / dt_s
-                side = 0
+                x0 = r_lo * inv_sub_m
+                for i in range(n):
+                    f = f0 + i
+                    vx = cx + rel[0, f]
+                    vy = cy + rel[1, f]
+                    vz = cz + rel[2, f]
+                    r2 = vx * vx + vy * vy + vz * vz
+                    inv_r = 1.0 / math.sqrt(r2)
+                    cos_inc = -(vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f]) * inv_r
+                    wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) * inv_r * inv_sub_m
+                    wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) * inv_r * inv_sub_m
+                    x = r2 * inv_r * inv_sub_m - x0
+                    half = 0.5 * (wa + wb)
+                    ok = (cos_inc > 0.0) & (x + half > 0.0) & (x - half < nsub)
+                    bc[i] = max(cos_inc, 1e-6)
+                    bp[i] = power_const * area[f] / (r2 * r2) if ok else 0.0
+                    bx[i] = x
+                    ba[i] = wa
+                    bb[i] = wb
+                sigma0_scale(law_code, bc, p0, p1, bp, n)
                 if attribute:
-                    cross = vx * cx + vy * cy + vz * cz
-                    if cross > strip:
-                        side = SIDE_RIGHT
-                    elif cross < -strip:
-                        side = SIDE_LEFT
-                    _track_best(best_val, best_facet[t], x, wa, wb, p, f)
-                if wa + wb > WIDE_FACET_BINS:
-                    spread_wide(dd[side], x, wa, wb, p)
-                else:
-                    spread_into_bins(out[t, side], x, wa, wb, p)
-        for q in range(nside):
-            integrate_second_differences(dd[q], out[t, q])
-        counts[t] = n_eval
+                    rx = right_unit[t, 0]
+                    ry = right_unit[t, 1]
+                    rz = right_unit[t, 2]
+                    strip = strip_half_m[t]
+                    for i in range(n):
+                        f = f0 + i
+                        cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
+                        bs[i] = SIDE_RIGHT if cross > strip else (SIDE_LEFT if cross < -strip else SIDE_NADIR)
+                row0 = tt * nside
+                for i in range(n):
+                    p = bp[i]
+                    if p == 0.0:
+                        continue
+                    n_eval += 1
+                    deposit_trapezoid(dd, row0 + bs[i], bx[i], ba[i], bb[i], p, nsub)
+                    if attribute:
+                        k = int(bx[i]) // oversample
+                        if 0 <= k < nb:
+                            density = p / max(max(ba[i], bb[i]) / oversample, 1.0)
+                            if density > best_val[tt, k]:
+                                best_val[tt, k] = density
+                                best_facet[t, k] = f0 + i
+        for tt in range(nbt):
+            for q in range(nside):
+                integrate_rows(dd, tt * nside + q, oversample, out[ta + tt, q])
+        counts[blk] = n_eval
     return counts.sum()
-
-
-@numba.njit(inline="always", **_JIT)
-def _track_best(best_val, best_row, x, wa, wb, p, f):
-    """Make facet ``f`` the source of the bins it covers where its power density
-    p / max(wa, wb, 1) (power per bin at the trapezoid's plateau) is the largest so far."""
-    nb = best_val.shape[0]
-    half = 0.5 * (wa + wb)
-    k0 = max(int(math.floor(x - half)), 0)
-    k1 = min(int(math.floor(x + half)), nb - 1)
-    density = p / max(wa, wb, 1.0)
-    for k in range(k0, k1 + 1):
-        if density > best_val[k]:
-            best_val[k] = density
-            best_row[k] = f
 
 
 @numba.njit(parallel=True, **_JIT)
@@ -520,16 +502,15 @@ def _window_fraction(x, wa, wb, lo, hi):
 
 
 @numba.njit(parallel=True, **_JIT)
-def facet_power_in_windows(
-    ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile_extent, tile_offsets,
-    pos, normal, e_col, e_row, area, law_code, p0, p1, power_const, out,
-):  # fmt: skip
+def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile_extent, tile_offsets,
+                           rel, normal, e_col, e_row, area, law_code, p0, p1, power_const, out):  # fmt: skip
     """Power each facet sends into a delay window, summed over traces.
 
     For trace t the window is the two-way delays [lo_s[t], hi_s[t]); a facet
     contributes its radar-equation power (as in :func:`accumulate_power`) times
-    the share of its delay extent inside the window. Parallel over tiles, so
-    each facet's sum ``out[f]`` (accumulated into) belongs to one thread.
+    the share of its exact trapezoidal delay distribution inside the window.
+    Parallel over tiles, so each facet's sum ``out[f]`` (accumulated into)
+    belongs to one thread.
     """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
     inv_bin_m = 1.0 / (half_c * dt_s)
@@ -539,36 +520,29 @@ def facet_power_in_windows(
             continue
         ext = tile_extent[m]
         for t in range(ant.shape[0]):
-            ax = ant[t, 0]
-            ay = ant[t, 1]
-            az = ant[t, 2]
             r_lo = lo_s[t] * half_c
             r_hi = hi_s[t] * half_c
-            dx = tile_centre[m, 0] - ax
-            dy = tile_centre[m, 1] - ay
-            dz = tile_centre[m, 2] - az
-            d = math.sqrt(dx * dx + dy * dy + dz * dz)
+            cx = tile_centre[m, 0] - ant[t, 0]
+            cy = tile_centre[m, 1] - ant[t, 1]
+            cz = tile_centre[m, 2] - ant[t, 2]
+            d = math.sqrt(cx * cx + cy * cy + cz * cz)
             if d - rad > r_hi or d + rad < r_lo:
                 continue
             lo = lo_s[t] / dt_s
             hi = hi_s[t] / dt_s
             for f in range(tile_offsets[m], tile_offsets[m + 1]):
-                vx = pos[f, 0] - ax
-                vy = pos[f, 1] - ay
-                vz = pos[f, 2] - az
+                vx = cx + rel[0, f]
+                vy = cy + rel[1, f]
+                vz = cz + rel[2, f]
                 r2 = vx * vx + vy * vy + vz * vz
                 r = math.sqrt(r2)
                 if r - ext > r_hi or r + ext < r_lo:
                     continue
-                inv_r = 1.0 / r
-                ux = vx * inv_r
-                uy = vy * inv_r
-                uz = vz * inv_r
-                cos_inc = -(ux * normal[f, 0] + uy * normal[f, 1] + uz * normal[f, 2])
+                cos_inc = -(vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f]) / r
                 if cos_inc <= 0.0:
                     continue
-                wa = abs(ux * e_col[f, 0] + uy * e_col[f, 1] + uz * e_col[f, 2]) * inv_bin_m
-                wb = abs(ux * e_row[f, 0] + uy * e_row[f, 1] + uz * e_row[f, 2]) * inv_bin_m
+                wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) / r * inv_bin_m
+                wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) / r * inv_bin_m
                 share = _window_fraction(r * inv_bin_m, wa, wb, lo, hi)
                 if share <= 0.0:
                     continue

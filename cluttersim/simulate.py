@@ -19,6 +19,7 @@ import time
 import warnings
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 import xarray as xr
 from scipy.ndimage import convolve1d
@@ -37,6 +38,11 @@ from .track import Track
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
+#: Sub-bins per delay sample on which facet delay distributions are laid (their
+#: corners are placed to 1/32 of a sample).
+OVERSAMPLE = 32
+#: Consecutive traces one thread computes together, reading each tile's facets once.
+TRACES_PER_BLOCK = 4
 
 
 @dataclass
@@ -122,7 +128,7 @@ def simulate(
 
     power = np.full((ntr, radar.samples), np.nan, dtype=np.float32)
     record = SourceRecord.empty(ntr, radar.samples) if sources else None
-    chunk = max(8, min(256, idx.size // 50 or 1))
+    chunk = max(4 * TRACES_PER_BLOCK * numba.get_num_threads(), min(256, idx.size // 50 or 1))
     t0 = time.perf_counter()
     with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
         for a in range(0, idx.size, chunk):
@@ -130,9 +136,9 @@ def simulate(
             binned = np.zeros((b - a, nside, nbins))
             best = np.full((b - a, nbins) if sources else (0, 0), -1, dtype=np.int32)
             stats.facet_evaluations += kernels.accumulate_power(
-                ant_on[a:b], right_unit[a:b], strip_m[a:b], bin0[a:b], dt,
-                facets.tile_centre_m, facets.tile_radius_m, facets.tile_extent_m, facets.tile_offsets,
-                facets.pos_m, facets.normal, facets.e_col_m, facets.e_row_m, facets.area_m2,
+                ant_on[a:b], right_unit[a:b], strip_m[a:b], bin0[a:b], dt, OVERSAMPLE, TRACES_PER_BLOCK,
+                facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets, facets.max_tile_facets,
+                facets.rel_m, facets.normal, facets.e_col_m, facets.e_row_m, facets.area_m2,
                 config.surface.law_code, law_p0, law_p1, config.radar.radar_constant_w_m2(), binned, best,
             )  # fmt: skip
             total = binned.sum(axis=1)
@@ -252,7 +258,7 @@ def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats:
     earliest_m = np.empty(idx.size)
     kernels.earliest_range(
         ant_on, facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets,
-        facets.pos_m, facets.normal, facets.e_col_m, facets.e_row_m, earliest_m,
+        facets.rel_m, facets.normal, facets.e_col_m, facets.e_row_m, earliest_m,
     )  # fmt: skip
     earliest_delay = 2.0 * earliest_m / SPEED_OF_LIGHT_M_S
     dt = radar.sample_interval_s

@@ -77,7 +77,7 @@ def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
     kernels.facet_power_in_windows(
         np.ascontiguousarray(scene.ant_m[traces]), np.asarray(lo_s, dtype=np.float64), np.asarray(hi_s, dtype=np.float64),
         scene.config.radar.sample_interval_s, f.tile_centre_m, f.tile_radius_m, f.tile_extent_m, f.tile_offsets,
-        f.pos_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, surface.law_code, p0, p1,
+        f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, surface.law_code, p0, p1,
         scene.config.radar.radar_constant_w_m2(), out,
     )  # fmt: skip
     return out
@@ -219,7 +219,7 @@ def ask_echo(run: Run, trace: int, *, delay_s: float | None = None, depth_m: flo
     lat = lat_grid.ravel()[cells]
     lon = lon_grid.ravel()[cells]
     right = right_unit_vectors(scene.src.body, scene.track)[trace]
-    cross = (scene.facets.pos_m[order] - scene.ant_m[trace]) @ right
+    cross = (scene.facets.positions_m(order) - scene.ant_m[trace]) @ right
     strip = float(ds["nadir_strip_half_width"][trace]) if "nadir_strip_half_width" in ds else 0.0
     track = scene.track
     if order.size:

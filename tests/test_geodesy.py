@@ -63,7 +63,7 @@ def test_facet_positions_match_pyproj(tmp_path, crs, proj_params):
     lon = 30.0 + 0.01 * (cols + 0.5)
     lat = 10.0 - 0.01 * (rows + 0.5)
     ref = pyproj_ecef(proj_params, lat, lon, z.astype(np.float32)[rows, cols].astype(float))
-    assert np.max(np.abs(facets.pos_m + facets.origin_m - ref)) < 1e-3
+    assert np.max(np.abs(facets.positions_m(np.arange(len(facets))) + facets.origin_m - ref)) < 1e-3
 
 
 def test_facet_area_matches_pyproj_geodesic_area_on_flat_ground(tmp_path):
@@ -92,7 +92,7 @@ def test_facet_area_includes_slope(tmp_path):
     assert facets.area_m2[k] == pytest.approx(math.sqrt(2) * level, rel=2e-3)
     # the normal tilts 45° away from the rising +x direction
     up = src.body.up_unit(*src.xy_to_lonlat(500000.0 + 15.5 * res_m, 4000000.0 - 15.5 * res_m)[::-1])
-    assert math.degrees(math.acos(np.dot(facets.normal[k], up))) == pytest.approx(45.0, abs=0.1)
+    assert math.degrees(math.acos(np.dot(facets.normal[:, k], up))) == pytest.approx(45.0, abs=0.1)
 
 
 def slerp_great_circle(lat1, lon1, lat2, lon2, fraction):
