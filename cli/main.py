@@ -51,12 +51,13 @@ def cli(ctx, debug):
 
 
 def _register():
-    from . import demo, simulate, sources, track
+    from . import compare, demo, simulate, sources, track
 
     cli.add_command(simulate.simulate_cmd)
     cli.add_command(track.track_cmd)
     cli.add_command(demo.demo_cmd)
     cli.add_command(sources.sources_cmd)
+    cli.add_command(compare.compare_cmd)
 
 
 _register()

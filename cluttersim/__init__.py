@@ -10,7 +10,7 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree wi
 from .body import Body  # noqa: E402
 from .config import SimulationConfig, SurfaceConfig, default_config  # noqa: E402
 from .dem import DemSource  # noqa: E402
-from .errors import ClutterSimError, ConfigError, DemError, GeometryError, TrackError  # noqa: E402
+from .errors import ClutterSimError, ConfigError, DemError, GeometryError, ObservedDataError, TrackError  # noqa: E402
 from .radar import RadarConfig  # noqa: E402
 from .radargram import open_radargram, write_netcdf  # noqa: E402
 from .simulate import simulate  # noqa: E402
@@ -23,6 +23,7 @@ __all__ = [
     "DemError",
     "DemSource",
     "GeometryError",
+    "ObservedDataError",
     "RadarConfig",
     "SimulationConfig",
     "SurfaceConfig",

@@ -29,6 +29,10 @@ class GeometryError(ClutterSimError, ValueError):
     """Raised when track, DEM and window cannot produce any surface echo."""
 
 
+class ObservedDataError(ClutterSimError, ValueError):
+    """Raised when an observed radargram, its track or its timing is unreadable or inconsistent."""
+
+
 class OutputExistsError(ClutterSimError, FileExistsError):
     """Raised when an output exists and overwriting was not requested."""
 

@@ -1,0 +1,114 @@
+"""``cluttersim compare``: an observed radargram against the simulated clutter of its track."""
+
+from __future__ import annotations
+
+import click
+
+from cluttersim.compare import CompareSettings, compare_to_dir, format_summary
+from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
+
+from .options import load_config, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option
+
+_POSITIVE = click.FloatRange(min=0.0, min_open=True)
+
+
+@click.command("compare")
+@click.option("--observed", "observed_path", required=True, type=click.Path(dir_okay=False),
+              help="Observed radargram: .nc/.h5, .npy, .tif/.png image or raw binary (.bin/.raw/.dat).")
+@click.option("--observed-track", "track_path", required=True, type=click.Path(dir_okay=False),
+              help="Track CSV of the observed traces (lat, lon, alt[, time]), one row per trace.")
+@click.option("--sim", "sim_path", type=click.Path(dir_okay=False), help="Simulated RUN_DIR/radargram.nc to compare with.")
+@click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="…or simulate the observed track over this DEM now.")
+@radar_option
+@click.option("--body-radius-m", type=float, default=None, help="Sphere radius (m) for a DEM without CRS (with --dem).")
+@click.option("--sample-interval-s", required=True, type=_POSITIVE, help="Observed sample interval, s.")
+@click.option("--window-start-s", type=click.FloatRange(min=0.0), default=None,
+              help="Absolute two-way delay of observed sample 0, s (all traces).")
+@click.option("--window-start-column", default=None, help="…or the track CSV column with each trace's window start, s.")
+@click.option("--values", type=click.Choice(VALUE_KINDS), default="power", show_default=True,
+              help="What the observed numbers are: amplitude (power = |a|²), power, or db (10 log10 power).")
+@click.option("--format", "file_format", type=click.Choice(list(FORMAT_SUFFIXES)), default=None,
+              help="Observed file format [default: from the suffix].")
+@click.option("--variable", default=None, help="netCDF/HDF5 variable (group/name) [default: the only 2-D one].")
+@click.option("--axis-order", type=click.Choice(AXIS_ORDERS), default=None,
+              help="Stored axis order [default: netCDF dims 'trace'/'sample', samples-traces for images, else traces-samples].")
+@click.option("--raw-dtype", type=click.Choice(RAW_DTYPES), default=None, help="Raw binary element type.")
+@click.option("--raw-shape", nargs=2, type=click.IntRange(min=1), default=None, metavar="TRACES SAMPLES",
+              help="Raw binary size in traces and samples.")
+@click.option("--byte-order", type=click.Choice(list(BYTE_ORDERS)), default="little", show_default=True,
+              help="Raw binary byte order.")
+@click.option("--raw-offset-bytes", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Raw binary header bytes to skip.")
+@click.option("--match-tolerance-m", type=_POSITIVE, default=None,
+              help="Largest distance to the matched simulated trace, m [default: the simulated trace spacing].")
+@click.option("--max-offset-us", type=_POSITIVE, default=None,
+              help="Largest timing offset searched, µs [default: half the simulated window].")
+@click.option("--per-trace-offset", is_flag=True, help="Also fit a smooth per-trace timing offset.")
+@click.option("--offset-window-traces", type=click.IntRange(min=1), default=51, show_default=True,
+              help="Smoothing length of the per-trace offset, traces.")
+@click.option("--delay-tolerance-us", type=_POSITIVE, default=None,
+              help="Simulated power this close in delay can explain an echo, µs [default: 2/bandwidth].")
+@click.option("--threshold-db", type=click.FloatRange(min=0.0), default=15.0, show_default=True,
+              help="Echoes: local maxima at least this far above the noise floor, dB.")
+@click.option("--explained-within-db", type=click.FloatRange(min=0.0), default=6.0, show_default=True,
+              help="Simulated power within this many dB of the observed explains it.")
+@click.option("--continuity-traces", type=click.IntRange(1, 100), default=2, show_default=True,
+              help="Neighbouring traces on each side checked for a candidate's continuity.")
+@permittivity_option
+@click.option("--top", type=click.IntRange(0, 1000), default=5, show_default=True, help="Candidates listed in the summary.")
+@out_dir_option()
+@overwrite_option
+@quiet_option
+def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_radius_m, sample_interval_s,
+                window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
+                byte_order, raw_offset_bytes, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
+                delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, top, out_dir,
+                overwrite, quiet):  # fmt: skip
+    """Compare an observed radargram with the simulated clutter of its track.
+
+    Aligns the observed data in delay (cross-correlating the surface echoes),
+    fits the power scale, and lists the observed echoes that simulated clutter
+    does not explain. Writes OUT/comparison.nc, OUT/candidates.csv,
+    OUT/side_by_side.png, OUT/overlay.png and OUT/difference.png (and, with
+    --dem, the simulation as OUT/radargram.nc); prints a summary.
+
+    \b
+    Examples:
+      cluttersim compare --observed obs.npy --observed-track obs_track.csv \\
+          --sample-interval-s 37.5e-9 --window-start-s 2.0e-3 --values amplitude \\
+          --sim run1/radargram.nc --out cmp1
+      cluttersim compare --observed obs.bin --raw-dtype float32 --raw-shape 2000 1024 \\
+          --byte-order big --observed-track obs_track.csv --sample-interval-s 37.5e-9 \\
+          --window-start-column window_start --values db --dem site.tif --out cmp2
+    """
+    if (sim_path is None) == (dem_path is None):
+        raise click.UsageError("give either --sim RUN_DIR/radargram.nc or --dem DEM (to simulate the observed track)")
+    if (radar_path is not None or body_radius_m is not None) and dem_path is None:
+        raise click.UsageError("--radar and --body-radius-m apply with --dem only (a --sim radargram carries its own)")
+    if (window_start_s is None) == (window_start_column is None):
+        raise click.UsageError("give exactly one of --window-start-s or --window-start-column")
+    fmt = ObservedFormat(file_format=file_format, values=values, variable=variable, axis_order=axis_order,
+                         raw_dtype=raw_dtype, raw_shape=tuple(raw_shape) if raw_shape else None,
+                         byte_order=byte_order, raw_offset_bytes=raw_offset_bytes)  # fmt: skip
+    raw_given = raw_dtype is not None or raw_shape is not None or raw_offset_bytes
+    is_raw = file_format_of(observed_path, fmt) == "raw"
+    if raw_given and not is_raw:
+        raise click.UsageError("--raw-dtype, --raw-shape and --raw-offset-bytes apply to raw binary files only")
+    if is_raw and (raw_dtype is None or raw_shape is None):
+        raise click.UsageError("a raw binary observed file needs --raw-dtype and --raw-shape TRACES SAMPLES")
+    settings = CompareSettings(
+        match_tolerance_m=match_tolerance_m, max_offset_s=None if max_offset_us is None else max_offset_us * 1e-6,
+        per_trace_offset=per_trace_offset, offset_window_traces=offset_window_traces,
+        delay_tolerance_s=None if delay_tolerance_us is None else delay_tolerance_us * 1e-6, threshold_db=threshold_db,
+        explained_within_db=explained_within_db, permittivity=permittivity, continuity_traces=continuity_traces,
+    )  # fmt: skip
+    result, paths = compare_to_dir(
+        observed_path, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
+        config=load_config(radar_path) if dem_path else None, body_radius_m=body_radius_m,
+        window_start_s=window_start_s, window_start_column=window_start_column, fmt=fmt, settings=settings,
+        overwrite=overwrite, progress=not quiet,
+    )  # fmt: skip
+    if not quiet:
+        click.echo(format_summary(result, top=top))
+        for p in paths.values():
+            click.echo(f"wrote {p}")
