@@ -1,11 +1,21 @@
-"""Benchmark of the simulation kernel on fixed, seeded synthetic cases.
+"""Speed benchmark of cluttersim on fixed, seeded synthetic cases.
 
-Run with ``make bench`` (or ``python benchmarks/bench_simulate.py [--case small|medium] [--repeat N]``).
-Prints, per case: the first run (numba compile or cache load included), the
-median of the following runs, facet evaluations per second (total and per
-core) and the DEM window. Results are also written as JSON to
-``benchmarks/results/`` with the CPU model and core count, so runs on
-different machines can be compared. Timings are never asserted in tests.
+Run with ``make bench`` (small and medium cases, the NumPy reference and the
+compile-time check) or ``python benchmarks/bench_simulate.py --case large``.
+
+Each case runs in its own process, so its peak memory is its own. Printed per
+case: end-to-end wall time (DEM read to netCDF written; median of the warm
+runs), kernel time, facet evaluations per second in total and per core, peak
+resident memory, with the source record on and off. Then:
+
+* the NumPy reference (:mod:`cluttersim.reference`, no culling, no
+  compilation) against the compiled kernel on the same small scene: time per
+  trace and their ratio;
+* kernel start-up: the first call of the kernels in a fresh process with an
+  empty numba cache (compilation) and with the warm on-disk cache.
+
+Results go to ``benchmarks/results/<time>.json`` with the CPU model and core
+count. Timings are never asserted in tests.
 """
 
 from __future__ import annotations
@@ -14,49 +24,177 @@ import argparse
 import json
 import os
 import platform
+import resource
 import statistics
+import subprocess
 import sys
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
-import pyproj
-import rasterio
-from rasterio.crs import CRS as RioCRS
-from rasterio.transform import from_origin
 
-from cluttersim import Body, SimulationConfig, great_circle_track
-from cluttersim.config import SurfaceConfig
-from cluttersim.radar import RadarConfig
-from cluttersim.simulate import RunStats, simulate
-
+HERE = Path(__file__).resolve().parent
+CACHE = HERE / ".cache"
 MARS_SPHERE = "IAU_2015:49900"
+MARS_RADIUS_M = 3_396_190.0
 
 #: name → (DEM cells per side, cell size in degrees, traces, samples)
 CASES = {
     "small": (800, 0.005, 200, 1024),
     "medium": (4000, 0.0025, 2000, 2048),
+    "large": (8000, 0.00125, 4000, 2048),
 }
 
 
 def synthetic_dem(path: Path, n: int, res_deg: float, seed: int = 42) -> Path:
-    """Seeded fractal terrain (spectral synthesis, amplitude ∝ k^-1.8, 300 m rms), centred on (0, 0)."""
+    """Seeded fractal terrain (spectral synthesis, amplitude ∝ k^-1.8, 300 m rms) centred on (0, 0)."""
+    import pyproj
+    import rasterio
+    from rasterio.crs import CRS as RioCRS
+    from rasterio.transform import from_origin
+
     rng = np.random.default_rng(seed)
-    kx = np.fft.fftfreq(n)[None, :]
+    kx = np.fft.rfftfreq(n)[None, :]
     ky = np.fft.fftfreq(n)[:, None]
     k = np.hypot(kx, ky)
     k[0, 0] = 1.0
-    spectrum = (rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))) * k**-1.8
+    spectrum = (rng.normal(size=k.shape) + 1j * rng.normal(size=k.shape)) * k**-1.8
     spectrum[0, 0] = 0
-    z = np.fft.ifft2(spectrum).real
+    z = np.fft.irfft2(spectrum, s=(n, n))
     z *= 300.0 / z.std()
     half = n * res_deg / 2
     profile = dict(driver="GTiff", width=n, height=n, count=1, dtype="float32", tiled=True, blockxsize=256, blockysize=256,
                    crs=RioCRS.from_wkt(pyproj.CRS(MARS_SPHERE).to_wkt()), transform=from_origin(-half, half, res_deg, res_deg))  # fmt: skip
-    with rasterio.open(path, "w", **profile) as ds:
+    tmp = path.with_suffix(".partial.tif")
+    with rasterio.open(tmp, "w", **profile) as ds:
         ds.write(z.astype(np.float32), 1)
+    os.replace(tmp, path)
     return path
+
+
+def case_inputs(name: str):
+    from cluttersim import Body, SimulationConfig, great_circle_track
+    from cluttersim.config import SurfaceConfig
+    from cluttersim.radar import RadarConfig
+
+    n, res, ntraces, samples = CASES[name]
+    CACHE.mkdir(exist_ok=True)
+    dem = CACHE / f"{name}_{n}_{res}.tif"
+    if not dem.exists():
+        synthetic_dem(dem, n, res)
+    body = Body.sphere(MARS_RADIUS_M)
+    half = n * res / 2
+    length_m = np.radians(1.6 * half) * MARS_RADIUS_M
+    track = great_circle_track(body, -0.8 * half, 0.0, 0.8 * half, 0.0, 300e3, length_m / (ntraces - 1) * 0.9999)
+    cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}))
+    return dem, track, cfg
+
+
+def worker_case(name: str, sources: bool, repeat: int) -> dict:
+    import numba
+
+    from cluttersim.radargram import write_netcdf_to
+    from cluttersim.simulate import RunStats, simulate
+
+    dem, track, cfg = case_inputs(name)
+    runs = []
+    with tempfile.TemporaryDirectory() as tmp:
+        for i in range(repeat + 1):
+            st = RunStats()
+            t0 = time.perf_counter()
+            ds = simulate(dem, track, cfg, stats=st, sources=sources)
+            write_netcdf_to(ds, Path(tmp) / f"r{i}.nc")
+            runs.append((time.perf_counter() - t0, st))
+    warm = runs[1:]
+    kernel = statistics.median(st.seconds_kernel for _, st in warm)
+    evals = warm[0][1].facet_evaluations
+    threads = numba.get_num_threads()
+    return {
+        "case": name,
+        "sources": sources,
+        "traces": len(track),
+        "samples": cfg.radar.samples,
+        "dem_cells": CASES[name][0] ** 2,
+        "dem_window": list(warm[0][1].dem_window_shape),
+        "facets": warm[0][1].facets,
+        "facet_evaluations": evals,
+        "first_run_s": runs[0][0],
+        "median_wall_s": statistics.median(w for w, _ in warm),
+        "median_facets_s": statistics.median(st.seconds_facets for _, st in warm),
+        "median_kernel_s": kernel,
+        "facet_evals_per_s": evals / kernel,
+        "facet_evals_per_s_per_core": evals / kernel / threads,
+        "threads": threads,
+        "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+        "repeats": repeat,
+    }
+
+
+def worker_reference() -> dict:
+    """Kernel vs NumPy reference per trace on the medium case's scene (a few traces of it)."""
+    from cluttersim.dem import DemSource
+    from cluttersim.reference import reference_binned_power
+    from cluttersim.simulate import binned_power, prepare_scene
+
+    dem, track, cfg = case_inputs("medium")
+    scene = prepare_scene(DemSource.open(dem), track, cfg)
+    dt = cfg.radar.sample_interval_s
+    nbins = cfg.radar.samples + 2 * scene.pad
+    bin0 = scene.start_s - (scene.pad + 0.5) * dt
+    ant = scene.ant_m[scene.idx]
+    mid = len(ant) // 2
+    block = slice(mid - 32, mid + 32)
+    binned_power(scene, ant[:4], bin0[:4], nbins)  # load the kernels
+    times = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        fast, _, evals = binned_power(scene, ant[block], bin0[block], nbins)
+        times.append(time.perf_counter() - t0)
+    t_fast = statistics.median(times) / 64
+    few = slice(mid, mid + 2)
+    t0 = time.perf_counter()
+    ref = reference_binned_power(scene.facets, ant[few], bin0[few], dt, nbins, cfg)
+    t_ref = (time.perf_counter() - t0) / 2
+    agree = float(np.max(np.abs(fast[32:34, 0].sum(axis=1) / ref.sum(axis=1) - 1)))
+    return {
+        "scene": "medium case, traces in the middle of the track",
+        "facets": len(scene.facets),
+        "kernel_s_per_trace": t_fast,
+        "numpy_reference_s_per_trace": t_ref,
+        "speedup": t_ref / t_fast,
+        "reference_facet_evals_per_s": len(scene.facets) / t_ref,
+        "kernel_facet_evals_per_s": evals / statistics.median(times),
+        "max_rel_diff_total_power_per_trace": agree,
+    }
+
+
+def worker_startup() -> dict:
+    """Time of the first kernel calls in this process (compile or cache load)."""
+    t0 = time.perf_counter()
+    import cluttersim.kernels  # noqa: F401
+    from cluttersim import Body, SimulationConfig, Track
+    from cluttersim.config import SurfaceConfig
+    from cluttersim.radar import RadarConfig
+    from cluttersim.simulate import simulate
+
+    t_import = time.perf_counter() - t0
+    CACHE.mkdir(exist_ok=True)
+    dem = CACHE / "startup_60_0.01.tif"
+    if not dem.exists():
+        synthetic_dem(dem, 60, 0.01)
+    track = Track(np.array([-0.05, 0.0, 0.05]), np.zeros(3), np.full(3, 200e3))
+    cfg = SimulationConfig(radar=RadarConfig(samples=128), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}))
+    t0 = time.perf_counter()
+    simulate(dem, track, cfg)
+    return {"import_s": t_import, "first_simulate_s": time.perf_counter() - t0, "body": Body.sphere(1.0).name}
+
+
+def run_worker(args: list[str], env=None) -> dict:
+    out = subprocess.run([sys.executable, __file__, *args], capture_output=True, text=True, env=env, check=False)
+    if out.returncode != 0:
+        raise RuntimeError(f"benchmark worker {args} failed:\n{out.stderr}")
+    return json.loads(out.stdout.strip().splitlines()[-1])
 
 
 def cpu_model() -> str:
@@ -69,66 +207,56 @@ def cpu_model() -> str:
     return platform.processor() or "unknown"
 
 
-def run_case(name: str, repeat: int, workdir: Path) -> dict:
-    n, res, ntraces, samples = CASES[name]
-    dem = synthetic_dem(workdir / f"{name}.tif", n, res)
-    body = Body.sphere(3_396_190.0)
-    half = n * res / 2
-    length_m = np.radians(1.6 * half) * body.semi_major_m
-    track = great_circle_track(body, -0.8 * half, 0.0, 0.8 * half, 0.0, 300e3, length_m / (ntraces - 1) * 0.9999)
-    cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}))
-    first = RunStats()
-    t0 = time.perf_counter()
-    simulate(dem, track, cfg, stats=first)
-    first_s = time.perf_counter() - t0
-    runs = []
-    for _ in range(repeat):
-        st = RunStats()
-        simulate(dem, track, cfg, stats=st)
-        runs.append(st)
-    wall = statistics.median(r.seconds_total for r in runs)
-    kernel = statistics.median(r.seconds_kernel for r in runs)
-    evals = runs[0].facet_evaluations
-    cores = os.cpu_count() or 1
-    return {
-        "case": name,
-        "dem_cells": n * n,
-        "traces": len(track),
-        "samples": samples,
-        "dem_window": list(runs[0].dem_window_shape),
-        "facets": runs[0].facets,
-        "facet_evaluations": evals,
-        "first_run_s": first_s,
-        "compile_or_cache_load_s": first_s - wall,
-        "median_wall_s": wall,
-        "median_facets_s": statistics.median(r.seconds_facets for r in runs),
-        "median_kernel_s": kernel,
-        "facet_evals_per_s": evals / kernel,
-        "facet_evals_per_s_per_core": evals / kernel / cores,
-        "repeats": repeat,
-    }
-
-
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--case", choices=list(CASES), action="append", help="case(s) to run (default: small)")
-    ap.add_argument("--repeat", type=int, default=3, help="timed runs after the first (median reported)")
+    ap.add_argument("--case", choices=list(CASES), action="append", help="case(s) to run (default: small, medium)")
+    ap.add_argument("--repeat", type=int, default=3, help="warm runs per case (median reported)")
+    ap.add_argument("--worker", help=argparse.SUPPRESS)
+    ap.add_argument("--sources", type=int, default=1, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
-    cases = args.case or ["small"]
+    if args.worker:
+        if args.worker == "reference":
+            result = worker_reference()
+        elif args.worker == "startup":
+            result = worker_startup()
+        else:
+            result = worker_case(args.worker, bool(args.sources), args.repeat)
+        print(json.dumps(result))
+        return 0
+
     machine = {"cpu": cpu_model(), "cores": os.cpu_count(), "python": sys.version.split()[0], "platform": platform.platform()}
-    results = []
-    with tempfile.TemporaryDirectory() as tmp:
-        for name in cases:
-            r = run_case(name, args.repeat, Path(tmp))
-            results.append(r)
+    print(f"machine: {machine['cpu']}, {machine['cores']} cores")
+    report = {"machine": machine, "cases": [], "time": time.strftime("%Y-%m-%dT%H:%M:%S")}
+    for name in args.case or ["small", "medium"]:
+        for sources in (0, 1):
+            r = run_worker(["--worker", name, "--sources", str(sources), "--repeat", str(args.repeat)])
+            report["cases"].append(r)
             print(
-                f"{name:>7}: {r['traces']} traces x {r['samples']} samples over {r['dem_window'][0]}x{r['dem_window'][1]} cells | "
-                f"first run {r['first_run_s']:.2f} s (compile/cache {r['compile_or_cache_load_s']:.2f} s) | "
-                f"median wall {r['median_wall_s']:.2f} s (facets {r['median_facets_s']:.2f} s, kernel {r['median_kernel_s']:.2f} s) | "
-                f"{r['facet_evals_per_s'] / 1e6:.0f} M facet-evals/s ({r['facet_evals_per_s_per_core'] / 1e6:.0f} M/s/core)"
+                f"{name:>7} sources={'on ' if sources else 'off'}: {r['traces']} traces x {r['samples']} samples, "
+                f"window {r['dem_window'][0]}x{r['dem_window'][1]} cells | wall {r['median_wall_s']:.2f} s "
+                f"(kernel {r['median_kernel_s']:.2f} s, facets {r['median_facets_s']:.2f} s; first run {r['first_run_s']:.2f} s) | "
+                f"{r['facet_evals_per_s'] / 1e6:.0f} M facet-evals/s ({r['facet_evals_per_s_per_core'] / 1e6:.0f} M/s per thread) | "
+                f"peak {r['peak_rss_mb']:.0f} MB"
             )
-    out = Path(__file__).parent / "results" / f"simulate-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.write_text(json.dumps({"machine": machine, "results": results}, indent=2))
+    ref = run_worker(["--worker", "reference"])
+    report["reference"] = ref
+    print(
+        f"NumPy reference: {ref['numpy_reference_s_per_trace'] * 1e3:.1f} ms/trace "
+        f"({ref['reference_facet_evals_per_s'] / 1e6:.1f} M facet-evals/s, all {ref['facets']} facets) vs kernel "
+        f"{ref['kernel_s_per_trace'] * 1e3:.3f} ms/trace: {ref['speedup']:.0f}x faster per trace; "
+        f"total power per trace agrees to {ref['max_rel_diff_total_power_per_trace']:.1e}"
+    )
+    with tempfile.TemporaryDirectory() as cold:
+        cold_run = run_worker(["--worker", "startup"], env={**os.environ, "NUMBA_CACHE_DIR": cold})
+    warm_run = run_worker(["--worker", "startup"])
+    report["startup"] = {"cold_cache": cold_run, "warm_cache": warm_run}
+    print(
+        f"kernel start-up: first simulate {cold_run['first_simulate_s']:.1f} s with an empty numba cache (compilation), "
+        f"{warm_run['first_simulate_s']:.2f} s with the cache on disk"
+    )
+    out = HERE / "results" / f"simulate-{time.strftime('%Y%m%dT%H%M%S')}.json"
+    out.parent.mkdir(exist_ok=True)
+    out.write_text(json.dumps(report, indent=2))
     print(f"wrote {out}")
     return 0
 

@@ -371,10 +371,12 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     vectorised pass computes range, incidence, σ0 and power for all facets
     into small buffers, then a scalar pass deposits them.
 
-    ``out`` has shape (ntrace, nside, nbins) and is accumulated into. With
-    ``nside == 3`` each facet's power goes to the row of its side
-    (:data:`SIDE_NADIR` when its cross-track offset ``(P − A)·right_unit[t]`` is
-    within ``strip_half_m[t]``, else :data:`SIDE_LEFT` / :data:`SIDE_RIGHT`), and
+    ``out`` has shape (ntrace, nside, nbins) and is accumulated into; row 0 is
+    the total power. With ``nside == 3`` the power of facets left and right of
+    the track also goes to rows :data:`SIDE_LEFT` and :data:`SIDE_RIGHT` (laid on
+    the bin grid rather than the sub-bin grid, which is plenty for shares);
+    a facet is in the nadir strip (:data:`SIDE_NADIR`) when its cross-track
+    offset ``(P − A)·right_unit[t]`` is within ``strip_half_m[t]``; and
     ``best_facet`` (ntrace, nbins) receives, per bin, the facet centred in that
     bin with the largest power density (−1 where none). Returns the number of
     facet evaluations (front-facing facets whose delay reaches the window).
@@ -392,7 +394,8 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     for blk in numba.prange(nblk):
         ta = blk * traces_per_block
         nbt = min(ta + traces_per_block, nt) - ta
-        dd = np.zeros((nbt * nside, nsub + 2))
+        dd = np.zeros((nbt, nsub + 2))  # total power, second differences on the sub-bin grid
+        dd_side = np.zeros((nbt * 2 if attribute else 0, nb + 2))  # left, right: on the bin grid
         best_val = np.zeros((nbt, nb if attribute else 0))
         bx = np.empty(max_tile)
         bc = np.empty(max_tile)
@@ -447,14 +450,16 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                         f = f0u + np.uint64(i)
                         cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
                         bs[i] = SIDE_RIGHT if cross > strip else (SIDE_LEFT if cross < -strip else SIDE_NADIR)
-                row0 = tt * nside
                 for i in range(n):
                     p = bp[i]
                     if p == 0.0:
                         continue
                     n_eval += 1
-                    deposit_trapezoid(dd, row0 + bs[i], bx[i], ba[i], bb[i], p, nsub)
+                    deposit_trapezoid(dd, tt, bx[i], ba[i], bb[i], p, nsub)
                     if attribute:
+                        if bs[i] != SIDE_NADIR:
+                            deposit_trapezoid(dd_side, 2 * tt + bs[i] - 1, bx[i] / oversample, ba[i] / oversample,
+                                              bb[i] / oversample, p, nb)  # fmt: skip
                         k = int(bx[i]) // oversample
                         if 0 <= k < nb:
                             density = p / max(max(ba[i], bb[i]) / oversample, 1.0)
@@ -462,8 +467,10 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                                 best_val[tt, k] = density
                                 best_facet[t, k] = f0 + i
         for tt in range(nbt):
-            for q in range(nside):
-                integrate_rows(dd, tt * nside + q, oversample, out[ta + tt, q])
+            integrate_rows(dd, tt, oversample, out[ta + tt, 0])
+            if attribute:
+                integrate_rows(dd_side, 2 * tt, 1, out[ta + tt, SIDE_LEFT])
+                integrate_rows(dd_side, 2 * tt + 1, 1, out[ta + tt, SIDE_RIGHT])
         counts[blk] = n_eval
     return counts.sum()
 

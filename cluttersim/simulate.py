@@ -116,14 +116,12 @@ def simulate(
 
     nbins = radar.samples + 2 * pad
     bin0 = start - (pad + 0.5) * dt
-    law_p0, law_p1 = config.surface.kernel_params()
     ntr = len(track)
     right_unit = right_unit_vectors(body, track)[idx]
     strip_m = nadir_strip_m
     if strip_m is None:
         strip_m = pulse_limited_radius_m(np.nan_to_num(track.alt_m - h_nadir)[idx], radar.bandwidth_hz, body.mean_radius_m)
     strip_m = np.broadcast_to(np.asarray(strip_m, dtype=np.float64), (idx.size,)).copy()
-    nside = 3 if sources else 1
     mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
 
     power = np.full((ntr, radar.samples), np.nan, dtype=np.float32)
@@ -133,15 +131,9 @@ def simulate(
     with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
         for a in range(0, idx.size, chunk):
             b = min(a + chunk, idx.size)
-            binned = np.zeros((b - a, nside, nbins))
-            best = np.full((b - a, nbins) if sources else (0, 0), -1, dtype=np.int32)
-            stats.facet_evaluations += kernels.accumulate_power(
-                ant_on[a:b], right_unit[a:b], strip_m[a:b], bin0[a:b], dt, OVERSAMPLE, TRACES_PER_BLOCK,
-                facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets, facets.max_tile_facets,
-                facets.rel_m, facets.normal, facets.e_col_m, facets.e_row_m, facets.area_m2,
-                config.surface.law_code, law_p0, law_p1, config.radar.radar_constant_w_m2(), binned, best,
-            )  # fmt: skip
-            total = binned.sum(axis=1)
+            binned, best, n_eval = binned_power(scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b], strip_m[a:b], sources)
+            stats.facet_evaluations += n_eval
+            total = binned[:, 0]
             rows = idx[a:b]
             compressed = _compress(total, kernel_weights, pad, radar.samples)
             power[rows] = compressed
@@ -280,6 +272,35 @@ def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats:
     )  # fmt: skip
 
 
+def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip_half_m=None, sources: bool = False):
+    """Run the compiled kernel for some traces: power per delay bin before the pulse convolution.
+
+    ``ant_m`` (n, 3) are antenna positions relative to ``scene.facets.origin_m``
+    and bin k of trace t covers [bin0_s[t] + k dt, bin0_s[t] + (k+1) dt).
+    Returns ``(binned, best_facet, evaluations)``: binned (n, 1 or 3, nbins) W —
+    row 0 the total, rows 1 and 2 the left and right shares when ``sources``.
+    """
+    f = scene.facets
+    config = scene.config
+    n = len(ant_m)
+    if right_unit is None:
+        right_unit = np.zeros((n, 3))
+    if strip_half_m is None:
+        strip_half_m = np.zeros(n)
+    binned = np.zeros((n, 3 if sources else 1, nbins))
+    best = np.full((n, nbins) if sources else (0, 0), -1, dtype=np.int32)
+    p0, p1 = config.surface.kernel_params()
+    n_eval = kernels.accumulate_power(
+        np.ascontiguousarray(ant_m, dtype=np.float64), np.ascontiguousarray(right_unit, dtype=np.float64),
+        np.ascontiguousarray(strip_half_m, dtype=np.float64), np.ascontiguousarray(bin0_s, dtype=np.float64),
+        config.radar.sample_interval_s, OVERSAMPLE, TRACES_PER_BLOCK,
+        f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.max_tile_facets,
+        f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2,
+        config.surface.law_code, p0, p1, config.radar.radar_constant_w_m2(), binned, best,
+    )  # fmt: skip
+    return binned, best, n_eval
+
+
 def _compress(binned, weights, pad, samples):
     """Convolve binned power with the compressed-pulse power response and crop to the window."""
     return convolve1d(binned, weights, axis=-1, mode="constant")[..., pad : pad + samples]
@@ -306,7 +327,7 @@ class SourceRecord:
         right = compress(binned[:, kernels.SIDE_RIGHT], weights, pad, samples)
         self.left[rows], self.right[rows] = side_fractions(left, right, total)
         facet = np.empty((len(rows), samples), dtype=np.int32)
-        kernels.dominant_source(binned.sum(axis=1), best, weights, pad, samples, facet)
+        kernels.dominant_source(np.ascontiguousarray(binned[:, 0]), best, weights, pad, samples, facet)
         self.facet[rows] = facet
 
     def to_variables(self, facets, window, body, track, power, window_start, nadir_delay, dt, threshold_db, mainlobe):
