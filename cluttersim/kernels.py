@@ -347,6 +347,10 @@ def earliest_range(ant, tile_centre, tile_radius, tile_offsets, rel, normal, e_c
 
 #: Side codes of the source record: within the nadir strip, left or right of the track.
 SIDE_NADIR, SIDE_LEFT, SIDE_RIGHT = 0, 1, 2
+#: Sub-bins per sample of the left/right rows of the source record. Coarser than the
+#: total's grid: three fine rows per trace overflow L2, and on the plain bin grid
+#: neighbouring facets keep adding to the same entries, which serialises the adds.
+SIDE_OVERSAMPLE = 4
 
 
 @numba.njit(parallel=True, fastmath=_FAST, **_JIT)
@@ -374,7 +378,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     ``out`` has shape (ntrace, nside, nbins) and is accumulated into; row 0 is
     the total power. With ``nside == 3`` the power of facets left and right of
     the track also goes to rows :data:`SIDE_LEFT` and :data:`SIDE_RIGHT` (laid on
-    the bin grid rather than the sub-bin grid, which is plenty for shares);
+    a grid of :data:`SIDE_OVERSAMPLE` sub-bins per sample, plenty for shares);
     a facet is in the nadir strip (:data:`SIDE_NADIR`) when its cross-track
     offset ``(P − A)·right_unit[t]`` is within ``strip_half_m[t]``; and
     ``best_facet`` (ntrace, nbins) receives, per bin, the facet centred in that
@@ -395,7 +399,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
         ta = blk * traces_per_block
         nbt = min(ta + traces_per_block, nt) - ta
         dd = np.zeros((nbt, nsub + 2))  # total power, second differences on the sub-bin grid
-        dd_side = np.zeros((nbt * 2 if attribute else 0, nb + 2))  # left, right: on the bin grid
+        dd_side = np.zeros((nbt * 2 if attribute else 0, nb * SIDE_OVERSAMPLE + 2))  # left, right: coarser grid
         best_val = np.zeros((nbt, nb if attribute else 0))
         bx = np.empty(max_tile)
         bc = np.empty(max_tile)
@@ -458,8 +462,9 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     deposit_trapezoid(dd, tt, bx[i], ba[i], bb[i], p, nsub)
                     if attribute:
                         if bs[i] != SIDE_NADIR:
-                            deposit_trapezoid(dd_side, 2 * tt + bs[i] - 1, bx[i] / oversample, ba[i] / oversample,
-                                              bb[i] / oversample, p, nb)  # fmt: skip
+                            scale = SIDE_OVERSAMPLE / oversample
+                            deposit_trapezoid(dd_side, 2 * tt + bs[i] - 1, bx[i] * scale, ba[i] * scale, bb[i] * scale,
+                                              p, nb * SIDE_OVERSAMPLE)  # fmt: skip
                         k = int(bx[i]) // oversample
                         if 0 <= k < nb:
                             density = p / max(max(ba[i], bb[i]) / oversample, 1.0)
@@ -469,8 +474,8 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
         for tt in range(nbt):
             integrate_rows(dd, tt, oversample, out[ta + tt, 0])
             if attribute:
-                integrate_rows(dd_side, 2 * tt, 1, out[ta + tt, SIDE_LEFT])
-                integrate_rows(dd_side, 2 * tt + 1, 1, out[ta + tt, SIDE_RIGHT])
+                integrate_rows(dd_side, 2 * tt, SIDE_OVERSAMPLE, out[ta + tt, SIDE_LEFT])
+                integrate_rows(dd_side, 2 * tt + 1, SIDE_OVERSAMPLE, out[ta + tt, SIDE_RIGHT])
         counts[blk] = n_eval
     return counts.sum()
 
