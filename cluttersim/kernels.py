@@ -303,46 +303,45 @@ def integrate_rows(dd, row, oversample, out_row):
 
 
 @numba.njit(parallel=True, **_JIT)
-def earliest_range(ant, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row, out):
+def earliest_range(ant, bound, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row, out):
     """Per trace, the smallest range (m) from the antenna to any front-facing facet's near edge.
 
-    Tiles are visited in order of their lower range bound and the search stops
-    once that bound exceeds the best range found.
+    ``bound[t]`` is any range known to be at least the answer (e.g. a little
+    more than the range to the ground below the antenna; inf if unknown):
+    tiles whose bounding sphere lies entirely beyond the best range found so
+    far are skipped, so only the few tiles near the closest ground are read.
     """
-    ntile = tile_radius.shape[0]
     for t in numba.prange(ant.shape[0]):
-        lb = np.empty(ntile)
-        for m in range(ntile):
-            if tile_radius[m] < 0.0:
-                lb[m] = np.inf
-            else:
-                dx = tile_centre[m, 0] - ant[t, 0]
-                dy = tile_centre[m, 1] - ant[t, 1]
-                dz = tile_centre[m, 2] - ant[t, 2]
-                lb[m] = math.sqrt(dx * dx + dy * dy + dz * dz) - tile_radius[m]
-        order = np.argsort(lb)
-        best = np.inf
-        for q in range(ntile):
-            m = order[q]
-            if lb[m] >= best:
-                break
-            cx = tile_centre[m, 0] - ant[t, 0]
-            cy = tile_centre[m, 1] - ant[t, 1]
-            cz = tile_centre[m, 2] - ant[t, 2]
-            for f in range(tile_offsets[m], tile_offsets[m + 1]):
-                vx = cx + rel[0, f]
-                vy = cy + rel[1, f]
-                vz = cz + rel[2, f]
-                r = math.sqrt(vx * vx + vy * vy + vz * vz)
-                if vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f] >= 0.0:
-                    continue
-                span = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) + abs(
-                    vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]
-                )
-                near = r - 0.5 * span / r
-                if near < best:
-                    best = near
-        out[t] = best
+        out[t] = _earliest_one(ant[t], bound[t], tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row)
+        if out[t] >= bound[t]:  # the bound was too tight (steep ground under the antenna): search everything
+            out[t] = _earliest_one(ant[t], np.inf, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row)
+
+
+@numba.njit(**_JIT)
+def _earliest_one(a, best, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row):
+    found = np.inf
+    for m in range(tile_radius.shape[0]):
+        if tile_radius[m] < 0.0:
+            continue
+        cx = tile_centre[m, 0] - a[0]
+        cy = tile_centre[m, 1] - a[1]
+        cz = tile_centre[m, 2] - a[2]
+        if math.sqrt(cx * cx + cy * cy + cz * cz) - tile_radius[m] >= min(best, found):
+            continue
+        for f in range(tile_offsets[m], tile_offsets[m + 1]):
+            vx = cx + rel[0, f]
+            vy = cy + rel[1, f]
+            vz = cz + rel[2, f]
+            r = math.sqrt(vx * vx + vy * vy + vz * vz)
+            if vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f] >= 0.0:
+                continue
+            span = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) + abs(
+                vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]
+            )
+            near = r - 0.5 * span / r
+            if near < found:
+                found = near
+    return found
 
 
 #: Side codes of the source record: within the nadir strip, left or right of the track.

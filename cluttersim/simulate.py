@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 import xarray as xr
+from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
@@ -248,8 +249,10 @@ def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats:
     idx = np.flatnonzero(on_dem)
     ant_on = np.ascontiguousarray(ant[idx])
     earliest_m = np.empty(idx.size)
+    # the earliest echo is no farther than the ground below the antenna (plus a facet's size)
+    bound = np.nan_to_num((track.alt_m - h_nadir)[idx], nan=np.inf) + 2.0 * facets.tile_extent_m.max() + 1.0
     kernels.earliest_range(
-        ant_on, facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets,
+        ant_on, bound, facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets,
         facets.rel_m, facets.normal, facets.e_col_m, facets.e_row_m, earliest_m,
     )  # fmt: skip
     earliest_delay = 2.0 * earliest_m / SPEED_OF_LIGHT_M_S
@@ -393,21 +396,74 @@ def _max_range_m(track: Track, config: SimulationConfig, h_min_m: float, pad_sam
 
 
 def _window_for_radius(src: DemSource, track: Track, on_dem, radius_m: np.ndarray):
-    """DEM window holding every point within ``radius_m`` of the track's on-DEM traces."""
+    """DEM window holding every point within ``radius_m`` of the track's on-DEM traces.
+
+    Rings of 72 points at the radius around (a subsample of) the traces are
+    mapped to DEM rows and columns; the window is their bounding box plus 2
+    pixels. For geographic DEMs the ring longitudes are taken relative to their
+    trace (so a ring across the DEM's west or east edge extends past that edge
+    instead of wrapping to the other side), and:
+
+    * a ring that encloses a pole covers every longitude: the window then spans
+      the DEM's full width and reaches the pole's row;
+    * on a DEM that spans 360° of longitude (:attr:`DemSource.wraps_longitude`),
+      the window may run past the grid's west or east edge (e.g. across the
+      antimeridian of a −180..180 DEM): :meth:`DemSource.read` joins the two
+      pieces into one block. If it would be wider than the DEM, it is the full width.
+
+    Projected DEMs (polar stereographic, equirectangular...) are plain x/y grids:
+    the box of the rings' projected points. A projected grid that itself wraps
+    around the body (a global equirectangular DEM) is not joined across its edge.
+    """
     body = src.body
     if np.max(radius_m) > 0.5 * math.pi * body.semi_minor_m:
         return src.window_around([0, src.height - 1], [0, src.width - 1], pad=0)
     idx = np.flatnonzero(on_dem)
     step = max(1, idx.size // 400)
-    keep = np.unique(np.concatenate([idx[::step], idx[-1:]]))
-    az = np.linspace(0.0, 360.0, 24, endpoint=False)
+    lat_on = track.lat_deg[idx]
+    pos = np.unique(np.concatenate([np.arange(0, idx.size, step), [idx.size - 1, np.argmax(lat_on), np.argmin(lat_on)]]))
+    keep = idx[pos]
+    az = np.linspace(0.0, 360.0, 72, endpoint=False)
+    geod = body.geod()
     lon0 = np.repeat(track.lon_deg[keep], az.size)
     lat0 = np.repeat(track.lat_deg[keep], az.size)
-    lon, lat, _ = body.geod().fwd(lon0, lat0, np.tile(az, keep.size), np.repeat(radius_m[keep], az.size))
-    lon = np.concatenate([lon, track.lon_deg[idx]])
-    lat = np.concatenate([lat, track.lat_deg[idx]])
-    rows, cols = src.lonlat_to_rowcol(lon, lat)
-    return src.window_around(rows, cols, pad=2)
+    lon, lat, _ = geod.fwd(lon0, lat0, np.tile(az, keep.size), np.repeat(radius_m[keep], az.size))
+    if not src.is_geographic:
+        rows, cols = src.lonlat_to_rowcol(np.concatenate([lon, track.lon_deg[idx]]), np.concatenate([lat, lat_on]))
+        return src.window_around(rows, cols, pad=2)
+
+    # geographic: longitudes continuous along the track, rings relative to their trace
+    x_on, _ = src.lonlat_to_xy(track.lon_deg[idx], lat_on)
+    if src.wraps_longitude:
+        x_on = np.unwrap(x_on, period=360.0)
+    dlon = (lon - lon0 + 180.0) % 360.0 - 180.0
+    x = np.concatenate([np.repeat(x_on[pos], az.size) + dlon, x_on])
+    y = np.concatenate([lat, lat_on])
+    r_keep = radius_m[keep]
+    n = keep.size
+    _, _, to_north = geod.inv(track.lon_deg[keep], track.lat_deg[keep], track.lon_deg[keep], np.full(n, 90.0))
+    _, _, to_south = geod.inv(track.lon_deg[keep], track.lat_deg[keep], track.lon_deg[keep], np.full(n, -90.0))
+    pole = False
+    for pole_lat, dist in ((90.0, to_north), (-90.0, to_south)):
+        if np.any(dist < r_keep):
+            x, y, pole = np.append(x, x_on[0]), np.append(y, pole_lat), True
+    col, row = ~src.transform @ (x, np.clip(y, -90.0, 90.0))
+    rows, cols = np.asarray(row) - 0.5, np.asarray(col) - 0.5
+    if pole:
+        cols = np.append(cols, [0.0, src.width - 1.0])
+    if not src.wraps_longitude:
+        return src.window_around(rows, cols, pad=2)
+    pad = 2
+    c_lo = int(math.floor(np.nanmin(cols))) - pad
+    c_hi = int(math.ceil(np.nanmax(cols))) + pad + 1
+    r0 = max(int(math.floor(np.nanmin(rows))) - pad, 0)
+    r1 = min(int(math.ceil(np.nanmax(rows))) + pad + 1, src.height)
+    if r1 <= r0:
+        return None
+    if c_hi - c_lo >= src.width:
+        return Window(0, r0, src.width, r1 - r0)
+    shift = (c_lo // src.width) * src.width  # put the west edge on the grid; the east may run past it
+    return Window(c_lo - shift, r0, c_hi - c_lo, r1 - r0)
 
 
 def read_track_window(src: DemSource, track: Track, on_dem, config: SimulationConfig, pad_samples: int = 0) -> DemWindow:
