@@ -44,6 +44,7 @@ class Facets:
     tile_centre_m: np.ndarray
     tile_radius_m: np.ndarray
     tile_extent_m: np.ndarray
+    tile_slab: np.ndarray
     grid_shape: tuple[int, int]
 
     def __len__(self) -> int:
@@ -101,9 +102,11 @@ def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: in
     tcentre = np.zeros((ntile, 3))
     tradius = np.full(ntile, -1.0)
     textent = np.zeros(ntile)
+    tslab = np.zeros((ntile, 6))
     kernels.build_tiled_facets(
-        grid, valid, lat, lon, tile, offsets, rel, normal, e_col, e_row, area, cell, tcentre, tradius, textent
-    )
+        grid, valid, lat, lon, tile, offsets, rel, normal, e_col, e_row, area, cell, tcentre, tradius, textent,
+        origin_m, tslab,
+    )  # fmt: skip
     return Facets(
         origin_m=origin_m,
         rel_m=rel,
@@ -116,6 +119,7 @@ def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: in
         tile_centre_m=tcentre,
         tile_radius_m=tradius,
         tile_extent_m=textent,
+        tile_slab=tslab,
         grid_shape=(ny, nx),
     )
 

@@ -117,7 +117,7 @@ def grid_to_ecef(lat_deg, lon_deg, h_m, a_m, e2, origin, out):
 
 @numba.njit(parallel=True, **_JIT)
 def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, normal, e_col, e_row, area, cell,
-                       tile_centre, tile_radius, tile_extent):  # fmt: skip
+                       tile_centre, tile_radius, tile_extent, origin, tile_slab):  # fmt: skip
     """Facet geometry from a grid of cell-centre positions, written tile by tile.
 
     For cell (i, j) the edge vectors are the central differences
@@ -129,7 +129,10 @@ def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, n
     columns ``tile_offsets[t]:tile_offsets[t+1]`` of the (3, nfacet) arrays,
     positions relative to the tile's centre (the mean of its cells). Each tile
     also gets a bounding-sphere radius and the largest facet half-extent, used
-    to cull whole tiles per trace.
+    to cull whole tiles per trace, and a slab: ``tile_slab[t] = (ux, uy, uz,
+    horizontal radius, lowest, highest)`` — the facets' spread across and along
+    the geocentric direction u of the tile centre, a tighter bound near nadir
+    (:func:`slab_min_range`).
     """
     ny, nx = valid.shape
     nty = (ny + tile - 1) // tile
@@ -214,6 +217,43 @@ def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, n
         tile_centre[t, 2] = cz
         tile_radius[t] = math.sqrt(r2max) + ext
         tile_extent[t] = ext
+        gx = origin[0] + cx
+        gy = origin[1] + cy
+        gz = origin[2] + cz
+        gn = math.sqrt(gx * gx + gy * gy + gz * gz)
+        ux = gx / gn
+        uy = gy / gn
+        uz = gz / gn
+        hmax = 0.0
+        zlo = np.inf
+        zhi = -np.inf
+        for q in range(tile_offsets[t], k):
+            z = rel[0, q] * ux + rel[1, q] * uy + rel[2, q] * uz
+            hx = rel[0, q] - z * ux
+            hy = rel[1, q] - z * uy
+            hz = rel[2, q] - z * uz
+            hmax = max(hmax, math.sqrt(hx * hx + hy * hy + hz * hz))
+            zlo = min(zlo, z)
+            zhi = max(zhi, z)
+        tile_slab[t, 0] = ux
+        tile_slab[t, 1] = uy
+        tile_slab[t, 2] = uz
+        tile_slab[t, 3] = hmax + ext
+        tile_slab[t, 4] = zlo - ext
+        tile_slab[t, 5] = zhi + ext
+
+
+@numba.njit(inline="always", **_JIT)
+def slab_min_range(cx, cy, cz, slab):
+    """Lower bound of the distance from a point to a tile's facets: the tile centre is at
+    (cx, cy, cz) from the point; ``slab`` = (u, horizontal radius, lowest, highest) along u."""
+    z = -(cx * slab[0] + cy * slab[1] + cz * slab[2])  # the point's height above the centre along u
+    hx = -cx - z * slab[0]
+    hy = -cy - z * slab[1]
+    hz = -cz - z * slab[2]
+    dh = max(math.sqrt(hx * hx + hy * hy + hz * hz) - slab[3], 0.0)
+    dz = max(z - slab[5], slab[4] - z, 0.0)
+    return math.sqrt(dh * dh + dz * dz)
 
 
 # --------------------------------------------------------------------------- facet delay distribution
@@ -303,22 +343,24 @@ def integrate_rows(dd, row, oversample, out_row):
 
 
 @numba.njit(parallel=True, **_JIT)
-def earliest_range(ant, bound, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row, out):
+def earliest_range(ant, bound, tile_centre, tile_radius, tile_slab, tile_offsets, rel, normal, e_col, e_row, out):
     """Per trace, the smallest range (m) from the antenna to any front-facing facet's near edge.
 
     ``bound[t]`` is any range known to be at least the answer (e.g. a little
     more than the range to the ground below the antenna; inf if unknown):
-    tiles whose bounding sphere lies entirely beyond the best range found so
-    far are skipped, so only the few tiles near the closest ground are read.
+    tiles whose slab (:func:`slab_min_range`) lies entirely beyond the best
+    range found so far are skipped, so only the tiles near the closest ground
+    are read.
     """
     for t in numba.prange(ant.shape[0]):
-        out[t] = _earliest_one(ant[t], bound[t], tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row)
+        out[t] = _earliest_one(ant[t], bound[t], tile_centre, tile_radius, tile_slab, tile_offsets, rel, normal, e_col, e_row)
         if out[t] >= bound[t]:  # the bound was too tight (steep ground under the antenna): search everything
-            out[t] = _earliest_one(ant[t], np.inf, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row)
+            out[t] = _earliest_one(ant[t], np.inf, tile_centre, tile_radius, tile_slab, tile_offsets, rel, normal, e_col,
+                                   e_row)  # fmt: skip
 
 
 @numba.njit(**_JIT)
-def _earliest_one(a, best, tile_centre, tile_radius, tile_offsets, rel, normal, e_col, e_row):
+def _earliest_one(a, best, tile_centre, tile_radius, tile_slab, tile_offsets, rel, normal, e_col, e_row):
     found = np.inf
     for m in range(tile_radius.shape[0]):
         if tile_radius[m] < 0.0:
@@ -326,7 +368,7 @@ def _earliest_one(a, best, tile_centre, tile_radius, tile_offsets, rel, normal, 
         cx = tile_centre[m, 0] - a[0]
         cy = tile_centre[m, 1] - a[1]
         cz = tile_centre[m, 2] - a[2]
-        if math.sqrt(cx * cx + cy * cy + cz * cz) - tile_radius[m] >= min(best, found):
+        if slab_min_range(cx, cy, cz, tile_slab[m]) >= min(best, found):
             continue
         for f in range(tile_offsets[m], tile_offsets[m + 1]):
             vx = cx + rel[0, f]

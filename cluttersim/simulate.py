@@ -26,7 +26,7 @@ from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
-from . import __version__, kernels
+from . import __version__, kernels, memory
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
@@ -69,6 +69,7 @@ def simulate(
     sources: bool = True,
     nadir_strip_m: float | None = None,
     first_return_db: float = -20.0,
+    max_memory_bytes: int | str | None = "auto",
 ) -> xr.Dataset:
     """Simulate the surface-clutter radargram of a track over a DEM.
 
@@ -95,6 +96,11 @@ def simulate(
         pulse-limited footprint radius of each trace.
     first_return_db : float
         Threshold, relative to the nadir echo's power, of the first return.
+    max_memory_bytes : int, "auto" or None
+        Refuse (:class:`~cluttersim.errors.MemoryLimitError`, before the DEM is
+        read at full resolution) a run whose estimated memory
+        (:func:`cluttersim.memory.estimate_memory_bytes`) exceeds this; "auto":
+        80 % of the available memory; None: no check.
 
     Returns
     -------
@@ -108,7 +114,7 @@ def simulate(
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
     body = src.body
-    scene = prepare_scene(src, track, config, stats)
+    scene = prepare_scene(src, track, config, stats, max_memory_bytes=max_memory_bytes, sources=sources)
     facets, window, idx, pad = scene.facets, scene.window, scene.idx, scene.pad
     kernel_weights, start, h_nadir = scene.pulse_weights, scene.start_s, scene.h_nadir_m
     nadir_delay, earliest_delay, on_dem = scene.nadir_delay_s, scene.earliest_delay_s, scene.on_dem
@@ -204,11 +210,16 @@ class Scene:
     pulse_weights: np.ndarray
 
 
-def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats: RunStats | None = None) -> Scene:
+def prepare_scene(
+    src: DemSource, track: Track, config: SimulationConfig, stats: RunStats | None = None, *,
+    max_memory_bytes: int | str | None = "auto", sources: bool = True,
+) -> Scene:  # fmt: skip
     """Read the DEM window a track needs, build its facets and each trace's recording window.
 
     Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
-    below the terrain, or windows that cannot hold any surface echo.
+    below the terrain, or windows that cannot hold any surface echo, and
+    :class:`~cluttersim.errors.MemoryLimitError` before the full-resolution read
+    if the run would need more than ``max_memory_bytes`` (see :func:`simulate`).
     """
     stats = stats if stats is not None else RunStats()
     radar = config.radar
@@ -227,7 +238,21 @@ def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats:
     kernel_offsets, kernel_weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
     pad = int(kernel_offsets[-1])
 
-    window = read_track_window(src, track, on_dem, config, pad_samples=pad)
+    given = max_memory_bytes != "auto"
+    limit = max_memory_bytes
+    if not given:
+        limit = memory.default_limit_bytes()
+    elif isinstance(limit, str):
+        limit = memory.parse_size(limit)
+
+    def check(win):
+        est = memory.estimate_memory_bytes(
+            win.width * win.height, len(track), radar.samples, sources=sources, threads=numba.get_num_threads(),
+            pad_samples=pad, oversample=OVERSAMPLE, traces_per_block=TRACES_PER_BLOCK,
+        )  # fmt: skip
+        memory.check_memory(est, limit, given=given)
+
+    window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
     warn_holes(window)
     t0 = time.perf_counter()
     facets = build_facets(window)
@@ -252,7 +277,7 @@ def prepare_scene(src: DemSource, track: Track, config: SimulationConfig, stats:
     # the earliest echo is no farther than the ground below the antenna (plus a facet's size)
     bound = np.nan_to_num((track.alt_m - h_nadir)[idx], nan=np.inf) + 2.0 * facets.tile_extent_m.max() + 1.0
     kernels.earliest_range(
-        ant_on, bound, facets.tile_centre_m, facets.tile_radius_m, facets.tile_offsets,
+        ant_on, bound, facets.tile_centre_m, facets.tile_radius_m, facets.tile_slab, facets.tile_offsets,
         facets.rel_m, facets.normal, facets.e_col_m, facets.e_row_m, earliest_m,
     )  # fmt: skip
     earliest_delay = 2.0 * earliest_m / SPEED_OF_LIGHT_M_S
@@ -466,13 +491,16 @@ def _window_for_radius(src: DemSource, track: Track, on_dem, radius_m: np.ndarra
     return Window(c_lo - shift, r0, c_hi - c_lo, r1 - r0)
 
 
-def read_track_window(src: DemSource, track: Track, on_dem, config: SimulationConfig, pad_samples: int = 0) -> DemWindow:
+def read_track_window(
+    src: DemSource, track: Track, on_dem, config: SimulationConfig, pad_samples: int = 0, before_full_read=None
+) -> DemWindow:
     """Read the part of the DEM whose echoes can fall inside any trace's window.
 
     The needed ground radius depends on the terrain's height range, which is
     not known before reading: it is estimated on decimated reads until stable,
     then the full-resolution window is read (and widened if its true height
-    range asks for more).
+    range asks for more). ``before_full_read(window)``, if given, is called
+    before every full-resolution read (the memory check).
     """
     h_lo = h_hi = 0.0
     window = None
@@ -492,6 +520,8 @@ def read_track_window(src: DemSource, track: Track, on_dem, config: SimulationCo
         margin = 0.05 * (hi - lo)
         h_lo, h_hi = min(h_lo, lo - margin), max(h_hi, hi + margin)
     for _ in range(4):
+        if before_full_read is not None:
+            before_full_read(window)
         full = src.read(window)
         if np.isnan(full.elevation_m).all():
             return full  # build_facets reports the all-nodata window
@@ -504,4 +534,6 @@ def read_track_window(src: DemSource, track: Track, on_dem, config: SimulationCo
         if new == window:
             return full
         window = new
+    if before_full_read is not None:
+        before_full_read(window)
     return src.read(window)
