@@ -30,6 +30,28 @@ radar_option = click.option(
 )
 
 
+def _parse_memory(ctx, param, value):
+    if value is None or value == "auto":
+        return "auto"
+    from cluttersim.memory import parse_size
+
+    try:
+        return parse_size(value)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc)) from None
+
+
+max_memory_option = click.option(
+    "--max-memory",
+    "max_memory",
+    default="auto",
+    show_default=True,
+    callback=_parse_memory,
+    metavar="SIZE",
+    help="Refuse runs estimated to need more memory than this (e.g. 8GB, 500MB); auto: 80% of the available memory.",
+)
+
+
 def load_config(radar_path) -> SimulationConfig:
     return SimulationConfig.from_toml(radar_path) if radar_path else default_config()
 

@@ -6,7 +6,9 @@ import click
 
 from cluttersim.products import simulate_to_dir
 
-from .options import load_config, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option
+from .options import (
+    load_config, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
+)  # fmt: skip
 
 
 @click.command("simulate")
@@ -20,11 +22,12 @@ from .options import load_config, out_dir_option, overwrite_option, permittivity
 @click.option("--first-return-db", type=float, default=-20.0, show_default=True,
               help="First return: earliest echo at this level relative to the nadir echo, dB.")
 @permittivity_option
+@max_memory_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 permittivity, out_dir, overwrite, quiet):  # fmt: skip
+                 permittivity, max_memory, out_dir, overwrite, quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
     Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
@@ -39,6 +42,7 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
         sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,
+        max_memory_bytes=max_memory,
     )  # fmt: skip
     if not quiet:
         for p in paths.values():

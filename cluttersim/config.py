@@ -108,9 +108,10 @@ class SimulationConfig:
             if table not in ("radar", "surface"):
                 raise ConfigError(f"unknown table [{table}]: expected [radar] and [surface]")
         radar_data = data.get("radar", {})
-        surface_data = dict(data.get("surface", {}))
+        surface_data = data.get("surface", {})
         if not isinstance(radar_data, dict) or not isinstance(surface_data, dict):
             raise ConfigError("[radar] and [surface] must be tables")
+        surface_data = dict(surface_data)
         return cls(radar=_radar_from_dict(radar_data), surface=_surface_from_dict(surface_data))
 
     def to_dict(self) -> dict:

@@ -51,6 +51,15 @@ class DemSource:
         return self.crs is None or self.crs.is_geographic
 
     @property
+    def wraps_longitude(self) -> bool:
+        """True for a geographic DEM whose columns span the full 360° of longitude.
+
+        Its first and last columns are neighbours across the DEM's west edge, and
+        :meth:`read` accepts windows that run over that edge (see there).
+        """
+        return self.is_geographic and abs(abs(self.transform.a) * self.width - 360.0) < 0.5 * abs(self.transform.a)
+
+    @property
     def pixel_size(self) -> tuple[float, float]:
         """(x, y) pixel size in CRS units (degrees for geographic DEMs)."""
         return abs(self.transform.a), abs(self.transform.e)
@@ -88,6 +97,12 @@ class DemSource:
                 crs = pyproj.CRS.from_wkt(rcrs.to_wkt())
             except pyproj.exceptions.CRSError as exc:
                 raise DemError(f"{path}: CRS not understood by pyproj ({exc})") from None
+            if crs.is_geographic and [a.direction for a in crs.axis_info[:2]] not in (["north", "east"], ["east", "north"]):
+                axes = ", ".join(f"{a.name} ({a.direction})" for a in crs.axis_info[:2])
+                raise DemError(
+                    f"{path}: geographic CRS {crs.name!r} has axes {axes}; expected latitude north and longitude east "
+                    "(re-grid the DEM to east-positive longitudes)"
+                )
             body = Body.from_crs(crs)
             if body_radius_m is not None:
                 body = Body.sphere(body_radius_m, name=f"sphere overriding {body.name}")
@@ -95,10 +110,18 @@ class DemSource:
 
     # ----------------------------------------------------------------- coordinates
 
+    def _lonlat_crs(self) -> pyproj.CRS:
+        """Latitude/east-longitude degrees on the DEM's datum (tracks are east-positive even
+        when the CRS's own geodetic CRS counts longitudes westward, as planetographic ones do)."""
+        from pyproj.crs import GeographicCRS
+        from pyproj.crs.coordinate_system import Ellipsoidal2DCS
+
+        return GeographicCRS(name="lat/lon east", datum=self.crs.datum, ellipsoidal_cs=Ellipsoidal2DCS())
+
     def _to_crs(self) -> pyproj.Transformer | None:
         if self.crs is None or self.crs.is_geographic:
             return None
-        return pyproj.Transformer.from_crs(self.crs.geodetic_crs, self.crs, always_xy=True)
+        return pyproj.Transformer.from_crs(self._lonlat_crs(), self.crs, always_xy=True)
 
     def lonlat_to_xy(self, lon_deg, lat_deg):
         """Geodetic lon/lat (degrees) → DEM CRS x, y. For geographic DEMs,
@@ -116,7 +139,7 @@ class DemSource:
         """DEM CRS x, y → geodetic lon/lat in degrees."""
         if self.crs is None or self.crs.is_geographic:
             return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
-        tr = pyproj.Transformer.from_crs(self.crs, self.crs.geodetic_crs, always_xy=True)
+        tr = pyproj.Transformer.from_crs(self.crs, self._lonlat_crs(), always_xy=True)
         lon, lat = tr.transform(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
         return np.asarray(lon), np.asarray(lat)
 
@@ -144,12 +167,40 @@ class DemSource:
         return Window(c0, r0, c1 - c0, r1 - r0)
 
     def read(self, window: Window, out_shape: tuple[int, int] | None = None) -> "DemWindow":
-        """Read a window of elevations (holes as NaN), optionally decimated to ``out_shape``."""
+        """Read a window of elevations (holes as NaN), optionally decimated to ``out_shape``.
+
+        For a DEM that :attr:`wraps_longitude`, the window's columns may run past
+        either side of the grid (``col_off < 0`` or ``col_off + width > self.width``,
+        at most one full turn): the columns are read modulo the width and joined, so
+        a window across the DEM's west/east edge (the antimeridian of a −180..180
+        DEM) is one continuous block whose longitudes simply continue past ±180°.
+        """
+        c0, w = int(window.col_off), int(window.width)
+        wrapped = c0 < 0 or c0 + w > self.width
+        if wrapped and not (self.wraps_longitude and w <= self.width):
+            raise ValueError(f"window {window} lies outside the DEM's {self.width} columns")
         try:
             with rasterio.open(self.path) as ds:
-                data = ds.read(1, window=window, out_shape=out_shape, masked=True)
+                if not wrapped:
+                    data = ds.read(1, window=window, out_shape=out_shape, masked=True)
+                else:
+                    pieces = []
+                    col = c0
+                    while col < c0 + w:
+                        start = col % self.width
+                        n = min(self.width - start, c0 + w - col)
+                        piece = Window(start, window.row_off, n, window.height)
+                        shape = None
+                        if out_shape is not None:
+                            shape = (out_shape[0], max(1, int(round(out_shape[1] * n / w))))
+                        pieces.append(ds.read(1, window=piece, out_shape=shape, masked=True))
+                        col += n
+                    data = np.ma.concatenate(pieces, axis=1)
+                    if out_shape is not None:
+                        out_shape = data.shape
         except (rasterio.errors.RasterioIOError, rasterio.errors.RasterioError) as exc:
-            raise DemError(f"{self.path}: cannot read elevations ({str(exc).splitlines()[0]})") from None
+            cause = str(exc.__cause__ or exc).strip().splitlines()[0] if str(exc.__cause__ or exc).strip() else type(exc).__name__
+            raise DemError(f"{self.path}: cannot read elevations, the file may be truncated or corrupt ({cause})") from None
         elev = np.ma.filled(data.astype(np.float64), np.nan)
         elev[~np.isfinite(elev)] = np.nan
         wt = rasterio.windows.transform(window, self.transform)
@@ -190,17 +241,35 @@ class DemWindow:
     def bilinear_m(self, lon_deg, lat_deg) -> np.ndarray:
         """Elevation at points by bilinear interpolation between cell centres (NaN outside or in holes)."""
         x, y = self.source.lonlat_to_xy(lon_deg, lat_deg)
+        if self.source.is_geographic:
+            # wrap into this window's own longitude range (it may run past the DEM's edge)
+            west = self.transform.c
+            x = (np.asarray(x, dtype=np.float64) - west) % 360.0 + west
         col, row = ~self.transform @ (np.asarray(x), np.asarray(y))
         col = np.asarray(col, dtype=np.float64) - 0.5
         row = np.asarray(row, dtype=np.float64) - 0.5
         ny, nx = self.shape
-        inside = (row >= 0) & (row <= ny - 1) & (col >= 0) & (col <= nx - 1)
+        t = self.transform
+        # a geographic window a full turn wide interpolates across its west/east edge, and
+        # one reaching a pole is constant from its outermost row of centres to the pole
+        full_turn = self.source.is_geographic and abs(abs(t.a) * nx - 360.0) < 0.5 * abs(t.a)
+        if full_turn:
+            col = (col + 1.0) % nx - 1.0  # in [-1, nx - 1): c0 = -1 is the last column
+        if self.source.is_geographic:
+            north_row = -0.5 if t.f >= 90.0 - 1e-9 else 0.0
+            south_row = ny - 0.5 if t.f + t.e * ny <= -90.0 + 1e-9 else ny - 1
+            inside_rows = (row >= north_row) & (row <= south_row)
+            row = np.clip(row, 0.0, ny - 1)
+        else:
+            inside_rows = (row >= 0) & (row <= ny - 1)
+        inside = inside_rows & (col >= (-1 if full_turn else 0)) & (col <= nx - 1)
         r0 = np.clip(np.floor(row).astype(np.int64), 0, max(ny - 2, 0))
-        c0 = np.clip(np.floor(col).astype(np.int64), 0, max(nx - 2, 0))
+        c0 = np.clip(np.floor(col).astype(np.int64), -1 if full_turn else 0, max(nx - 2, 0))
         fr = row - r0
         fc = col - c0
         r1 = np.minimum(r0 + 1, ny - 1)
         c1 = np.minimum(c0 + 1, nx - 1)
+        c0 = c0 % nx
         z = self.elevation_m
         val = (
             z[r0, c0] * (1 - fr) * (1 - fc) + z[r0, c1] * (1 - fr) * fc + z[r1, c0] * fr * (1 - fc) + z[r1, c1] * fr * fc
@@ -214,7 +283,7 @@ class DemWindow:
 def warn_holes(window: DemWindow) -> None:
     """Warn (once) with the fraction of nodata cells in the window read for a track."""
     frac = window.hole_fraction()
-    if frac > 0:
+    if 0 < frac < 1:  # all nodata is an error (build_facets), not a warning
         warnings.warn(
             f"{window.source.path.name}: {100 * frac:.2f}% of the DEM cells around the track are nodata; "
             "they are skipped (no echo from holes)",

@@ -37,3 +37,7 @@ class OutputExistsError(ClutterSimError, FileExistsError):
     """Raised when an output exists and overwriting was not requested."""
 
     exit_code = 2
+
+
+class MemoryLimitError(ClutterSimError, MemoryError):
+    """Raised before reading when a run's estimated memory exceeds the allowed limit."""

@@ -32,13 +32,14 @@ _MAP_CELLS = 900
 
 def simulate_to_dir(
     dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None,
-    sources=True, nadir_strip_m=None, first_return_db=-20.0, permittivity=3.15,
+    sources=True, nadir_strip_m=None, first_return_db=-20.0, permittivity=3.15, max_memory_bytes="auto",
 ) -> dict[str, Path]:  # fmt: skip
     """Simulate and write the run's products (:data:`RUN_FILES`) into ``out_dir``.
 
     Existing products are refused before any work unless ``overwrite``; all
     are written under temporary names and renamed together at the end.
-    ``permittivity`` sets the apparent-depth axis of the figures.
+    ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
+    is passed to :func:`~cluttersim.simulate.simulate`.
     """
     out_dir = Path(out_dir)
     paths = {k: out_dir / v for k, v in RUN_FILES.items()}
@@ -46,7 +47,8 @@ def simulate_to_dir(
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
     ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
-                  nadir_strip_m=nadir_strip_m, first_return_db=first_return_db)  # fmt: skip
+                  nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
+                  max_memory_bytes=max_memory_bytes)  # fmt: skip
     if not sources:
         paths.pop("sides_png")
     write_run(ds, src, paths, permittivity=permittivity)
@@ -99,6 +101,7 @@ def track_map_data(src: DemSource, ds):
     x1, y1 = t.c + t.a * nx, t.f + t.e * ny
     tx, ty = src.lonlat_to_xy(track.lon_deg, track.lat_deg)
     if src.is_geographic:
+        tx = (tx - x0) % 360.0 + x0  # the window may run past the DEM's edge (antimeridian)
         return dw.elevation_m, (x0, x1, y1, y0), tx, ty, ("longitude (°E)", "latitude (°N)")
     k = 1e-3
     return dw.elevation_m, (x0 * k, x1 * k, y1 * k, y0 * k), tx * k, ty * k, ("easting (km)", "northing (km)")

@@ -150,6 +150,11 @@ class RadarConfig:
             raise ConfigError(f"[radar] samples = {self.samples!r}: expected an integer of at least 2")
         if self.samples > 1_000_000:
             raise ConfigError(f"[radar] samples = {self.samples!r}: expected at most 1,000,000 samples per trace")
+        if self.sample_interval_s > 1.0 / self.bandwidth_hz:
+            raise ConfigError(
+                f"[radar] sample_interval_s = {self.sample_interval_s!r}: expected at most 1/bandwidth_hz "
+                f"({1.0 / self.bandwidth_hz!r} s), or the compressed pulse falls between samples"
+            )
         if self.bandwidth_hz > 2.0 * self.center_frequency_hz:
             raise ConfigError(
                 f"[radar] bandwidth_hz = {self.bandwidth_hz!r}: expected at most twice center_frequency_hz "

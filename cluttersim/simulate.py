@@ -42,6 +42,9 @@ _PREVIEW_CELLS = 1024
 #: Sub-bins per delay sample on which facet delay distributions are laid (their
 #: corners are placed to 1/32 of a sample).
 OVERSAMPLE = 32
+#: Highest antenna accepted, in body radii above the reference surface (a sanity bound:
+#: beyond it the whole visible disc echoes at nearly one delay).
+MAX_ALT_BODY_RADII = 100
 #: Consecutive traces one thread computes together, reading each tile's facets once.
 TRACES_PER_BLOCK = 4
 
@@ -225,6 +228,13 @@ def prepare_scene(
     radar = config.radar
     body = src.body
 
+    too_high = np.flatnonzero(track.alt_m > MAX_ALT_BODY_RADII * body.semi_major_m)
+    if too_high.size:
+        i = too_high[0]
+        raise TrackError(
+            f"{track.source}: row {i + 1} alt = {track.alt_m[i]:.6g} m: expected at most {MAX_ALT_BODY_RADII} body radii "
+            f"({MAX_ALT_BODY_RADII * body.semi_major_m:.6g} m) above the reference surface"
+        )
     rows, cols = src.lonlat_to_rowcol(track.lon_deg, track.lat_deg)
     on_dem = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
     if not on_dem.any():

@@ -296,6 +296,7 @@ def _map_frame(run: Run, elevation_m, transform):
     x1, y1 = x0 + transform.a * nx, y0 + transform.e * ny
     tx, ty = src.lonlat_to_xy(run.scene.track.lon_deg, run.scene.track.lat_deg)
     if src.is_geographic:
+        tx = (tx - x0) % 360.0 + x0  # the window may run past the DEM's edge (antimeridian)
         return elevation_m, (x0, x1, y1, y0), tx, ty, ("longitude (°E)", "latitude (°N)")
     k = 1e-3
     return elevation_m, (x0 * k, x1 * k, y1 * k, y0 * k), tx * k, ty * k, ("easting (km)", "northing (km)")
