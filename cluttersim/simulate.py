@@ -374,7 +374,8 @@ class SourceRecord:
         cell = facets.cell[np.maximum(self.facet, 0)]
         none = self.facet < 0
         src_lat = np.where(none, np.nan, lat_grid.ravel()[cell]).astype(np.float32)
-        src_lon = np.where(none, np.nan, lon_grid.ravel()[cell]).astype(np.float32)
+        lon_wrapped = (lon_grid.ravel()[cell] + 180.0) % 360.0 - 180.0  # windows across ±180° run past it
+        src_lon = np.where(none, np.nan, lon_wrapped).astype(np.float32)
         fr_delay, fr_sample = first_return(power, window_start, nadir_delay, dt, threshold_db, mainlobe)
         has = fr_sample >= 0
         rows = np.flatnonzero(has)
