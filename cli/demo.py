@@ -26,7 +26,11 @@ def demo_cmd(out_dir, overwrite, quiet):
         f"  radargram.png  what to look at first: the bright nadir surface echo near the top, and the\n"
         f"                 fainter curved echoes arriving later - off-nadir clutter from the craters and\n"
         f"                 the mesa beside the track, which a single antenna records as if it were subsurface\n"
-        f"  track_map.png  the pass ({DEMO_ALT_M / 1e3:.0f} km up) over shaded relief: find the features making that clutter\n"
+        f"  radargram_sides.png  the same radargram coloured by side: orange echoes come from left of the\n"
+        f"                 track (west: the craters), blue from the right (east: the mesa)\n"
+        f"  track_map.png  the pass ({DEMO_ALT_M / 1e3:.0f} km up) over shaded relief, with its first returns\n"
         f"  demo_track.csv the track; re-run it with: cluttersim simulate --dem dem_examples/demo_site.tif "
-        f"--track {paths['track']} --out my_run"
+        f"--track {paths['track']} --out my_run\n"
+        f"next: which ground echoes 1-3 km of apparent ice depth below the surface?\n"
+        f"  cluttersim sources {paths['radargram'].parent} --depth-window 1000 3000"
     )
