@@ -62,3 +62,21 @@ permittivity_option = click.option(
     show_default=True,
     help="Real relative permittivity for apparent depths (3.15: water ice); depth = c·Δt / (2√ε′).",
 )
+
+
+def with_antenna(config, pattern=None, axis=None, beamwidths_deg=None):
+    """The config with command-line overrides of its [antenna] table."""
+    import dataclasses
+
+    from cluttersim.antenna import AntennaConfig
+
+    changes = {}
+    if pattern is not None:
+        changes["pattern"] = pattern
+    if axis is not None:
+        changes["axis"] = axis
+    if beamwidths_deg is not None:
+        changes["beamwidth_along_deg"], changes["beamwidth_across_deg"] = beamwidths_deg
+    if not changes:
+        return config
+    return dataclasses.replace(config, antenna=AntennaConfig(**{**config.antenna.to_dict(), **changes}))

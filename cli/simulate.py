@@ -7,7 +7,7 @@ import click
 from cluttersim.products import simulate_to_dir
 
 from .options import (
-    load_config, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
+    load_config, max_memory_option, with_antenna, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
 )  # fmt: skip
 
 
@@ -21,24 +21,33 @@ from .options import (
               help="Cross-track half-width of the nadir strip, m [default: pulse-limited footprint radius].")
 @click.option("--first-return-db", type=float, default=-20.0, show_default=True,
               help="First return: earliest echo at this level relative to the nadir echo, dB.")
+@click.option("--antenna-pattern", type=click.Choice(["isotropic", "dipole", "gaussian"]), default=None,
+              help="Override [antenna] pattern of the radar TOML.")
+@click.option("--antenna-axis", type=click.Choice(["along-track", "cross-track"]), default=None,
+              help="Override [antenna] axis (dipole).")
+@click.option("--beamwidth-deg", nargs=2, type=float, default=None, metavar="ALONG ACROSS",
+              help="Override the Gaussian beam's 3 dB beamwidths, degrees.")
 @permittivity_option
 @max_memory_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 permittivity, max_memory, out_dir, overwrite, quiet):  # fmt: skip
+                 antenna_pattern, antenna_axis, beamwidth_deg, permittivity, max_memory, out_dir, overwrite,
+                 quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
     Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
     axis for --permittivity), OUT/radargram_sides.png (which side of the track each echo
     comes from) and OUT/track_map.png (track and first returns over shaded relief).
+    Optional [noise] and [subsurface] tables in the radar TOML add receiver noise and the
+    predicted echo of a hypothesised interface (see the README).
 
     \b
     Example:
       cluttersim simulate --dem site.tif --track pass.csv --radar radar.toml --out run1
     """
-    config = load_config(radar_path)
+    config = with_antenna(load_config(radar_path), antenna_pattern, antenna_axis, beamwidth_deg)
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
         sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,

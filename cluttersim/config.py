@@ -4,6 +4,8 @@ A radar TOML has two tables::
 
     [radar]      # RadarConfig: instrument settings
     [surface]    # SurfaceConfig: backscatter law and its parameters
+    [noise]      # optional NoiseConfig (cluttersim.noise): receiver noise floor k T B F
+    [subsurface] # optional SubsurfaceConfig (cluttersim.subsurface): predicted interface echo
 
 Unknown tables or keys, wrong types and out-of-range values raise
 :class:`~cluttersim.errors.ConfigError` naming the file, table and key.
@@ -18,9 +20,12 @@ from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
 
+from .antenna import AntennaConfig
 from .errors import ConfigError
+from .noise import NoiseConfig
 from .radar import RadarConfig
 from .scattering import LAWS
+from .subsurface import SubsurfaceConfig
 
 
 @dataclass(frozen=True)
@@ -79,6 +84,9 @@ class SimulationConfig:
 
     radar: RadarConfig = field(default_factory=RadarConfig)
     surface: SurfaceConfig = field(default_factory=SurfaceConfig)
+    antenna: AntennaConfig = field(default_factory=AntennaConfig)
+    noise: NoiseConfig | None = None  # [noise]: receiver noise floor (cluttersim.noise)
+    subsurface: SubsurfaceConfig | None = None  # [subsurface]: predicted interface echo (cluttersim.subsurface)
 
     @classmethod
     def from_toml(cls, path) -> "SimulationConfig":
@@ -105,23 +113,36 @@ class SimulationConfig:
         if not isinstance(data, dict):
             raise ConfigError("expected a table with [radar] and [surface]")
         for table in data:
-            if table not in ("radar", "surface"):
-                raise ConfigError(f"unknown table [{table}]: expected [radar] and [surface]")
+            if table not in ("radar", "surface", "antenna", "noise", "subsurface"):
+                raise ConfigError(f"unknown table [{table}]: expected [radar], [surface], [antenna], [noise] and [subsurface]")
         radar_data = data.get("radar", {})
         surface_data = data.get("surface", {})
         if not isinstance(radar_data, dict) or not isinstance(surface_data, dict):
             raise ConfigError("[radar] and [surface] must be tables")
         surface_data = dict(surface_data)
-        return cls(radar=_radar_from_dict(radar_data), surface=_surface_from_dict(surface_data))
+        antenna = AntennaConfig.from_dict(data.get("antenna", {}))
+        return cls(radar=_radar_from_dict(radar_data), surface=_surface_from_dict(surface_data), antenna=antenna,
+                   **_optional_tables(data))
 
     def to_dict(self) -> dict:
-        return {"radar": self.radar.to_dict(), "surface": self.surface.to_dict()}
+        return {"radar": self.radar.to_dict(), "surface": self.surface.to_dict(), "antenna": self.antenna.to_dict(),
+                **{k: v.to_dict() for k, v in (("noise", self.noise), ("subsurface", self.subsurface)) if v is not None}}
 
 
 def default_config() -> SimulationConfig:
     """The built-in radar (the demo's), read from the packaged ``default_radar.toml``."""
     with resources.as_file(resources.files("cluttersim") / "data" / "default_radar.toml") as p:
         return SimulationConfig.from_toml(p)
+
+
+def _optional_tables(data: dict) -> dict:
+    """The optional [noise] and [subsurface] tables as SimulationConfig keyword arguments."""
+    out = {}
+    if "noise" in data:
+        out["noise"] = NoiseConfig.from_dict(data["noise"])
+    if "subsurface" in data:
+        out["subsurface"] = SubsurfaceConfig.from_dict(data["subsurface"])
+    return out
 
 
 def _radar_from_dict(data: dict) -> RadarConfig:

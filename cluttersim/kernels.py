@@ -100,6 +100,29 @@ def sigma0_scale(code, cos_inc, p0, p1, values, n):
             values[i] *= _sigma0_gaussian(cos_inc[i], p0, p1)
 
 
+@numba.njit(inline="always", **_JIT)
+def pattern_gain_two_way(params, frame, ux, uy, uz):
+    """Two-way antenna pattern G(û)² toward unit direction û, in a trace's frame (rows: along-track,
+    right, down). ``params`` = (code, dipole axis row, along beamwidth rad, across beamwidth rad,
+    dipole peak directivity); see :mod:`cluttersim.antenna` for the formulas."""
+    code = params[0]
+    if code == 1.0:
+        ax = int(params[1])
+        c = ux * frame[ax, 0] + uy * frame[ax, 1] + uz * frame[ax, 2]
+        s2 = max(1.0 - c * c, 1e-300)
+        g = params[4] * math.cos(0.5 * math.pi * c) ** 2 / s2
+        return g * g
+    if code == 2.0:
+        pa = ux * frame[0, 0] + uy * frame[0, 1] + uz * frame[0, 2]
+        pc = ux * frame[1, 0] + uy * frame[1, 1] + uz * frame[1, 2]
+        pd = ux * frame[2, 0] + uy * frame[2, 1] + uz * frame[2, 2]
+        ta = math.atan2(pa, pd) / params[2]
+        tc = math.atan2(pc, pd) / params[3]
+        g = math.exp(-4.0 * math.log(2.0) * (ta * ta + tc * tc))
+        return g * g
+    return 1.0
+
+
 # --------------------------------------------------------------------------- facets
 
 
@@ -397,7 +420,7 @@ SIDE_OVERSAMPLE = 1
 @numba.njit(parallel=True, fastmath=_FAST, **_JIT)
 def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, traces_per_block,
                      tile_centre, tile_radius, tile_offsets, max_tile, rel, normal, e_col, e_row, area,
-                     law_code, p0, p1, power_const, out, best_facet):  # fmt: skip
+                     law_code, p0, p1, power_const, frames, antenna, out, best_facet):  # fmt: skip
     """Received power per delay bin from every facet, for blocks of traces.
 
     For each facet at range R with local incidence θ (cos θ = −û·n̂) the radar
@@ -405,7 +428,9 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
 
         P = Pt G² λ² σ0(θ) A / ((4π)³ R⁴) = power_const · σ0(θ) A / R⁴
 
-    is spread over the delay its range extent covers
+    (times the two-way antenna pattern toward the facet, :func:`pattern_gain_two_way`,
+    with ``frames[t]`` the trace's along/right/down frame and ``antenna`` the
+    pattern's parameters) is spread over the delay its range extent covers
     (:func:`deposit_trapezoid` on a grid of ``oversample`` sub-bins per bin).
     Facets seen from behind contribute nothing. Tiles whose bounding sphere
     cannot reach a trace's window are skipped whole.
@@ -486,6 +511,14 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     ba[i] = wa
                     bb[i] = wb
                 sigma0_scale(law_code, bc, p0, p1, bp, n)
+                if antenna[0] != 0.0:  # not isotropic: two-way pattern toward each facet
+                    for i in range(n):
+                        f = f0u + np.uint64(i)
+                        vx = cx + rel[0, f]
+                        vy = cy + rel[1, f]
+                        vz = cz + rel[2, f]
+                        inv_r = 1.0 / math.sqrt(vx * vx + vy * vy + vz * vz)
+                        bp[i] *= pattern_gain_two_way(antenna, frames[t], vx * inv_r, vy * inv_r, vz * inv_r)
                 if attribute:
                     rx = right_unit[t, 0]
                     ry = right_unit[t, 1]
@@ -557,7 +590,7 @@ def _window_fraction(x, wa, wb, lo, hi):
 
 @numba.njit(parallel=True, **_JIT)
 def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile_extent, tile_offsets,
-                           rel, normal, e_col, e_row, area, law_code, p0, p1, power_const, out):  # fmt: skip
+                           rel, normal, e_col, e_row, area, law_code, p0, p1, power_const, frames, antenna, out):  # fmt: skip
     """Power each facet sends into a delay window, summed over traces.
 
     For trace t the window is the two-way delays [lo_s[t], hi_s[t]); a facet
@@ -601,4 +634,5 @@ def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile
                 if share <= 0.0:
                     continue
                 s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
-                out[f] += share * power_const * s0 * area[f] / (r2 * r2)
+                g2 = pattern_gain_two_way(antenna, frames[t], vx / r, vy / r, vz / r)
+                out[f] += share * power_const * g2 * s0 * area[f] / (r2 * r2)

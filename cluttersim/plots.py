@@ -26,6 +26,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.patheffects import withStroke
 
+from .overlays import draw_noise_floor, draw_predicted_subsurface
 from .radar import apparent_depth_m, delay_after_surface_s
 
 #: Output resolution of every figure (dots per inch).
@@ -220,6 +221,10 @@ def plot_radargram(
         :func:`cluttersim.radar.apparent_depth_m` of the delay after the
         median nadir delay (see :func:`plot_side_radargram`).
 
+    If ``ds`` has ``noise_power`` its level is marked on the colour bar, and if
+    it has ``predicted_subsurface_delay`` that delay is drawn as a line
+    (:mod:`cluttersim.overlays`).
+
     Returns
     -------
     Path
@@ -245,13 +250,15 @@ def plot_radargram(
     line = _draw_nadir_line(ax, layers, OVERLAY_COLOUR)
     if line is not None:
         handles.append(line)
+    handles += [h for h in (draw_predicted_subsurface(ax, ds, layers),) if h is not None]
     if np.isnan(layers.image_db).all(axis=0).any():
         handles.append(Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data"))
+    colorbar = fig.colorbar(image, ax=ax, label="echo power (dBW)", pad=0.01)
+    handles += [h for h in (draw_noise_floor(colorbar, ds, layers.vmin_db, layers.vmax_db),) if h is not None]
     if handles:
         ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     _label_radargram(ax, layers, title)
     _add_depth_axis(ax, layers, permittivity)
-    fig.colorbar(image, ax=ax, label="echo power (dBW)", pad=0.01)
     return _save_atomic(fig, path)
 
 

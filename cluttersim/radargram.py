@@ -32,6 +32,12 @@ With the source record (the default) also:
 ``first_return_offnadir``  trace           m     its ground distance from nadir
 =========================  ==============  ====  ===========================================
 
+With a ``[noise]`` table, ``noise_power`` (scalar, W): the mean noise power
+k T B F added to every sample (:mod:`cluttersim.noise`). With a ``[subsurface]``
+table, ``predicted_subsurface_delay`` (trace, s, absolute),
+``predicted_subsurface_power`` and ``predicted_surface_power`` (trace, W)
+(:mod:`cluttersim.subsurface`).
+
 Global attributes hold the full radar and surface configuration (flattened as
 ``radar_<key>`` / ``surface_<key>`` and as JSON in ``cluttersim_config``), the
 DEM file name, the body and the package version.

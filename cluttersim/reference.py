@@ -24,12 +24,13 @@ from .constants import SPEED_OF_LIGHT_M_S
 from .scattering import LAWS
 
 
-def reference_binned_power(facets, ant_m, bin0_s, dt_s: float, nbins: int, config) -> np.ndarray:
+def reference_binned_power(facets, ant_m, bin0_s, dt_s: float, nbins: int, config, frames=None) -> np.ndarray:
     """Power per delay bin (ntrace, nbins), W, before the pulse convolution.
 
     Bin k of trace t covers two-way delays [bin0_s[t] + k dt, bin0_s[t] + (k+1) dt).
     ``facets`` is a :class:`cluttersim.facets.Facets`, ``ant_m`` the antenna
-    positions relative to its origin, ``config`` a SimulationConfig.
+    positions relative to its origin, ``config`` a SimulationConfig, ``frames``
+    the traces' along/right/down frames (needed for an antenna pattern).
     """
     radar, surface = config.radar, config.surface
     spec = LAWS[surface.law]
@@ -50,11 +51,24 @@ def reference_binned_power(facets, ant_m, bin0_s, dt_s: float, nbins: int, confi
         front = cos_inc > 0
         r, u, c = r[front], u[front], cos_inc[front]
         p = const * spec.function(c, *params) * area[front] / r**4
+        if config.antenna.pattern != "isotropic":
+            p *= _pattern(config.antenna, frames[t], u) ** 2
         wa = np.abs(np.einsum("ij,ij->i", u, e1[front])) / bin_m
         wb = np.abs(np.einsum("ij,ij->i", u, e2[front])) / bin_m
         x = (2.0 * r / SPEED_OF_LIGHT_M_S - bin0_s[t]) / dt_s
         out[t] = spread_exact(x, wa, wb, p, nbins)
     return out
+
+
+def _pattern(antenna, frame, u):
+    """One-way pattern toward unit directions u (n, 3) in a trace frame (rows along, right, down)."""
+    from .antenna import DIPOLE_AXES, dipole_directivity, gaussian_beam
+
+    if antenna.pattern == "dipole":
+        return dipole_directivity(u @ frame[DIPOLE_AXES[antenna.axis]])
+    along, right, down = u @ frame[0], u @ frame[1], u @ frame[2]
+    return gaussian_beam(np.arctan2(along, down), np.arctan2(right, down),
+                         np.radians(antenna.beamwidth_along_deg), np.radians(antenna.beamwidth_across_deg))  # fmt: skip
 
 
 def spread_exact(x, wa, wb, p, nbins: int) -> np.ndarray:

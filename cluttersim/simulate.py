@@ -32,9 +32,12 @@ from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
+from .noise import add_noise
+from .antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
 from .radar import pulse_limited_radius_m, pulse_power_kernel
 from .radargram import build_dataset, flatten_config_attrs
+from .subsurface import subsurface_variables
 from .track import Track
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
@@ -108,7 +111,10 @@ def simulate(
     Returns
     -------
     xarray.Dataset
-        The radargram (see :mod:`cluttersim.radargram` for the variables).
+        The radargram (see :mod:`cluttersim.radargram` for the variables). With
+        ``config.noise``, seeded noise (:func:`cluttersim.noise.add_noise`) is added
+        to ``power`` after the source record is made; with ``config.subsurface``,
+        the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).
     """
     t_start = time.perf_counter()
     stats = stats if stats is not None else RunStats()
@@ -128,6 +134,7 @@ def simulate(
     bin0 = start - (pad + 0.5) * dt
     ntr = len(track)
     right_unit = right_unit_vectors(body, track)[idx]
+    frames = trace_frames(right_unit, body.up_unit(track.lat_deg, track.lon_deg)[idx])
     strip_m = nadir_strip_m
     if strip_m is None:
         strip_m = pulse_limited_radius_m(np.nan_to_num(track.alt_m - h_nadir)[idx], radar.bandwidth_hz, body.mean_radius_m)
@@ -141,7 +148,8 @@ def simulate(
     with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
         for a in range(0, idx.size, chunk):
             b = min(a + chunk, idx.size)
-            binned, best, n_eval = binned_power(scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b], strip_m[a:b], sources)
+            binned, best, n_eval = binned_power(scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b], strip_m[a:b], sources,
+                                                frames[a:b])  # fmt: skip
             stats.facet_evaluations += n_eval
             total = binned[:, 0]
             rows = idx[a:b]
@@ -166,6 +174,12 @@ def simulate(
         strip_full = np.full(ntr, np.nan)
         strip_full[idx] = strip_m
         extra["nadir_strip_half_width"] = ("trace", strip_full, "m", "cross-track half-width of the nadir strip")
+    if config.noise is not None:  # after the source record: its fractions and first return are of the clutter alone
+        noise_w = config.noise.noise_power_w(radar.bandwidth_hz)
+        power = add_noise(power, noise_w, config.noise.rng())
+        extra["noise_power"] = ((), np.float64(noise_w), "W", "mean receiver noise power per sample, k T B F")
+    if config.subsurface is not None:
+        extra.update(subsurface_variables(config.subsurface, radar, nadir_delay))
     attrs = {
         **flatten_config_attrs(config),
         "dem_file": src.path.name,
@@ -310,17 +324,24 @@ def prepare_scene(
     )  # fmt: skip
 
 
-def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip_half_m=None, sources: bool = False):
+def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip_half_m=None, sources: bool = False,
+                 frames=None):  # fmt: skip
     """Run the compiled kernel for some traces: power per delay bin before the pulse convolution.
 
     ``ant_m`` (n, 3) are antenna positions relative to ``scene.facets.origin_m``
     and bin k of trace t covers [bin0_s[t] + k dt, bin0_s[t] + (k+1) dt).
+    ``frames`` (n, 3, 3) are the traces' along/right/down frames
+    (:func:`cluttersim.antenna.trace_frames`), needed for antenna patterns.
     Returns ``(binned, best_facet, evaluations)``: binned (n, 1 or 3, nbins) W —
     row 0 the total, rows 1 and 2 the left and right shares when ``sources``.
     """
     f = scene.facets
     config = scene.config
     n = len(ant_m)
+    if frames is None:
+        if config.antenna.pattern != "isotropic":
+            raise ValueError("binned_power: an antenna pattern needs the traces' frames")
+        frames = np.zeros((n, 3, 3))
     if right_unit is None:
         right_unit = np.zeros((n, 3))
     if strip_half_m is None:
@@ -334,7 +355,8 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
         config.radar.sample_interval_s, OVERSAMPLE, TRACES_PER_BLOCK,
         f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.max_tile_facets,
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2,
-        config.surface.law_code, p0, p1, config.radar.radar_constant_w_m2(), binned, best,
+        config.surface.law_code, p0, p1, config.radar.radar_constant_w_m2(),
+        np.ascontiguousarray(frames, dtype=np.float64), config.antenna.kernel_params(), binned, best,
     )  # fmt: skip
     return binned, best, n_eval
 

@@ -20,6 +20,7 @@ import xarray as xr
 from tqdm.auto import tqdm
 
 from . import kernels
+from .antenna import trace_frames
 from .attribution import right_unit_vectors
 from .config import SimulationConfig
 from .dem import DemSource
@@ -68,6 +69,12 @@ def load_run(run_dir, dem=None) -> Run:
     return Run(run_dir=run_dir, ds=ds, scene=scene)
 
 
+def _frames(scene: Scene, traces) -> np.ndarray:
+    """Along/right/down frames of some traces (for antenna patterns)."""
+    track, body = scene.track, scene.src.body
+    return trace_frames(right_unit_vectors(body, track)[traces], body.up_unit(track.lat_deg, track.lon_deg)[traces])
+
+
 def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
     """Per-facet power (W) into [lo_s, hi_s) summed over ``traces`` (indices into the track)."""
     f = scene.facets
@@ -78,7 +85,7 @@ def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
         np.ascontiguousarray(scene.ant_m[traces]), np.asarray(lo_s, dtype=np.float64), np.asarray(hi_s, dtype=np.float64),
         scene.config.radar.sample_interval_s, f.tile_centre_m, f.tile_radius_m, f.tile_extent_m, f.tile_offsets,
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, surface.law_code, p0, p1,
-        scene.config.radar.radar_constant_w_m2(), out,
+        scene.config.radar.radar_constant_w_m2(), _frames(scene, traces), scene.config.antenna.kernel_params(), out,
     )  # fmt: skip
     return out
 

@@ -1,0 +1,144 @@
+"""Receiver noise: the noise floor of a radargram (the ``[noise]`` TOML table).
+
+The thermal noise power in a receiver of bandwidth B is ([1]_, [2]_)
+
+    P_n = k T B F
+
+with k the Boltzmann constant, T a noise temperature and F the noise factor.
+Given a noise temperature T (of the whole system), F = 1; given a noise figure
+NF in dB, F = 10^(NF/10) referred to the standard reference temperature
+T0 = 290 K ([2]_). cluttersim's ``power`` is per delay sample with no
+processing gain, and the noise is added on the same footing: P_n is the noise
+power per sample of the received signal before pulse-compression or stacking
+gain.
+
+Single-look power of circular complex Gaussian noise is exponentially
+distributed with mean P_n ([3]_; common practice); the noise added to each
+sample is drawn independently (samples spaced closer than 1/B are in reality
+partly correlated; this is not modelled).
+
+References
+----------
+.. [1] Nyquist, H. (1928). Thermal agitation of electric charge in conductors.
+       Phys. Rev. 32(1), 110–113 (available noise power kTB).
+.. [2] IEEE Std 161 / Friis, H. T. (1944). Noise figures of radio receivers.
+       Proc. IRE 32(7), 419–422 (noise factor F referred to T0 = 290 K).
+.. [3] Goodman, J. W. (1976). Some fundamental properties of speckle.
+       J. Opt. Soc. Am. 66(11), 1145–1150 (exponential intensity statistics).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .constants import BOLTZMANN_J_K
+from .errors import ConfigError
+
+#: Standard reference temperature of a noise figure, K (IEEE; Friis 1944).
+REFERENCE_TEMPERATURE_K = 290.0
+
+
+def noise_power_w(bandwidth_hz: float, temperature_k: float | None = None, noise_figure_db: float | None = None) -> float:
+    """Thermal noise power P_n = k T B F in watts ([1]_, [2]_ of the module).
+
+    Parameters
+    ----------
+    bandwidth_hz : float
+        Receiver (chirp) bandwidth B, Hz.
+    temperature_k : float, optional
+        System noise temperature T, K (then F = 1).
+    noise_figure_db : float, optional
+        Noise figure NF, dB: F = 10^(NF/10) and T = 290 K.
+
+    Exactly one of ``temperature_k`` and ``noise_figure_db`` must be given.
+
+    Examples
+    --------
+    >>> round(noise_power_w(10e6, temperature_k=290.0) * 1e14, 3)  # kTB at 290 K, 10 MHz
+    4.004
+    """
+    if (temperature_k is None) == (noise_figure_db is None):
+        raise ValueError("noise_power_w: expected exactly one of temperature_k and noise_figure_db")
+    if not (math.isfinite(bandwidth_hz) and bandwidth_hz > 0):
+        raise ValueError(f"bandwidth_hz = {bandwidth_hz!r}: expected a positive number")
+    if temperature_k is not None:
+        if not (math.isfinite(temperature_k) and temperature_k > 0):
+            raise ValueError(f"temperature_k = {temperature_k!r}: expected a positive temperature in K")
+        return BOLTZMANN_J_K * temperature_k * bandwidth_hz
+    if not math.isfinite(noise_figure_db):
+        raise ValueError(f"noise_figure_db = {noise_figure_db!r}: expected a finite number of dB")
+    return BOLTZMANN_J_K * REFERENCE_TEMPERATURE_K * bandwidth_hz * 10.0 ** (noise_figure_db / 10.0)
+
+
+def add_noise(power_w, noise_power_w_: float, rng: np.random.Generator) -> np.ndarray:
+    """Echo power plus single-look noise power drawn from an exponential law of mean P_n.
+
+    P'(i) = P(i) + P_n · E(i),  E(i) ~ Exp(1) independent per sample ([3]_ of the
+    module). NaN samples stay NaN. Returns a new array of ``power_w``'s float dtype
+    (float32 in, float32 out); ``power_w`` is not modified.
+    """
+    power = np.asarray(power_w)
+    dtype = power.dtype if power.dtype in (np.float32, np.float64) else np.dtype(np.float64)
+    noise = rng.standard_exponential(size=power.shape, dtype=dtype)
+    noise *= dtype.type(noise_power_w_)
+    return power.astype(dtype, copy=False) + noise
+
+
+@dataclass(frozen=True)
+class NoiseConfig:
+    """The ``[noise]`` table: a noise temperature *or* a noise figure, and a seed.
+
+    ``noise_temperature_k`` T (K, F = 1) or ``noise_figure_db`` NF (dB, T = 290 K);
+    ``seed`` (integer ≥ 0, default 0) seeds the noise so a run is reproducible.
+    """
+
+    noise_temperature_k: float | None = None
+    noise_figure_db: float | None = None
+    seed: int = 0
+
+    def __post_init__(self):
+        if (self.noise_temperature_k is None) == (self.noise_figure_db is None):
+            raise ConfigError("[noise] expected exactly one of noise_temperature_k and noise_figure_db")
+        t = self.noise_temperature_k
+        if t is not None and not (math.isfinite(t) and t > 0):
+            raise ConfigError(f"[noise] noise_temperature_k = {t!r}: expected a positive temperature in K")
+        nf = self.noise_figure_db
+        if nf is not None and not (math.isfinite(nf) and 0.0 <= nf <= 100.0):
+            raise ConfigError(f"[noise] noise_figure_db = {nf!r}: expected a noise figure between 0 and 100 dB")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
+            raise ConfigError(f"[noise] seed = {self.seed!r}: expected an integer >= 0")
+
+    @classmethod
+    def from_dict(cls, data) -> "NoiseConfig":
+        """Build from the parsed ``[noise]`` table, rejecting unknown keys by name."""
+        if not isinstance(data, dict):
+            raise ConfigError("[noise] must be a table")
+        names = ("noise_temperature_k", "noise_figure_db", "seed")
+        kwargs = {}
+        for key, value in data.items():
+            if key not in names:
+                raise ConfigError(f"[noise] unknown key {key!r}: expected one of {', '.join(names)}")
+            if key == "seed":
+                if isinstance(value, float) and value.is_integer():
+                    value = int(value)
+            elif isinstance(value, bool) or not isinstance(value, (int, float)):
+                raise ConfigError(f"[noise] {key} = {value!r}: expected a number")
+            else:
+                value = float(value)
+            kwargs[key] = value
+        return cls(**kwargs)
+
+    def noise_power_w(self, bandwidth_hz: float) -> float:
+        """P_n = k T B F (W) for this table and the radar's bandwidth (:func:`noise_power_w`)."""
+        return noise_power_w(bandwidth_hz, self.noise_temperature_k, self.noise_figure_db)
+
+    def rng(self) -> np.random.Generator:
+        """A fresh generator seeded with ``seed`` (NumPy PCG64)."""
+        return np.random.default_rng(self.seed)
+
+    def to_dict(self) -> dict:
+        return {k: v for k, v in (("noise_temperature_k", self.noise_temperature_k),
+                                  ("noise_figure_db", self.noise_figure_db), ("seed", self.seed)) if v is not None}
