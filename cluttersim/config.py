@@ -20,7 +20,10 @@ from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
 
+import numpy as np
+
 from .antenna import AntennaConfig
+from .aperture import ProcessingConfig
 from .errors import ConfigError
 from .noise import NoiseConfig
 from .radar import RadarConfig
@@ -85,8 +88,13 @@ class SimulationConfig:
     radar: RadarConfig = field(default_factory=RadarConfig)
     surface: SurfaceConfig = field(default_factory=SurfaceConfig)
     antenna: AntennaConfig = field(default_factory=AntennaConfig)
+    processing: ProcessingConfig = field(default_factory=ProcessingConfig)  # [processing]: along-track aperture
     noise: NoiseConfig | None = None  # [noise]: receiver noise floor (cluttersim.noise)
     subsurface: SubsurfaceConfig | None = None  # [subsurface]: predicted interface echo (cluttersim.subsurface)
+
+    def kernel_weighting(self) -> np.ndarray:
+        """Parameters of the kernel's per-facet direction weight: antenna pattern, then aperture."""
+        return np.concatenate([self.antenna.kernel_params(), self.processing.kernel_params(self.radar.wavelength_m)])
 
     @classmethod
     def from_toml(cls, path) -> "SimulationConfig":
@@ -113,19 +121,23 @@ class SimulationConfig:
         if not isinstance(data, dict):
             raise ConfigError("expected a table with [radar] and [surface]")
         for table in data:
-            if table not in ("radar", "surface", "antenna", "noise", "subsurface"):
-                raise ConfigError(f"unknown table [{table}]: expected [radar], [surface], [antenna], [noise] and [subsurface]")
+            if table not in ("radar", "surface", "antenna", "processing", "noise", "subsurface"):
+                raise ConfigError(
+                    f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise] and [subsurface]"
+                )
         radar_data = data.get("radar", {})
         surface_data = data.get("surface", {})
         if not isinstance(radar_data, dict) or not isinstance(surface_data, dict):
             raise ConfigError("[radar] and [surface] must be tables")
         surface_data = dict(surface_data)
         antenna = AntennaConfig.from_dict(data.get("antenna", {}))
+        processing = ProcessingConfig.from_dict(data.get("processing", {}))
         return cls(radar=_radar_from_dict(radar_data), surface=_surface_from_dict(surface_data), antenna=antenna,
-                   **_optional_tables(data))
+                   processing=processing, **_optional_tables(data))  # fmt: skip
 
     def to_dict(self) -> dict:
         return {"radar": self.radar.to_dict(), "surface": self.surface.to_dict(), "antenna": self.antenna.to_dict(),
+                "processing": self.processing.to_dict(),
                 **{k: v.to_dict() for k, v in (("noise", self.noise), ("subsurface", self.subsurface)) if v is not None}}
 
 

@@ -123,6 +123,30 @@ def pattern_gain_two_way(params, frame, ux, uy, uz):
     return 1.0
 
 
+@numba.njit(inline="always", **_JIT)
+def direction_weight(params, frame, vx, vy, vz, inv_r):
+    """Weight of a facet at offset v from the antenna: the two-way antenna pattern
+    (:func:`pattern_gain_two_way`, params[0:5]) times the along-track processing weight
+    (params[5:8] = aperture code, aperture length, wavelength; :mod:`cluttersim.aperture`)."""
+    ux = vx * inv_r
+    uy = vy * inv_r
+    uz = vz * inv_r
+    w = pattern_gain_two_way(params, frame, ux, uy, uz)
+    code = params[5]
+    if code != 0.0:
+        y = vx * frame[0, 0] + vy * frame[0, 1] + vz * frame[0, 2]  # along-track offset, m
+        r = 1.0 / inv_r
+        if code == 1.0:
+            if y * y > 0.5 * params[7] * r:  # outside the first Fresnel zone, |y| > √(λR/2)
+                w = 0.0
+        else:
+            x = math.pi * y * 2.0 * params[6] / (params[7] * r)  # π y / δ, δ = λR/(2L)
+            if x != 0.0:
+                sx = math.sin(x) / x
+                w *= sx * sx
+    return w
+
+
 # --------------------------------------------------------------------------- facets
 
 
@@ -428,9 +452,10 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
 
         P = Pt G² λ² σ0(θ) A / ((4π)³ R⁴) = power_const · σ0(θ) A / R⁴
 
-    (times the two-way antenna pattern toward the facet, :func:`pattern_gain_two_way`,
-    with ``frames[t]`` the trace's along/right/down frame and ``antenna`` the
-    pattern's parameters) is spread over the delay its range extent covers
+    (times the two-way antenna pattern and the along-track processing weight,
+    :func:`direction_weight`, with ``frames[t]`` the trace's along/right/down
+    frame and ``antenna`` their parameters) is spread over the delay its range
+    extent covers
     (:func:`deposit_trapezoid` on a grid of ``oversample`` sub-bins per bin).
     Facets seen from behind contribute nothing. Tiles whose bounding sphere
     cannot reach a trace's window are skipped whole.
@@ -511,14 +536,14 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     ba[i] = wa
                     bb[i] = wb
                 sigma0_scale(law_code, bc, p0, p1, bp, n)
-                if antenna[0] != 0.0:  # not isotropic: two-way pattern toward each facet
+                if antenna[0] != 0.0 or antenna[5] != 0.0:  # an antenna pattern or along-track processing
                     for i in range(n):
                         f = f0u + np.uint64(i)
                         vx = cx + rel[0, f]
                         vy = cy + rel[1, f]
                         vz = cz + rel[2, f]
                         inv_r = 1.0 / math.sqrt(vx * vx + vy * vy + vz * vz)
-                        bp[i] *= pattern_gain_two_way(antenna, frames[t], vx * inv_r, vy * inv_r, vz * inv_r)
+                        bp[i] *= direction_weight(antenna, frames[t], vx, vy, vz, inv_r)
                 if attribute:
                     rx = right_unit[t, 0]
                     ry = right_unit[t, 1]
@@ -634,5 +659,5 @@ def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile
                 if share <= 0.0:
                     continue
                 s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
-                g2 = pattern_gain_two_way(antenna, frames[t], vx / r, vy / r, vz / r)
+                g2 = direction_weight(antenna, frames[t], vx, vy, vz, 1.0 / r)
                 out[f] += share * power_const * g2 * s0 * area[f] / (r2 * r2)

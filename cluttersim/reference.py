@@ -53,6 +53,12 @@ def reference_binned_power(facets, ant_m, bin0_s, dt_s: float, nbins: int, confi
         p = const * spec.function(c, *params) * area[front] / r**4
         if config.antenna.pattern != "isotropic":
             p *= _pattern(config.antenna, frames[t], u) ** 2
+        if config.processing.aperture != "none":
+            from .aperture import along_track_weight
+
+            along = (v[front] @ frames[t][0])
+            p *= along_track_weight(along, r, radar.wavelength_m, config.processing.aperture,
+                                    config.processing.aperture_length_m)  # fmt: skip
         wa = np.abs(np.einsum("ij,ij->i", u, e1[front])) / bin_m
         wb = np.abs(np.einsum("ij,ij->i", u, e2[front])) / bin_m
         x = (2.0 * r / SPEED_OF_LIGHT_M_S - bin0_s[t]) / dt_s

@@ -339,8 +339,8 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
     config = scene.config
     n = len(ant_m)
     if frames is None:
-        if config.antenna.pattern != "isotropic":
-            raise ValueError("binned_power: an antenna pattern needs the traces' frames")
+        if config.antenna.pattern != "isotropic" or config.processing.aperture != "none":
+            raise ValueError("binned_power: an antenna pattern or aperture needs the traces' frames")
         frames = np.zeros((n, 3, 3))
     if right_unit is None:
         right_unit = np.zeros((n, 3))
@@ -356,7 +356,7 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
         f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.max_tile_facets,
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2,
         config.surface.law_code, p0, p1, config.radar.radar_constant_w_m2(),
-        np.ascontiguousarray(frames, dtype=np.float64), config.antenna.kernel_params(), binned, best,
+        np.ascontiguousarray(frames, dtype=np.float64), config.kernel_weighting(), binned, best,
     )  # fmt: skip
     return binned, best, n_eval
 

@@ -85,7 +85,7 @@ def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
         np.ascontiguousarray(scene.ant_m[traces]), np.asarray(lo_s, dtype=np.float64), np.asarray(hi_s, dtype=np.float64),
         scene.config.radar.sample_interval_s, f.tile_centre_m, f.tile_radius_m, f.tile_extent_m, f.tile_offsets,
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, surface.law_code, p0, p1,
-        scene.config.radar.radar_constant_w_m2(), _frames(scene, traces), scene.config.antenna.kernel_params(), out,
+        scene.config.radar.radar_constant_w_m2(), _frames(scene, traces), scene.config.kernel_weighting(), out,
     )  # fmt: skip
     return out
 
