@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+
 import click
 
 from cluttersim.products import simulate_to_dir
@@ -27,13 +29,15 @@ from .options import (
               help="Override [antenna] axis (dipole).")
 @click.option("--beamwidth-deg", nargs=2, type=float, default=None, metavar="ALONG ACROSS",
               help="Override the Gaussian beam's 3 dB beamwidths, degrees.")
+@click.option("--shadowing/--no-shadowing", default=None,
+              help="Line-of-sight shadowing by the terrain (overrides [processing] shadowing).")
 @permittivity_option
 @max_memory_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 antenna_pattern, antenna_axis, beamwidth_deg, permittivity, max_memory, out_dir, overwrite,
+                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, permittivity, max_memory, out_dir, overwrite,
                  quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
@@ -48,6 +52,8 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
       cluttersim simulate --dem site.tif --track pass.csv --radar radar.toml --out run1
     """
     config = with_antenna(load_config(radar_path), antenna_pattern, antenna_axis, beamwidth_deg)
+    if shadowing is not None:
+        config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, shadowing=shadowing))
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
         sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,

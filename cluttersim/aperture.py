@@ -53,10 +53,12 @@ def along_track_weight(along_m, range_m, wavelength_m, aperture: str, aperture_l
 
 @dataclass(frozen=True)
 class ProcessingConfig:
-    """The ``[processing]`` table: ``aperture`` and, when focused, ``aperture_length_m``."""
+    """The ``[processing]`` table: ``aperture`` and, when focused, ``aperture_length_m``;
+    ``shadowing`` turns on line-of-sight shadowing (:func:`cluttersim.kernels.hidden_from_antenna`)."""
 
     aperture: str = "none"
     aperture_length_m: float = 0.0
+    shadowing: bool = False
 
     def __post_init__(self):
         if self.aperture not in APERTURES:
@@ -64,6 +66,8 @@ class ProcessingConfig:
         length = self.aperture_length_m
         if isinstance(length, bool) or not isinstance(length, (int, float)) or not math.isfinite(length) or length < 0:
             raise ConfigError(f"[processing] aperture_length_m = {length!r}: expected a length >= 0 in metres")
+        if not isinstance(self.shadowing, bool):
+            raise ConfigError(f"[processing] shadowing = {self.shadowing!r}: expected true or false")
         if self.aperture == "focused" and not length > 0:
             raise ConfigError("[processing] aperture = 'focused' needs aperture_length_m > 0 (the processed aperture)")
 

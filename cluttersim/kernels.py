@@ -147,6 +147,52 @@ def direction_weight(params, frame, vx, vy, vz, inv_r):
     return w
 
 
+@numba.njit(inline="always", **_JIT)
+def _bilinear(heights, r, c):
+    ny, nx = heights.shape
+    r = min(max(r, 0.0), ny - 1.0)
+    c = min(max(c, 0.0), nx - 1.0)
+    r0 = min(int(r), ny - 2) if ny > 1 else 0
+    c0 = min(int(c), nx - 2) if nx > 1 else 0
+    fr = r - r0
+    fc = c - c0
+    r1 = min(r0 + 1, ny - 1)
+    c1 = min(c0 + 1, nx - 1)
+    return ((1 - fr) * ((1 - fc) * heights[r0, c0] + fc * heights[r0, c1])
+            + fr * ((1 - fc) * heights[r1, c0] + fc * heights[r1, c1]))  # fmt: skip
+
+
+@numba.njit(**_JIT)
+def hidden_from_antenna(heights, row, col, h_facet, row_a, col_a, h_ant, h_max):
+    """True when terrain hides a facet from the antenna (line-of-sight shadowing).
+
+    Marches one cell at a time along the straight line, in the DEM grid, from the
+    facet's cell (row, col; height ``h_facet``) toward the antenna's nadir
+    (row_a, col_a; antenna height ``h_ant``), comparing the bilinear terrain
+    height with the height of the line of sight; stops as soon as the line
+    rises above the highest terrain (``h_max``). Heights are above the
+    reference surface; the body's curvature over the march is neglected
+    (a drop of x²/2R: 0.3 m after 1 km on Mars), so the test is meant for the
+    short marches of a line of sight that climbs steeply to an orbiter, or for
+    local airborne geometry.
+    """
+    dr = row_a - row
+    dc = col_a - col
+    dist = math.sqrt(dr * dr + dc * dc)
+    if dist < 1.0:
+        return False
+    k = 1.0
+    while k < dist:
+        frac = k / dist
+        h_ray = h_facet + (h_ant - h_facet) * frac
+        if h_ray > h_max:
+            return False
+        if _bilinear(heights, row + dr * frac, col + dc * frac) > h_ray:
+            return True
+        k += 1.0
+    return False
+
+
 # --------------------------------------------------------------------------- facets
 
 
@@ -444,7 +490,8 @@ SIDE_OVERSAMPLE = 1
 @numba.njit(parallel=True, fastmath=_FAST, **_JIT)
 def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, traces_per_block,
                      tile_centre, tile_radius, tile_offsets, max_tile, rel, normal, e_col, e_row, area,
-                     law_code, p0, p1, power_const, frames, antenna, out, best_facet):  # fmt: skip
+                     law_code, p0, p1, power_const, frames, antenna, shadow_heights, facet_cell, nadir_rc, ant_h,
+                     h_max, out, best_facet):  # fmt: skip
     """Received power per delay bin from every facet, for blocks of traces.
 
     For each facet at range R with local incidence θ (cos θ = −û·n̂) the radar
@@ -454,8 +501,9 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
 
     (times the two-way antenna pattern and the along-track processing weight,
     :func:`direction_weight`, with ``frames[t]`` the trace's along/right/down
-    frame and ``antenna`` their parameters) is spread over the delay its range
-    extent covers
+    frame and ``antenna`` their parameters; zero when terrain hides the facet
+    and ``shadow_heights`` is the DEM window, :func:`hidden_from_antenna`) is
+    spread over the delay its range extent covers
     (:func:`deposit_trapezoid` on a grid of ``oversample`` sub-bins per bin).
     Facets seen from behind contribute nothing. Tiles whose bounding sphere
     cannot reach a trace's window are skipped whole.
@@ -478,6 +526,8 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
     nt = ant.shape[0]
+    shadowing = shadow_heights.shape[0] > 1
+    grid_nx = shadow_heights.shape[1]
     nside = out.shape[1]
     nb = out.shape[2]
     nsub = nb * oversample
@@ -544,6 +594,15 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                         vz = cz + rel[2, f]
                         inv_r = 1.0 / math.sqrt(vx * vx + vy * vy + vz * vz)
                         bp[i] *= direction_weight(antenna, frames[t], vx, vy, vz, inv_r)
+                if shadowing:
+                    for i in range(n):
+                        if bp[i] > 0.0:
+                            cell = facet_cell[f0 + i]
+                            rr = cell // grid_nx
+                            cc = cell - rr * grid_nx
+                            if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
+                                                   nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max):  # fmt: skip
+                                bp[i] = 0.0
                 if attribute:
                     rx = right_unit[t, 0]
                     ry = right_unit[t, 1]
@@ -615,7 +674,8 @@ def _window_fraction(x, wa, wb, lo, hi):
 
 @numba.njit(parallel=True, **_JIT)
 def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile_extent, tile_offsets,
-                           rel, normal, e_col, e_row, area, law_code, p0, p1, power_const, frames, antenna, out):  # fmt: skip
+                           rel, normal, e_col, e_row, area, law_code, p0, p1, power_const, frames, antenna,
+                           shadow_heights, facet_cell, nadir_rc, ant_h, h_max, out):  # fmt: skip
     """Power each facet sends into a delay window, summed over traces.
 
     For trace t the window is the two-way delays [lo_s[t], hi_s[t]); a facet
@@ -658,6 +718,13 @@ def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile
                 share = _window_fraction(r * inv_bin_m, wa, wb, lo, hi)
                 if share <= 0.0:
                     continue
+                if shadow_heights.shape[0] > 1:
+                    cell = facet_cell[f]
+                    rr = cell // shadow_heights.shape[1]
+                    cc = cell - rr * shadow_heights.shape[1]
+                    if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
+                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max):  # fmt: skip
+                        continue
                 s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
                 g2 = direction_weight(antenna, frames[t], vx, vy, vz, 1.0 / r)
                 out[f] += share * power_const * g2 * s0 * area[f] / (r2 * r2)

@@ -108,6 +108,8 @@ def flatten_config_attrs(config) -> dict:
     attrs = {"cluttersim_config": json.dumps(d)}
     for table, values in d.items():
         for key, value in values.items():
+            if isinstance(value, bool):  # netCDF has no boolean attributes
+                value = int(value)
             attrs[f"{table}_{key}"] = value if isinstance(value, (int, float, str)) else str(value)
     return attrs
 

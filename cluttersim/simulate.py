@@ -149,7 +149,7 @@ def simulate(
         for a in range(0, idx.size, chunk):
             b = min(a + chunk, idx.size)
             binned, best, n_eval = binned_power(scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b], strip_m[a:b], sources,
-                                                frames[a:b])  # fmt: skip
+                                                frames[a:b], idx[a:b])  # fmt: skip
             stats.facet_evaluations += n_eval
             total = binned[:, 0]
             rows = idx[a:b]
@@ -324,14 +324,30 @@ def prepare_scene(
     )  # fmt: skip
 
 
+def shadow_inputs(scene: Scene, traces):
+    """Kernel inputs for line-of-sight shadowing of some traces (indices into the track):
+    (window heights, facet cells, nadir (row, col) in the window, antenna heights, highest
+    terrain); small dummies when ``[processing] shadowing`` is off."""
+    n = len(traces)
+    if not scene.config.processing.shadowing:
+        return np.zeros((1, 1), np.float32), scene.facets.cell[:1], np.zeros((n, 2)), np.zeros(n), 0.0
+    elev = scene.window.elevation_m
+    heights = np.where(np.isfinite(elev), elev, np.nanmin(elev)).astype(np.float32)  # holes never block
+    x, y = scene.src.lonlat_to_xy(scene.track.lon_deg[traces], scene.track.lat_deg[traces])
+    col, row = ~scene.window.transform @ (np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+    nadir_rc = np.column_stack([np.asarray(row) - 0.5, np.asarray(col) - 0.5])
+    return heights, scene.facets.cell, nadir_rc, scene.track.alt_m[traces].astype(np.float64), float(heights.max())
+
+
 def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip_half_m=None, sources: bool = False,
-                 frames=None):  # fmt: skip
+                 frames=None, traces=None):  # fmt: skip
     """Run the compiled kernel for some traces: power per delay bin before the pulse convolution.
 
     ``ant_m`` (n, 3) are antenna positions relative to ``scene.facets.origin_m``
     and bin k of trace t covers [bin0_s[t] + k dt, bin0_s[t] + (k+1) dt).
     ``frames`` (n, 3, 3) are the traces' along/right/down frames
-    (:func:`cluttersim.antenna.trace_frames`), needed for antenna patterns.
+    (:func:`cluttersim.antenna.trace_frames`), needed for antenna patterns and
+    apertures; ``traces`` their indices in the track, needed for shadowing.
     Returns ``(binned, best_facet, evaluations)``: binned (n, 1 or 3, nbins) W —
     row 0 the total, rows 1 and 2 the left and right shares when ``sources``.
     """
@@ -346,6 +362,9 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
         right_unit = np.zeros((n, 3))
     if strip_half_m is None:
         strip_half_m = np.zeros(n)
+    if traces is None and config.processing.shadowing:
+        raise ValueError("binned_power: shadowing needs the traces' indices")
+    shadow = shadow_inputs(scene, np.arange(n) if traces is None else np.asarray(traces))
     binned = np.zeros((n, 3 if sources else 1, nbins))
     best = np.full((n, nbins) if sources else (0, 0), -1, dtype=np.int32)
     p0, p1 = config.surface.kernel_params()
@@ -356,7 +375,7 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
         f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.max_tile_facets,
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2,
         config.surface.law_code, p0, p1, config.radar.radar_constant_w_m2(),
-        np.ascontiguousarray(frames, dtype=np.float64), config.kernel_weighting(), binned, best,
+        np.ascontiguousarray(frames, dtype=np.float64), config.kernel_weighting(), *shadow, binned, best,
     )  # fmt: skip
     return binned, best, n_eval
 

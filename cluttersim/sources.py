@@ -27,7 +27,7 @@ from .dem import DemSource
 from .errors import ClutterSimError, ConfigError
 from .radar import delay_after_surface_s
 from .radargram import open_radargram
-from .simulate import Scene, prepare_scene
+from .simulate import Scene, prepare_scene, shadow_inputs
 from .track import Track
 
 
@@ -85,7 +85,8 @@ def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
         np.ascontiguousarray(scene.ant_m[traces]), np.asarray(lo_s, dtype=np.float64), np.asarray(hi_s, dtype=np.float64),
         scene.config.radar.sample_interval_s, f.tile_centre_m, f.tile_radius_m, f.tile_extent_m, f.tile_offsets,
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, surface.law_code, p0, p1,
-        scene.config.radar.radar_constant_w_m2(), _frames(scene, traces), scene.config.kernel_weighting(), out,
+        scene.config.radar.radar_constant_w_m2(), _frames(scene, traces), scene.config.kernel_weighting(),
+        *shadow_inputs(scene, traces), out,
     )  # fmt: skip
     return out
 
