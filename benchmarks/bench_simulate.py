@@ -73,8 +73,9 @@ def synthetic_dem(path: Path, n: int, res_deg: float, seed: int = 42) -> Path:
     return path
 
 
-def case_inputs(name: str):
+def case_inputs(name: str, shadowing: bool = False):
     from cluttersim import Body, SimulationConfig, great_circle_track
+    from cluttersim.aperture import ProcessingConfig
     from cluttersim.config import SurfaceConfig
     from cluttersim.radar import RadarConfig
 
@@ -87,17 +88,18 @@ def case_inputs(name: str):
     half = n * res / 2
     length_m = np.radians(1.6 * half) * MARS_RADIUS_M
     track = great_circle_track(body, -0.8 * half, 0.0, 0.8 * half, 0.0, 300e3, length_m / (ntraces - 1) * 0.9999)
-    cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}))
+    cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}),
+                           processing=ProcessingConfig(shadowing=shadowing))  # fmt: skip
     return dem, track, cfg
 
 
-def worker_case(name: str, sources: bool, repeat: int) -> dict:
+def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False) -> dict:
     import numba
 
     from cluttersim.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
-    dem, track, cfg = case_inputs(name)
+    dem, track, cfg = case_inputs(name, shadowing)
     runs = []
     with tempfile.TemporaryDirectory() as tmp:
         for i in range(repeat + 1):
@@ -113,6 +115,7 @@ def worker_case(name: str, sources: bool, repeat: int) -> dict:
     return {
         "case": name,
         "sources": sources,
+        "shadowing": shadowing,
         "traces": len(track),
         "samples": cfg.radar.samples,
         "dem_cells": CASES[name][0] ** 2,
@@ -213,6 +216,7 @@ def main(argv=None) -> int:
     ap.add_argument("--repeat", type=int, default=3, help="warm runs per case (median reported)")
     ap.add_argument("--worker", help=argparse.SUPPRESS)
     ap.add_argument("--sources", type=int, default=1, help=argparse.SUPPRESS)
+    ap.add_argument("--shadowing", type=int, default=0, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.worker:
         if args.worker == "reference":
@@ -220,7 +224,7 @@ def main(argv=None) -> int:
         elif args.worker == "startup":
             result = worker_startup()
         else:
-            result = worker_case(args.worker, bool(args.sources), args.repeat)
+            result = worker_case(args.worker, bool(args.sources), args.repeat, bool(args.shadowing))
         print(json.dumps(result))
         return 0
 
@@ -228,11 +232,14 @@ def main(argv=None) -> int:
     print(f"machine: {machine['cpu']}, {machine['cores']} cores")
     report = {"machine": machine, "cases": [], "time": time.strftime("%Y-%m-%dT%H:%M:%S")}
     for name in args.case or ["small", "medium"]:
-        for sources in (0, 1):
-            r = run_worker(["--worker", name, "--sources", str(sources), "--repeat", str(args.repeat)])
+        variants = [(0, 0), (1, 0)] + ([(0, 1)] if name == "small" else [])  # (sources, shadowing)
+        for sources, shadowing in variants:
+            r = run_worker(["--worker", name, "--sources", str(sources), "--shadowing", str(shadowing),
+                            "--repeat", str(args.repeat)])  # fmt: skip
             report["cases"].append(r)
             print(
-                f"{name:>7} sources={'on ' if sources else 'off'}: {r['traces']} traces x {r['samples']} samples, "
+                f"{name:>7} sources={'on ' if sources else 'off'}{' shadowing' if shadowing else ''}: "
+                f"{r['traces']} traces x {r['samples']} samples, "
                 f"window {r['dem_window'][0]}x{r['dem_window'][1]} cells | wall {r['median_wall_s']:.2f} s "
                 f"(kernel {r['median_kernel_s']:.2f} s, facets {r['median_facets_s']:.2f} s; first run {r['first_run_s']:.2f} s) | "
                 f"{r['facet_evals_per_s'] / 1e6:.0f} M facet-evals/s ({r['facet_evals_per_s_per_core'] / 1e6:.0f} M/s per thread) | "
