@@ -54,11 +54,17 @@ def along_track_weight(along_m, range_m, wavelength_m, aperture: str, aperture_l
 @dataclass(frozen=True)
 class ProcessingConfig:
     """The ``[processing]`` table: ``aperture`` and, when focused, ``aperture_length_m``;
-    ``shadowing`` turns on line-of-sight shadowing (:func:`cluttersim.kernels.hidden_from_antenna`)."""
+    ``shadowing`` turns on line-of-sight shadowing (:func:`cluttersim.kernels.hidden_from_antenna`);
+    ``mode = "coherent"`` sums facet echoes with their phase
+    (:func:`cluttersim.kernels.accumulate_complex`), with a random phase per facet
+    (``random_phase``, reproducible from ``seed``)."""
 
     aperture: str = "none"
     aperture_length_m: float = 0.0
     shadowing: bool = False
+    mode: str = "incoherent"
+    random_phase: bool = True
+    seed: int = 0
 
     def __post_init__(self):
         if self.aperture not in APERTURES:
@@ -66,6 +72,12 @@ class ProcessingConfig:
         length = self.aperture_length_m
         if isinstance(length, bool) or not isinstance(length, (int, float)) or not math.isfinite(length) or length < 0:
             raise ConfigError(f"[processing] aperture_length_m = {length!r}: expected a length >= 0 in metres")
+        if self.mode not in ("incoherent", "coherent"):
+            raise ConfigError(f"[processing] mode = {self.mode!r}: expected \"incoherent\" or \"coherent\"")
+        if not isinstance(self.random_phase, bool):
+            raise ConfigError(f"[processing] random_phase = {self.random_phase!r}: expected true or false")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or not 0 <= self.seed < 2**63:
+            raise ConfigError(f"[processing] seed = {self.seed!r}: expected an integer >= 0")
         if not isinstance(self.shadowing, bool):
             raise ConfigError(f"[processing] shadowing = {self.shadowing!r}: expected true or false")
         if self.aperture == "focused" and not length > 0:
@@ -79,8 +91,8 @@ class ProcessingConfig:
         for key, value in data.items():
             if key not in names:
                 raise ConfigError(f"[processing] unknown key {key!r}: expected one of {', '.join(names)}")
-            if key == "aperture" and not isinstance(value, str):
-                raise ConfigError(f"[processing] aperture = {value!r}: expected a string")
+            if key in ("aperture", "mode") and not isinstance(value, str):
+                raise ConfigError(f"[processing] {key} = {value!r}: expected a string")
         return cls(**data)
 
     def kernel_params(self, wavelength_m: float) -> np.ndarray:

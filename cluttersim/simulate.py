@@ -35,7 +35,7 @@ from .facets import Facets, build_facets
 from .noise import add_noise
 from .antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
-from .radar import pulse_limited_radius_m, pulse_power_kernel
+from .radar import compressed_pulse_amplitude, pulse_limited_radius_m, pulse_power_kernel
 from .radargram import build_dataset, flatten_config_attrs
 from .subsurface import subsurface_variables
 from .track import Track
@@ -141,6 +141,8 @@ def simulate(
     strip_m = np.broadcast_to(np.asarray(strip_m, dtype=np.float64), (idx.size,)).copy()
     mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
 
+    coherent = config.processing.mode == "coherent"
+    sources = sources and not coherent  # the source record is an incoherent-mode product
     power = np.full((ntr, radar.samples), np.nan, dtype=np.float32)
     record = SourceRecord.empty(ntr, radar.samples) if sources else None
     chunk = max(4 * TRACES_PER_BLOCK * numba.get_num_threads(), min(256, idx.size // 50 or 1))
@@ -148,11 +150,17 @@ def simulate(
     with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
         for a in range(0, idx.size, chunk):
             b = min(a + chunk, idx.size)
+            rows = idx[a:b]
+            if coherent:
+                detected, n_eval = coherent_power(scene, ant_on[a:b], bin0[a:b], nbins, frames[a:b], rows)
+                stats.facet_evaluations += n_eval
+                power[rows] = detected[:, pad : pad + radar.samples]
+                bar.update(b - a)
+                continue
             binned, best, n_eval = binned_power(scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b], strip_m[a:b], sources,
-                                                frames[a:b], idx[a:b])  # fmt: skip
+                                                frames[a:b], rows)  # fmt: skip
             stats.facet_evaluations += n_eval
             total = binned[:, 0]
-            rows = idx[a:b]
             compressed = _compress(total, kernel_weights, pad, radar.samples)
             power[rows] = compressed
             if sources:
@@ -378,6 +386,51 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
         np.ascontiguousarray(frames, dtype=np.float64), config.kernel_weighting(), *shadow, binned, best,
     )  # fmt: skip
     return binned, best, n_eval
+
+
+#: Grid points per sample on which coherent mode lays its complex impulses.
+COHERENT_OVERSAMPLE = 8
+
+
+def pulse_amplitude_grid(radar, oversample: int) -> np.ndarray:
+    """Compressed-pulse amplitude h sampled every dt/oversample, normalised so that the
+    energy over samples, Σ_k |g(k dt)|², is 1 (then the mean coherent power of
+    random-phase facets equals the incoherent power)."""
+    offsets, _ = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
+    half = int(offsets[-1])
+    j = np.arange(-half * oversample, half * oversample + 1)
+    h = compressed_pulse_amplitude(j * radar.sample_interval_s / oversample, radar.bandwidth_hz, radar.range_window)
+    return h / np.sqrt(np.sum(h[::oversample] ** 2))
+
+
+def detect_coherent(re, im, radar, oversample: int, nbins: int) -> np.ndarray:
+    """Range-compress complex impulse rows (n, nbins·oversample) and return power per sample
+    (n, nbins): |(impulses ⊛ g)(t_k)|² at the sample centres."""
+    from scipy.signal import fftconvolve
+
+    g = pulse_amplitude_grid(radar, oversample)
+    signal = fftconvolve(re + 1j * im, g[None, :], mode="same", axes=1)
+    return np.abs(signal[:, oversample // 2 :: oversample][:, :nbins]) ** 2
+
+
+def coherent_power(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
+    """Coherent mode for some traces: power per (padded) sample and the number of facet evaluations."""
+    f = scene.facets
+    config = scene.config
+    radar, proc = config.radar, config.processing
+    k = COHERENT_OVERSAMPLE
+    n = len(ant_m)
+    re = np.zeros((n, nbins * k + 2))
+    im = np.zeros((n, nbins * k + 2))
+    p0, p1 = config.surface.kernel_params()
+    n_eval = kernels.accumulate_complex(
+        np.ascontiguousarray(ant_m, dtype=np.float64), np.ascontiguousarray(bin0_s, dtype=np.float64),
+        radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.rel_m, f.normal, f.area_m2,
+        config.surface.law_code, p0, p1, radar.radar_constant_w_m2(), np.ascontiguousarray(frames, dtype=np.float64),
+        config.kernel_weighting(), *shadow_inputs(scene, traces), 4.0 * math.pi / radar.wavelength_m,
+        proc.random_phase, proc.seed, re, im,
+    )  # fmt: skip
+    return detect_coherent(re, im, radar, k, nbins), n_eval
 
 
 def _compress(binned, weights, pad, samples):
