@@ -73,7 +73,7 @@ def synthetic_dem(path: Path, n: int, res_deg: float, seed: int = 42) -> Path:
     return path
 
 
-def case_inputs(name: str, shadowing: bool = False):
+def case_inputs(name: str, shadowing: bool = False, coherent: bool = False):
     from cluttersim import Body, SimulationConfig, great_circle_track
     from cluttersim.aperture import ProcessingConfig
     from cluttersim.config import SurfaceConfig
@@ -89,17 +89,17 @@ def case_inputs(name: str, shadowing: bool = False):
     length_m = np.radians(1.6 * half) * MARS_RADIUS_M
     track = great_circle_track(body, -0.8 * half, 0.0, 0.8 * half, 0.0, 300e3, length_m / (ntraces - 1) * 0.9999)
     cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}),
-                           processing=ProcessingConfig(shadowing=shadowing))  # fmt: skip
+                           processing=ProcessingConfig(shadowing=shadowing, mode="coherent" if coherent else "incoherent"))  # fmt: skip
     return dem, track, cfg
 
 
-def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False) -> dict:
+def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, coherent: bool = False) -> dict:
     import numba
 
     from cluttersim.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
-    dem, track, cfg = case_inputs(name, shadowing)
+    dem, track, cfg = case_inputs(name, shadowing, coherent)
     runs = []
     with tempfile.TemporaryDirectory() as tmp:
         for i in range(repeat + 1):
@@ -116,6 +116,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False) 
         "case": name,
         "sources": sources,
         "shadowing": shadowing,
+        "coherent": coherent,
         "traces": len(track),
         "samples": cfg.radar.samples,
         "dem_cells": CASES[name][0] ** 2,
@@ -217,6 +218,7 @@ def main(argv=None) -> int:
     ap.add_argument("--worker", help=argparse.SUPPRESS)
     ap.add_argument("--sources", type=int, default=1, help=argparse.SUPPRESS)
     ap.add_argument("--shadowing", type=int, default=0, help=argparse.SUPPRESS)
+    ap.add_argument("--coherent", type=int, default=0, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.worker:
         if args.worker == "reference":
@@ -224,7 +226,7 @@ def main(argv=None) -> int:
         elif args.worker == "startup":
             result = worker_startup()
         else:
-            result = worker_case(args.worker, bool(args.sources), args.repeat, bool(args.shadowing))
+            result = worker_case(args.worker, bool(args.sources), args.repeat, bool(args.shadowing), bool(args.coherent))
         print(json.dumps(result))
         return 0
 
@@ -232,13 +234,14 @@ def main(argv=None) -> int:
     print(f"machine: {machine['cpu']}, {machine['cores']} cores")
     report = {"machine": machine, "cases": [], "time": time.strftime("%Y-%m-%dT%H:%M:%S")}
     for name in args.case or ["small", "medium"]:
-        variants = [(0, 0), (1, 0)] + ([(0, 1)] if name == "small" else [])  # (sources, shadowing)
-        for sources, shadowing in variants:
+        variants = [(0, 0, 0), (1, 0, 0)] + ([(0, 1, 0), (0, 0, 1)] if name == "small" else [])  # sources, shadow, coherent
+        for sources, shadowing, coherent in variants:
             r = run_worker(["--worker", name, "--sources", str(sources), "--shadowing", str(shadowing),
-                            "--repeat", str(args.repeat)])  # fmt: skip
+                            "--coherent", str(coherent), "--repeat", str(args.repeat)])  # fmt: skip
             report["cases"].append(r)
             print(
-                f"{name:>7} sources={'on ' if sources else 'off'}{' shadowing' if shadowing else ''}: "
+                f"{name:>7} sources={'on ' if sources else 'off'}{' shadowing' if shadowing else ''}"
+                f"{' coherent' if coherent else ''}: "
                 f"{r['traces']} traces x {r['samples']} samples, "
                 f"window {r['dem_window'][0]}x{r['dem_window'][1]} cells | wall {r['median_wall_s']:.2f} s "
                 f"(kernel {r['median_kernel_s']:.2f} s, facets {r['median_facets_s']:.2f} s; first run {r['first_run_s']:.2f} s) | "
