@@ -28,6 +28,8 @@ def demo_cmd(out_dir, overwrite, quiet):
         f"                 the mesa beside the track, which a single antenna records as if it were subsurface\n"
         f"  radargram_sides.png  the same radargram coloured by side: orange echoes come from left of the\n"
         f"                 track (west: the craters), blue from the right (east: the mesa)\n"
+        f"  radargram_focused.png  the same pass as focused data would show it: the long tails of the\n"
+        f"                 hyperbolas (clutter ahead of and behind the spacecraft) are gone\n"
         f"  track_map.png  the pass ({DEMO_ALT_M / 1e3:.0f} km up) over shaded relief, with its first returns\n"
         f"  demo_track.csv the track; re-run it with: cluttersim simulate --dem dem_examples/demo_site.tif "
         f"--track {paths['track']} --out my_run\n"

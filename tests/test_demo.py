@@ -12,7 +12,8 @@ def test_demo_writes_products_and_shows_off_nadir_clutter(tmp_path):
     out = tmp_path / "demo"
     res = CliRunner().invoke(cli, ["demo", "--out", str(out)])
     assert res.exit_code == 0, res.output
-    for name in ("radargram.nc", "radargram.png", "track_map.png", "demo_track.csv"):
+    for name in ("radargram.nc", "radargram.png", "radargram_sides.png", "radargram_focused.png", "track_map.png",
+                 "demo_track.csv"):  # fmt: skip
         assert (out / name).stat().st_size > 0
     assert "radargram.png" in res.output
     with xr.open_dataset(out / "radargram.nc", engine="h5netcdf") as ds:
