@@ -59,11 +59,6 @@ class DemSource:
         """
         return self.is_geographic and abs(abs(self.transform.a) * self.width - 360.0) < 0.5 * abs(self.transform.a)
 
-    @property
-    def pixel_size(self) -> tuple[float, float]:
-        """(x, y) pixel size in CRS units (degrees for geographic DEMs)."""
-        return abs(self.transform.a), abs(self.transform.e)
-
     @classmethod
     def open(cls, path, body_radius_m: float | None = None) -> "DemSource":
         """Open a DEM and check it is usable; read no pixels.

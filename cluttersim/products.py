@@ -6,6 +6,7 @@ from Python.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -68,24 +69,19 @@ def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 
         if "sides_png" in tmp:
             plots.plot_side_radargram(ds, tmp["sides_png"], permittivity=permittivity,
                                       title=f"which side of the track each echo comes from — {src.path.name}")  # fmt: skip
-        elevation, extent, tx, ty, labels = track_map_data(src, ds)
+        elevation, frame = track_map_data(src, ds)
+        tx, ty = frame.xy(ds["lon"].values, ds["lat"].values)
         first = None
         if "first_return_lat" in ds:
-            fx, fy = src.lonlat_to_xy(ds["first_return_lon"].values, ds["first_return_lat"].values)
-            scale = 1.0 if src.is_geographic else 1e-3
-            first = (fx * scale, fy * scale)
+            first = frame.xy(ds["first_return_lon"].values, ds["first_return_lat"].values)
         plots.plot_track_map(
-            elevation, extent, tx, ty, tmp["track_map"], first_return=first,
-            title=f"track over {src.path.name}", axis_labels=labels, geographic=src.is_geographic,
+            elevation, frame.extent, tx, ty, tmp["track_map"], first_return=first,
+            title=f"track over {src.path.name}", axis_labels=frame.axis_labels, geographic=src.is_geographic,
         )  # fmt: skip
 
 
 def track_map_data(src: DemSource, ds):
-    """Decimated DEM around a run's track for the track map, in the DEM's own coordinates.
-
-    Returns ``(elevation, extent, track_x, track_y, axis_labels)``; geographic
-    DEMs are shown in degrees, projected ones in kilometres of their CRS.
-    """
+    """Decimated DEM around a run's track for the track map: ``(elevation, MapFrame)``."""
     track = Track(ds["lat"].values, ds["lon"].values, ds["alt"].values, source="run")
     on_dem = ds["on_dem"].values.astype(bool)
     end_s = ds["window_start"].values + ds.sizes["sample"] * float(ds["delay"][1] - ds["delay"][0])
@@ -95,16 +91,37 @@ def track_map_data(src: DemSource, ds):
     window = _window_for_radius(src, track, on_dem, radius)
     scale = max(1, int(np.ceil(max(window.height, window.width) / _MAP_CELLS)))
     dw = src.read(window, out_shape=(max(1, window.height // scale), max(1, window.width // scale)))
-    t = dw.transform
-    ny, nx = dw.shape
-    x0, y0 = t.c, t.f
-    x1, y1 = t.c + t.a * nx, t.f + t.e * ny
-    tx, ty = src.lonlat_to_xy(track.lon_deg, track.lat_deg)
-    if src.is_geographic:
-        tx = (tx - x0) % 360.0 + x0  # the window may run past the DEM's edge (antimeridian)
-        return dw.elevation_m, (x0, x1, y1, y0), tx, ty, ("longitude (°E)", "latitude (°N)")
-    k = 1e-3
-    return dw.elevation_m, (x0 * k, x1 * k, y1 * k, y0 * k), tx * k, ty * k, ("easting (km)", "northing (km)")
+    return dw.elevation_m, MapFrame.of(src, dw.elevation_m, dw.transform)
+
+
+@dataclass(frozen=True)
+class MapFrame:
+    """Coordinates of a map drawn on a block of the DEM grid: degrees for geographic DEMs,
+    kilometres of the CRS for projected ones."""
+
+    src: DemSource
+    extent: tuple[float, float, float, float]
+    west: float
+    scale: float
+    axis_labels: tuple[str, str]
+
+    @classmethod
+    def of(cls, src: DemSource, elevation_m, transform) -> "MapFrame":
+        ny, nx = elevation_m.shape
+        x0, y0 = transform.c, transform.f
+        x1, y1 = x0 + transform.a * nx, y0 + transform.e * ny
+        if src.is_geographic:
+            return cls(src, (x0, x1, y1, y0), x0, 1.0, ("longitude (°E)", "latitude (°N)"))
+        k = 1e-3
+        return cls(src, (x0 * k, x1 * k, y1 * k, y0 * k), x0, k, ("easting (km)", "northing (km)"))
+
+    def xy(self, lon_deg, lat_deg):
+        """Map coordinates of geodetic points (longitudes wrapped onto the map, which may run
+        past the DEM's edge at the antimeridian)."""
+        x, y = self.src.lonlat_to_xy(lon_deg, lat_deg)
+        if self.src.is_geographic:
+            x = (np.asarray(x) - self.west) % 360.0 + self.west
+        return np.asarray(x) * self.scale, np.asarray(y) * self.scale
 
 
 def planned_track_to_csv(

@@ -25,7 +25,8 @@ from .attribution import right_unit_vectors
 from .config import SimulationConfig
 from .dem import DemSource
 from .errors import ClutterSimError, ConfigError
-from .radar import delay_after_surface_s
+from .radar import apparent_depth_m, delay_after_surface_s
+from .products import MapFrame
 from .radargram import open_radargram
 from .simulate import Scene, prepare_scene, shadow_inputs
 from .track import Track
@@ -249,7 +250,7 @@ def ask_echo(run: Run, trace: int, *, delay_s: float | None = None, depth_m: flo
         )
         for i in range(order.size)
     ]
-    depth = float((centre - nadir) * 299_792_458.0 / (2 * np.sqrt(permittivity))) if np.isfinite(nadir) else np.nan
+    depth = float(apparent_depth_m(centre - nadir, permittivity)) if np.isfinite(nadir) else np.nan
     return EchoAnswer(
         trace=trace, sample=sample, delay_s=sample * dt, depth_m=depth, permittivity=permittivity,
         antenna_lat_deg=float(track.lat_deg[trace]), antenna_lon_deg=float(track.lon_deg[trace]),
@@ -281,7 +282,8 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> d
                    nodata=np.nan, compress="deflate")  # fmt: skip
     if smap.crs is not None:
         profile["crs"] = RioCRS.from_wkt(smap.crs.to_wkt())
-    elevation, extent, tx, ty, labels = _map_frame(run, smap.elevation_m, smap.transform)
+    frame = MapFrame.of(run.scene.src, smap.elevation_m, smap.transform)
+    tx, ty = frame.xy(run.scene.track.lon_deg, run.scene.track.lat_deg)
     with atomic_paths([paths["tif"], paths["png"]]) as (tif, png):
         with rasterio.open(tif, "w", **profile) as dst:
             dst.write(smap.power_w, 1)
@@ -290,24 +292,11 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> d
                 depth_min_m=smap.depth_min_m, depth_max_m=smap.depth_max_m, permittivity=smap.permittivity,
             )  # fmt: skip
         plots.plot_source_map(
-            smap.power_w, elevation, extent, tx, ty, png, axis_labels=labels, geographic=run.scene.src.is_geographic,
+            smap.power_w, smap.elevation_m, frame.extent, tx, ty, png, axis_labels=frame.axis_labels,
+            geographic=run.scene.src.is_geographic,
             title=f"ground echoing at apparent depths {smap.depth_min_m:g}–{smap.depth_max_m:g} m (ε′ = {smap.permittivity:g})",
         )  # fmt: skip
     return paths
-
-
-def _map_frame(run: Run, elevation_m, transform):
-    """Extent, track coordinates and axis labels of a map drawn on the run's DEM window grid."""
-    ny, nx = elevation_m.shape
-    src = run.scene.src
-    x0, y0 = transform.c, transform.f
-    x1, y1 = x0 + transform.a * nx, y0 + transform.e * ny
-    tx, ty = src.lonlat_to_xy(run.scene.track.lon_deg, run.scene.track.lat_deg)
-    if src.is_geographic:
-        tx = (tx - x0) % 360.0 + x0  # the window may run past the DEM's edge (antimeridian)
-        return elevation_m, (x0, x1, y1, y0), tx, ty, ("longitude (°E)", "latitude (°N)")
-    k = 1e-3
-    return elevation_m, (x0 * k, x1 * k, y1 * k, y0 * k), tx * k, ty * k, ("easting (km)", "northing (km)")
 
 
 def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) -> Path:
@@ -319,22 +308,18 @@ def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) 
     check_new([path], overwrite)
     src = run.scene.src
     window = run.scene.window
-    elevation, extent, tx, ty, labels = _map_frame(run, window.elevation_m, window.transform)
-    k = 1.0 if src.is_geographic else 1e-3
-    ax, ay = src.lonlat_to_xy(answer.antenna_lon_deg, answer.antenna_lat_deg)
-    if answer.cells:
-        cx, cy = src.lonlat_to_xy(np.array([c.lon_deg for c in answer.cells]), np.array([c.lat_deg for c in answer.cells]))
-        cells_xy = np.column_stack([cx, cy]) * k
-    else:
-        cells_xy = np.empty((0, 2))
-    pts = np.vstack([cells_xy, [[float(ax) * k, float(ay) * k]]])
+    frame = MapFrame.of(src, window.elevation_m, window.transform)
+    tx, ty = frame.xy(run.scene.track.lon_deg, run.scene.track.lat_deg)
+    ax, ay = frame.xy(answer.antenna_lon_deg, answer.antenna_lat_deg)
+    cells_xy = np.column_stack(frame.xy([c.lon_deg for c in answer.cells], [c.lat_deg for c in answer.cells]))
+    pts = np.vstack([cells_xy.reshape(-1, 2), [[float(ax), float(ay)]]])
     lo, hi = pts.min(axis=0), pts.max(axis=0)
-    pad = max(0.3 * float(np.max(hi - lo)), 10 * abs(window.transform.a) * k)
+    pad = max(0.3 * float(np.max(hi - lo)), 10 * abs(window.transform.a) * frame.scale)
     view = (lo[0] - pad, hi[0] + pad, lo[1] - pad, hi[1] + pad)
     with atomic_paths([path]) as (tmp,):
         plots.plot_echo_sources(
-            elevation, extent, tx, ty, (float(ax) * k, float(ay) * k), cells_xy, [c.share for c in answer.cells], tmp,
-            axis_labels=labels, geographic=src.is_geographic, view=view,
+            window.elevation_m, frame.extent, tx, ty, (float(ax), float(ay)), cells_xy.reshape(-1, 2),
+            [c.share for c in answer.cells], tmp, axis_labels=frame.axis_labels, geographic=src.is_geographic, view=view,
             title=f"trace {answer.trace}, {answer.delay_s * 1e6:.3f} µs after window start",
         )  # fmt: skip
     return path

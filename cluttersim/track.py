@@ -111,13 +111,6 @@ class Track:
                     row.append(f"{self.time_s[i]:.6f}")
                 writer.writerow(row)
 
-    def along_track_m(self, body: Body) -> np.ndarray:
-        """Cumulative geodesic distance of each trace's ground point from the first, metres."""
-        if len(self) == 1:
-            return np.zeros(1)
-        _, _, d = body.geod().inv(self.lon_deg[:-1], self.lat_deg[:-1], self.lon_deg[1:], self.lat_deg[1:])
-        return np.concatenate([[0.0], np.cumsum(d)])
-
 
 def great_circle_track(
     body: Body,
