@@ -233,6 +233,16 @@ class Scene:
     start_s: np.ndarray
     pad: int
     pulse_weights: np.ndarray
+    _shadow_heights: np.ndarray | None = None
+
+    @property
+    def shadow_heights_m(self) -> np.ndarray:
+        """The DEM window's heights for the shadowing march (holes at the lowest height: they
+        never block), float32, computed once."""
+        if self._shadow_heights is None:
+            elev = self.window.elevation_m
+            self._shadow_heights = np.where(np.isfinite(elev), elev, np.nanmin(elev)).astype(np.float32)
+        return self._shadow_heights
 
 
 def prepare_scene(
@@ -339,8 +349,7 @@ def shadow_inputs(scene: Scene, traces):
     n = len(traces)
     if not scene.config.processing.shadowing:
         return np.zeros((1, 1), np.float32), scene.facets.cell[:1], np.zeros((n, 2)), np.zeros(n), 0.0
-    elev = scene.window.elevation_m
-    heights = np.where(np.isfinite(elev), elev, np.nanmin(elev)).astype(np.float32)  # holes never block
+    heights = scene.shadow_heights_m
     x, y = scene.src.lonlat_to_xy(scene.track.lon_deg[traces], scene.track.lat_deg[traces])
     col, row = ~scene.window.transform @ (np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
     nadir_rc = np.column_stack([np.asarray(row) - 0.5, np.asarray(col) - 0.5])
