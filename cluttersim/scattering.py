@@ -29,6 +29,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .subsurface import fresnel_power_reflectivity
+
 
 def sigma0_constant(cos_inc, sigma0):
     """σ0(θ) = σ0, independent of incidence (useful for tests and calibration)."""
@@ -107,6 +109,5 @@ def sigma0(law: str, incidence_deg, **params):
 def fresnel_reflectivity_normal(permittivity: float) -> float:
     """Normal-incidence Fresnel power reflectivity ρ = ((1 − √ε)/(1 + √ε))² of a
     half-space of real relative permittivity ε (e.g. Born & Wolf, *Principles of
-    Optics*, §1.5.3)."""
-    n = np.sqrt(permittivity)
-    return float(((1.0 - n) / (1.0 + n)) ** 2)
+    Optics*, §1.5.3): :func:`cluttersim.subsurface.fresnel_power_reflectivity` from vacuum."""
+    return float(fresnel_power_reflectivity(1.0, permittivity))

@@ -46,6 +46,7 @@ import numpy as np
 
 from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ConfigError
+from .radar import delay_after_surface_s
 
 #: dB per neper of power ratio: 10 log10(e²) = 20 log10(e) ≈ 8.686.
 DB_PER_NEPER = 20.0 / math.log(10.0)
@@ -106,8 +107,7 @@ def two_way_loss_db(frequency_hz, permittivity, loss_tangent, depth_m):
 
 def subsurface_delay_s(nadir_delay_s, depth_m, permittivity):
     """Absolute two-way delay of the interface echo, t = t_nadir + 2 d √ε′ / c (s)."""
-    eps = _check_permittivity(permittivity)
-    return np.asarray(nadir_delay_s, dtype=np.float64) + 2.0 * np.asarray(depth_m, dtype=np.float64) * np.sqrt(eps) / SPEED_OF_LIGHT_M_S
+    return np.asarray(nadir_delay_s, dtype=np.float64) + delay_after_surface_s(depth_m, float(permittivity))
 
 
 def specular_echo_power_w(transmit_power_w, gain_linear, wavelength_m, reflectivity, range_m):
