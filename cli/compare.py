@@ -7,7 +7,10 @@ import click
 from cluttersim.compare import CompareSettings, compare_to_dir, format_summary
 from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
 
-from .options import load_config, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option
+from .options import (
+    band_option, load_config, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option,
+    radar_option,
+)
 
 _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 
@@ -55,6 +58,8 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 @click.option("--continuity-traces", type=click.IntRange(1, 100), default=2, show_default=True,
               help="Neighbouring traces on each side checked for a candidate's continuity.")
 @permittivity_option
+@band_option
+@max_memory_option
 @click.option("--top", type=click.IntRange(0, 1000), default=5, show_default=True, help="Candidates listed in the summary.")
 @out_dir_option()
 @overwrite_option
@@ -62,8 +67,8 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_radius_m, sample_interval_s,
                 window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
                 byte_order, raw_offset_bytes, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
-                delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, top, out_dir,
-                overwrite, quiet):  # fmt: skip
+                delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, band, max_memory,
+                top, out_dir, overwrite, quiet):  # fmt: skip
     """Compare an observed radargram with the simulated clutter of its track.
 
     Aligns the observed data in delay (cross-correlating the surface echoes),
@@ -106,7 +111,7 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         observed_path, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
         config=load_config(radar_path) if dem_path else None, body_radius_m=body_radius_m,
         window_start_s=window_start_s, window_start_column=window_start_column, fmt=fmt, settings=settings,
-        overwrite=overwrite, progress=not quiet,
+        overwrite=overwrite, progress=not quiet, band=band, max_memory_bytes=max_memory,
     )  # fmt: skip
     if not quiet:
         click.echo(format_summary(result, top=top))

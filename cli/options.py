@@ -80,3 +80,10 @@ def with_antenna(config, pattern=None, axis=None, beamwidths_deg=None):
     if not changes:
         return config
     return dataclasses.replace(config, antenna=AntennaConfig(**{**config.antenna.to_dict(), **changes}))
+
+band_option = click.option(
+    "--band",
+    default=None,
+    metavar="NAME",
+    help="Band of a multi-band run ([[band]] tables of the radar TOML) [default: the first].",
+)

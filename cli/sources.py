@@ -13,7 +13,7 @@ from cluttersim.sources import (
     write_source_map,
 )
 
-from .options import overwrite_option, permittivity_option, quiet_option
+from .options import band_option, overwrite_option, permittivity_option, quiet_option
 
 
 @click.command("sources")
@@ -25,9 +25,10 @@ from .options import overwrite_option, permittivity_option, quiet_option
 @click.option("--top", type=click.IntRange(1, 1000), default=10, show_default=True, help="Cells listed for one echo.")
 @permittivity_option
 @click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="The run's DEM, if it has moved.")
+@band_option
 @overwrite_option
 @quiet_option
-def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivity, dem_path, overwrite, quiet):
+def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivity, dem_path, band, overwrite, quiet):
     """Find the ground behind a run's echoes.
 
     \b
@@ -44,7 +45,7 @@ def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivi
         raise click.UsageError("give either --depth-window A B, or --trace N with --delay-us or --depth-m")
     if trace is not None and (delay_us is None) == (depth_m is None):
         raise click.UsageError("with --trace, give exactly one of --delay-us or --depth-m")
-    run = load_run(run_dir, dem=dem_path)
+    run = load_run(run_dir, dem=dem_path, band=band)
     if depth_window is not None:
         smap = depth_window_map(run, depth_window[0], depth_window[1], permittivity, progress=not quiet)
         paths = write_source_map(run, smap, overwrite=overwrite)

@@ -57,7 +57,13 @@ class ProcessingConfig:
     ``shadowing`` turns on line-of-sight shadowing (:func:`cluttersim.kernels.hidden_from_antenna`);
     ``mode = "coherent"`` sums facet echoes with their phase
     (:func:`cluttersim.kernels.accumulate_complex`), with a random phase per facet
-    (``random_phase``, reproducible from ``seed``)."""
+    (``random_phase``, reproducible from ``seed``).
+
+    ``presum = N`` sums each run of N consecutive pulses of the track into one
+    output trace (:mod:`cluttersim.presum`): ``presum_mode = "incoherent"``
+    averages their detected power (either mode), ``"coherent"`` averages their
+    complex echoes before detection (coherent mode only: it needs the phase).
+    """
 
     aperture: str = "none"
     aperture_length_m: float = 0.0
@@ -65,6 +71,8 @@ class ProcessingConfig:
     mode: str = "incoherent"
     random_phase: bool = True
     seed: int = 0
+    presum: int = 1
+    presum_mode: str = "incoherent"
 
     def __post_init__(self):
         if self.aperture not in APERTURES:
@@ -80,6 +88,15 @@ class ProcessingConfig:
             raise ConfigError(f"[processing] seed = {self.seed!r}: expected an integer >= 0")
         if not isinstance(self.shadowing, bool):
             raise ConfigError(f"[processing] shadowing = {self.shadowing!r}: expected true or false")
+        if isinstance(self.presum, bool) or not isinstance(self.presum, int) or not 1 <= self.presum <= 100_000:
+            raise ConfigError(f"[processing] presum = {self.presum!r}: expected an integer number of pulses >= 1")
+        if self.presum_mode not in ("incoherent", "coherent"):
+            raise ConfigError(f"[processing] presum_mode = {self.presum_mode!r}: expected \"incoherent\" or \"coherent\"")
+        if self.presum_mode == "coherent" and self.presum > 1 and self.mode != "coherent":
+            raise ConfigError(
+                "[processing] presum_mode = 'coherent' sums complex echoes: expected mode = 'coherent' "
+                "(the incoherent mode has no phase)"
+            )
         if self.aperture == "focused" and not length > 0:
             raise ConfigError("[processing] aperture = 'focused' needs aperture_length_m > 0 (the processed aperture)")
 
@@ -91,7 +108,7 @@ class ProcessingConfig:
         for key, value in data.items():
             if key not in names:
                 raise ConfigError(f"[processing] unknown key {key!r}: expected one of {', '.join(names)}")
-            if key in ("aperture", "mode") and not isinstance(value, str):
+            if key in ("aperture", "mode", "presum_mode") and not isinstance(value, str):
                 raise ConfigError(f"[processing] {key} = {value!r}: expected a string")
         return cls(**data)
 

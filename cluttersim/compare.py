@@ -1046,7 +1046,7 @@ def _nan_safe(value: float) -> float:
 def compare_to_dir(
     observed_path, observed_track, sample_interval_s: float, out_dir, *, sim=None, dem=None, config=None,
     body_radius_m=None, window_start_s=None, window_start_column=None, fmt=None, settings=None,
-    overwrite: bool = False, progress: bool = False,
+    overwrite: bool = False, progress: bool = False, band=None, max_memory_bytes="auto",
 ) -> tuple[Comparison, dict[str, Path]]:  # fmt: skip
     """Read an observed radargram, compare it with a simulation and write the products into ``out_dir``.
 
@@ -1055,6 +1055,9 @@ def compare_to_dir(
     on the observed sampling (sample interval and number of samples; the
     radar's window start, "auto" by default), and the simulation is written
     too, as ``out_dir/radargram.nc`` (usable by ``cluttersim sources``).
+    ``band`` names the band of a multi-band radar (default: the first);
+    ``max_memory_bytes`` bounds the on-the-fly simulation
+    (:func:`~cluttersim.simulate.simulate`).
 
     Products (:data:`COMPARE_FILES`): ``comparison.nc``, ``candidates.csv``,
     ``side_by_side.png``, ``overlay.png``, ``difference.png``. Existing ones
@@ -1078,16 +1081,21 @@ def compare_to_dir(
     observed = load_observed(observed_path, observed_track, sample_interval_s, window_start_s=window_start_s,
                              window_start_column=window_start_column, fmt=fmt)  # fmt: skip
     if sim is not None:
-        sim_ds = open_radargram(sim)
+        sim_ds = open_radargram(sim, band=band)
         sim_source = str(sim)
     else:
         from .config import default_config
         from .simulate import simulate
 
         config = config or default_config()
+        if config.bands:
+            config = config.for_band(band or config.band_names[0])
+        elif band is not None:
+            raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
         config = replace(config, radar=replace(config.radar, sample_interval_s=observed.sample_interval_s,
                                                samples=max(observed.n_samples, 2)))  # fmt: skip
-        sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress)
+        sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
+                          max_memory_bytes=max_memory_bytes)  # fmt: skip
         sim_source = f"simulated on the fly from {Path(dem).name}"
     result = compare(observed, sim_ds, settings, progress=progress, sim_source=sim_source)
     write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None)

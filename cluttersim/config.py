@@ -6,6 +6,8 @@ A radar TOML has two tables::
     [surface]    # SurfaceConfig: backscatter law and its parameters
     [noise]      # optional NoiseConfig (cluttersim.noise): receiver noise floor k T B F
     [subsurface] # optional SubsurfaceConfig (cluttersim.subsurface): predicted interface echo
+    [[band]]     # optional, repeated: frequency bands (cluttersim.radar.BandConfig) simulated
+                 # in one run; each overrides some [radar] keys (centre frequency, bandwidth...)
 
 Unknown tables or keys, wrong types and out-of-range values raise
 :class:`~cluttersim.errors.ConfigError` naming the file, table and key.
@@ -26,7 +28,7 @@ from .antenna import AntennaConfig
 from .aperture import ProcessingConfig
 from .errors import ConfigError
 from .noise import NoiseConfig
-from .radar import RadarConfig
+from .radar import BAND_KEYS, BandConfig, RadarConfig
 from .scattering import LAWS
 from .subsurface import SubsurfaceConfig
 
@@ -91,6 +93,33 @@ class SimulationConfig:
     processing: ProcessingConfig = field(default_factory=ProcessingConfig)  # [processing]: along-track aperture
     noise: NoiseConfig | None = None  # [noise]: receiver noise floor (cluttersim.noise)
     subsurface: SubsurfaceConfig | None = None  # [subsurface]: predicted interface echo (cluttersim.subsurface)
+    bands: tuple[BandConfig, ...] = ()  # [[band]] tables: several bands in one run (empty: [radar] alone)
+
+    def __post_init__(self):
+        names = [b.name for b in self.bands]
+        for name in names:
+            if names.count(name) > 1:
+                raise ConfigError(f"[[band]] name = {name!r} appears twice: expected distinct band names")
+        for band in self.bands:
+            band.radar(self.radar)  # each band must be a valid radar on the shared window
+
+    @property
+    def band_names(self) -> list[str]:
+        """Names of the ``[[band]]`` tables, in file order (empty for a single-band radar)."""
+        return [b.name for b in self.bands]
+
+    def for_band(self, name: str) -> "SimulationConfig":
+        """The single-band configuration of band ``name`` (its radar settings, no ``bands``)."""
+        for band in self.bands:
+            if band.name == name:
+                return dataclasses.replace(self, radar=band.radar(self.radar), bands=())
+        raise ConfigError(f"band {name!r}: expected one of {', '.join(self.band_names) or '(none: single-band radar)'}")
+
+    def per_band(self) -> list[tuple[str | None, "SimulationConfig"]]:
+        """``[(name, single-band config)]`` for each band, or ``[(None, self)]`` without bands."""
+        if not self.bands:
+            return [(None, self)]
+        return [(b.name, self.for_band(b.name)) for b in self.bands]
 
     def kernel_weighting(self) -> np.ndarray:
         """Parameters of the kernel's per-facet direction weight: antenna pattern, then aperture."""
@@ -121,9 +150,10 @@ class SimulationConfig:
         if not isinstance(data, dict):
             raise ConfigError("expected a table with [radar] and [surface]")
         for table in data:
-            if table not in ("radar", "surface", "antenna", "processing", "noise", "subsurface"):
+            if table not in ("radar", "surface", "antenna", "processing", "noise", "subsurface", "band"):
                 raise ConfigError(
-                    f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise] and [subsurface]"
+                    f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise], "
+                    "[subsurface] and [[band]]"
                 )
         radar_data = data.get("radar", {})
         surface_data = data.get("surface", {})
@@ -133,12 +163,13 @@ class SimulationConfig:
         antenna = AntennaConfig.from_dict(data.get("antenna", {}))
         processing = ProcessingConfig.from_dict(data.get("processing", {}))
         return cls(radar=_radar_from_dict(radar_data), surface=_surface_from_dict(surface_data), antenna=antenna,
-                   processing=processing, **_optional_tables(data))  # fmt: skip
+                   processing=processing, bands=_bands_from_list(data.get("band", [])), **_optional_tables(data))  # fmt: skip
 
     def to_dict(self) -> dict:
         return {"radar": self.radar.to_dict(), "surface": self.surface.to_dict(), "antenna": self.antenna.to_dict(),
                 "processing": self.processing.to_dict(),
-                **{k: v.to_dict() for k, v in (("noise", self.noise), ("subsurface", self.subsurface)) if v is not None}}
+                **{k: v.to_dict() for k, v in (("noise", self.noise), ("subsurface", self.subsurface)) if v is not None},
+                **({"band": [b.to_dict() for b in self.bands]} if self.bands else {})}
 
 
 def default_config() -> SimulationConfig:
@@ -157,7 +188,33 @@ def _optional_tables(data: dict) -> dict:
     return out
 
 
+def _bands_from_list(data) -> tuple[BandConfig, ...]:
+    """The ``[[band]]`` tables (an array of tables) as BandConfigs."""
+    if not isinstance(data, list) or not all(isinstance(b, dict) for b in data):
+        raise ConfigError("[[band]] must be an array of tables, one per band")
+    bands = []
+    for i, table in enumerate(data, start=1):
+        table = dict(table)
+        name = table.pop("name", None)
+        if name is None:
+            raise ConfigError(f"[[band]] number {i}: missing name")
+        unknown = [k for k in table if k not in BAND_KEYS]
+        if unknown:
+            raise ConfigError(f"[[band]] {name!r}: unknown key {unknown[0]!r}: expected name, {', '.join(BAND_KEYS)}")
+        try:
+            overrides = _radar_kwargs(table)
+        except ConfigError as exc:
+            raise ConfigError(f"[[band]] {name!r}: {str(exc).removeprefix('[radar] ')}") from None
+        bands.append(BandConfig(name, overrides))
+    return tuple(bands)
+
+
 def _radar_from_dict(data: dict) -> RadarConfig:
+    return RadarConfig(**_radar_kwargs(data))
+
+
+def _radar_kwargs(data: dict) -> dict:
+    """Type-checked ``[radar]`` keys (values converted: integers for samples, floats...)."""
     fields = {f.name: f for f in dataclasses.fields(RadarConfig)}
     kwargs = {}
     for key, value in data.items():
@@ -182,7 +239,7 @@ def _radar_from_dict(data: dict) -> RadarConfig:
                 raise ConfigError(f"[radar] {key} = {value!r}: expected a number")
             value = float(value)
         kwargs[key] = value
-    return RadarConfig(**kwargs)
+    return kwargs
 
 
 def _surface_from_dict(data: dict) -> SurfaceConfig:

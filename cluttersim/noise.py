@@ -87,6 +87,20 @@ def add_noise(power_w, noise_power_w_: float, rng: np.random.Generator) -> np.nd
     return power.astype(dtype, copy=False) + noise
 
 
+def add_complex_noise(signal, noise_power_w_: float, rng: np.random.Generator) -> np.ndarray:
+    """Complex echoes plus circular complex Gaussian noise of mean power P_n (coherent mode).
+
+    n = √(P_n/2) (g₁ + i g₂), g₁, g₂ ~ N(0, 1) independent, so E|n|² = P_n and
+    |n|² is exponential with mean P_n, as in :func:`add_noise` ([3]_ of the module).
+    Added before detection, the noise interferes with the echo and averages down
+    when echoes are summed coherently. NaN samples stay NaN.
+    """
+    signal = np.asarray(signal)
+    g = rng.standard_normal(size=(*signal.shape, 2))
+    g *= math.sqrt(0.5 * noise_power_w_)
+    return signal + (g[..., 0] + 1j * g[..., 1])
+
+
 @dataclass(frozen=True)
 class NoiseConfig:
     """The ``[noise]`` table: a noise temperature *or* a noise figure, and a seed.

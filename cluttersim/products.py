@@ -15,7 +15,7 @@ from .body import Body
 from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource
 from .outputs import atomic_paths, check_new
-from .radargram import write_netcdf_to
+from .radargram import band_names, select_band, write_netcdf_to
 from .simulate import _window_for_radius, ground_radius_m, simulate
 from .track import Track, great_circle_track
 
@@ -26,6 +26,24 @@ RUN_FILES = {
     "sides_png": "radargram_sides.png",
     "track_map": "track_map.png",
 }
+
+
+
+def run_files(band_names=(), sources: bool = True) -> dict[str, str]:
+    """File names of a run directory: :data:`RUN_FILES`, or with several frequency bands one
+    radargram figure and one side figure per band (``radargram_<band>.png``...) beside the
+    one netCDF file and the track map (first returns of the first band)."""
+    files = dict(RUN_FILES)
+    if not sources:
+        files.pop("sides_png")
+    if band_names:
+        for key in ("radargram_png", "sides_png"):
+            stem = files.pop(key, None)
+            if stem is not None:
+                for name in band_names:
+                    files[f"{key}:{name}"] = stem.replace(".png", f"_{name}.png")
+    return files
+
 
 #: Largest side (pixels) of the relief image in the track map.
 _MAP_CELLS = 900
@@ -43,32 +61,38 @@ def simulate_to_dir(
     is passed to :func:`~cluttersim.simulate.simulate`.
     """
     out_dir = Path(out_dir)
-    paths = {k: out_dir / v for k, v in RUN_FILES.items()}
+    coherent = config is not None and config.processing.mode == "coherent"
+    band_names = config.band_names if config is not None else []
+    paths = {k: out_dir / v for k, v in run_files(band_names, sources and not coherent).items()}
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
     ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
                   nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
                   max_memory_bytes=max_memory_bytes)  # fmt: skip
-    if not sources:
-        paths.pop("sides_png")
     write_run(ds, src, paths, permittivity=permittivity)
     return paths
 
 
 def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15) -> None:
-    """Write a radargram and its figures atomically to ``paths`` (keys of :data:`RUN_FILES`)."""
+    """Write a radargram and its figures atomically to ``paths`` (keys of :func:`run_files`)."""
     from . import plots
 
     keys = list(paths)
+    names = band_names(ds)
     with atomic_paths([paths[k] for k in keys]) as temps:
         tmp = dict(zip(keys, temps))
         write_netcdf_to(ds, tmp["radargram"])
-        plots.plot_radargram(ds, tmp["radargram_png"], title=f"simulated clutter — {src.path.name}",
-                             permittivity=permittivity)  # fmt: skip
-        if "sides_png" in tmp:
-            plots.plot_side_radargram(ds, tmp["sides_png"], permittivity=permittivity,
-                                      title=f"which side of the track each echo comes from — {src.path.name}")  # fmt: skip
+        for name in names or [None]:
+            one = select_band(ds, name)
+            suffix = "" if name is None else f":{name}"
+            label = "" if name is None else f" — band {name} ({one.attrs['radar_center_frequency_hz'] / 1e6:g} MHz)"
+            plots.plot_radargram(one, tmp["radargram_png" + suffix], title=f"simulated clutter — {src.path.name}{label}",
+                                 permittivity=permittivity)  # fmt: skip
+            if "sides_png" + suffix in tmp:
+                plots.plot_side_radargram(one, tmp["sides_png" + suffix], permittivity=permittivity,
+                                          title=f"which side of the track each echo comes from — {src.path.name}{label}")  # fmt: skip
+        ds = select_band(ds)
         elevation, frame = track_map_data(src, ds)
         tx, ty = frame.xy(ds["lon"].values, ds["lat"].values)
         first = None

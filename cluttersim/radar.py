@@ -19,7 +19,7 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
@@ -198,3 +198,44 @@ class RadarConfig:
 
     def to_dict(self) -> dict:
         return asdict(self)
+
+
+#: Keys a ``[[band]]`` table may set; the others come from ``[radar]``.
+BAND_KEYS = ("center_frequency_hz", "bandwidth_hz", "transmit_power_w", "antenna_gain_dbi", "range_window")
+
+
+@dataclass(frozen=True)
+class BandConfig:
+    """One frequency band of a multi-band sounder (a ``[[band]]`` TOML table).
+
+    A band has a ``name`` (letters, digits, ``-`` and ``_``: it appears in file
+    names) and overrides some of the ``[radar]`` settings (:data:`BAND_KEYS`):
+    at least its centre frequency and bandwidth. The recording window (sample
+    interval, samples, window start) is shared by all bands, so every band's
+    bandwidth must satisfy sample_interval_s ≤ 1/bandwidth_hz. Lower
+    frequencies penetrate deeper; wider bandwidths resolve finer, ΔR = c/(2B)
+    (common practice; Skolnik 2001).
+    """
+
+    name: str
+    overrides: dict
+
+    def __post_init__(self):
+        if not isinstance(self.name, str) or not self.name or not all(ch.isalnum() or ch in "-_" for ch in self.name):
+            raise ConfigError(f"[[band]] name = {self.name!r}: expected letters, digits, '-' or '_' (it names files)")
+        for key in self.overrides:
+            if key not in BAND_KEYS:
+                raise ConfigError(f"[[band]] {self.name!r}: unknown key {key!r}: expected name, {', '.join(BAND_KEYS)}")
+        for key in ("center_frequency_hz", "bandwidth_hz"):
+            if key not in self.overrides:
+                raise ConfigError(f"[[band]] {self.name!r}: missing {key}")
+
+    def radar(self, base: RadarConfig) -> RadarConfig:
+        """The ``[radar]`` settings with this band's overrides (validated as a ``[radar]`` table)."""
+        try:
+            return replace(base, **self.overrides)
+        except ConfigError as exc:
+            raise ConfigError(f"[[band]] {self.name!r}: {str(exc).removeprefix('[radar] ')}") from None
+
+    def to_dict(self) -> dict:
+        return {"name": self.name, **self.overrides}

@@ -38,6 +38,14 @@ table, ``predicted_subsurface_delay`` (trace, s, absolute),
 ``predicted_subsurface_power`` and ``predicted_surface_power`` (trace, W)
 (:mod:`cluttersim.subsurface`).
 
+With ``[[band]]`` tables in the radar TOML (several frequency bands in one
+run) the file has a third dimension ``band`` (coordinate: the band names, with
+``band_center_frequency`` and ``band_bandwidth`` in Hz): every variable in
+:data:`BAND_VARIABLES` then has dimensions (band, trace[, sample]); the
+per-trace geometry (window start, position, nadir delay...) is shared.
+:func:`select_band` (and ``open_radargram(path, band=...)``) returns one band
+as a single-band radargram with that band's radar in its attributes.
+
 Global attributes hold the full radar and surface configuration (flattened as
 ``radar_<key>`` / ``surface_<key>`` and as JSON in ``cluttersim_config``), the
 DEM file name, the body and the package version.
@@ -102,11 +110,77 @@ def build_dataset(
     return ds
 
 
+#: Variables that differ between frequency bands (a ``band`` dimension in multi-band files).
+BAND_VARIABLES = (
+    "power", "source_lat", "source_lon", "left_fraction", "right_fraction", "first_return_delay", "first_return_lat",
+    "first_return_lon", "first_return_offnadir", "nadir_strip_half_width", "noise_power", "predicted_subsurface_delay",
+    "predicted_subsurface_power", "predicted_surface_power",
+)  # fmt: skip
+
+
+def stack_bands(datasets: list[xr.Dataset], config) -> xr.Dataset:
+    """One multi-band radargram from the single-band radargrams of ``config.per_band()``."""
+    names = config.band_names
+    first = datasets[0]
+    out = first.drop_vars([v for v in BAND_VARIABLES if v in first])
+    for var in BAND_VARIABLES:
+        if var in first:
+            out[var] = xr.concat([ds[var] for ds in datasets], dim="band")
+    radars = [cfg.radar for _, cfg in config.per_band()]
+    out = out.assign_coords(
+        band=("band", np.array(names, dtype=object), {"long_name": "frequency band"}),
+        band_center_frequency=("band", [r.center_frequency_hz for r in radars], {"units": "Hz"}),
+        band_bandwidth=("band", [r.bandwidth_hz for r in radars], {"units": "Hz"}),
+    )
+    config_attrs = [k for k in first.attrs if k == "cluttersim_config" or k.split("_", 1)[0] in config.to_dict()]
+    out.attrs = {k: v for k, v in first.attrs.items() if k not in config_attrs}
+    out.attrs.update(flatten_config_attrs(config))
+    out["power"].attrs["long_name"] = "received echo power per delay sample (no processing gain), per band"
+    return out
+
+
+def band_names(ds: xr.Dataset) -> list[str]:
+    """The bands of a multi-band radargram (empty list for a single-band one)."""
+    return [str(b) for b in ds["band"].values] if "band" in ds.dims else []
+
+
+def select_band(ds: xr.Dataset, band: str | None = None, *, source="radargram") -> xr.Dataset:
+    """One band of a radargram as a single-band radargram (the first band if ``band`` is None).
+
+    The result's configuration attributes (``cluttersim_config``, ``radar_*``)
+    are those of the band; ``cluttersim_config_all`` keeps the multi-band
+    configuration and ``band`` the band's name. A single-band radargram is
+    returned as it is when ``band`` is None.
+    """
+    from .config import SimulationConfig
+
+    names = band_names(ds)
+    if not names:
+        if band is not None:
+            raise ClutterSimError(f"{source}: band {band!r} asked for, but the radargram has a single band")
+        return ds
+    if band is None:
+        band = names[0]
+    if band not in names:
+        raise ClutterSimError(f"{source}: band {band!r}: expected one of {', '.join(names)}")
+    one = ds.sel(band=band).drop_vars(["band", "band_center_frequency", "band_bandwidth"])
+    full = SimulationConfig.from_dict(json.loads(ds.attrs["cluttersim_config"]))
+    attrs = {k: v for k, v in ds.attrs.items() if k != "cluttersim_config"}
+    attrs.update(flatten_config_attrs(full.for_band(band)))
+    attrs["cluttersim_config_all"] = ds.attrs["cluttersim_config"]
+    attrs["band"] = band
+    one.attrs = attrs
+    return one
+
+
 def flatten_config_attrs(config) -> dict:
-    """netCDF-safe attributes from a :class:`~cluttersim.config.SimulationConfig`."""
+    """netCDF-safe attributes from a :class:`~cluttersim.config.SimulationConfig`
+    (the ``[[band]]`` list is in the JSON only)."""
     d = config.to_dict()
     attrs = {"cluttersim_config": json.dumps(d)}
     for table, values in d.items():
+        if not isinstance(values, dict):
+            continue
         for key, value in values.items():
             if isinstance(value, bool):  # netCDF has no boolean attributes
                 value = int(value)
@@ -133,8 +207,11 @@ def write_netcdf_to(ds: xr.Dataset, path) -> None:
     ds.to_netcdf(path, engine="h5netcdf", encoding=encoding, format="NETCDF4")
 
 
-def open_radargram(path) -> xr.Dataset:
-    """Load a radargram written by cluttersim into memory."""
+def open_radargram(path, band: str | None = None) -> xr.Dataset:
+    """Load a radargram written by cluttersim into memory.
+
+    A multi-band file gives one band (:func:`select_band`): ``band``, or the first.
+    """
     path = Path(path)
     if not path.exists():
         raise ClutterSimError(f"{path}: radargram file not found")
@@ -143,6 +220,6 @@ def open_radargram(path) -> xr.Dataset:
             ds = ds.load()
     except (OSError, ValueError) as exc:
         raise ClutterSimError(f"{path}: not a readable netCDF radargram ({exc})") from None
-    if "power" not in ds or ds["power"].dims != ("trace", "sample"):
+    if "power" not in ds or ds["power"].dims not in (("trace", "sample"), ("band", "trace", "sample")):
         raise ClutterSimError(f"{path}: expected a variable 'power' with dimensions (trace, sample)")
-    return ds
+    return select_band(ds, band, source=str(path))

@@ -14,6 +14,7 @@ and :mod:`cluttersim.scattering`; this module only decides what to compute.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 import warnings
@@ -26,17 +27,17 @@ from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
-from . import __version__, kernels, memory
+from . import __version__, kernels, memory, presum
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
-from .noise import add_noise
+from .noise import add_complex_noise, add_noise
 from .antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
 from .radar import compressed_pulse_amplitude, pulse_limited_radius_m, pulse_power_kernel
-from .radargram import build_dataset, flatten_config_attrs
+from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track
 
@@ -119,77 +120,67 @@ def simulate(
     t_start = time.perf_counter()
     stats = stats if stats is not None else RunStats()
     config = config if config is not None else default_config()
-    radar = config.radar
+    radar = config.radar  # the window (samples, sample interval, start) is shared by every band
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
     body = src.body
+    proc = config.processing
+    if len(track) < proc.presum:
+        raise TrackError(f"{track.source}: {len(track)} pulses, fewer than [processing] presum = {proc.presum}")
     scene = prepare_scene(src, track, config, stats, max_memory_bytes=max_memory_bytes, sources=sources)
-    facets, window, idx, pad = scene.facets, scene.window, scene.idx, scene.pad
-    kernel_weights, start, h_nadir = scene.pulse_weights, scene.start_s, scene.h_nadir_m
-    nadir_delay, earliest_delay, on_dem = scene.nadir_delay_s, scene.earliest_delay_s, scene.on_dem
+    idx, pad = scene.idx, scene.pad
     ant_on = np.ascontiguousarray(scene.ant_m[idx])
     dt = radar.sample_interval_s
-
     nbins = radar.samples + 2 * pad
-    bin0 = start - (pad + 0.5) * dt
+    bin0 = scene.start_s - (pad + 0.5) * dt
     ntr = len(track)
     right_unit = right_unit_vectors(body, track)[idx]
     frames = trace_frames(right_unit, body.up_unit(track.lat_deg, track.lon_deg)[idx])
-    strip_m = nadir_strip_m
-    if strip_m is None:
-        strip_m = pulse_limited_radius_m(np.nan_to_num(track.alt_m - h_nadir)[idx], radar.bandwidth_hz, body.mean_radius_m)
-    strip_m = np.broadcast_to(np.asarray(strip_m, dtype=np.float64), (idx.size,)).copy()
-    mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
 
-    coherent = config.processing.mode == "coherent"
+    coherent = proc.mode == "coherent"
     sources = sources and not coherent  # the source record is an incoherent-mode product
-    power = np.full((ntr, radar.samples), np.nan, dtype=np.float32)
-    record = SourceRecord.empty(ntr, radar.samples) if sources else None
+    coherent_presum = coherent and proc.presum > 1 and proc.presum_mode == "coherent"
+    runs = [
+        _BandRun.start(name, scene_for_band(scene, cfg), i, ntr, sources, coherent_presum)
+        for i, (name, cfg) in enumerate(config.per_band())
+    ]  # fmt: skip
+    for run in runs:
+        strip = nadir_strip_m
+        if strip is None:
+            alt = np.nan_to_num(track.alt_m - scene.h_nadir_m)[idx]
+            strip = pulse_limited_radius_m(alt, run.radar.bandwidth_hz, body.mean_radius_m)
+        run.strip_m = np.broadcast_to(np.asarray(strip, dtype=np.float64), (idx.size,)).copy()
+    groups = _kernel_groups(runs, coherent, sources, nadir_strip_m is None)
     chunk = max(4 * TRACES_PER_BLOCK * numba.get_num_threads(), min(256, idx.size // 50 or 1))
     t0 = time.perf_counter()
     with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="simulating") as bar:
         for a in range(0, idx.size, chunk):
             b = min(a + chunk, idx.size)
             rows = idx[a:b]
-            if coherent:
-                detected, n_eval = coherent_power(scene, ant_on[a:b], bin0[a:b], nbins, frames[a:b], rows)
+            for group in groups:
+                ref = group[0]
+                if coherent:
+                    signal, n_eval = coherent_signal(ref.scene, ant_on[a:b], bin0[a:b], nbins, frames[a:b], rows)
+                    stats.facet_evaluations += n_eval
+                    ref.add_coherent(rows, signal[:, pad : pad + radar.samples])
+                    continue
+                binned, best, n_eval = binned_power(ref.scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b],
+                                                    ref.strip_m[a:b], sources, frames[a:b], rows)  # fmt: skip
                 stats.facet_evaluations += n_eval
-                power[rows] = detected[:, pad : pad + radar.samples]
-                bar.update(b - a)
-                continue
-            binned, best, n_eval = binned_power(scene, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b], strip_m[a:b], sources,
-                                                frames[a:b], rows)  # fmt: skip
-            stats.facet_evaluations += n_eval
-            total = binned[:, 0]
-            compressed = _compress(total, kernel_weights, pad, radar.samples)
-            power[rows] = compressed
-            if sources:
-                record.add(rows, binned, best, compressed, kernel_weights, pad, radar.samples, _compress)
+                for run in group:
+                    scaled = binned if run is ref else binned * (run.radar_constant / ref.radar_constant)
+                    compressed = _compress(scaled[:, 0], run.scene.pulse_weights, pad, radar.samples)
+                    run.power[rows] = compressed
+                    if sources:
+                        run.record.add(rows, scaled, best, compressed, run.scene.pulse_weights, pad, radar.samples,
+                                       _compress)  # fmt: skip
             bar.update(b - a)
     stats.seconds_kernel = time.perf_counter() - t0
-    if not np.nanmax(power, initial=0.0) > 0:
+    if not any(run.has_echo() for run in runs):
         raise GeometryError(
             "no surface echo falls inside the recording window of any trace; check [radar] window_start_s and samples"
         )
-
-    window_start = np.full(ntr, np.nan)
-    window_start[idx] = start
-    earliest = np.full(ntr, np.nan)
-    earliest[idx] = earliest_delay
-    extra = {}
-    if sources:
-        extra = record.to_variables(facets, window, body, track, power, window_start, nadir_delay, dt, first_return_db, mainlobe)
-        strip_full = np.full(ntr, np.nan)
-        strip_full[idx] = strip_m
-        extra["nadir_strip_half_width"] = ("trace", strip_full, "m", "cross-track half-width of the nadir strip")
-    if config.noise is not None:  # after the source record: its fractions and first return are of the clutter alone
-        noise_w = config.noise.noise_power_w(radar.bandwidth_hz)
-        power = add_noise(power, noise_w, config.noise.rng())
-        extra["noise_power"] = ((), np.float64(noise_w), "W", "mean receiver noise power per sample, k T B F")
-    if config.subsurface is not None:
-        extra.update(subsurface_variables(config.subsurface, radar, nadir_delay))
     attrs = {
-        **flatten_config_attrs(config),
         "dem_file": src.path.name,
         "dem_path": str(src.path.resolve()),
         **body.to_attrs(),
@@ -202,9 +193,133 @@ def simulate(
     if sources:
         attrs["first_return_threshold_db"] = first_return_db
         attrs["nadir_strip"] = "pulse-limited footprint radius" if nadir_strip_m is None else f"{nadir_strip_m} m"
-    ds = build_dataset(power, window_start, dt, track, nadir_delay, earliest, on_dem, attrs, extra)
+    datasets = [run.dataset(scene, attrs, first_return_db) for run in runs]
+    ds = datasets[0] if len(datasets) == 1 else stack_bands(datasets, config)
     stats.seconds_total = time.perf_counter() - t_start
     return ds
+
+
+def _kernel_groups(runs, coherent: bool, sources: bool, strip_per_band: bool) -> list[list["_BandRun"]]:
+    """Bands whose kernel output differs only by a constant factor share one kernel run.
+
+    Before the pulse convolution the binned power of band b is the radar
+    constant Pt G² λ² / (4π)³ times a sum that depends on the band only through
+    the along-track aperture weight (λ enters δ = λR/2L and the Fresnel zone),
+    the coherent phase, and the nadir strip of the source record (the
+    pulse-limited radius depends on the bandwidth). Bands equal in those are
+    run once and scaled.
+    """
+    if coherent:
+        return [[run] for run in runs]
+    groups: dict[tuple, list] = {}
+    for run in runs:
+        cfg = run.scene.config
+        key = tuple(cfg.antenna.kernel_params())
+        if cfg.processing.aperture != "none":
+            key += (run.radar.wavelength_m,)
+        if sources and strip_per_band:
+            key += (run.radar.bandwidth_hz,)
+        groups.setdefault(key, []).append(run)
+    return list(groups.values())
+
+
+@dataclass
+class _BandRun:
+    """One band's outputs while the traces are simulated (per pulse, before presumming)."""
+
+    name: str | None
+    scene: "Scene"
+    index: int
+    power: np.ndarray
+    record: "SourceRecord | None"
+    signal: np.ndarray | None
+    rng: np.random.Generator | None
+    strip_m: np.ndarray | None = None
+
+    @classmethod
+    def start(cls, name, scene, index, ntr, sources, coherent_presum) -> "_BandRun":
+        cfg = scene.config
+        samples = cfg.radar.samples
+        rng = None
+        if cfg.noise is not None:  # bands get independent noise; a single band keeps the table's seed alone
+            rng = cfg.noise.rng() if name is None else np.random.default_rng([cfg.noise.seed, index])
+        return cls(
+            name=name, scene=scene, index=index,
+            power=np.full((ntr, samples), np.nan, dtype=np.float32),
+            record=SourceRecord.empty(ntr, samples) if sources else None,
+            signal=np.full((ntr, samples), np.nan, dtype=np.complex64) if coherent_presum else None,
+            rng=rng,
+        )  # fmt: skip
+
+    @property
+    def radar(self):
+        return self.scene.config.radar
+
+    @property
+    def radar_constant(self) -> float:
+        return self.radar.radar_constant_w_m2()
+
+    def has_echo(self) -> bool:
+        """Whether any sample received surface power (before noise)."""
+        values = self.power if self.signal is None else np.abs(self.signal)
+        return bool(np.nanmax(values, initial=0.0) > 0)
+
+    def noise_w(self) -> float | None:
+        noise = self.scene.config.noise
+        return None if noise is None else noise.noise_power_w(self.radar.bandwidth_hz)
+
+    def add_coherent(self, rows, signal) -> None:
+        """Coherent mode: complex echoes of some pulses (receiver noise added as complex Gaussian)."""
+        if self.rng is not None:
+            signal = add_complex_noise(signal, self.noise_w(), self.rng)
+        if self.signal is not None:
+            self.signal[rows] = signal
+        else:
+            self.power[rows] = np.abs(signal) ** 2
+
+    def dataset(self, scene: "Scene", attrs: dict, first_return_db: float) -> xr.Dataset:
+        """Presum, add noise and assemble this band's radargram Dataset."""
+        cfg = scene.config
+        radar, proc = cfg.radar, cfg.processing
+        n = proc.presum
+        track, idx = scene.track, scene.idx
+        ntr = len(track)
+
+        def per_trace(values_on):
+            full = np.full(ntr, np.nan)
+            full[idx] = values_on
+            return presum.group_mean(full, n)
+
+        window_start = per_trace(scene.start_s)
+        nadir_delay = presum.group_mean(scene.nadir_delay_s, n)
+        earliest = per_trace(scene.earliest_delay_s)
+        on_dem = presum.group_mean(scene.on_dem.astype(np.float64), n) == 1.0
+        track_out = presum.presum_track(track, n)
+        dt = radar.sample_interval_s
+        clutter = presum.group_mean(self.power, n).astype(np.float32)
+        extra = {}
+        if self.record is not None:
+            record = self.record
+            if n > 1:
+                left, right = presum.presum_sides(record.left, record.right, self.power, n)
+                record = SourceRecord(left=left, right=right, facet=presum.presum_dominant(record.facet, self.power, n))
+            mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
+            extra = record.to_variables(scene.facets, scene.window, scene.src.body, track_out, clutter, window_start,
+                                        nadir_delay, dt, first_return_db, mainlobe)  # fmt: skip
+            extra["nadir_strip_half_width"] = ("trace", per_trace(self.strip_m), "m",
+                                               "cross-track half-width of the nadir strip")  # fmt: skip
+        if self.signal is not None:  # coherent presumming: average the complex echoes, then detect
+            power = (np.abs(presum.group_mean(self.signal, n)) ** 2).astype(np.float32)
+        elif cfg.noise is not None and proc.mode != "coherent":  # after the source record: it is of the clutter alone
+            power = presum.group_mean(add_noise(self.power, self.noise_w(), self.rng), n).astype(np.float32)
+        else:
+            power = clutter
+        if cfg.noise is not None:
+            extra["noise_power"] = ((), np.float64(self.noise_w()), "W", "mean receiver noise power per sample, k T B F")
+        if cfg.subsurface is not None:
+            extra.update(subsurface_variables(cfg.subsurface, radar, nadir_delay))
+        band_attrs = {**flatten_config_attrs(cfg), **attrs}
+        return build_dataset(power, window_start, dt, track_out, nadir_delay, earliest, on_dem, band_attrs, extra)
 
 
 # --------------------------------------------------------------------------- DEM window
@@ -277,8 +392,11 @@ def prepare_scene(
             stacklevel=3,
         )
 
-    kernel_offsets, kernel_weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
-    pad = int(kernel_offsets[-1])
+    # the widest compressed pulse (lowest bandwidth) sets the padding of every band
+    band_pulses = [pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window)
+                   for r in (cfg.radar for _, cfg in config.per_band())]  # fmt: skip
+    pad = max(int(offsets[-1]) for offsets, _ in band_pulses)
+    kernel_weights = band_pulses[0][1]
 
     given = max_memory_bytes != "auto"
     limit = max_memory_bytes
@@ -289,7 +407,8 @@ def prepare_scene(
 
     def check(win):
         est = memory.estimate_memory_bytes(
-            win.width * win.height, len(track), radar.samples, sources=sources, threads=numba.get_num_threads(),
+            win.width * win.height, len(track) * len(band_pulses), radar.samples, sources=sources,
+            threads=numba.get_num_threads(),
             pad_samples=pad, oversample=OVERSAMPLE, traces_per_block=TRACES_PER_BLOCK,
         )  # fmt: skip
         memory.check_memory(est, limit, given=given)
@@ -334,12 +453,23 @@ def prepare_scene(
                 f"[radar] window_start_s = {radar.window_start_s!r}: the window ends at {end[0] * 1e6:.3f} µs, before "
                 f"the earliest surface echo ({earliest_delay.min() * 1e6:.3f} µs); expected a window that contains it"
             )
+    start = presum.shared_window_starts(start, idx, len(track), config.processing.presum)
 
     return Scene(
         src=src, track=track, config=config, window=window, facets=facets, ant_m=ant, on_dem=on_dem, idx=idx,
         h_nadir_m=h_nadir, nadir_delay_s=nadir_delay, earliest_delay_s=earliest_delay, start_s=start,
         pad=pad, pulse_weights=kernel_weights,
     )  # fmt: skip
+
+
+def scene_for_band(scene: Scene, band_config: SimulationConfig) -> Scene:
+    """The scene with one band's single-band configuration and compressed pulse (the DEM
+    window, facets, recording windows and padding are shared by all bands)."""
+    radar = band_config.radar
+    _, weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
+    if scene.config.processing.shadowing:
+        scene.shadow_heights_m  # computed once, shared by the bands
+    return dataclasses.replace(scene, config=band_config, pulse_weights=weights)
 
 
 def shadow_inputs(scene: Scene, traces):
@@ -412,18 +542,24 @@ def pulse_amplitude_grid(radar, oversample: int) -> np.ndarray:
     return h / np.sqrt(np.sum(h[::oversample] ** 2))
 
 
-def detect_coherent(re, im, radar, oversample: int, nbins: int) -> np.ndarray:
-    """Range-compress complex impulse rows (n, nbins·oversample) and return power per sample
-    (n, nbins): |(impulses ⊛ g)(t_k)|² at the sample centres."""
+def compress_coherent(re, im, radar, oversample: int, nbins: int) -> np.ndarray:
+    """Range-compress complex impulse rows (n, nbins·oversample): the complex echo
+    (impulses ⊛ g)(t_k) at the sample centres, (n, nbins)."""
     from scipy.signal import fftconvolve
 
     g = pulse_amplitude_grid(radar, oversample)
     signal = fftconvolve(re + 1j * im, g[None, :], mode="same", axes=1)
-    return np.abs(signal[:, oversample // 2 :: oversample][:, :nbins]) ** 2
+    return signal[:, oversample // 2 :: oversample][:, :nbins]
 
 
-def coherent_power(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
-    """Coherent mode for some traces: power per (padded) sample and the number of facet evaluations."""
+def detect_coherent(re, im, radar, oversample: int, nbins: int) -> np.ndarray:
+    """Power per sample (n, nbins) of range-compressed complex impulse rows: |compress_coherent|²."""
+    return np.abs(compress_coherent(re, im, radar, oversample, nbins)) ** 2
+
+
+def coherent_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
+    """Coherent mode for some traces: the complex echo per (padded) sample, whose squared
+    modulus is the power, and the number of facet evaluations."""
     f = scene.facets
     config = scene.config
     radar, proc = config.radar, config.processing
@@ -439,7 +575,7 @@ def coherent_power(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
         config.kernel_weighting(), *shadow_inputs(scene, traces), 4.0 * math.pi / radar.wavelength_m,
         proc.random_phase, proc.seed, re, im,
     )  # fmt: skip
-    return detect_coherent(re, im, radar, k, nbins), n_eval
+    return compress_coherent(re, im, radar, k, nbins), n_eval
 
 
 def _compress(binned, weights, pad, samples):

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import json
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +28,7 @@ from .errors import ClutterSimError, ConfigError
 from .radar import apparent_depth_m, delay_after_surface_s
 from .products import MapFrame
 from .radargram import open_radargram
-from .simulate import Scene, prepare_scene, shadow_inputs
+from .simulate import Scene, prepare_scene, scene_for_band, shadow_inputs
 from .track import Track
 
 
@@ -45,15 +45,18 @@ class Run:
         return self.scene.config
 
 
-def load_run(run_dir, dem=None) -> Run:
+def load_run(run_dir, dem=None, band: str | None = None) -> Run:
     """Open ``RUN_DIR/radargram.nc`` and rebuild its scene from the DEM it was made from.
 
-    ``dem`` overrides the DEM path recorded in the run (e.g. after moving files).
+    ``dem`` overrides the DEM path recorded in the run (e.g. after moving files);
+    ``band`` picks one band of a multi-band run (default: the first).
     """
     run_dir = Path(run_dir)
-    ds = open_radargram(run_dir / "radargram.nc")
+    ds = open_radargram(run_dir / "radargram.nc", band=band)
     try:
         config = SimulationConfig.from_dict(json.loads(ds.attrs["cluttersim_config"]))
+        # the scene (DEM window, padding) of a multi-band run is that of all its bands
+        scene_config = SimulationConfig.from_dict(json.loads(ds.attrs.get("cluttersim_config_all", ds.attrs["cluttersim_config"])))
         dem_path = dem or ds.attrs["dem_path"]
     except KeyError as exc:
         raise ClutterSimError(f"{run_dir}/radargram.nc: attribute {exc} missing; expected a cluttersim run") from None
@@ -63,9 +66,17 @@ def load_run(run_dir, dem=None) -> Run:
     track = Track(ds["lat"].values, ds["lon"].values, ds["alt"].values, time_s, source=f"{run_dir}/radargram.nc")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the run already reported holes and traces off the DEM
-        scene = prepare_scene(src, track, config)
+        presummed = config.processing.presum > 1
+        if presummed:
+            # the recorded traces are the presummed ones: the scene is rebuilt at their positions
+            # (each run of pulses' mean position) with their recorded windows
+            config = replace(config, processing=replace(config.processing, presum=1))
+            scene_config = replace(scene_config, processing=config.processing)
+        scene = scene_for_band(prepare_scene(src, track, scene_config), config)
     recorded = ds["window_start"].values[scene.idx]
-    if not np.allclose(recorded, scene.start_s, rtol=0, atol=1e-3 * config.radar.sample_interval_s):
+    if presummed:
+        scene.start_s = recorded
+    elif not np.allclose(recorded, scene.start_s, rtol=0, atol=1e-3 * config.radar.sample_interval_s):
         raise ClutterSimError(f"{src.path}: the DEM no longer gives the run's recording windows; was it changed?")
     return Run(run_dir=run_dir, ds=ds, scene=scene)
 
@@ -265,6 +276,11 @@ def _depth_tag(a: float, b: float, permittivity: float) -> str:
     return f"{a:g}-{b:g}m_eps{permittivity:g}"
 
 
+def _band_tag(run: Run) -> str:
+    """``_<band>`` for one band of a multi-band run (file names), else empty."""
+    return f"_{run.ds.attrs['band']}" if "band" in run.ds.attrs else ""
+
+
 def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> dict[str, Path]:
     """Write the depth-window map as ``sources_<A>-<B>m_eps<ε>.tif`` (GeoTIFF, W per cell,
     the run's DEM-window grid and CRS) and a ``.png`` beside it in the run directory."""
@@ -274,7 +290,7 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> d
     from . import plots
     from .outputs import atomic_paths, check_new
 
-    stem = f"sources_{_depth_tag(smap.depth_min_m, smap.depth_max_m, smap.permittivity)}"
+    stem = f"sources_{_depth_tag(smap.depth_min_m, smap.depth_max_m, smap.permittivity)}{_band_tag(run)}"
     paths = {"tif": run.run_dir / f"{stem}.tif", "png": run.run_dir / f"{stem}.png"}
     check_new(paths.values(), overwrite)
     ny, nx = smap.power_w.shape
@@ -304,7 +320,7 @@ def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) 
     from . import plots
     from .outputs import atomic_paths, check_new
 
-    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us.png"
+    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us{_band_tag(run)}.png"
     check_new([path], overwrite)
     src = run.scene.src
     window = run.scene.window

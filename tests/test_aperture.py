@@ -37,8 +37,8 @@ def test_processing_table_errors():
         SimulationConfig.from_dict({"processing": {"aperture": "focused"}})
     with pytest.raises(ConfigError, match=r"\[processing\] aperture = 'sar'"):
         SimulationConfig.from_dict({"processing": {"aperture": "sar"}})
-    with pytest.raises(ConfigError, match=r"\[processing\] unknown key 'presum'"):
-        SimulationConfig.from_dict({"processing": {"presum": 4}})
+    with pytest.raises(ConfigError, match=r"\[processing\] unknown key 'stacking'"):
+        SimulationConfig.from_dict({"processing": {"stacking": 4}})
 
 
 @pytest.fixture(scope="module")
