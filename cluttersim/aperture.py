@@ -16,12 +16,21 @@ ahead of and behind the spacecraft:
 
 R is the facet's range, λ the wavelength at the centre frequency. The weight
 multiplies the facet's power in the kernel (with the antenna pattern).
+
+The focused aperture can also be given by its processed Doppler bandwidth B_D
+(``doppler_bandwidth_hz``): a point is seen over the along-track angles whose
+Doppler shift 2v sin(θ)/λ spans B_D, an aperture L = λR B_D/(2v), hence
+δ = v/B_D at every range (Curlander & McDonough 1991, §4.1; cited from memory).
+v is the platform speed (``platform_speed_m_s``, or from the track's times:
+distance between consecutive antenna positions over time, median); for an
+orbiter the exact value for surface points is slightly lower (the footprint
+moves at v·Rp/(Rp+h)): a flat-geometry approximation (4 % at 300 km on Mars).
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
@@ -41,13 +50,22 @@ def focused_resolution_m(wavelength_m, range_m, aperture_length_m):
     return np.asarray(wavelength_m) * np.asarray(range_m) / (2.0 * aperture_length_m)
 
 
-def along_track_weight(along_m, range_m, wavelength_m, aperture: str, aperture_length_m: float = 0.0):
-    """Power weight of a facet at along-track offset ``along_m`` and range ``range_m`` (see module)."""
+def doppler_resolution_m(platform_speed_m_s, doppler_bandwidth_hz):
+    """Along-track resolution of focusing over a Doppler bandwidth B_D, δ = v/B_D, metres."""
+    return np.asarray(platform_speed_m_s) / doppler_bandwidth_hz
+
+
+def along_track_weight(along_m, range_m, wavelength_m, aperture: str, aperture_length_m: float = 0.0,
+                       resolution_m: float | None = None):  # fmt: skip
+    """Power weight of a facet at along-track offset ``along_m`` and range ``range_m`` (see module);
+    ``resolution_m``: a focused resolution δ fixed at every range (the Doppler-bandwidth form)."""
     y = np.asarray(along_m, dtype=np.float64)
     if aperture == "none":
         return np.ones_like(y)
     if aperture == "unfocused":
         return (np.abs(y) <= fresnel_zone_radius_m(wavelength_m, range_m)).astype(np.float64)
+    if resolution_m is not None:
+        return np.sinc(y / resolution_m) ** 2
     return np.sinc(y / focused_resolution_m(wavelength_m, range_m, aperture_length_m)) ** 2
 
 
@@ -73,6 +91,8 @@ class ProcessingConfig:
     seed: int = 0
     presum: int = 1
     presum_mode: str = "incoherent"
+    doppler_bandwidth_hz: float = 0.0
+    platform_speed_m_s: float = 0.0
 
     def __post_init__(self):
         if self.aperture not in APERTURES:
@@ -97,8 +117,15 @@ class ProcessingConfig:
                 "[processing] presum_mode = 'coherent' sums complex echoes: expected mode = 'coherent' "
                 "(the incoherent mode has no phase)"
             )
-        if self.aperture == "focused" and not length > 0:
-            raise ConfigError("[processing] aperture = 'focused' needs aperture_length_m > 0 (the processed aperture)")
+        for key in ("doppler_bandwidth_hz", "platform_speed_m_s"):
+            value = getattr(self, key)
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
+                raise ConfigError(f"[processing] {key} = {value!r}: expected a number >= 0")
+        if self.aperture == "focused" and (length > 0) == (self.doppler_bandwidth_hz > 0):
+            raise ConfigError(
+                "[processing] aperture = 'focused' needs exactly one of aperture_length_m > 0 (the processed aperture) "
+                "and doppler_bandwidth_hz > 0 (the processed Doppler bandwidth)"
+            )
 
     @classmethod
     def from_dict(cls, data) -> "ProcessingConfig":
@@ -112,8 +139,34 @@ class ProcessingConfig:
                 raise ConfigError(f"[processing] {key} = {value!r}: expected a string")
         return cls(**data)
 
+    @property
+    def doppler_focused(self) -> bool:
+        """Focused by a Doppler bandwidth (δ = v/B_D) rather than an aperture length."""
+        return self.aperture == "focused" and self.doppler_bandwidth_hz > 0
+
+    def with_track_speed(self, track, body) -> "ProcessingConfig":
+        """This table with ``platform_speed_m_s`` taken from the track's times when the Doppler
+        form needs it and it is not given: the median of |Δ position| / Δt between consecutive
+        antenna positions (body-fixed)."""
+        if not self.doppler_focused or self.platform_speed_m_s > 0:
+            return self
+        if track.time_s is None or len(track) < 2:
+            raise ConfigError(
+                f"[processing] doppler_bandwidth_hz needs the platform speed: give platform_speed_m_s, or a track "
+                f"with a time column and at least two traces ({track.source} has none)"
+            )
+        xyz = body.geodetic_to_ecef_m(track.lat_deg, track.lon_deg, track.alt_m)
+        speed = np.linalg.norm(np.diff(xyz, axis=0), axis=1) / np.diff(track.time_s)
+        return replace(self, platform_speed_m_s=float(np.median(speed)))
+
     def kernel_params(self, wavelength_m: float) -> np.ndarray:
-        """(aperture code, aperture length m, wavelength m)."""
+        """(aperture code, aperture length m, wavelength m); the Doppler form is code 3 with the
+        fixed resolution δ = v/B_D in place of the length."""
+        if self.doppler_focused:
+            if not self.platform_speed_m_s > 0:
+                raise ValueError("kernel_params: the platform speed is not known yet (ProcessingConfig.with_track_speed)")
+            delta = float(doppler_resolution_m(self.platform_speed_m_s, self.doppler_bandwidth_hz))
+            return np.array([3.0, delta, float(wavelength_m)])
         return np.array([float(APERTURES[self.aperture]), float(self.aperture_length_m), float(wavelength_m)])
 
     def to_dict(self) -> dict:

@@ -127,7 +127,8 @@ def pattern_gain_two_way(params, frame, ux, uy, uz):
 def direction_weight(params, frame, vx, vy, vz, inv_r):
     """Weight of a facet at offset v from the antenna: the two-way antenna pattern
     (:func:`pattern_gain_two_way`, params[0:5]) times the along-track processing weight
-    (params[5:8] = aperture code, aperture length, wavelength; :mod:`cluttersim.aperture`)."""
+    (params[5:8] = aperture code, aperture length (code 3: the resolution δ), wavelength;
+    :mod:`cluttersim.aperture`)."""
     ux = vx * inv_r
     uy = vy * inv_r
     uz = vz * inv_r
@@ -140,7 +141,10 @@ def direction_weight(params, frame, vx, vy, vz, inv_r):
             if y * y > 0.5 * params[7] * r:  # outside the first Fresnel zone, |y| > √(λR/2)
                 w = 0.0
         else:
-            x = math.pi * y * 2.0 * params[6] / (params[7] * r)  # π y / δ, δ = λR/(2L)
+            if code == 2.0:
+                x = math.pi * y * 2.0 * params[6] / (params[7] * r)  # π y / δ, δ = λR/(2L)
+            else:
+                x = math.pi * y / params[6]  # code 3: δ = v/B_D, the same at every range
             if x != 0.0:
                 sx = math.sin(x) / x
                 w *= sx * sx

@@ -57,8 +57,10 @@ def reference_binned_power(facets, ant_m, bin0_s, dt_s: float, nbins: int, confi
             from .aperture import along_track_weight
 
             along = (v[front] @ frames[t][0])
-            p *= along_track_weight(along, r, radar.wavelength_m, config.processing.aperture,
-                                    config.processing.aperture_length_m)  # fmt: skip
+            proc = config.processing
+            delta = proc.kernel_params(radar.wavelength_m)[1] if proc.doppler_focused else None
+            p *= along_track_weight(along, r, radar.wavelength_m, proc.aperture, proc.aperture_length_m,
+                                    resolution_m=delta)  # fmt: skip
         wa = np.abs(np.einsum("ij,ij->i", u, e1[front])) / bin_m
         wb = np.abs(np.einsum("ij,ij->i", u, e2[front])) / bin_m
         x = (2.0 * r / SPEED_OF_LIGHT_M_S - bin0_s[t]) / dt_s

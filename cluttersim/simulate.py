@@ -124,6 +124,7 @@ def simulate(
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
     body = src.body
+    config = dataclasses.replace(config, processing=config.processing.with_track_speed(track, body))
     proc = config.processing
     if len(track) < proc.presum:
         raise TrackError(f"{track.source}: {len(track)} pulses, fewer than [processing] presum = {proc.presum}")
