@@ -25,6 +25,7 @@ demo: $(VENV)/.installed
 	$(BIN)/cluttersim demo
 
 test: $(VENV)/.installed-test
+	bash .ci/install-browser
 	$(BIN)/python -m pytest
 
 bench: $(VENV)/.installed

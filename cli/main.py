@@ -59,6 +59,10 @@ def _register():
     cli.add_command(sources.sources_cmd)
     cli.add_command(compare.compare_cmd)
 
+    from . import report
+
+    cli.add_command(report.report_cmd)
+
 
 _register()
 

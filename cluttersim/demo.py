@@ -17,6 +17,7 @@ from .config import default_config
 from .dem import DemSource
 from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
+from .report import REPORT_FILE, write_report
 from .outputs import atomic_paths, check_new
 from .simulate import RunStats, simulate
 from .track import great_circle_track
@@ -53,7 +54,8 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     out_dir = Path(out_dir)
     track_csv = out_dir / "demo_track.csv"
     focused_png = out_dir / "radargram_focused.png"
-    check_new([track_csv, focused_png] + [out_dir / f for f in RUN_FILES.values()], overwrite)
+    report_html = out_dir / REPORT_FILE
+    check_new([track_csv, focused_png, report_html] + [out_dir / f for f in RUN_FILES.values()], overwrite)
     src = DemSource.open(demo_dem_path())
     track = great_circle_track(
         src.body, *DEMO_START_LAT_LON, *DEMO_END_LAT_LON, DEMO_ALT_M, DEMO_SPACING_M, speed_m_s=DEMO_SPEED_M_S
@@ -70,4 +72,6 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
         track.to_csv(tmp_csv)
         plots.plot_radargram(focused, tmp_png, permittivity=3.15,
                              title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind suppressed")  # fmt: skip
-    return {**paths, "focused": focused_png, "track": track_csv}, stats
+    # the page to point at echoes and see where they come from
+    write_report(out_dir, report_html, permittivity=3.15, overwrite=True)
+    return {**paths, "focused": focused_png, "track": track_csv, "report": report_html}, stats

@@ -231,9 +231,35 @@ def plot_radargram(
         ``path``.
     """
     _check_permittivity(permittivity)
-    layers = radargram_layers(ds, dynamic_range_db)
     fig = _new_figure(RADARGRAM_FIGSIZE_IN)
-    ax = fig.add_subplot()
+    _draw_radargram_panel(fig, fig.add_subplot(), ds, dynamic_range_db, title, permittivity)
+    return _save_atomic(fig, path)
+
+
+def plot_band_radargrams(ds, path, *, dynamic_range_db: float = 60.0, title: str | None = None,
+                         permittivity: float | None = None) -> Path:  # fmt: skip
+    """Draw each band of a multi-band radargram (``band`` dimension, :mod:`cluttersim.radargram`)
+    as one panel of a column, each with its own colour scale (the bands' power levels differ by
+    their radar constants), titled with its centre frequency and bandwidth."""
+    from .radargram import band_names, select_band
+
+    _check_permittivity(permittivity)
+    names = band_names(ds)
+    if not names:
+        raise ValueError("plot_band_radargrams: the radargram has no band dimension")
+    fig = _new_figure((RADARGRAM_FIGSIZE_IN[0], 0.8 * RADARGRAM_FIGSIZE_IN[1] * len(names)))
+    for i, name in enumerate(names):
+        one = select_band(ds, name)
+        f_mhz, b_mhz = one.attrs["radar_center_frequency_hz"] / 1e6, one.attrs["radar_bandwidth_hz"] / 1e6
+        label = f"band {name}: {f_mhz:g} MHz, bandwidth {b_mhz:g} MHz (resolution {150 / b_mhz:g} m)"
+        _draw_radargram_panel(fig, fig.add_subplot(len(names), 1, i + 1), one, dynamic_range_db,
+                              label if title is None else f"{title}\n{label}" if i == 0 else label, permittivity)  # fmt: skip
+    return _save_atomic(fig, path)
+
+
+def _draw_radargram_panel(fig, ax, ds, dynamic_range_db, title, permittivity) -> None:
+    """One radargram with its colour bar, nadir line, overlays and axes (see :func:`plot_radargram`)."""
+    layers = radargram_layers(ds, dynamic_range_db)
     cmap = colormaps[RADARGRAM_CMAP].with_extremes(bad=NO_DATA_COLOUR)
     image = ax.imshow(
         layers.image_db,
@@ -259,7 +285,6 @@ def plot_radargram(
         ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     _label_radargram(ax, layers, title)
     _add_depth_axis(ax, layers, permittivity)
-    return _save_atomic(fig, path)
 
 
 # --------------------------------------------------------------------- side radargram

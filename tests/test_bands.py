@@ -164,3 +164,21 @@ def test_cli_writes_one_figure_per_band_and_sources_picks_a_band(flat_bands, tmp
     assert next(out.glob("echo_t3_*")).name.endswith("us_high.png")
     r = CliRunner().invoke(cli, ["sources", str(out), "--trace", "3", "--depth-m", "30", "--band", "mid"])
     assert r.exit_code == 1 and "band 'mid': expected one of low, high" in r.output
+    r = CliRunner().invoke(cli, ["report", str(out), "--band", "high", "--out", str(tmp_path / "high.html"), "-q"])
+    assert r.exit_code == 0, r.output
+    assert "40 MHz" in (tmp_path / "high.html").read_text() or "40000000" in (tmp_path / "high.html").read_text()
+
+
+def test_band_figure_has_one_panel_per_band(flat_bands, tmp_path):
+    from PIL import Image
+
+    from cluttersim.plots import plot_band_radargrams, plot_radargram
+
+    *_, ds = flat_bands
+    path = plot_band_radargrams(ds, tmp_path / "bands.png", permittivity=3.15)
+    single = plot_radargram(select_band(ds, "low"), tmp_path / "one.png")
+    w2, h2 = Image.open(path).size
+    w1, h1 = Image.open(single).size
+    assert w2 == w1 and h2 == pytest.approx(1.6 * h1, rel=0.02)  # two panels at 0.8 of the single height
+    with pytest.raises(ValueError, match="no band dimension"):
+        plot_band_radargrams(select_band(ds, "low"), tmp_path / "x.png")
