@@ -30,6 +30,8 @@ def demo_cmd(out_dir, overwrite, quiet):
         f"                 track (west: the craters), blue from the right (east: the mesa)\n"
         f"  radargram_focused.png  the same pass as focused data would show it: the long tails of the\n"
         f"                 hyperbolas (clutter ahead of and behind the spacecraft) are gone\n"
+        f"  radargram_bands.png  the pass in a low band (9 MHz, 3 MHz wide: 50 m resolution) and a high band\n"
+        f"                 (25 MHz, 20 MHz wide: 7.5 m): the wide band separates echoes the narrow one smears\n"
         f"  track_map.png  the pass ({DEMO_ALT_M / 1e3:.0f} km up) over shaded relief, with its first returns\n"
         f"  report.html    one page to point at echoes: for any trace and delay it reads out the depth, power,\n"
         f"                 side and ground source, and marks the source on the track map; open it in a browser:\n"

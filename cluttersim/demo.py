@@ -14,6 +14,7 @@ from pathlib import Path
 from . import plots
 from .aperture import ProcessingConfig
 from .config import default_config
+from .radar import BandConfig
 from .dem import DemSource
 from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
@@ -34,6 +35,15 @@ DEMO_SPACING_M = 500.0
 DEMO_SPEED_M_S = 3400.0
 #: Processed synthetic aperture of the demo's focused view (δ = λR/2L ≈ 750 m at 300 km, λ = 15 m).
 DEMO_APERTURE_M = 3000.0
+#: The demo's two-band view: a low band (deeper penetration, coarse: c/2B = 50 m) and a high band
+#: (finer: 7.5 m) of an invented dual-band sounder, on the default radar's window.
+DEMO_BANDS = (
+    BandConfig("low", {"center_frequency_hz": 9e6, "bandwidth_hz": 3e6}),
+    BandConfig("high", {"center_frequency_hz": 25e6, "bandwidth_hz": 20e6}),
+)
+#: Samples shown in the two-band view (15 µs: the nadir echo and the nearest clutter, where the
+#: resolution difference shows).
+DEMO_BANDS_SAMPLES = 400
 
 
 def demo_dem_path() -> Path:
@@ -54,8 +64,9 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     out_dir = Path(out_dir)
     track_csv = out_dir / "demo_track.csv"
     focused_png = out_dir / "radargram_focused.png"
+    bands_png = out_dir / "radargram_bands.png"
     report_html = out_dir / REPORT_FILE
-    check_new([track_csv, focused_png, report_html] + [out_dir / f for f in RUN_FILES.values()], overwrite)
+    check_new([track_csv, focused_png, bands_png, report_html] + [out_dir / f for f in RUN_FILES.values()], overwrite)
     src = DemSource.open(demo_dem_path())
     track = great_circle_track(
         src.body, *DEMO_START_LAT_LON, *DEMO_END_LAT_LON, DEMO_ALT_M, DEMO_SPACING_M, speed_m_s=DEMO_SPEED_M_S
@@ -68,10 +79,14 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
         default_config(), processing=ProcessingConfig(aperture="focused", aperture_length_m=DEMO_APERTURE_M)
     )
     focused = simulate(src, track, focused_cfg, sources=False)
-    with atomic_paths([track_csv, focused_png]) as (tmp_csv, tmp_png):
+    # the same pass seen by two bands: the wide band resolves the clutter finely, the narrow one smears it
+    bands = simulate(src, track, dataclasses.replace(default_config(), bands=DEMO_BANDS), sources=False)
+    with atomic_paths([track_csv, focused_png, bands_png]) as (tmp_csv, tmp_png, tmp_bands):
         track.to_csv(tmp_csv)
         plots.plot_radargram(focused, tmp_png, permittivity=3.15,
                              title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind suppressed")  # fmt: skip
+        plots.plot_band_radargrams(bands.isel(sample=slice(0, DEMO_BANDS_SAMPLES)), tmp_bands, permittivity=3.15,
+                                   title="the same pass in two frequency bands (first 15 µs of the window)")  # fmt: skip
     # the page to point at echoes and see where they come from
     write_report(out_dir, report_html, permittivity=3.15, overwrite=True)
-    return {**paths, "focused": focused_png, "track": track_csv, "report": report_html}, stats
+    return {**paths, "focused": focused_png, "bands": bands_png, "track": track_csv, "report": report_html}, stats
