@@ -16,7 +16,7 @@ $(VENV)/.installed: pyproject.toml | $(BIN)/python
 	touch $@
 
 $(VENV)/.installed-test: pyproject.toml | $(BIN)/python
-	$(BIN)/python -m pip install --quiet -e '.[test]'
+	$(BIN)/python -m pip install --quiet -e '.[test,dask]'
 	touch $@ $(VENV)/.installed
 
 install: $(VENV)/.installed
@@ -30,6 +30,7 @@ test: $(VENV)/.installed-test
 
 bench: $(VENV)/.installed
 	$(BIN)/python benchmarks/bench_simulate.py
+	$(BIN)/python benchmarks/bench_survey.py
 
 clean:
 	rm -rf $(VENV) demo_output .pytest_cache

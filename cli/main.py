@@ -63,6 +63,10 @@ def _register():
 
     cli.add_command(report.report_cmd)
 
+    from . import survey
+
+    cli.add_command(survey.survey_cmd)
+
 
 _register()
 

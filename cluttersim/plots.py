@@ -1168,6 +1168,89 @@ def _share_marker_area_pt2(share: np.ndarray) -> np.ndarray:
     return np.maximum(600.0 * np.clip(np.nan_to_num(share), 0.0, 1.0), 12.0)
 
 
+# --------------------------------------------------------------------- survey map
+
+#: Diverging colour map of the survey map, centred on the clutter-prone threshold
+#: (colour-blind safe: purple readable, orange clutter-prone).
+SURVEY_MAP_CMAP = "PuOr_r"
+SURVEY_TRACK_COLOUR = "#333333"
+
+
+def plot_survey_map(
+    index_db,
+    extent,
+    elevation_m,
+    relief_extent,
+    tracks_xy,
+    path,
+    *,
+    threshold_db: float = 0.0,
+    title: str | None = None,
+    axis_labels: tuple[str, str] = ("longitude (°E)", "latitude (°N)"),
+    geographic: bool = True,
+    label: str = "strongest off-nadir clutter in the subsurface window relative to the nadir surface echo (dB)",
+    below_db: float = 6.0,
+    above_db: float = 18.0,
+) -> Path:
+    """Map a gridded clutter index over a grey hillshade, to a PNG.
+
+    Parameters
+    ----------
+    index_db : array_like (ny, nx)
+        Clutter index per map cell (dB); NaN where no track passed (left grey).
+    extent : tuple of float
+        (west, east, south, north) of the index grid, in map coordinates.
+    elevation_m : array_like
+        Heights for the relief, row 0 north; ``relief_extent`` its edges.
+    tracks_xy : sequence of (x, y)
+        Each track's nadir points in map coordinates, drawn as thin lines.
+    threshold_db : float
+        The clutter-prone threshold: the colour scale is centred on it and the
+        colour bar says in words which side is which.
+    below_db, above_db : float
+        The colour scale spans [threshold − below_db, threshold + above_db] (fixed, so that
+        maps of different surveys compare); values beyond take the end colours.
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
+    from matplotlib.colors import TwoSlopeNorm
+
+    index = _grid(index_db, "index_db")
+    elev = _grid(elevation_m, "elevation_m")
+    if not (below_db > 0 and above_db > 0):
+        raise ValueError(f"below_db and above_db must be positive, got {below_db!r}, {above_db!r}")
+    vmin, vmax = threshold_db - below_db, threshold_db + above_db
+    fig = _new_figure(TRACK_MAP_FIGSIZE_IN)
+    ax = fig.add_subplot()
+    _draw_relief(ax, _grey_hillshade_rgba(elev), relief_extent)
+    image = ax.imshow(
+        np.ma.masked_invalid(index),
+        cmap=colormaps[SURVEY_MAP_CMAP].with_extremes(bad=(0.0, 0.0, 0.0, 0.0)),
+        norm=TwoSlopeNorm(vcenter=threshold_db, vmin=vmin, vmax=vmax),
+        extent=_image_extent(extent),
+        origin="upper",
+        interpolation="nearest",
+        alpha=0.9,
+    )
+    for i, (x, y) in enumerate(tracks_xy):
+        ax.plot(_map_x(x, extent, geographic), np.asarray(y, dtype=np.float64).ravel(), color=SURVEY_TRACK_COLOUR,
+                lw=0.5, alpha=0.6, label="tracks (nadir)" if i == 0 else None)  # fmt: skip
+    _frame_map(ax, extent, axis_labels, geographic)
+    handles, _ = ax.get_legend_handles_labels()
+    handles.append(Patch(facecolor=_HILLSHADE_MID_GREY, edgecolor="0.4", linewidth=0.5, label="grey only: no track passed"))
+    ax.legend(handles=handles, loc="upper right", **_LEGEND_STYLE)
+    if title:
+        ax.set_title(title)
+    bar = fig.colorbar(image, ax=ax, label=label, shrink=0.8, extend="both")
+    bar.ax.axhline(threshold_db, color="black", lw=1.0)
+    bar.ax.text(0.5, 1.06, "clutter-prone", transform=bar.ax.transAxes, ha="center", va="bottom", fontsize="small")
+    bar.ax.text(0.5, -0.06, "subsurface\nreadable", transform=bar.ax.transAxes, ha="center", va="top", fontsize="small")
+    return _save_atomic(fig, path)
+
+
 # --------------------------------------------------------------------- map parts
 
 

@@ -71,21 +71,16 @@ class Track:
     def from_csv(cls, path) -> "Track":
         """Read a track CSV (see module docstring)."""
         path = Path(path)
-        try:
-            with open(path, newline="", encoding="utf-8") as fh:
-                reader = csv.reader(fh)
-                header = next(reader, None)
-                rows = list(reader)
-        except FileNotFoundError:
-            raise TrackError(f"{path}: track file not found") from None
-        except (OSError, UnicodeDecodeError, csv.Error) as exc:
-            raise TrackError(f"{path}: cannot read track CSV ({exc})") from None
-        if not header:
-            raise TrackError(f"{path}: empty file, expected a header with columns lat, lon, alt")
-        names = [h.strip().lower() for h in header]
-        missing = [c for c in REQUIRED_COLUMNS if c not in names]
-        if missing:
-            raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; expected lat, lon, alt (and optional time)")
+        names, rows = read_track_table(path)
+        return cls.from_rows(names, rows, source=str(path))
+
+    @classmethod
+    def from_rows(cls, names: list[str], rows: list[list[str]], source: str, row_numbers=None) -> "Track":
+        """A track from the parsed rows of a track table (see :func:`read_track_table`).
+
+        ``row_numbers`` are the rows' data-row numbers in the file (from 1), for
+        messages; by default 1, 2, ...
+        """
         wanted = list(REQUIRED_COLUMNS) + (["time"] if "time" in names else [])
         cols = {c: np.empty(len(rows)) for c in wanted}
         for r, row in enumerate(rows):
@@ -95,10 +90,9 @@ class Track:
                 try:
                     cols[c][r] = float(cell)
                 except ValueError:
-                    raise TrackError(f"{path}: row {r + 1} column {c!r} = {cell!r}: expected a number") from None
-        return cls(
-            lat_deg=cols["lat"], lon_deg=cols["lon"], alt_m=cols["alt"], time_s=cols.get("time"), source=str(path)
-        )
+                    number = r + 1 if row_numbers is None else row_numbers[r]
+                    raise TrackError(f"{source}: row {number} column {c!r} = {cell!r}: expected a number") from None
+        return cls(lat_deg=cols["lat"], lon_deg=cols["lon"], alt_m=cols["alt"], time_s=cols.get("time"), source=source)
 
     def to_csv(self, path) -> None:
         """Write the track as CSV (columns lat, lon, alt[, time]) to ``path``."""
@@ -110,6 +104,29 @@ class Track:
                 if self.time_s is not None:
                     row.append(f"{self.time_s[i]:.6f}")
                 writer.writerow(row)
+
+
+def read_track_table(path, extra_columns: tuple[str, ...] = ()) -> tuple[list[str], list[list[str]]]:
+    """The lower-cased header names and the data rows of a track CSV, checked to have the
+    columns lat, lon, alt and ``extra_columns``."""
+    path = Path(path)
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            reader = csv.reader(fh)
+            header = next(reader, None)
+            rows = list(reader)
+    except FileNotFoundError:
+        raise TrackError(f"{path}: track file not found") from None
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise TrackError(f"{path}: cannot read track CSV ({exc})") from None
+    expected = ", ".join(REQUIRED_COLUMNS + tuple(extra_columns))
+    if not header:
+        raise TrackError(f"{path}: empty file, expected a header with columns {expected}")
+    names = [h.strip().lower() for h in header]
+    missing = [c for c in REQUIRED_COLUMNS + tuple(extra_columns) if c not in names]
+    if missing:
+        raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; expected {expected} (and optional time)")
+    return names, rows
 
 
 def great_circle_track(

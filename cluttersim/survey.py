@@ -1,0 +1,1020 @@
+"""Region survey: where will the subsurface be readable, and where will off-nadir clutter swamp it?
+
+Many tracks over a region are simulated with the same physics as one run
+(:func:`cluttersim.simulate.simulate`), each reduced, trace by trace, to a
+clutter index, then gridded onto the ground::
+
+    SurveyConfig ──► plan_tracks (parallel geodesics, or a CSV with track_id) ──► [SurveyTrack]
+    [TrackJob] ──► engine (local processes, or Dask tasks) ──► survey_track per job:
+                   simulate() ──► clutter_index() ──► TrackResult
+              ──► DIR/tracks/<id>.nc as each finishes (atomic; skipped on restart)
+    all TrackResults (sorted by track id) ──► grid_results ──► clutter_map.tif, clutter_map.png
+                                          ──► survey.csv (one row per track)
+
+Clutter index of one trace (the README writes these out). Let P_k be the power of
+sample k, L_k and R_k the shares of it from left and right of the track
+(the source record), so C_k = P_k (L_k + R_k) is the off-nadir clutter power
+and P_k (1 − L_k − R_k) the power from the nadir strip. Let t_n be the nadir
+surface delay and W the samples whose delays lie in the subsurface window
+[t_n, t_n + 2 d_max √ε′ / c] (apparent depths 0..d_max in a medium of real
+permittivity ε′, :func:`cluttersim.radar.delay_after_surface_s`). The nadir
+surface echo power P_s is the largest nadir-strip power within the compressed
+pulse's main lobe (±⌈1/(B Δt)⌉ samples) of t_n. Then
+
+* clutter index  I = 10 log10( max_{k∈W} C_k / P_s )  (dB);
+* clutter fraction  F = Σ_{k∈W} P_k [C_k ≥ P_s 10^{T/10}] / Σ_{k∈W} P_k, the
+  share of the window's echo power that lies in samples where clutter exceeds
+  the threshold T dB relative to the nadir echo;
+* a trace is clutter-prone when I ≥ T.
+
+Engines: the tracks are independent; each job carries the DEM's path (never its
+pixels), the track and the configuration, and the worker reads only the DEM
+window its track needs. Locally a ``ProcessPoolExecutor`` (spawn context) runs
+them; with a scheduler they are Dask tasks (Dask is imported only then). Numba
+sums every trace in one thread in a fixed order, so the results do not depend
+on the engine or the thread count; the map is gridded with a per-cell maximum
+over tracks sorted by id, so it does not depend on the completion order either.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import dataclasses
+import hashlib
+import json
+import logging
+import math
+import os
+import re
+import signal
+import threading
+import time
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .config import SimulationConfig, default_config
+from .dem import DemSource
+from .errors import (
+    ClutterSimError,
+    ConfigError,
+    DemError,
+    OutputExistsError,
+    TrackError,
+)
+from .outputs import atomic_paths, check_new
+from .radar import apparent_depth_m, delay_after_surface_s
+from .track import Track, great_circle_track, read_track_table
+
+#: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
+SURVEY_FILES = {"csv": "survey.csv", "map_tif": "clutter_map.tif", "map_png": "clutter_map.png"}
+TRACKS_DIR = "tracks"
+#: Largest side (pixels) of the relief image under the map.
+_RELIEF_CELLS = 900
+#: Grid cells per region side when no grid resolution is given for CSV tracks.
+_DEFAULT_GRID_CELLS = 100
+#: Scheduler address forms accepted besides "local".
+_SCHEDULER_RE = re.compile(r"^(tcp|tls|inproc|ucx)://[^\s/:]+(:\d{1,5})?$")
+
+
+# --------------------------------------------------------------------------- configuration
+
+
+@dataclass(frozen=True)
+class SurveyConfig:
+    """What to survey and how to reduce each trace (the options of ``cluttersim survey``).
+
+    Attributes
+    ----------
+    region : (lon_min, lat_min, lon_max, lat_max)
+        Degrees (east longitudes); must lie on the DEM; may not cross ±180°.
+    spacing_km, heading_deg, alt_m, trace_spacing_m :
+        Generated tracks: parallel geodesics ``spacing_km`` apart, heading
+        ``heading_deg`` (clockwise from north) at the region's centre, at
+        ``alt_m`` above the reference surface, one trace every ``trace_spacing_m``.
+    tracks_path :
+        Instead: a CSV with columns track_id, lat, lon, alt[, time].
+    max_depth_m, permittivity :
+        The subsurface window: apparent depths 0..max_depth_m for ε′.
+    threshold_db :
+        T: clutter ≥ T dB relative to the nadir surface echo counts (fraction
+        F), and a trace with I ≥ T is clutter-prone.
+    grid_km :
+        Map cell size (km; for geographic DEMs converted to degrees of latitude
+        on the body's mean radius, longitude cells having the same size in
+        degrees). Default: half the track spacing, or 1/100 of the region.
+    """
+
+    region: tuple[float, float, float, float]
+    spacing_km: float | None = None
+    heading_deg: float = 0.0
+    alt_m: float | None = None
+    trace_spacing_m: float = 500.0
+    tracks_path: str | None = None
+    max_depth_m: float = 500.0
+    permittivity: float = 3.15
+    threshold_db: float = 0.0
+    grid_km: float | None = None
+
+    def __post_init__(self):
+        if len(self.region) != 4 or not all(math.isfinite(v) for v in self.region):
+            raise ConfigError(f"region {self.region}: expected four numbers LON_MIN LAT_MIN LON_MAX LAT_MAX")
+        lon0, lat0, lon1, lat1 = self.region
+        if not (-90 <= lat0 < lat1 <= 90):
+            raise ConfigError(f"region latitudes {lat0} {lat1}: expected -90 <= LAT_MIN < LAT_MAX <= 90")
+        if not (lon0 < lon1 and lon1 - lon0 < 360):
+            raise ConfigError(
+                f"region longitudes {lon0} {lon1}: expected LON_MIN < LON_MAX, less than 360° apart "
+                "(regions across ±180° are not supported: use longitudes past 180, e.g. 170 190)"
+            )
+        generated = self.spacing_km is not None or self.alt_m is not None
+        if generated == (self.tracks_path is not None):
+            raise ConfigError("tracks: give either --spacing-km, --heading-deg and --alt-m, or --tracks CSV")
+        if generated:
+            for name in ("spacing_km", "alt_m"):
+                if getattr(self, name) is None:
+                    raise ConfigError(f"generated tracks need {name.replace('_', '-')}: give --spacing-km and --alt-m")
+            _positive("spacing_km", self.spacing_km)
+            _positive("alt_m", self.alt_m)
+            _positive("trace_spacing_m", self.trace_spacing_m)
+            if not math.isfinite(self.heading_deg):
+                raise ConfigError(f"heading_deg {self.heading_deg}: expected degrees clockwise from north")
+        _positive("max_depth_m", self.max_depth_m)
+        if not (math.isfinite(self.permittivity) and self.permittivity >= 1):
+            raise ConfigError(f"permittivity {self.permittivity}: expected a real relative permittivity >= 1")
+        if not math.isfinite(self.threshold_db):
+            raise ConfigError(f"threshold_db {self.threshold_db}: expected a number of dB")
+        if self.grid_km is not None:
+            _positive("grid_km", self.grid_km)
+
+    @property
+    def generated(self) -> bool:
+        return self.tracks_path is None
+
+    def window_s(self) -> float:
+        """Length of the subsurface window after the nadir echo: Δt = 2 d_max √ε′ / c."""
+        return float(delay_after_surface_s(self.max_depth_m, self.permittivity))
+
+    def reduction(self) -> dict:
+        """The settings that shape a track's result (part of its resume key)."""
+        return {"max_depth_m": self.max_depth_m, "permittivity": self.permittivity, "threshold_db": self.threshold_db}
+
+
+def _positive(name, value):
+    if not (value is not None and math.isfinite(value) and value > 0):
+        raise ConfigError(f"{name} = {value!r}: expected a positive number")
+
+
+@dataclass(frozen=True)
+class Engine:
+    """Where tracks run: ``workers`` local processes, or a Dask ``scheduler``
+    ("local" starts a ``LocalCluster`` of ``workers`` processes; "tcp://HOST:PORT"
+    connects to a running one)."""
+
+    workers: int | None = None
+    scheduler: str | None = None
+
+    def __post_init__(self):
+        if self.workers is not None and not (isinstance(self.workers, int) and self.workers >= 1):
+            raise ConfigError(f"workers = {self.workers!r}: expected a whole number >= 1")
+        if self.scheduler is not None and self.scheduler != "local" and not _SCHEDULER_RE.match(self.scheduler):
+            raise ConfigError(
+                f"scheduler {self.scheduler!r}: expected 'local' or an address such as tcp://HOST:PORT"
+            )
+        if self.scheduler not in (None, "local") and self.workers is not None:
+            raise ConfigError("workers: the Dask cluster at the scheduler has its own workers; give --workers only "
+                              "with --scheduler local or without --scheduler")  # fmt: skip
+
+    @property
+    def n_workers(self) -> int:
+        return self.workers or (os.cpu_count() or 1)
+
+    def describe(self) -> str:
+        if self.scheduler is None:
+            return f"{self.n_workers} local process{'es' if self.n_workers > 1 else ''}"
+        if self.scheduler == "local":
+            return f"Dask LocalCluster of {self.n_workers} worker{'s' if self.n_workers > 1 else ''}"
+        return f"Dask cluster at {self.scheduler}"
+
+
+# --------------------------------------------------------------------------- tracks
+
+
+@dataclass(frozen=True)
+class SurveyTrack:
+    """One track of a survey, with its id."""
+
+    track_id: str
+    track: Track
+
+
+def region_inside(src: DemSource, region) -> None:
+    """Raise :class:`DemError` unless the region's boundary lies on the DEM."""
+    lon0, lat0, lon1, lat1 = region
+    lon, lat = region_boundary(region)
+    rows, cols = src.lonlat_to_rowcol(lon, lat)
+    inside = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
+    if src.is_geographic and not src.wraps_longitude:
+        x, _ = src.lonlat_to_xy(np.array([lon0, lon1]), np.array([lat0, lat0]))
+        inside &= x[1] > x[0]  # wrapped into the DEM's range, the region must not cross its west edge
+    if not np.all(inside):
+        west, north = src.transform.c, src.transform.f
+        east, south = src.transform @ (src.width, src.height)
+        raise DemError(
+            f"{src.path}: region {lon0:g} {lat0:g} {lon1:g} {lat1:g} (lon/lat) is not inside the DEM, whose "
+            f"extent is x {west:g}..{east:g}, y {south:g}..{north:g} in its CRS; expected a region on the DEM"
+        )
+
+
+def region_boundary(region, points_per_side: int = 65):
+    """Lon/lat (degrees) of points around the region's boundary (its sides are parallels and meridians)."""
+    lon0, lat0, lon1, lat1 = region
+    t = np.linspace(0.0, 1.0, points_per_side)
+    lon = np.concatenate([lon0 + (lon1 - lon0) * t, np.full(t.size, lon1), lon1 - (lon1 - lon0) * t, np.full(t.size, lon0)])
+    lat = np.concatenate([np.full(t.size, lat0), lat0 + (lat1 - lat0) * t, np.full(t.size, lat1), lat1 - (lat1 - lat0) * t])
+    return lon, lat
+
+
+def in_region(lon_deg, lat_deg, region) -> np.ndarray:
+    """True where points lie in the lon/lat box (longitudes compared modulo 360°)."""
+    lon0, lat0, lon1, lat1 = region
+    lat = np.asarray(lat_deg)
+    return ((np.asarray(lon_deg) - lon0) % 360.0 <= lon1 - lon0) & (lat >= lat0) & (lat <= lat1)
+
+
+def plan_tracks(src: DemSource, config: SurveyConfig) -> list[SurveyTrack]:
+    """The survey's tracks: generated (:func:`generate_tracks`) or read (:func:`read_survey_tracks`),
+    cut to the traces inside the region."""
+    region_inside(src, config.region)
+    if config.generated:
+        return generate_tracks(src.body, config)
+    return read_survey_tracks(config.tracks_path, config.region)
+
+
+def generate_tracks(body, config: SurveyConfig) -> list[SurveyTrack]:
+    """Parallel geodesic tracks covering the region.
+
+    Through the region's centre C runs a geodesic at ``heading_deg``; the
+    others cross the perpendicular geodesic through C every ``spacing_km``,
+    perpendicular to it (locally parallel to the first, as neighbouring passes
+    are). Each extends, from its crossing point, as far as the farthest corner
+    of the region is from C, with one trace every ``trace_spacing_m``
+    (:func:`cluttersim.track.great_circle_track`); only traces inside the
+    region are kept and tracks with fewer than two are dropped. Ids
+    ``track_01, track_02, ...`` count from the left of the heading to its right.
+    """
+    lon0, lat0, lon1, lat1 = config.region
+    geod = body.geod()
+    lon_c, lat_c = 0.5 * (lon0 + lon1), 0.5 * (lat0 + lat1)
+    corners_lon = np.array([lon0, lon1, lon1, lon0, lon_c, lon_c, lon0, lon1])
+    corners_lat = np.array([lat0, lat0, lat1, lat1, lat0, lat1, lat_c, lat_c])
+    _, _, dist = geod.inv(np.full(8, lon_c), np.full(8, lat_c), corners_lon, corners_lat)
+    spacing_m = 1e3 * config.spacing_km
+    half_m = float(np.max(dist)) + config.trace_spacing_m
+    k_max = int(math.ceil(half_m / spacing_m))
+    if 2 * k_max + 1 > 10_000:
+        raise ConfigError(f"spacing_km = {config.spacing_km}: gives {2 * k_max + 1} tracks, expected at most 10,000")
+    heading = config.heading_deg
+    tracks = []
+    for k in range(-k_max, k_max + 1):
+        if k == 0:
+            lon_p, lat_p, az = lon_c, lat_c, heading
+        else:
+            side = heading + (90.0 if k > 0 else -90.0)
+            lon_p, lat_p, back = geod.fwd(lon_c, lat_c, side, abs(k) * spacing_m)
+            cross = back + 180.0 if k > 0 else back  # direction of increasing k at the crossing point
+            az = cross - 90.0
+        lon_s, lat_s, _ = geod.fwd(lon_p, lat_p, az + 180.0, half_m)
+        lon_e, lat_e, _ = geod.fwd(lon_p, lat_p, az, half_m)
+        line = great_circle_track(body, lat_s, lon_s, lat_e, lon_e, config.alt_m, config.trace_spacing_m)
+        keep = in_region(line.lon_deg, line.lat_deg, config.region)
+        if keep.sum() >= 2:
+            tracks.append(Track(line.lat_deg[keep], line.lon_deg[keep], line.alt_m[keep], source="planned track"))
+    if not tracks:
+        raise ConfigError(
+            f"trace_spacing_m = {config.trace_spacing_m}: no generated track has two traces in the region; "
+            "expected a trace spacing smaller than the region"
+        )
+    width = max(2, len(str(len(tracks))))
+    return [
+        SurveyTrack(f"track_{i + 1:0{width}d}", dataclasses.replace(t, source=f"track_{i + 1:0{width}d}"))
+        for i, t in enumerate(tracks)
+    ]
+
+
+def read_survey_tracks(path, region=None) -> list[SurveyTrack]:
+    """Tracks from one CSV with a ``track_id`` column (plus lat, lon, alt[, time]).
+
+    Rows are grouped by track_id in order of first appearance; within a track
+    the rows keep their file order. With ``region``, traces outside it are
+    dropped, and tracks left with fewer than two traces are skipped with a warning.
+    """
+    path = Path(path)
+    names, rows = read_track_table(path, extra_columns=("track_id",))
+    col = names.index("track_id")
+    groups: dict[str, list[int]] = {}
+    for r, row in enumerate(rows):
+        tid = row[col].strip() if col < len(row) else ""
+        if not tid:
+            raise TrackError(f"{path}: row {r + 1} column 'track_id' is empty; expected a track name")
+        groups.setdefault(tid, []).append(r)
+    if not groups:
+        raise TrackError(f"{path}: no data rows; expected one row per trace with a track_id")
+    files: dict[str, str] = {}
+    out = []
+    skipped = []
+    for tid, members in groups.items():
+        name = track_file_name(tid)
+        if name in files:
+            raise TrackError(f"{path}: track_id {tid!r} and {files[name]!r} give the same file name {name}; rename one")
+        files[name] = tid
+        track = Track.from_rows(names, [rows[r] for r in members], source=f"{path} track_id {tid!r}",
+                                row_numbers=[r + 1 for r in members])  # fmt: skip
+        if region is not None:
+            keep = in_region(track.lon_deg, track.lat_deg, region)
+            if keep.sum() < 2:
+                skipped.append(tid)
+                continue
+            if not keep.all():
+                time_s = None if track.time_s is None else track.time_s[keep]
+                track = Track(track.lat_deg[keep], track.lon_deg[keep], track.alt_m[keep], time_s, source=track.source)
+        out.append(SurveyTrack(tid, track))
+    if skipped:
+        shown = ", ".join(skipped[:5]) + (", ..." if len(skipped) > 5 else "")
+        warnings.warn(f"{path}: {len(skipped)} track(s) have fewer than two traces in the region and are skipped: {shown}",
+                      stacklevel=2)  # fmt: skip
+    if not out:
+        raise TrackError(f"{path}: no track has two or more traces inside the region; expected tracks over the region")
+    return out
+
+
+def track_file_name(track_id: str) -> str:
+    """The per-track result file name: the id with characters other than letters, digits,
+    '.', '-' and '_' replaced by '_'."""
+    return re.sub(r"[^A-Za-z0-9._-]", "_", track_id).lstrip(".") + ".nc"
+
+
+# --------------------------------------------------------------------------- one track
+
+
+@dataclass(frozen=True)
+class TrackJob:
+    """Everything a worker needs for one track: small and picklable (the DEM travels as a path)."""
+
+    track_id: str
+    dem_path: str
+    body_radius_m: float | None
+    lat_deg: np.ndarray
+    lon_deg: np.ndarray
+    alt_m: np.ndarray
+    time_s: np.ndarray | None
+    sim_config: SimulationConfig
+    survey: dict
+    max_memory_bytes: int | str | None = "auto"
+    numba_threads: int | None = None
+    key: str = ""
+
+    def track(self) -> Track:
+        return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_id)
+
+
+@dataclass
+class TrackResult:
+    """The clutter index of every trace of one track (see the module docstring)."""
+
+    track_id: str
+    lat_deg: np.ndarray
+    lon_deg: np.ndarray
+    index_db: np.ndarray
+    fraction: np.ndarray
+    depth_m: np.ndarray
+    surface_power_w: np.ndarray
+    truncated: int
+    key: str
+    warnings: list[str] = field(default_factory=list)
+    seconds: float = 0.0  # the worker's time on this track (simulation and reduction)
+
+
+def clutter_index(power_w, left_fraction, right_fraction, window_start_s, nadir_delay_s, sample_interval_s: float,
+                  window_s: float, mainlobe_samples: int, threshold_db: float, permittivity: float = 3.15):  # fmt: skip
+    """Per trace: clutter index I (dB), clutter fraction F, apparent depth of the strongest
+    clutter (m) and the nadir surface echo power P_s (W), as defined in the module docstring.
+
+    ``power_w``, ``left_fraction``, ``right_fraction``: (trace, sample); delays absolute
+    two-way, s. Traces without a nadir echo give NaN. Also returns the number of traces
+    whose subsurface window ran past the end of the recording window (truncated there).
+    """
+    p = np.asarray(power_w, dtype=np.float64)
+    side = np.asarray(left_fraction, dtype=np.float64) + np.asarray(right_fraction, dtype=np.float64)
+    ntr, ns = p.shape
+    clutter = p * side
+    strip = p * (1.0 - side)
+    k = np.arange(ns)
+    start = np.asarray(window_start_s, dtype=np.float64)[:, None]
+    nadir = np.asarray(nadir_delay_s, dtype=np.float64)[:, None]
+    t = start + k * sample_interval_s
+    k_nadir = np.rint((nadir - start) / sample_interval_s)
+    with np.errstate(invalid="ignore"):
+        near = np.abs(k - k_nadir) <= mainlobe_samples
+        in_win = (t >= nadir - 0.5 * sample_interval_s) & (t <= nadir + window_s + 0.5 * sample_interval_s)
+        surface = np.max(np.where(near & np.isfinite(strip), strip, -np.inf), axis=1)
+        c_win = np.where(in_win & np.isfinite(clutter), clutter, -np.inf)
+        best = np.argmax(c_win, axis=1)
+        c_max = c_win[np.arange(ntr), best]
+        ok = np.isfinite(surface) & (surface > 0) & np.isfinite(c_max)
+        index_db = np.full(ntr, np.nan)
+        index_db[ok] = 10.0 * np.log10(np.maximum(c_max[ok], 1e-300) / surface[ok])
+        above = clutter >= surface[:, None] * 10.0 ** (threshold_db / 10.0)
+        p_win = np.where(in_win & np.isfinite(p), p, 0.0)
+        total = p_win.sum(axis=1)
+        fraction = np.full(ntr, np.nan)
+        good = ok & (total > 0)
+        fraction[good] = (p_win * above).sum(axis=1)[good] / total[good]
+        depth = np.full(ntr, np.nan)
+        depth[ok] = apparent_depth_m(t[ok, best[ok]] - nadir[ok, 0], permittivity)
+    truncated = int(np.sum(ok & (nadir[:, 0] + window_s > start[:, 0] + (ns - 1) * sample_interval_s)))
+    return index_db, fraction, depth, np.where(ok, surface, np.nan), truncated
+
+
+def survey_track(job: TrackJob) -> TrackResult:
+    """Simulate one track (:func:`cluttersim.simulate.simulate`) and reduce it to its clutter index.
+
+    Runs in a worker: limits Numba's threads to ``job.numba_threads`` (results do not
+    depend on it) and returns the warnings raised as text instead of printing them.
+    """
+    import numba
+
+    from .simulate import simulate
+
+    t0 = time.perf_counter()
+    if job.numba_threads is not None:
+        numba.set_num_threads(max(1, min(job.numba_threads, numba.config.NUMBA_NUM_THREADS)))
+    src = DemSource.open(job.dem_path, job.body_radius_m)
+    cfg = job.sim_config
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        ds = simulate(src, job.track(), cfg, body_radius_m=job.body_radius_m, sources=True,
+                      max_memory_bytes=job.max_memory_bytes)  # fmt: skip
+    radar = cfg.radar
+    dt = radar.sample_interval_s
+    survey = job.survey
+    window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
+    mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
+    index_db, fraction, depth, surface, truncated = clutter_index(
+        ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
+        ds["nadir_delay"].values, dt, window_s, mainlobe, survey["threshold_db"], survey["permittivity"],
+    )  # fmt: skip
+    return TrackResult(
+        track_id=job.track_id, lat_deg=np.asarray(ds["lat"].values, dtype=np.float64),
+        lon_deg=np.asarray(ds["lon"].values, dtype=np.float64), index_db=index_db, fraction=fraction, depth_m=depth,
+        surface_power_w=surface, truncated=truncated, key=job.key,
+        warnings=list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, UserWarning))),
+        seconds=time.perf_counter() - t0,
+    )  # fmt: skip
+
+
+def survey_sim_config(config: SimulationConfig, band: str | None = None) -> SimulationConfig:
+    """The configuration a survey simulates with: [noise] and [subsurface] dropped (the index
+    compares surface clutter with the surface echo); one band of a multi-band radar (``band``,
+    default the first); coherent mode refused."""
+    if config.processing.mode == "coherent":
+        raise ConfigError("[processing] mode = 'coherent': the survey needs the incoherent mode's source record; "
+                          "expected mode = 'incoherent'")  # fmt: skip
+    if config.bands:
+        config = config.for_band(band or config.band_names[0])
+    elif band is not None:
+        raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
+    return dataclasses.replace(config, noise=None, subsurface=None)
+
+
+def job_key(dem: DemSource, sim_config: SimulationConfig, config: SurveyConfig, track: Track,
+            body_radius_m) -> str:  # fmt: skip
+    """A digest of everything that shapes one track's result: the DEM (path and size), the radar,
+    the reduction settings and the track's positions."""
+    h = hashlib.sha256()
+    meta = {"dem": str(dem.path.resolve()), "dem_bytes": dem.path.stat().st_size, "body_radius_m": body_radius_m,
+            "config": sim_config.to_dict(), "survey": config.reduction()}  # fmt: skip
+    h.update(json.dumps(meta, sort_keys=True, default=str).encode())
+    for a in (track.lat_deg, track.lon_deg, track.alt_m):
+        h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
+    if track.time_s is not None:
+        h.update(np.ascontiguousarray(track.time_s, dtype=np.float64).tobytes())
+    return h.hexdigest()
+
+
+# --------------------------------------------------------------------------- per-track files
+
+
+def write_track_result(result: TrackResult, path) -> Path:
+    """Write one track's result as a small netCDF file, atomically."""
+    import xarray as xr
+
+    path = Path(path)
+    variables = {
+        "lat": (result.lat_deg, "degrees_north", "nadir latitude"),
+        "lon": (result.lon_deg, "degrees_east", "nadir longitude"),
+        "clutter_index": (result.index_db, "dB", "strongest off-nadir clutter in the subsurface window / nadir echo"),
+        "clutter_fraction": (result.fraction, "1", "power-weighted share of the window with clutter above the threshold"),
+        "clutter_depth": (result.depth_m, "m", "apparent depth of the strongest clutter in the window"),
+        "surface_power": (result.surface_power_w, "W", "nadir surface echo power"),
+    }
+    ds = xr.Dataset(
+        {k: ("trace", np.asarray(v), {"units": u, "long_name": n}) for k, (v, u, n) in variables.items()},
+        attrs={"Conventions": "CF-1.10", "track_id": result.track_id, "survey_key": result.key,
+               "truncated_windows": result.truncated},
+    )  # fmt: skip
+    with atomic_paths([path]) as (tmp,):
+        ds.to_netcdf(tmp, engine="h5netcdf", format="NETCDF4")
+    return path
+
+
+def read_track_result(path) -> TrackResult:
+    """Read a file written by :func:`write_track_result`."""
+    import xarray as xr
+
+    path = Path(path)
+    try:
+        with xr.open_dataset(path, engine="h5netcdf") as ds:
+            ds = ds.load()
+    except (OSError, ValueError) as exc:
+        raise ClutterSimError(f"{path}: not a readable survey track file ({exc}); delete it to recompute the track") from None
+    try:
+        return TrackResult(
+            track_id=str(ds.attrs["track_id"]), lat_deg=ds["lat"].values, lon_deg=ds["lon"].values,
+            index_db=ds["clutter_index"].values, fraction=ds["clutter_fraction"].values,
+            depth_m=ds["clutter_depth"].values, surface_power_w=ds["surface_power"].values,
+            truncated=int(ds.attrs.get("truncated_windows", 0)), key=str(ds.attrs["survey_key"]),
+        )  # fmt: skip
+    except KeyError as exc:
+        raise ClutterSimError(f"{path}: {exc} missing; expected a survey track file (delete it to recompute)") from None
+
+
+# --------------------------------------------------------------------------- engines
+
+
+def _worker_tqdm_lock() -> None:
+    """Give tqdm a plain thread lock in a worker: by default its first bar creates a multiprocessing
+    lock (a named semaphore) that a worker stopped by terminate() would leak, and Python's resource
+    tracker would then print a warning after the interrupt message."""
+    import threading
+
+    from tqdm import tqdm
+
+    tqdm.set_lock(threading.RLock())
+
+
+def _init_local_worker(threads: int) -> None:
+    """Worker start-up: leave SIGINT to the parent (it stops the pool) and limit Numba's threads."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _worker_tqdm_lock()
+    import numba
+
+    numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
+
+
+def _run_local(jobs, workers: int, on_result) -> None:
+    """Run jobs in ``workers`` spawned processes (in this process when ``workers`` is 1)."""
+    if workers == 1 or len(jobs) == 1:
+        for job in jobs:
+            on_result(survey_track(job))
+        return
+    import multiprocessing
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    from concurrent.futures.process import BrokenProcessPool
+
+    threads = max(1, (os.cpu_count() or 1) // workers)
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                               initializer=_init_local_worker, initargs=(threads,))  # fmt: skip
+    try:
+        pending = {pool.submit(survey_track, job) for job in jobs}
+        while pending:
+            done, pending = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                on_result(fut.result())  # a worker's error is raised here, as it was raised there
+    except BrokenProcessPool:
+        raise ClutterSimError("a survey worker process died (out of memory?); run again to resume") from None
+    except BaseException:
+        _stop_pool(pool)
+        raise
+    pool.shutdown(wait=True)
+
+
+def _stop_pool(pool) -> None:
+    """Cancel queued jobs and end the running workers now (3.11's pool has no terminate)."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())  # a private attribute, hence getattr
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
+        with contextlib.suppress(Exception):
+            proc.terminate()
+    for proc in procs:
+        with contextlib.suppress(Exception):
+            proc.join(timeout=5)
+    with contextlib.suppress(Exception):
+        pool.shutdown(wait=True)  # let the pool's manager thread release its queues and locks
+
+
+def _dask_survey_track(job: TrackJob) -> TrackResult:
+    """The Dask task: :func:`survey_track` with Numba's threads shared among the worker's threads."""
+    _worker_tqdm_lock()
+    if job.numba_threads is None:
+        try:
+            from distributed import get_worker
+
+            nthreads = get_worker().state.nthreads
+        except (ImportError, ValueError, AttributeError):
+            nthreads = 1
+        job = dataclasses.replace(job, numba_threads=max(1, (os.cpu_count() or 1) // max(1, nthreads)))
+    return survey_track(job)
+
+
+def _dask(engine: Engine):
+    """The ``distributed`` module, or a ConfigError saying how to install it."""
+    try:
+        import distributed
+    except ImportError:
+        raise ConfigError(
+            f"--scheduler {engine.scheduler}: Dask is not installed; install it with pip install 'cluttersim[dask]'"
+        ) from None
+    return distributed
+
+
+def _run_dask(jobs, engine: Engine, on_result) -> None:
+    """Run jobs as Dask tasks on a LocalCluster or the cluster behind ``engine.scheduler``."""
+    distributed = _dask(engine)
+    Client, LocalCluster, as_completed = distributed.Client, distributed.LocalCluster, distributed.as_completed
+    cluster = None
+    try:
+        if engine.scheduler == "local":
+            n = engine.n_workers
+            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
+                                   silence_logs=logging.CRITICAL)  # errors reach the user as one line, below
+            client = Client(cluster)
+            threads = max(1, (os.cpu_count() or 1) // n)
+            jobs = [dataclasses.replace(j, numba_threads=threads) for j in jobs]
+        else:
+            client = Client(engine.scheduler, timeout="20s")
+    except (OSError, TimeoutError) as exc:
+        if cluster is not None:
+            cluster.close()
+        raise ClutterSimError(f"--scheduler {engine.scheduler}: cannot reach the Dask scheduler ({exc})") from None
+    futures = []
+    try:
+        futures = [client.submit(_dask_survey_track, job, key=f"cluttersim-survey-{job.key[:16]}-{job.track_id}",
+                                 pure=False) for job in jobs]  # fmt: skip
+        for fut in as_completed(futures):
+            on_result(fut.result())
+    except BaseException:
+        with contextlib.suppress(Exception):
+            client.cancel(futures)
+        raise
+    finally:
+        with _quiet_dask_logs(), contextlib.suppress(Exception):
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+
+@contextlib.contextmanager
+def _quiet_dask_logs():
+    """Closing a LocalCluster logs a warning per worker it has to kill: not the user's concern."""
+    loggers = [logging.getLogger(name) for name in ("distributed", "distributed.nanny", "distributed.worker",
+                                                     "distributed.worker.state_machine")]
+    levels = [lg.level for lg in loggers]
+    for lg in loggers:
+        lg.setLevel(logging.ERROR)
+    try:
+        yield
+    finally:
+        for lg, level in zip(loggers, levels):
+            lg.setLevel(level)
+
+
+# --------------------------------------------------------------------------- the survey
+
+
+@dataclass
+class SurveySummary:
+    """What a survey did: product paths, tracks resumed and computed, time."""
+
+    paths: dict[str, Path]
+    tracks: int
+    resumed: int
+    computed: int
+    seconds: float
+    warnings: list[str] = field(default_factory=list)
+    track_seconds: list[float] = field(default_factory=list)  # workers' time per computed track
+
+
+def run_survey(
+    dem, config: SurveyConfig, sim_config: SimulationConfig | None = None, out_dir=".", *, engine: Engine | None = None,
+    body_radius_m: float | None = None, overwrite: bool = False, progress: bool = False,
+    max_memory_bytes: int | str | None = "auto", on_track=None, band: str | None = None,
+) -> SurveySummary:  # fmt: skip
+    """Survey a region: simulate every track, write each as it finishes, then the map and table.
+
+    Parameters
+    ----------
+    dem : path or DemSource
+        The DEM; with a Dask scheduler, its path must be readable by every worker.
+    config : SurveyConfig
+    sim_config : SimulationConfig, optional
+        The radar (default: the built-in one); [noise] and [subsurface] are ignored.
+    out_dir : path
+        Gets ``tracks/<id>.nc`` (one per track, as each finishes) and :data:`SURVEY_FILES`.
+        Tracks already there from an interrupted run with the same arguments are not
+        recomputed; with other arguments they are refused, unless ``overwrite``.
+    engine : Engine, optional
+        Local processes (default: one per core) or Dask.
+    on_track : callable, optional
+        Called with each TrackResult after its file is written (progress hooks, tests).
+    band : str, optional
+        The band surveyed with a multi-band radar (``[[band]]`` tables; default the first).
+
+    Returns
+    -------
+    SurveySummary
+    """
+    t0 = time.perf_counter()
+    engine = engine if engine is not None else Engine()
+    sim_config = survey_sim_config(sim_config if sim_config is not None else default_config(), band)
+    out_dir = Path(out_dir)
+    paths = {k: out_dir / v for k, v in SURVEY_FILES.items()}
+    check_new(paths.values(), overwrite)
+    if engine.scheduler is not None:
+        _dask(engine)  # before any work: say at once if Dask is missing
+    src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
+    _check_window_fits(sim_config, config)
+    planned = plan_tracks(src, config)
+    grid = SurveyGrid.for_region(src, config, planned)
+    track_dir = out_dir / TRACKS_DIR
+    jobs, done = [], {}
+    for st in planned:
+        key = job_key(src, sim_config, config, st.track, body_radius_m)
+        path = track_dir / track_file_name(st.track_id)
+        if path.exists() and not overwrite:
+            previous = read_track_result(path)
+            if previous.key != key:
+                raise OutputExistsError(
+                    f"{path}: made by a survey with other arguments (DEM, radar, window or track); pass --overwrite "
+                    "to recompute it, or choose another --out"
+                )
+            done[st.track_id] = previous
+            continue
+        t = st.track
+        jobs.append(TrackJob(st.track_id, str(src.path.resolve()), body_radius_m, t.lat_deg, t.lon_deg, t.alt_m,
+                             t.time_s, sim_config, config.reduction(), max_memory_bytes, None, key))  # fmt: skip
+    _remove_stale_temporaries(track_dir)
+    resumed = len(done)
+    seen_warnings: list[str] = []
+
+    from tqdm.auto import tqdm
+
+    with tqdm(total=len(planned), initial=resumed, unit="track", desc="surveying", disable=not progress) as bar:
+
+        def on_result(result: TrackResult) -> None:
+            with _HeldInterrupt():
+                write_track_result(result, track_dir / track_file_name(result.track_id))
+            done[result.track_id] = result
+            for w in result.warnings:
+                if w not in seen_warnings:
+                    seen_warnings.append(w)
+            bar.update(1)
+            if on_track is not None:
+                on_track(result)
+
+        if jobs:  # tracks/ is made by the first track written (atomic_paths): nothing if none finishes
+            if engine.scheduler is None:
+                _run_local(jobs, engine.n_workers, on_result)
+            else:
+                _run_dask(jobs, engine, on_result)
+    for w in seen_warnings:
+        warnings.warn(f"survey: {w}", stacklevel=2)
+    results = [done[st.track_id] for st in sorted(planned, key=lambda s: s.track_id)]
+    truncated = sum(r.truncated for r in results)
+    if truncated:
+        warnings.warn(
+            f"survey: the subsurface window (--max-depth-m {config.max_depth_m:g}) ran past the end of the recording "
+            f"window in {truncated} traces; they are evaluated to the window's end (raise [radar] samples)",
+            stacklevel=2,
+        )
+    write_survey_products(src, config, grid, results, paths)
+    return SurveySummary(paths=paths, tracks=len(planned), resumed=resumed, computed=len(jobs),
+                         seconds=time.perf_counter() - t0, warnings=seen_warnings,
+                         track_seconds=[done[j.track_id].seconds for j in jobs])  # fmt: skip
+
+
+def _check_window_fits(sim_config: SimulationConfig, config: SurveyConfig) -> None:
+    radar = sim_config.radar
+    need = int(math.ceil(config.window_s() / radar.sample_interval_s)) + 1
+    room = radar.samples - (radar.auto_margin_samples if radar.window_start_s == "auto" else 0)
+    if need > room:
+        raise ConfigError(
+            f"--max-depth-m {config.max_depth_m:g} (ε′ = {config.permittivity:g}) spans {need} samples after the nadir "
+            f"echo, but [radar] samples = {radar.samples} leaves {room}; expected a shallower depth or more samples"
+        )
+
+
+class _HeldInterrupt:
+    """Hold SIGINT while a finished track is written and raise it once the file is in place: a
+    KeyboardInterrupt raised inside the netCDF library's clean-up can be swallowed there
+    ("Exception ignored in ..."), and the run would go on."""
+
+    def __enter__(self):
+        self.pending = False
+        self.previous = None
+        if threading.current_thread() is threading.main_thread():
+            self.previous = signal.signal(signal.SIGINT, self._hold)
+        return self
+
+    def _hold(self, signum, frame):
+        self.pending = True
+
+    def __exit__(self, exc_type, exc, tb):
+        if self.previous is not None:
+            signal.signal(signal.SIGINT, self.previous)
+        if self.pending and exc_type is None:
+            raise KeyboardInterrupt
+        return False
+
+
+def _remove_stale_temporaries(track_dir: Path) -> None:
+    """Remove temporary track files left by a run that was killed (not merely interrupted)."""
+    if track_dir.is_dir():
+        for p in track_dir.glob(".*.nc.partial-*"):
+            with contextlib.suppress(FileNotFoundError):
+                p.unlink()
+
+
+# --------------------------------------------------------------------------- gridding and products
+
+
+@dataclass(frozen=True)
+class SurveyGrid:
+    """The map grid: north-up cells of ``res`` CRS units (degrees or metres) over the region."""
+
+    transform: object
+    width: int
+    height: int
+
+    @classmethod
+    def for_region(cls, src: DemSource, config: SurveyConfig, tracks=None) -> SurveyGrid:
+        from affine import Affine
+
+        lon0, lat0, lon1, lat1 = config.region
+        x, y = src.lonlat_to_xy(*region_boundary(config.region))
+        if src.is_geographic:
+            x = np.unwrap(np.asarray(x), period=360.0)
+        x0, x1, y0, y1 = float(np.min(x)), float(np.max(x)), float(np.min(y)), float(np.max(y))
+        grid_km = config.grid_km
+        if grid_km is None:
+            if config.generated:
+                grid_km = 0.5 * config.spacing_km
+            else:
+                _, _, diag = src.body.geod().inv(lon0, lat0, lon1, lat1)
+                grid_km = diag / math.sqrt(2.0) / _DEFAULT_GRID_CELLS / 1e3
+        res = 1e3 * grid_km
+        if src.is_geographic:
+            res = math.degrees(res / src.body.mean_radius_m)
+        width = max(1, int(math.ceil((x1 - x0) / res - 1e-9)))
+        height = max(1, int(math.ceil((y1 - y0) / res - 1e-9)))
+        if width * height > 25_000_000:
+            raise ConfigError(f"grid_km = {grid_km:g}: gives a {width} x {height} map; expected at most 25 million cells")
+        return cls(Affine(res, 0.0, x0, 0.0, -res, y1), width, height)
+
+    def cell_xy(self):
+        """CRS x (width,) and y (height,) of the cell centres."""
+        t = self.transform
+        return t.c + t.a * (np.arange(self.width) + 0.5), t.f + t.e * (np.arange(self.height) + 0.5)
+
+
+def grid_results(src: DemSource, grid: SurveyGrid, results) -> tuple[np.ndarray, np.ndarray]:
+    """Grid per-trace index and fraction onto the map: (index_db, fraction), each (height, width), NaN
+    where no track passed.
+
+    Each track's nadir path is drawn cell by cell (consecutive traces joined by a
+    straight line in the grid, each half taking its nearer trace's values; a
+    step longer than three times the track's median step is left as a gap); a
+    cell holds the largest value of the traces drawn over it, which does not
+    depend on the order of the tracks.
+    """
+    index = np.full((grid.height, grid.width), -np.inf)
+    frac = np.full((grid.height, grid.width), -np.inf)
+    inv = ~grid.transform
+    for res in results:
+        x, y = src.lonlat_to_xy(res.lon_deg, res.lat_deg)
+        if src.is_geographic:
+            west = grid.transform.c
+            x = (np.asarray(x) - west) % 360.0 + west
+        col, row = inv @ (np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
+        col, row = np.asarray(col), np.asarray(row)
+        ok = np.isfinite(res.index_db) & np.isfinite(col) & np.isfinite(row)
+        pts_c, pts_r, val_i, val_f = [col[ok]], [row[ok]], [res.index_db[ok]], [np.nan_to_num(res.fraction[ok])]
+        steps = np.hypot(np.diff(col), np.diff(row))
+        both = ok[:-1] & ok[1:]
+        if both.any():  # points every quarter cell along each joined step
+            seg = np.flatnonzero(both & (steps <= 3.0 * float(np.median(steps[both]))))
+            n = np.ceil(steps[seg] / 0.25).astype(np.int64)
+            counts = np.maximum(n - 1, 0)
+            i = np.repeat(seg, counts)
+            first = np.repeat(np.cumsum(counts) - counts, counts)
+            s = (np.arange(i.size) - first + 1) / np.repeat(n, counts)
+            near = np.where(s < 0.5, i, i + 1)
+            pts_c.append(col[i] + s * (col[i + 1] - col[i]))
+            pts_r.append(row[i] + s * (row[i + 1] - row[i]))
+            val_i.append(res.index_db[near])
+            val_f.append(np.nan_to_num(res.fraction[near]))
+        c = np.floor(np.concatenate(pts_c)).astype(np.int64)
+        r = np.floor(np.concatenate(pts_r)).astype(np.int64)
+        vi, vf = np.concatenate(val_i), np.concatenate(val_f)
+        inside = (c >= 0) & (c < grid.width) & (r >= 0) & (r < grid.height)
+        np.maximum.at(index, (r[inside], c[inside]), vi[inside])
+        np.maximum.at(frac, (r[inside], c[inside]), vf[inside])
+    index[~np.isfinite(index)] = np.nan
+    frac[~np.isfinite(frac)] = np.nan
+    return index, frac
+
+
+def track_length_km(body, lat_deg, lon_deg) -> float:
+    """Geodesic length (km) along consecutive nadir points."""
+    if len(lat_deg) < 2:
+        return 0.0
+    _, _, d = body.geod().inv(lon_deg[:-1], lat_deg[:-1], lon_deg[1:], lat_deg[1:])
+    return float(np.sum(d)) / 1e3
+
+
+def track_rows(body, results, threshold_db: float) -> list[dict]:
+    """The rows of survey.csv: one per track."""
+    rows = []
+    for r in results:
+        valid = np.isfinite(r.index_db)
+        idx = r.index_db[valid]
+        rows.append({
+            "track_id": r.track_id,
+            "traces": int(len(r.index_db)),
+            "length_km": round(track_length_km(body, r.lat_deg, r.lon_deg), 3),
+            "clutter_prone_fraction": round(float(np.mean(idx >= threshold_db)), 4) if idx.size else "",
+            "median_index_db": round(float(np.median(idx)), 2) if idx.size else "",
+            "max_index_db": round(float(np.max(idx)), 2) if idx.size else "",
+            "median_clutter_fraction": round(float(np.nanmedian(r.fraction[valid])), 4) if idx.size else "",
+        })  # fmt: skip
+    return rows
+
+
+def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid, results, paths) -> None:
+    """survey.csv, clutter_map.tif (band 1 index dB, band 2 fraction; DEM's CRS, NaN nodata) and
+    clutter_map.png, written together atomically."""
+    import rasterio
+    from rasterio.crs import CRS as RioCRS
+
+    from . import plots
+    from .products import MapFrame
+
+    index, frac = grid_results(src, grid, results)
+    rows = track_rows(src.body, results, config.threshold_db)
+    profile = dict(driver="GTiff", width=grid.width, height=grid.height, count=2, dtype="float32",
+                   transform=grid.transform, nodata=np.nan, compress="deflate")  # fmt: skip
+    if src.crs is not None:
+        profile["crs"] = RioCRS.from_wkt(src.crs.to_wkt())
+    elevation, relief_transform = _relief(src, grid)
+    relief = MapFrame.of(src, elevation, relief_transform)
+    frame = MapFrame.of(src, index, grid.transform)
+    lines = [relief.xy(r.lon_deg, r.lat_deg) for r in results]
+    depth = f"0–{config.max_depth_m:g} m (ε′ = {config.permittivity:g})"
+    keys = ["csv", "map_tif", "map_png"]
+    with atomic_paths([paths[k] for k in keys]) as (tmp_csv, tmp_tif, tmp_png):
+        with open(tmp_csv, "w", newline="", encoding="utf-8") as fh:
+            writer = csv.DictWriter(fh, fieldnames=list(rows[0]))
+            writer.writeheader()
+            writer.writerows(rows)
+        with rasterio.open(tmp_tif, "w", **profile) as dst:
+            dst.write(index.astype(np.float32), 1)
+            dst.write(frac.astype(np.float32), 2)
+            dst.set_band_description(1, "clutter_index_db")
+            dst.set_band_description(2, "clutter_fraction")
+            dst.update_tags(
+                quantity="clutter index: strongest off-nadir clutter in the subsurface window over the nadir echo (dB); "
+                "band 2: power-weighted share of the window with clutter above the threshold",
+                max_depth_m=config.max_depth_m, permittivity=config.permittivity, threshold_db=config.threshold_db,
+                tracks=len(results),
+            )  # fmt: skip
+        plots.plot_survey_map(
+            index, frame.extent, elevation, relief.extent, lines, tmp_png, threshold_db=config.threshold_db,
+            axis_labels=frame.axis_labels, geographic=src.is_geographic,
+            title=f"clutter over the subsurface window {depth} — {src.path.name}",
+            label=f"strongest off-nadir clutter at apparent depths {depth}\nrelative to the nadir surface echo (dB)",
+        )  # fmt: skip
+
+
+def _relief(src: DemSource, grid: SurveyGrid):
+    """Decimated DEM heights covering the map grid, and their transform."""
+    t = grid.transform
+    xs = np.array([t.c, t.c + t.a * grid.width])
+    ys = np.array([t.f, t.f + t.e * grid.height])
+    col, row = ~src.transform @ (xs, ys)
+    window = src.window_around(np.asarray(row) - 0.5, np.asarray(col) - 0.5, pad=1)
+    scale = max(1, int(math.ceil(max(window.height, window.width) / _RELIEF_CELLS)))
+    dw = src.read(window, out_shape=(max(1, window.height // scale), max(1, window.width // scale)))
+    return dw.elevation_m, dw.transform
