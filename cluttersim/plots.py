@@ -1223,7 +1223,12 @@ def plot_survey_map(
     if not (below_db > 0 and above_db > 0):
         raise ValueError(f"below_db and above_db must be positive, got {below_db!r}, {above_db!r}")
     vmin, vmax = threshold_db - below_db, threshold_db + above_db
-    fig = _new_figure(TRACK_MAP_FIGSIZE_IN)
+    # the map's true shape (as _frame_map draws it) sets the figure's width: no empty margins
+    west, east, south, north = _image_extent(extent)
+    stretch = 1.0 / max(np.cos(np.deg2rad(0.5 * (south + north))), 1e-3) if geographic else 1.0
+    shape = abs(east - west) / max(abs(north - south) * stretch, 1e-12)
+    height_in = TRACK_MAP_FIGSIZE_IN[1]
+    fig = _new_figure((float(np.clip(0.8 * height_in * shape + 2.8, 6.5, 14.0)), height_in))
     ax = fig.add_subplot()
     _draw_relief(ax, _grey_hillshade_rgba(elev), relief_extent)
     image = ax.imshow(

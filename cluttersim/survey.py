@@ -1003,7 +1003,7 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
         plots.plot_survey_map(
             index, frame.extent, elevation, relief.extent, lines, tmp_png, threshold_db=config.threshold_db,
             axis_labels=frame.axis_labels, geographic=src.is_geographic,
-            title=f"clutter over the subsurface window {depth} — {src.path.name}",
+            title=f"clutter over the subsurface window {depth}\n{src.path.name}",
             label=f"strongest off-nadir clutter at apparent depths {depth}\nrelative to the nadir surface echo (dB)",
         )  # fmt: skip
 
