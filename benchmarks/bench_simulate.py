@@ -5,8 +5,13 @@ compile-time check) or ``python benchmarks/bench_simulate.py --case large``.
 
 Each case runs in its own process, so its peak memory is its own. Printed per
 case: end-to-end wall time (DEM read to netCDF written; median of the warm
-runs), kernel time, facet evaluations per second in total and per core, peak
-resident memory, with the source record on and off. Then:
+runs), kernel, facet-building and netCDF-writing times, facet evaluations per
+second in total, per thread and per CPU-second of the kernel (``process_time``
+over its threads: on a shared machine the wall time depends on what else
+runs, this much less), the load average, peak resident memory, with the source
+record on and off, and with the benchmark-only centre-binned kernel variant
+(``simulate.DELAY_SPREADING``: each facet's power in the bin of its centre, a
+bound on what the delay spreading costs). Then:
 
 * the NumPy reference (:mod:`cluttersim.reference`, no culling, no
   compilation) against the compiled kernel on the same small scene: time per
@@ -93,23 +98,65 @@ def case_inputs(name: str, shadowing: bool = False, coherent: bool = False):
     return dem, track, cfg
 
 
-def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, coherent: bool = False) -> dict:
+def _busy_cores() -> float:
+    """Load average over the last minute (other users of the machine included)."""
+    try:
+        return os.getloadavg()[0]
+    except OSError:
+        return float("nan")
+
+
+def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, coherent: bool = False,
+                spreading: str = "trapezoid") -> dict:  # fmt: skip
+    """One case in this process: a first run (kernel compile or cache load) and ``repeat`` warm runs.
+
+    Besides wall times, the CPU time of the process and of the kernel calls is
+    recorded (``time.process_time``, all threads): on a shared machine the wall
+    time of a 2-thread kernel depends on what else runs, its CPU time much less.
+    ``spreading="centre"`` runs the benchmark-only centre-binned kernel variant
+    (``simulate.DELAY_SPREADING``).
+    """
+    import importlib
+
     import numba
 
+    from cluttersim import kernels
     from cluttersim.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
+    if spreading == "centre":  # the module (the package's `simulate` is the function)
+        importlib.import_module("cluttersim.simulate").DELAY_SPREADING = kernels.SPREAD_CENTRE
+    compiled = kernels.accumulate_power
+    kernel_cpu = [0.0]
+
+    def timed_kernel(*args):
+        c0 = time.process_time()
+        try:
+            return compiled(*args)
+        finally:
+            kernel_cpu[0] += time.process_time() - c0
+
+    kernels.accumulate_power = timed_kernel
     dem, track, cfg = case_inputs(name, shadowing, coherent)
     runs = []
+    write_s = []
+    load = []
     with tempfile.TemporaryDirectory() as tmp:
         for i in range(repeat + 1):
             st = RunStats()
+            kernel_cpu[0] = 0.0
+            load.append(_busy_cores())
             t0 = time.perf_counter()
+            c0 = time.process_time()
             ds = simulate(dem, track, cfg, stats=st, sources=sources)
+            t1 = time.perf_counter()
             write_netcdf_to(ds, Path(tmp) / f"r{i}.nc")
-            runs.append((time.perf_counter() - t0, st))
+            write_s.append(time.perf_counter() - t1)
+            runs.append((time.perf_counter() - t0, st, time.process_time() - c0, kernel_cpu[0]))
+    kernels.accumulate_power = compiled
     warm = runs[1:]
-    kernel = statistics.median(st.seconds_kernel for _, st in warm)
+    kernel = statistics.median(r[1].seconds_kernel for r in warm)
+    kernel_cpu_s = statistics.median(r[3] for r in warm)
     evals = warm[0][1].facet_evaluations
     threads = numba.get_num_threads()
     return {
@@ -117,6 +164,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
         "sources": sources,
         "shadowing": shadowing,
         "coherent": coherent,
+        "spreading": spreading,
         "traces": len(track),
         "samples": cfg.radar.samples,
         "dem_cells": CASES[name][0] ** 2,
@@ -124,12 +172,17 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
         "facets": warm[0][1].facets,
         "facet_evaluations": evals,
         "first_run_s": runs[0][0],
-        "median_wall_s": statistics.median(w for w, _ in warm),
-        "median_facets_s": statistics.median(st.seconds_facets for _, st in warm),
+        "median_wall_s": statistics.median(r[0] for r in warm),
+        "median_cpu_s": statistics.median(r[2] for r in warm),
+        "median_facets_s": statistics.median(r[1].seconds_facets for r in warm),
         "median_kernel_s": kernel,
+        "median_kernel_cpu_s": kernel_cpu_s,
+        "median_write_s": statistics.median(write_s[1:]),
         "facet_evals_per_s": evals / kernel,
         "facet_evals_per_s_per_core": evals / kernel / threads,
+        "facet_evals_per_cpu_s": evals / kernel_cpu_s if kernel_cpu_s > 0 else float("nan"),
         "threads": threads,
+        "load_average": load,
         "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
         "repeats": repeat,
     }
@@ -219,6 +272,7 @@ def main(argv=None) -> int:
     ap.add_argument("--sources", type=int, default=1, help=argparse.SUPPRESS)
     ap.add_argument("--shadowing", type=int, default=0, help=argparse.SUPPRESS)
     ap.add_argument("--coherent", type=int, default=0, help=argparse.SUPPRESS)
+    ap.add_argument("--spreading", default="trapezoid", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.worker:
         if args.worker == "reference":
@@ -226,7 +280,8 @@ def main(argv=None) -> int:
         elif args.worker == "startup":
             result = worker_startup()
         else:
-            result = worker_case(args.worker, bool(args.sources), args.repeat, bool(args.shadowing), bool(args.coherent))
+            result = worker_case(args.worker, bool(args.sources), args.repeat, bool(args.shadowing), bool(args.coherent),
+                                 args.spreading)  # fmt: skip
         print(json.dumps(result))
         return 0
 
@@ -234,19 +289,24 @@ def main(argv=None) -> int:
     print(f"machine: {machine['cpu']}, {machine['cores']} cores")
     report = {"machine": machine, "cases": [], "time": time.strftime("%Y-%m-%dT%H:%M:%S")}
     for name in args.case or ["small", "medium"]:
-        variants = [(0, 0, 0), (1, 0, 0)] + ([(0, 1, 0), (0, 0, 1)] if name == "small" else [])  # sources, shadow, coherent
-        for sources, shadowing, coherent in variants:
+        # sources, shadowing, coherent, spreading
+        variants = [(0, 0, 0, "trapezoid"), (1, 0, 0, "trapezoid"), (0, 0, 0, "centre")]
+        if name == "small":
+            variants += [(0, 1, 0, "trapezoid"), (0, 0, 1, "trapezoid")]
+        for sources, shadowing, coherent, spreading in variants:
             r = run_worker(["--worker", name, "--sources", str(sources), "--shadowing", str(shadowing),
-                            "--coherent", str(coherent), "--repeat", str(args.repeat)])  # fmt: skip
+                            "--coherent", str(coherent), "--spreading", spreading, "--repeat", str(args.repeat)])  # fmt: skip
             report["cases"].append(r)
             print(
                 f"{name:>7} sources={'on ' if sources else 'off'}{' shadowing' if shadowing else ''}"
-                f"{' coherent' if coherent else ''}: "
+                f"{' coherent' if coherent else ''}{' centre-binned (benchmark only)' if spreading == 'centre' else ''}: "
                 f"{r['traces']} traces x {r['samples']} samples, "
                 f"window {r['dem_window'][0]}x{r['dem_window'][1]} cells | wall {r['median_wall_s']:.2f} s "
-                f"(kernel {r['median_kernel_s']:.2f} s, facets {r['median_facets_s']:.2f} s; first run {r['first_run_s']:.2f} s) | "
-                f"{r['facet_evals_per_s'] / 1e6:.0f} M facet-evals/s ({r['facet_evals_per_s_per_core'] / 1e6:.0f} M/s per thread) | "
-                f"peak {r['peak_rss_mb']:.0f} MB"
+                f"(kernel {r['median_kernel_s']:.2f} s, facets {r['median_facets_s']:.2f} s, netCDF {r['median_write_s']:.2f} s; "
+                f"first run {r['first_run_s']:.2f} s) | "
+                f"{r['facet_evals_per_s'] / 1e6:.0f} M facet-evals/s ({r['facet_evals_per_s_per_core'] / 1e6:.0f} M/s per thread; "
+                f"{r['facet_evals_per_cpu_s'] / 1e6:.0f} M per CPU-second) | "
+                f"CPU {r['median_cpu_s']:.1f} s | load avg {max(r['load_average']):.1f} | peak {r['peak_rss_mb']:.0f} MB"
             )
     ref = run_worker(["--worker", "reference"])
     report["reference"] = ref

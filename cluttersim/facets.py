@@ -84,8 +84,9 @@ def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: in
     if origin_m is None:
         origin_m = body.geodetic_to_ecef_m(lat[ny // 2, nx // 2], lon[ny // 2, nx // 2], 0.0)
     origin_m = np.asarray(origin_m, dtype=np.float64)
+    trig = _lonlat_trig(lon, lat)
     grid = np.empty((ny, nx, 3))
-    kernels.grid_to_ecef(lat, lon, filled, body.semi_major_m, body.eccentricity_sq, origin_m, grid)
+    kernels.grid_to_ecef(*trig, filled, body.semi_major_m, body.eccentricity_sq, origin_m, grid)
     nty, ntx = -(-ny // tile), -(-nx // tile)
     padded = np.zeros((nty * tile, ntx * tile), dtype=bool)
     padded[:ny, :nx] = valid
@@ -104,7 +105,7 @@ def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: in
     textent = np.zeros(ntile)
     tslab = np.zeros((ntile, 6))
     kernels.build_tiled_facets(
-        grid, valid, lat, lon, tile, offsets, rel, normal, e_col, e_row, area, cell, tcentre, tradius, textent,
+        grid, valid, *trig, tile, offsets, rel, normal, e_col, e_row, area, cell, tcentre, tradius, textent,
         origin_m, tslab,
     )  # fmt: skip
     return Facets(
@@ -122,6 +123,24 @@ def build_facets(window: DemWindow, origin_m: np.ndarray | None = None, tile: in
         tile_slab=tslab,
         grid_shape=(ny, nx),
     )
+
+
+def _lonlat_trig(lon_deg: np.ndarray, lat_deg: np.ndarray):
+    """(cos φ, sin φ, cos λ, sin λ) of every cell, each (ny, nx).
+
+    A geographic window's latitude depends on the row only and its longitude
+    on the column only: the trigonometry is then done once per row and column
+    and returned as broadcast (read-only) views, instead of 4 functions of
+    ny × nx values.
+    """
+    shape = lat_deg.shape
+    lat_col = lat_deg[:, :1]
+    lon_row = lon_deg[:1, :]
+    if np.array_equal(lat_deg, np.broadcast_to(lat_col, shape)) and np.array_equal(lon_deg, np.broadcast_to(lon_row, shape)):
+        lat_r, lon_r = np.radians(lat_col), np.radians(lon_row)
+        return tuple(np.broadcast_to(v, shape) for v in (np.cos(lat_r), np.sin(lat_r), np.cos(lon_r), np.sin(lon_r)))
+    lat_r, lon_r = np.radians(lat_deg), np.radians(lon_deg)
+    return np.cos(lat_r), np.sin(lat_r), np.cos(lon_r), np.sin(lon_r)
 
 
 def _fill_holes(elev: np.ndarray, valid: np.ndarray) -> np.ndarray:

@@ -81,23 +81,24 @@ def geodetic_to_ecef_array(lat_deg, lon_deg, h_m, a_m, e2, out):
 
 
 @numba.njit(inline="always", **_JIT)
-def sigma0_scale(code, cos_inc, p0, p1, values, n):
-    """values[i] *= σ0(cos_inc[i]) for i < n, one loop per law so each vectorises."""
+def sigma0_apply(code, cos_inc, p0, p1, num, den, out, n):
+    """out[i] = num[i] σ0(cos_inc[i]) / den[i] for i < n, one loop per law so each vectorises
+    (written as one expression so that fast-math merges the law's division with this one)."""
     if code == 3:
         for i in range(n):
-            values[i] *= _sigma0_hagfors(cos_inc[i], p0, p1)
+            out[i] = num[i] * _sigma0_hagfors(cos_inc[i], p0, p1) / den[i]
     elif code == 0:
         for i in range(n):
-            values[i] *= p0
+            out[i] = num[i] * p0 / den[i]
     elif code == 1:
         for i in range(n):
-            values[i] *= _sigma0_lambert(cos_inc[i], p0)
+            out[i] = num[i] * _sigma0_lambert(cos_inc[i], p0) / den[i]
     elif code == 2:
         for i in range(n):
-            values[i] *= _sigma0_cosine(cos_inc[i], p0, p1)
+            out[i] = num[i] * _sigma0_cosine(cos_inc[i], p0, p1) / den[i]
     else:
         for i in range(n):
-            values[i] *= _sigma0_gaussian(cos_inc[i], p0, p1)
+            out[i] = num[i] * _sigma0_gaussian(cos_inc[i], p0, p1) / den[i]
 
 
 @numba.njit(inline="always", **_JIT)
@@ -201,20 +202,26 @@ def hidden_from_antenna(heights, row, col, h_facet, row_a, col_a, h_ant, h_max):
 
 
 @numba.njit(parallel=True, **_JIT)
-def grid_to_ecef(lat_deg, lon_deg, h_m, a_m, e2, origin, out):
-    """Cell-centre positions (ny, nx, 3) relative to ``origin`` from 2-D geodetic grids."""
+def grid_to_ecef(cos_lat, sin_lat, cos_lon, sin_lon, h_m, a_m, e2, origin, out):
+    """Cell-centre positions (ny, nx, 3) relative to ``origin`` from the cosines and sines of the
+    cells' geodetic latitude and longitude (2-D, or broadcast views of 1-D ones for a geographic
+    grid) and their heights: X = (N + h) cos φ cos λ, Y = (N + h) cos φ sin λ,
+    Z = (N (1 − e²) + h) sin φ, N = a / √(1 − e² sin²φ) (as :func:`geodetic_to_ecef`)."""
     ny, nx = h_m.shape
     for i in numba.prange(ny):
         for j in range(nx):
-            x, y, z = geodetic_to_ecef(lat_deg[i, j], lon_deg[i, j], h_m[i, j], a_m, e2)
-            out[i, j, 0] = x - origin[0]
-            out[i, j, 1] = y - origin[1]
-            out[i, j, 2] = z - origin[2]
+            s = sin_lat[i, j]
+            c = cos_lat[i, j]
+            n = a_m / math.sqrt(1.0 - e2 * s * s)
+            h = h_m[i, j]
+            out[i, j, 0] = (n + h) * c * cos_lon[i, j] - origin[0]
+            out[i, j, 1] = (n + h) * c * sin_lon[i, j] - origin[1]
+            out[i, j, 2] = (n * (1.0 - e2) + h) * s - origin[2]
 
 
 @numba.njit(parallel=True, **_JIT)
-def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, normal, e_col, e_row, area, cell,
-                       tile_centre, tile_radius, tile_extent, origin, tile_slab):  # fmt: skip
+def build_tiled_facets(grid, valid, cos_lat, sin_lat, cos_lon, sin_lon, tile, tile_offsets, rel, normal, e_col, e_row,
+                       area, cell, tile_centre, tile_radius, tile_extent, origin, tile_slab):  # fmt: skip
     """Facet geometry from a grid of cell-centre positions, written tile by tile.
 
     For cell (i, j) the edge vectors are the central differences
@@ -222,7 +229,8 @@ def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, n
     (one-sided at the window border). The facet is the parallelogram they span:
     true area ``|e_col × e_row|`` on the curved, sloping surface, and unit normal
     along ``e_col × e_row`` turned to point away from the body (the local
-    vertical from ``lat_deg``, ``lon_deg``). Valid cells of tile ``t`` go to
+    vertical (cos φ cos λ, cos φ sin λ, sin φ) from the cells' geodetic latitude φ and
+    longitude λ, given as cosines and sines as in :func:`grid_to_ecef`). Valid cells of tile ``t`` go to
     columns ``tile_offsets[t]:tile_offsets[t+1]`` of the (3, nfacet) arrays,
     positions relative to the tile's centre (the mean of its cells). Each tile
     also gets a bounding-sphere radius and the largest facet half-extent, used
@@ -278,11 +286,9 @@ def build_tiled_facets(grid, valid, lat_deg, lon_deg, tile, tile_offsets, rel, n
                 nyv = az * bx - ax * bz
                 nzv = ax * by - ay * bx
                 nn = math.sqrt(nxv * nxv + nyv * nyv + nzv * nzv)
-                la = math.radians(lat_deg[i, j])
-                lo = math.radians(lon_deg[i, j])
-                ux = math.cos(la) * math.cos(lo)
-                uy = math.cos(la) * math.sin(lo)
-                uz = math.sin(la)
+                ux = cos_lat[i, j] * cos_lon[i, j]
+                uy = cos_lat[i, j] * sin_lon[i, j]
+                uz = sin_lat[i, j]
                 if nn > 0.0:
                     sgn = 1.0 if nxv * ux + nyv * uy + nzv * uz >= 0.0 else -1.0
                     normal[0, k] = sgn * nxv / nn
@@ -380,60 +386,83 @@ def trapezoid_cdf(z, wa, wb):
     return min(max(f, 0.0), 1.0)
 
 
-@numba.njit(inline="always", **_JIT)
-def _kink(dd, row, n, w, nsub):
-    """Add a slope change w at sub-bin ``n`` of second-difference row ``row``.
-
-    A kink before sub-bin 0 is folded into the first two entries so that the
-    running sums start with the right value and slope.
-    """
-    if n >= nsub:
-        return
-    if n >= 0:
-        dd[np.uint64(row), np.uint64(n)] += w
-    else:
-        dd[row, 0] += w * (1 - n)
-        dd[row, 1] += w * n
+#: Delay spreading of :func:`accumulate_power`: the trapezoid of each facet's range extent (the
+#: model), or the whole power in the bin of the facet's centre delay (a benchmark-only variant that
+#: bounds the cost of the spreading; not the model: a facet spans several samples off nadir).
+SPREAD_TRAPEZOID, SPREAD_CENTRE = 0, 1
 
 
 @numba.njit(inline="always", **_JIT)
-def deposit_trapezoid(dd, row, x, wa, wb, p, nsub):
-    """Deposit power ``p`` with the trapezoidal delay distribution of a facet.
+def trapezoid_kinks(x, wa, wb):
+    """Corners of a facet's trapezoidal delay distribution on the sub-bin grid.
 
     The facet's range extent projects its two edges onto the line of sight
     (widths ``wa``, ``wb``, centre ``x``, all in sub-bins): a trapezoid, the
-    convolution of two boxes. Its corners are put on the sub-bin grid (widths
-    rounded to whole sub-bins, at least one; centre to the nearest half
-    sub-bin) and the trapezoid is written as four slope changes of ±w,
-    w = p / (A B), into the second-difference row ``dd[row]``: constant cost
-    whatever the facet's width, and exactly p once integrated
-    (:func:`integrate_rows`).
+    convolution of two boxes. Its widths are rounded to whole sub-bins (at
+    least one), A ≥ B, and its first corner to ``n1 = floor(x − (A+B)/2 + 1/2)``;
+    power p is then written as four slope changes, +w at n1, −w at n1+B and
+    n1+A, +w at n1+A+B with w = p / (A B), into a second-difference row
+    (:func:`integrate_row`): constant cost whatever the facet's width, and
+    exactly p once integrated. Returns (n1, A, B).
     """
-    if wa < wb:
-        wa, wb = wb, wa
-    a = max(1, int(wa + 0.5))
-    b = max(1, int(wb + 0.5))
-    n1 = int(math.floor(x - 0.5 * (a + b) + 0.5))
-    w = p / (a * b)
-    _kink(dd, row, n1, w, nsub)
-    _kink(dd, row, n1 + b, -w, nsub)
-    _kink(dd, row, n1 + a, -w, nsub)
-    _kink(dd, row, n1 + a + b, w, nsub)
+    a = max(1, int(max(wa, wb) + 0.5))
+    b = max(1, int(min(wa, wb) + 0.5))
+    return math.floor(x - 0.5 * (a + b) + 0.5), a, b
 
 
-@numba.njit(inline="always", **_JIT)
-def integrate_rows(dd, row, oversample, out_row):
-    """out_row[k] += Σ over the ``oversample`` sub-bins of bin k of the twice-summed ``dd[row]``."""
+@numba.njit(**_JIT)
+def integrate_row(row, start, oversample, out_row):
+    """out_row[k] += Σ over the ``oversample`` sub-bins of bin k of the twice-summed second-difference
+    ``row``, whose sub-bin 0 is at index ``start`` (kinks before it, in the margin, are summed in
+    first; kinks past the last bin are never read). Not fast-math: the same bits wherever it is
+    called (the total with and without the source record)."""
     s1 = 0.0
     s2 = 0.0
+    for j in range(start):
+        s1 += row[j]
+        s2 += s1
     for k in range(out_row.shape[0]):
         acc = 0.0
-        for j in range(k * oversample, (k + 1) * oversample):
-            s1 += dd[row, j]
+        for j in range(start + k * oversample, start + (k + 1) * oversample):
+            s1 += row[j]
             s2 += s1
             acc += s2
         if acc > 0.0:
             out_row[k] += acc
+
+
+@numba.njit(**_JIT)
+def tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius):
+    """Tiles whose bounding sphere reaches the window of at least one of traces ta..ta+nbt−1,
+    sorted by distance from the block's middle trace: the kernel then sweeps each trace's delay
+    row from near to far, so the part of the row being written stays in cache."""
+    half_c = 0.5 * SPEED_OF_LIGHT_M_S
+    ntile = tile_radius.shape[0]
+    key = np.empty(ntile)
+    cand = np.empty(ntile, dtype=np.int64)
+    nc = 0
+    tm = ta + nbt // 2
+    for m in range(ntile):
+        rad = tile_radius[m]
+        if rad < 0.0:
+            continue
+        seen = False
+        for t in range(ta, ta + nbt):
+            cx = tile_centre[m, 0] - ant[t, 0]
+            cy = tile_centre[m, 1] - ant[t, 1]
+            cz = tile_centre[m, 2] - ant[t, 2]
+            d = math.sqrt(cx * cx + cy * cy + cz * cz)
+            r_lo = bin0_s[t] * half_c
+            r_hi = r_lo + nb * dt_s * half_c
+            seen |= (d - rad <= r_hi) & (d + rad >= r_lo)
+        if seen:
+            cx = tile_centre[m, 0] - ant[tm, 0]
+            cy = tile_centre[m, 1] - ant[tm, 1]
+            cz = tile_centre[m, 2] - ant[tm, 2]
+            key[nc] = cx * cx + cy * cy + cz * cz
+            cand[nc] = m
+            nc += 1
+    return cand[np.argsort(key[:nc], kind="mergesort")]
 
 
 # --------------------------------------------------------------------------- per-trace kernels
@@ -456,46 +485,84 @@ def earliest_range(ant, bound, tile_centre, tile_radius, tile_slab, tile_offsets
                                    e_row)  # fmt: skip
 
 
-@numba.njit(**_JIT)
+@numba.njit(fastmath={"nnan", "nsz"}, **_JIT)
 def _earliest_one(a, best, tile_centre, tile_radius, tile_slab, tile_offsets, rel, normal, e_col, e_row):
+    ntile = tile_radius.shape[0]
+    tile_min = np.empty(ntile)  # every tile's slab bound first, in one loop that vectorises
+    for m in range(ntile):
+        tile_min[m] = slab_min_range(tile_centre[m, 0] - a[0], tile_centre[m, 1] - a[1], tile_centre[m, 2] - a[2],
+                                 tile_slab[m])  # fmt: skip
+    cand = np.empty(ntile, dtype=np.int64)
+    nc = 0
+    for m in range(ntile):
+        if tile_radius[m] >= 0.0 and tile_min[m] < best:
+            cand[nc] = m
+            nc += 1
+    cand = cand[:nc][np.argsort(tile_min[cand[:nc]], kind="mergesort")]
     found = np.inf
-    for m in range(tile_radius.shape[0]):
-        if tile_radius[m] < 0.0:
-            continue
+    for q in range(nc):  # nearest tiles first: once a tile's bound is beyond the best found, so are the rest
+        m = cand[q]
+        if tile_min[m] >= found:
+            break
         cx = tile_centre[m, 0] - a[0]
         cy = tile_centre[m, 1] - a[1]
         cz = tile_centre[m, 2] - a[2]
-        if slab_min_range(cx, cy, cz, tile_slab[m]) >= min(best, found):
-            continue
-        for f in range(tile_offsets[m], tile_offsets[m + 1]):
+        f0 = np.uint64(tile_offsets[m])
+        tile_found = found
+        for i in range(tile_offsets[m + 1] - tile_offsets[m]):  # branch-free: a min-reduction that vectorises
+            f = f0 + np.uint64(i)
             vx = cx + rel[0, f]
             vy = cy + rel[1, f]
             vz = cz + rel[2, f]
             r = math.sqrt(vx * vx + vy * vy + vz * vz)
-            if vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f] >= 0.0:
-                continue
+            front = vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f] < 0.0
             span = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) + abs(
                 vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]
             )
             near = r - 0.5 * span / r
-            if near < found:
-                found = near
+            tile_found = min(tile_found, near if front else found)
+        found = tile_found
     return found
 
 
 #: Side codes of the source record: within the nadir strip, left or right of the track.
 SIDE_NADIR, SIDE_LEFT, SIDE_RIGHT = 0, 1, 2
-#: Sub-bins per sample of the left/right rows of the source record. Much coarser than
-#: the total's grid, which is plenty for shares: finer side rows overflow L2 (medium
-#: benchmark, sources on: kernel 17.2 s with 1, 22.7 s with 4).
-SIDE_OVERSAMPLE = 1
+
+
+@numba.njit(inline="always", **_JIT)
+def integrate_two_rows(dd, r0, r1, start, oversample, out0, out1):
+    """:func:`integrate_row` of the second-difference rows at ``dd[r0:]`` and ``dd[r1:]`` together
+    (two independent running sums per sub-bin) into ``out0`` and ``out1``."""
+    a1 = 0.0
+    a2 = 0.0
+    b1 = 0.0
+    b2 = 0.0
+    for j in range(start):
+        a1 += dd[r0 + j]
+        a2 += a1
+        b1 += dd[r1 + j]
+        b2 += b1
+    for k in range(out0.shape[0]):
+        acc_a = 0.0
+        acc_b = 0.0
+        for j in range(start + k * oversample, start + (k + 1) * oversample):
+            a1 += dd[r0 + j]
+            a2 += a1
+            acc_a += a2
+            b1 += dd[r1 + j]
+            b2 += b1
+            acc_b += b2
+        if acc_a > 0.0:
+            out0[k] += acc_a
+        if acc_b > 0.0:
+            out1[k] += acc_b
 
 
 @numba.njit(parallel=True, fastmath=_FAST, **_JIT)
 def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, traces_per_block,
-                     tile_centre, tile_radius, tile_offsets, max_tile, rel, normal, e_col, e_row, area,
+                     tile_centre, tile_radius, tile_offsets, max_tile, max_extent_m, rel, normal, e_col, e_row, area,
                      law_code, p0, p1, power_const, frames, antenna, shadow_heights, facet_cell, nadir_rc, ant_h,
-                     h_max, out, best_facet):  # fmt: skip
+                     h_max, spreading, out, best_facet):  # fmt: skip
     """Received power per delay bin from every facet, for blocks of traces.
 
     For each facet at range R with local incidence θ (cos θ = −û·n̂) the radar
@@ -507,26 +574,34 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     :func:`direction_weight`, with ``frames[t]`` the trace's along/right/down
     frame and ``antenna`` their parameters; zero when terrain hides the facet
     and ``shadow_heights`` is the DEM window, :func:`hidden_from_antenna`) is
-    spread over the delay its range extent covers
-    (:func:`deposit_trapezoid` on a grid of ``oversample`` sub-bins per bin).
-    Facets seen from behind contribute nothing. Tiles whose bounding sphere
-    cannot reach a trace's window are skipped whole.
+    spread over the delay its range extent covers (:func:`trapezoid_kinks` on a
+    grid of ``oversample`` sub-bins per bin; with ``spreading`` =
+    :data:`SPREAD_CENTRE`, a benchmark-only variant, all of it goes to the bin of
+    the facet's centre delay). Facets seen from behind contribute nothing.
+    Tiles whose bounding sphere cannot reach a trace's window are skipped whole.
+    ``max_extent_m`` bounds every facet's half-extent (|e_col| + |e_row|)/2: it
+    sizes the margins of the delay rows so that no deposit needs a bounds test.
 
     Work is split into blocks of ``traces_per_block`` consecutive traces, one
     block per thread; within a block each tile's facets are read once and used
-    for every trace of the block while they sit in cache. Per (tile, trace) a
-    vectorised pass computes range, incidence, σ0 and power for all facets
-    into small buffers, then a scalar pass deposits them.
+    for every trace of the block while they sit in cache, tiles in order of
+    range (:func:`tiles_in_range_order`). Per (tile, trace) vectorised passes
+    compute range, incidence, σ0, power and the sub-bin corners of every facet
+    into small buffers, then a branch-free scalar pass adds the four slope
+    changes per facet.
 
     ``out`` has shape (ntrace, nside, nbins) and is accumulated into; row 0 is
-    the total power. With ``nside == 3`` the power of facets left and right of
-    the track also goes to rows :data:`SIDE_LEFT` and :data:`SIDE_RIGHT` (laid on
-    a grid of :data:`SIDE_OVERSAMPLE` sub-bins per sample, plenty for shares);
-    a facet is in the nadir strip (:data:`SIDE_NADIR`) when its cross-track
-    offset ``(P − A)·right_unit[t]`` is within ``strip_half_m[t]``; and
-    ``best_facet`` (ntrace, nbins) receives, per bin, the facet centred in that
-    bin with the largest power density (−1 where none). Returns the number of
-    facet evaluations (front-facing facets whose delay reaches the window).
+    the total power. With ``nside == 3`` (the source record) a facet is in the
+    nadir strip (:data:`SIDE_NADIR`) when its cross-track offset
+    ``(P − A)·right_unit[t]`` is within ``strip_half_m[t]``, else left or right;
+    rows :data:`SIDE_LEFT` and :data:`SIDE_RIGHT` of ``out`` receive the power
+    of each side on the same sub-bin grid as the total: facets right of the
+    track and in the nadir strip are also written to a row of their own (the
+    total row is the same computation as without the source record), and the
+    left side is the total minus the two. ``best_facet`` (ntrace, nbins) receives,
+    per bin, the facet centred in that bin with the largest power density
+    (−1 where none). Returns the number of facet evaluations (front-facing
+    facets whose delay reaches the window).
     """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
     nt = ant.shape[0]
@@ -534,31 +609,40 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     grid_nx = shadow_heights.shape[1]
     nside = out.shape[1]
     nb = out.shape[2]
-    nsub = nb * oversample
     attribute = nside == 3
-    ntile = tile_radius.shape[0]
-    inv_sub_m = oversample / (half_c * dt_s)
+    nrows = 3 if attribute else 1  # delay rows per trace
+    centre = spreading == SPREAD_CENTRE
+    ov = 1 if centre else oversample  # sub-bins per bin of the rows
+    spread_on = 0.0 if centre else 1.0
+    nsub = nb * ov
+    inv_sub_m = ov / (half_c * dt_s)
+    # a facet reaching the window has every corner within 2 half-extents (+ rounding) of it
+    margin = int(2.0 * max_extent_m * inv_sub_m) + 8
+    nrow = nsub + 2 * margin + 2
     nblk = (nt + traces_per_block - 1) // traces_per_block
     counts = np.zeros(nblk, dtype=np.int64)
     for blk in numba.prange(nblk):
         ta = blk * traces_per_block
         nbt = min(ta + traces_per_block, nt) - ta
-        dd = np.zeros((nbt, nsub + 2))  # total power, second differences on the sub-bin grid
-        dd_side = np.zeros((nbt * 2 if attribute else 0, nb * SIDE_OVERSAMPLE + 2))  # left, right: coarser grid
-        best_val = np.zeros((nbt, nb if attribute else 0))
-        bx = np.empty(max_tile)
-        bc = np.empty(max_tile)
-        ba = np.empty(max_tile)
-        bb = np.empty(max_tile)
+        order = tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius)
+        dd = np.zeros(nbt * nrows * nrow)  # second differences on the sub-bin grid, rows by trace (and side)
+        best_val = np.zeros((nbt, nb + 1 if attribute else 0))  # per bin, + 1 discarded bin
+        best_idx = np.full((nbt, nb + 1 if attribute else 0), -1, dtype=np.int64)
+        fb = np.empty((3, max_tile))  # cos θ, numerator and denominator of the power
         bp = np.empty(max_tile)
-        bs = np.zeros(max_tile, dtype=np.int64)
+        bn = np.zeros(max_tile, dtype=np.uint64)
+        ba = np.zeros(max_tile, dtype=np.uint64)
+        bb = np.zeros(max_tile, dtype=np.uint64)
+        bd = np.empty(max_tile)
+        bk = np.zeros(max_tile, dtype=np.uint64)
+        bs = np.zeros(max_tile, dtype=np.uint64)
         n_eval = 0
-        for m in range(ntile):
+        for q in range(order.shape[0]):
+            m = order[q]
             rad = tile_radius[m]
-            if rad < 0.0:
-                continue
             f0 = tile_offsets[m]
             n = tile_offsets[m + 1] - f0
+            f0u = np.uint64(f0)
             for tt in range(nbt):
                 t = ta + tt
                 cx = tile_centre[m, 0] - ant[t, 0]
@@ -570,7 +654,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                 if d - rad > r_hi or d + rad < r_lo:
                     continue
                 x0 = r_lo * inv_sub_m
-                f0u = np.uint64(f0)
+                row0 = np.uint64(tt * nrows * nrow + margin)
                 for i in range(n):
                     f = f0u + np.uint64(i)  # unsigned: no negative-index wraparound, so LLVM vectorises
                     vx = cx + rel[0, f]
@@ -584,12 +668,18 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     x = r2 * inv_r * inv_sub_m - x0
                     half = 0.5 * (wa + wb)
                     ok = (cos_inc > 0.0) & (x + half > 0.0) & (x - half < nsub)
-                    bc[i] = max(cos_inc, 1e-6)
-                    bp[i] = power_const * area[f] / (r2 * r2) if ok else 0.0
-                    bx[i] = x
-                    ba[i] = wa
-                    bb[i] = wb
-                sigma0_scale(law_code, bc, p0, p1, bp, n)
+                    # corners clamped into the row's margins: only facets outside the window (p = 0) move
+                    xc = min(max(x, -1.0 * margin), 1.0 * (nsub + margin))
+                    # centre spreading: widths 0, so A = B = 1 and the first corner floor(x); no branch on
+                    # the mode here, it would stop the vectorisation (as do more output buffers)
+                    n1, a, b = trapezoid_kinks(xc + 0.5 * (1.0 - spread_on), wa * spread_on, wb * spread_on)
+                    bn[i] = row0 + np.uint64(min(max(n1, -margin), nsub))
+                    ba[i] = np.uint64(a)
+                    bb[i] = np.uint64(b)
+                    fb[0, i] = max(cos_inc, 1e-6)
+                    fb[1, i] = power_const * area[f] if ok else 0.0
+                    fb[2, i] = r2 * r2 * (a * b)  # slope change w = p / (A B)
+                sigma0_apply(law_code, fb[0], p0, p1, fb[1], fb[2], bp, n)
                 if antenna[0] != 0.0 or antenna[5] != 0.0:  # an antenna pattern or along-track processing
                     for i in range(n):
                         f = f0u + np.uint64(i)
@@ -614,32 +704,120 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     strip = strip_half_m[t]
                     for i in range(n):
                         f = f0u + np.uint64(i)
-                        cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
-                        bs[i] = SIDE_RIGHT if cross > strip else (SIDE_LEFT if cross < -strip else SIDE_NADIR)
-                for i in range(n):
-                    p = bp[i]
-                    if p == 0.0:
-                        continue
-                    n_eval += 1
-                    deposit_trapezoid(dd, tt, bx[i], ba[i], bb[i], p, nsub)
+                        vx = cx + rel[0, f]
+                        vy = cy + rel[1, f]
+                        vz = cz + rel[2, f]
+                        cross = vx * rx + vy * ry + vz * rz
+                        # second row written: right 1, nadir strip 2, left none (0)
+                        bs[i] = np.uint64(nrow) if cross > strip else (np.uint64(0) if cross < -strip else np.uint64(2 * nrow))
+                        r2 = vx * vx + vy * vy + vz * vz
+                        inv_r = 1.0 / math.sqrt(r2)
+                        wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) * inv_r * inv_sub_m
+                        wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) * inv_r * inv_sub_m
+                        x = min(max(r2 * inv_r * inv_sub_m - x0, -1.0 * margin), 1.0 * (nsub + margin))
+                        # the bin of the facet's centre (int() truncates toward 0), nb when outside;
+                        # density: power per sample of delay extent, p / max(extent, 1 sample)
+                        k = math.floor(float(int(x)) / ov)
+                        bk[i] = np.uint64(k) if (k >= 0) & (k < nb) else np.uint64(nb)
+                        bd[i] = (1.0 * ba[i] * bb[i]) / max(max(wa, wb) / ov, 1.0)  # bp holds p / (A B)
+                    bv = best_val[tt]
+                    bf = best_idx[tt]
+                    for i in range(n):
+                        density = bp[i] * bd[i]
+                        kb = bk[i]
+                        old = bv[kb]
+                        better = density > old
+                        bv[kb] = density if better else old
+                        bf[kb] = f0 + i if better else bf[kb]
+                if centre:
+                    for i in range(n):
+                        p = bp[i]
+                        n_eval += p != 0.0
+                        dd[bn[i]] += p
                     if attribute:
-                        if bs[i] != SIDE_NADIR:
-                            scale = SIDE_OVERSAMPLE / oversample
-                            deposit_trapezoid(dd_side, 2 * tt + bs[i] - 1, bx[i] * scale, ba[i] * scale, bb[i] * scale,
-                                              p, nb * SIDE_OVERSAMPLE)  # fmt: skip
-                        k = int(bx[i]) // oversample
-                        if 0 <= k < nb:
-                            density = p / max(max(ba[i], bb[i]) / oversample, 1.0)
-                            if density > best_val[tt, k]:
-                                best_val[tt, k] = density
-                                best_facet[t, k] = f0 + i
+                        for i in range(n):
+                            if bs[i] != 0:
+                                dd[bn[i] + bs[i]] += bp[i]
+                else:
+                    for i in range(n):
+                        w = bp[i]
+                        n_eval += w != 0.0
+                        k = bn[i]
+                        a = ba[i]
+                        b = bb[i]
+                        dd[k] += w
+                        dd[k + b] -= w
+                        dd[k + a] -= w
+                        dd[k + a + b] += w
+                    if attribute:  # a branch, but taken alike by most facets of a tile
+                        for i in range(n):
+                            if bs[i] != 0:
+                                w = bp[i]
+                                k = bn[i] + bs[i]
+                                a = ba[i]
+                                b = bb[i]
+                                dd[k] += w
+                                dd[k + b] -= w
+                                dd[k + a] -= w
+                                dd[k + a + b] += w
+        side_bins = np.zeros((3, nb if attribute else 0))  # total, right, nadir strip of one trace
         for tt in range(nbt):
-            integrate_rows(dd, tt, oversample, out[ta + tt, 0])
+            t = ta + tt
+            r0 = tt * nrows * nrow
+            if not attribute:
+                if centre:
+                    for k in range(nb):
+                        v = dd[r0 + margin + k]
+                        if v > 0.0:
+                            out[t, 0, k] += v
+                else:
+                    integrate_row(dd[r0 : r0 + nrow], margin, oversample, out[t, 0])
+            else:
+                side_bins[:] = 0.0
+                if centre:
+                    for j in range(3):
+                        for k in range(nb):
+                            side_bins[j, k] = max(dd[r0 + j * nrow + margin + k], 0.0)
+                else:
+                    integrate_row(dd[r0 : r0 + nrow], margin, oversample, side_bins[0])
+                    integrate_two_rows(dd, r0 + nrow, r0 + 2 * nrow, margin, oversample, side_bins[1], side_bins[2])
+                for k in range(nb):
+                    out[t, 0, k] += side_bins[0, k]
+                    out[t, SIDE_RIGHT, k] += side_bins[1, k]
+                    left = side_bins[0, k] - side_bins[1, k] - side_bins[2, k]
+                    if left > 0.0:
+                        out[t, SIDE_LEFT, k] += left
             if attribute:
-                integrate_rows(dd_side, 2 * tt, SIDE_OVERSAMPLE, out[ta + tt, SIDE_LEFT])
-                integrate_rows(dd_side, 2 * tt + 1, SIDE_OVERSAMPLE, out[ta + tt, SIDE_RIGHT])
+                for k in range(nb):
+                    if best_idx[tt, k] >= 0:
+                        best_facet[t, k] = best_idx[tt, k]
         counts[blk] = n_eval
     return counts.sum()
+
+
+@numba.njit(fastmath=_FAST, **_JIT)
+def convolve_rows(binned, weights, first, out):
+    """Discrete convolution of each row with ``weights`` (odd length 2h+1, centred), zero outside
+    the row, cropped: out[t, s] = Σ_k weights[k] · binned[t, first + s + h − k] (the same as
+    ``scipy.ndimage.convolve1d(binned, weights, mode="constant")[:, first:first + nsamples]``,
+    about 4× faster). Serial: a chunk of traces takes about a millisecond, less than waking threads."""
+    n = weights.shape[0]
+    h = n // 2
+    nb = binned.shape[1]
+    ns = out.shape[1]
+    for t in range(binned.shape[0]):
+        row = out[t]
+        row[:] = 0.0
+        for k in range(n - 1, -1, -1):  # one shifted, scaled copy of the row per weight (vectorises)
+            wk = weights[k]
+            lo = first + h - k  # binned index of output sample 0 for this weight
+            s0 = max(0, -lo)
+            s1 = min(ns, nb - lo)
+            src = binned[t, lo + s0 : lo + s1]
+            dst = row[s0:s1]
+            for i in range(s1 - s0):
+                j = np.uint64(i)  # unsigned: no negative-index wraparound, so LLVM vectorises
+                dst[j] += wk * src[j]
 
 
 @numba.njit(parallel=True, **_JIT)

@@ -197,14 +197,78 @@ def write_netcdf(ds: xr.Dataset, path, *, overwrite: bool = False) -> Path:
     return path
 
 
+#: The (trace, sample) arrays written deflated (zlib) with the byte shuffle, lossless.
+_DEFLATED = ("power", "source_lat", "source_lon", "left_fraction", "right_fraction")
+#: zlib level: 1 writes the medium benchmark's five 2000 × 2048 float32 arrays in 0.97 s instead
+#: of 1.19 s at level 4, for a 2.5 % larger file (noisy float32 values hardly compress further).
+_DEFLATE_LEVEL = 1
+#: Traces per HDF5 chunk of those arrays (a chunk per 256 traces: 2 MB at 2048 samples).
+_CHUNK_TRACES = 256
+
+
 def write_netcdf_to(ds: xr.Dataset, path) -> None:
-    """Write without the overwrite/atomic checks (the caller handles them)."""
-    encoding = {
-        name: {"zlib": True, "complevel": 4, "shuffle": True}
-        for name in ("power", "source_lat", "source_lon", "left_fraction", "right_fraction")
-        if name in ds
-    }
-    ds.to_netcdf(path, engine="h5netcdf", encoding=encoding, format="NETCDF4")
+    """Write without the overwrite/atomic checks (the caller handles them).
+
+    The arrays of :data:`_DEFLATED` are stored in chunks of :data:`_CHUNK_TRACES`
+    traces with the HDF5 shuffle and deflate filters. Large float32 ones are
+    compressed on several threads (zlib releases the GIL) and written as
+    finished chunks (:func:`_write_deflated_chunks`): xarray first writes the
+    file with all variables, attributes and filters, those arrays holding
+    zeros, then each chunk is replaced by the same data HDF5 would have written.
+    """
+    names = [name for name in _DEFLATED if name in ds]
+    parallel = [n for n in names if ds[n].dtype == np.float32 and ds[n].ndim >= 2 and ds[n].size >= 1 << 20]
+    encoding = {}
+    for name in names:
+        enc = {"zlib": True, "complevel": _DEFLATE_LEVEL, "shuffle": True}
+        if name in parallel:
+            shape = ds[name].shape
+            enc["chunksizes"] = (1,) * (len(shape) - 2) + (min(_CHUNK_TRACES, shape[-2]), shape[-1])
+        encoding[name] = enc
+    placeholder = ds.assign({n: ds[n].copy(data=np.zeros(ds[n].shape, dtype=np.float32)) for n in parallel})
+    placeholder.to_netcdf(path, engine="h5netcdf", encoding=encoding, format="NETCDF4")
+    if parallel:
+        _write_deflated_chunks(path, {n: np.ascontiguousarray(ds[n].values) for n in parallel})
+
+
+def _write_deflated_chunks(path, arrays: dict) -> None:
+    """Overwrite every chunk of the given (chunked, shuffle + deflate) datasets of an HDF5 file with
+    ``arrays``, compressed in parallel: the HDF5 shuffle filter (byte k of every element together,
+    for k = 0..itemsize−1, over the whole padded chunk) then zlib at the dataset's level, as HDF5's
+    own filters do. A dataset with any other filter pipeline is written the ordinary way."""
+    import os
+    import zlib
+    from concurrent.futures import ThreadPoolExecutor
+    from itertools import product
+
+    import h5py
+
+    threads = max(1, min(4, os.cpu_count() or 1))
+    with h5py.File(path, "r+") as f, ThreadPoolExecutor(threads) as pool:
+        for name, values in arrays.items():
+            dset = f[name]
+            plain = (dset.compression != "gzip" or not dset.shuffle or dset.chunks is None or dset.fletcher32
+                     or dset.scaleoffset is not None or dset.shape != values.shape or dset.dtype != values.dtype)  # fmt: skip
+            if plain:
+                dset[...] = values
+                continue
+            chunks = dset.chunks
+            level = int(dset.compression_opts)
+            fill = dset.fillvalue
+            item = values.dtype.itemsize
+
+            def deflate(offset, values=values, chunks=chunks, level=level, fill=fill, item=item):
+                part = values[tuple(slice(o, o + c) for o, c in zip(offset, chunks))]
+                if part.shape != chunks:  # an edge chunk is stored whole, padded with the fill value
+                    block = np.full(chunks, fill, dtype=values.dtype)
+                    block[tuple(slice(0, n) for n in part.shape)] = part
+                    part = block
+                shuffled = np.ascontiguousarray(part).view(np.uint8).reshape(-1, item).T.tobytes()
+                return offset, zlib.compress(shuffled, level)
+
+            offsets = product(*(range(0, n, c) for n, c in zip(values.shape, chunks)))
+            for offset, data in pool.map(lambda o: deflate(o), offsets):
+                dset.id.write_direct_chunk(offset, data)
 
 
 def open_radargram(path, band: str | None = None) -> xr.Dataset:
