@@ -15,7 +15,8 @@ Bytes per item (measured on this code, see ``tests/test_robustness.py``):
 * Radargram, per trace and sample: power float32 (4 B); with the source record,
   left/right fractions float32, dominant facet int32, source lat/lon float32 and
   their temporaries (:data:`BYTES_PER_SAMPLE_SOURCES`).
-* Kernel buffers: per thread, a block of traces on the sub-bin grid (float64);
+* Kernel buffers: per thread, a block of traces on the sub-bin grid (float64; three rows per
+  trace with the source record);
   per chunk of traces, the binned power (float64, 3 rows with sources) and its
   convolution.
 """
@@ -79,7 +80,8 @@ def estimate_memory_bytes(
     radargram = int(traces) * int(samples) * per_sample
     rows = 3 if sources else 1
     chunk = min(int(traces), max(4 * traces_per_block * threads, min(chunk_traces, int(traces) // 50 or 1)))  # as simulate()
-    kernel = threads * traces_per_block * (nbins * oversample + 2) * 8 + chunk * nbins * (rows * 8 * 2 + 4)
+    # per thread: a block of traces, each with its delay rows (total; right and nadir strip with sources)
+    kernel = threads * traces_per_block * rows * (nbins * oversample + 2) * 8 + chunk * nbins * (rows * 8 * 2 + 4)
     return MemoryEstimate(int(dem_cells), int(traces), int(samples), dem, radargram, kernel)
 
 
