@@ -431,12 +431,35 @@ def integrate_row(row, start, oversample, out_row):
             out_row[k] += acc
 
 
+@numba.njit(inline="always", **_JIT)
+def _deposit_kinks(dd, k, a, b, w):
+    """A trapezoid's four slope changes into a second-difference row: +w at k and k + a + b,
+    −w at k + a and k + b (sub-bins; :func:`trapezoid_kinks`)."""
+    dd[k] += w
+    dd[k + b] -= w
+    dd[k + a] -= w
+    dd[k + a + b] += w
+
+
+@numba.njit(inline="always", **_JIT)
+def _tile_reaches_window(tile_centre, m, ant, t, rad, bin0_s, nb, dt_s):
+    """Offset (x, y, z) of tile ``m``'s centre from antenna ``t``, and whether its bounding sphere
+    (radius ``rad``) overlaps the range interval of that trace's window of ``nb`` bins."""
+    half_c = 0.5 * SPEED_OF_LIGHT_M_S
+    cx = tile_centre[m, 0] - ant[t, 0]
+    cy = tile_centre[m, 1] - ant[t, 1]
+    cz = tile_centre[m, 2] - ant[t, 2]
+    d = math.sqrt(cx * cx + cy * cy + cz * cz)
+    r_lo = bin0_s[t] * half_c
+    r_hi = r_lo + nb * dt_s * half_c
+    return cx, cy, cz, (d - rad <= r_hi) & (d + rad >= r_lo)
+
+
 @numba.njit(**_JIT)
 def tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius):
     """Tiles whose bounding sphere reaches the window of at least one of traces ta..ta+nbt−1,
     sorted by distance from the block's middle trace: the kernel then sweeps each trace's delay
     row from near to far, so the part of the row being written stays in cache."""
-    half_c = 0.5 * SPEED_OF_LIGHT_M_S
     ntile = tile_radius.shape[0]
     key = np.empty(ntile)
     cand = np.empty(ntile, dtype=np.int64)
@@ -448,13 +471,7 @@ def tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radiu
             continue
         seen = False
         for t in range(ta, ta + nbt):
-            cx = tile_centre[m, 0] - ant[t, 0]
-            cy = tile_centre[m, 1] - ant[t, 1]
-            cz = tile_centre[m, 2] - ant[t, 2]
-            d = math.sqrt(cx * cx + cy * cy + cz * cz)
-            r_lo = bin0_s[t] * half_c
-            r_hi = r_lo + nb * dt_s * half_c
-            seen |= (d - rad <= r_hi) & (d + rad >= r_lo)
+            seen |= _tile_reaches_window(tile_centre, m, ant, t, rad, bin0_s, nb, dt_s)[3]
         if seen:
             cx = tile_centre[m, 0] - ant[tm, 0]
             cy = tile_centre[m, 1] - ant[tm, 1]
@@ -645,15 +662,10 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
             f0u = np.uint64(f0)
             for tt in range(nbt):
                 t = ta + tt
-                cx = tile_centre[m, 0] - ant[t, 0]
-                cy = tile_centre[m, 1] - ant[t, 1]
-                cz = tile_centre[m, 2] - ant[t, 2]
-                d = math.sqrt(cx * cx + cy * cy + cz * cz)
-                r_lo = bin0_s[t] * half_c
-                r_hi = r_lo + nb * dt_s * half_c
-                if d - rad > r_hi or d + rad < r_lo:
+                cx, cy, cz, reaches = _tile_reaches_window(tile_centre, m, ant, t, rad, bin0_s, nb, dt_s)
+                if not reaches:
                     continue
-                x0 = r_lo * inv_sub_m
+                x0 = bin0_s[t] * half_c * inv_sub_m
                 row0 = np.uint64(tt * nrows * nrow + margin)
                 for i in range(n):
                     f = f0u + np.uint64(i)  # unsigned: no negative-index wraparound, so LLVM vectorises
@@ -740,26 +752,12 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                                 dd[bn[i] + bs[i]] += bp[i]
                 else:
                     for i in range(n):
-                        w = bp[i]
-                        n_eval += w != 0.0
-                        k = bn[i]
-                        a = ba[i]
-                        b = bb[i]
-                        dd[k] += w
-                        dd[k + b] -= w
-                        dd[k + a] -= w
-                        dd[k + a + b] += w
+                        n_eval += bp[i] != 0.0
+                        _deposit_kinks(dd, bn[i], ba[i], bb[i], bp[i])
                     if attribute:  # a branch, but taken alike by most facets of a tile
                         for i in range(n):
                             if bs[i] != 0:
-                                w = bp[i]
-                                k = bn[i] + bs[i]
-                                a = ba[i]
-                                b = bb[i]
-                                dd[k] += w
-                                dd[k + b] -= w
-                                dd[k + a] -= w
-                                dd[k + a + b] += w
+                                _deposit_kinks(dd, bn[i] + bs[i], ba[i], bb[i], bp[i])
         side_bins = np.zeros((3, nb if attribute else 0))  # total, right, nadir strip of one trace
         for tt in range(nbt):
             t = ta + tt

@@ -87,24 +87,12 @@ def test_sources_rows_split_the_total(rough_scene):
 @pytest.mark.parametrize("antenna", [{"pattern": "dipole", "axis": "cross-track"},
                                      {"pattern": "gaussian", "beamwidth_along_deg": 3.0, "beamwidth_across_deg": 8.0}])  # fmt: skip
 def test_kernel_agrees_with_numpy_reference_with_antenna_pattern(rough_scene, antenna):
-    from cluttersim.antenna import AntennaConfig, trace_frames
-    from cluttersim.attribution import right_unit_vectors
+    from cluttersim.antenna import AntennaConfig
 
     src, track = rough_scene
     cfg = SimulationConfig(radar=RadarConfig(samples=512), surface=SurfaceConfig("hagfors", {"C": 300.0, "rho": 0.1}),
                            antenna=AntennaConfig(**antenna))  # fmt: skip
-    scene = prepare_scene(src, track, cfg)
-    dt = cfg.radar.sample_interval_s
-    nbins = cfg.radar.samples + 2 * scene.pad
-    bin0 = scene.start_s - (scene.pad + 0.5) * dt
-    ant = scene.ant_m[scene.idx]
-    body = src.body
-    frames = trace_frames(right_unit_vectors(body, track)[scene.idx], body.up_unit(track.lat_deg, track.lon_deg)[scene.idx])
-    fast, _, _ = binned_power(scene, ant, bin0, nbins, frames=frames)
-    ref = reference_binned_power(scene.facets, ant, bin0, dt, nbins, cfg, frames=frames)
-    np.testing.assert_allclose(fast[:, 0].sum(axis=1), ref.sum(axis=1), rtol=1e-5)
-    iso = SimulationConfig(radar=cfg.radar, surface=cfg.surface)
-    plain = reference_binned_power(scene.facets, ant, bin0, dt, nbins, iso)
+    ref, plain = _kernel_matches_reference_with_frames(src, track, cfg)
     from cluttersim.antenna import DIPOLE_PEAK
 
     peak = DIPOLE_PEAK if antenna["pattern"] == "dipole" else 1.0
@@ -115,13 +103,22 @@ def test_kernel_agrees_with_numpy_reference_with_antenna_pattern(rough_scene, an
                                         {"aperture": "focused", "doppler_bandwidth_hz": 4.0, "platform_speed_m_s": 3500.0},
                                         {"aperture": "unfocused"}])  # fmt: skip
 def test_kernel_agrees_with_numpy_reference_with_along_track_processing(rough_scene, processing):
-    from cluttersim.antenna import trace_frames
     from cluttersim.aperture import ProcessingConfig
-    from cluttersim.attribution import right_unit_vectors
 
     src, track = rough_scene
     cfg = SimulationConfig(radar=RadarConfig(samples=512), surface=SurfaceConfig("hagfors", {"C": 300.0, "rho": 0.1}),
                            processing=ProcessingConfig(**processing))  # fmt: skip
+    ref, plain = _kernel_matches_reference_with_frames(src, track, cfg)
+    assert 0 < ref.sum() < 0.9 * plain.sum()  # the processing removes clutter ahead and behind
+
+
+def _kernel_matches_reference_with_frames(src, track, cfg):
+    """Kernel and NumPy reference on the scene with the traces' frames (antenna patterns and
+    along-track processing need them): total power per trace to 1e-5. Returns the reference's
+    binned power and that of the same radar without pattern or processing."""
+    from cluttersim.antenna import trace_frames
+    from cluttersim.attribution import right_unit_vectors
+
     scene = prepare_scene(src, track, cfg)
     dt = cfg.radar.sample_interval_s
     nbins = cfg.radar.samples + 2 * scene.pad
@@ -133,4 +130,4 @@ def test_kernel_agrees_with_numpy_reference_with_along_track_processing(rough_sc
     ref = reference_binned_power(scene.facets, ant, bin0, dt, nbins, cfg, frames=frames)
     np.testing.assert_allclose(fast[:, 0].sum(axis=1), ref.sum(axis=1), rtol=1e-5)
     plain = reference_binned_power(scene.facets, ant, bin0, dt, nbins, SimulationConfig(radar=cfg.radar, surface=cfg.surface))
-    assert 0 < ref.sum() < 0.9 * plain.sum()  # the processing removes clutter ahead and behind
+    return ref, plain
