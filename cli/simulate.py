@@ -45,7 +45,9 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     axis for --permittivity), OUT/radargram_sides.png (which side of the track each echo
     comes from) and OUT/track_map.png (track and first returns over shaded relief).
     Optional [noise] and [subsurface] tables in the radar TOML add receiver noise and the
-    predicted echo of a hypothesised interface (see the README).
+    predicted echo of a hypothesised interface; [[band]] tables simulate several frequency
+    bands in one run (a band dimension in radargram.nc, one figure per band); [processing]
+    presum = N sums N pulses of the track into each trace (see the README).
 
     \b
     Example:
