@@ -442,21 +442,45 @@ def _deposit_kinks(dd, k, a, b, w):
 
 
 @numba.njit(inline="always", **_JIT)
-def _tile_reaches_window(tile_centre, m, ant, t, rad, bin0_s, nb, dt_s):
-    """Offset (x, y, z) of tile ``m``'s centre from antenna ``t``, and whether its bounding sphere
-    (radius ``rad``) overlaps the range interval of that trace's window of ``nb`` bins."""
+def _tile_reaches_window(tile_centre, tile_slab, m, ant, t, rad, bin0_s, nb, dt_s):
+    """Offset (x, y, z) of tile ``m``'s centre from antenna ``t``, and whether the tile can reach
+    the range interval of that trace's window of ``nb`` bins.
+
+    Two conservative bounds on the range of the tile's facets (their extents included): its
+    bounding sphere (radius ``rad``), then its slab (``tile_slab[m]``: a cylinder about the
+    geocentric vertical u of the tile centre, of horizontal radius ρ and vertical extent
+    [z_lo, z_hi]). For an antenna at offset −d from the centre, the cylinder's points lie at
+    vertical distances |d·u + z|, z ∈ [z_lo, z_hi], and horizontal distances within ρ of
+    |d − (d·u)u|; the range bounds combine the extremes of both. Far from nadir the cylinder
+    is several times tighter than the sphere (a line of sight at grazing angle α sees the
+    tile's ρ as about ρ sin α of range), so fewer tiles are evaluated for nothing.
+    """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
     cx = tile_centre[m, 0] - ant[t, 0]
     cy = tile_centre[m, 1] - ant[t, 1]
     cz = tile_centre[m, 2] - ant[t, 2]
-    d = math.sqrt(cx * cx + cy * cy + cz * cz)
+    d2 = cx * cx + cy * cy + cz * cz
+    d = math.sqrt(d2)
     r_lo = bin0_s[t] * half_c
     r_hi = r_lo + nb * dt_s * half_c
-    return cx, cy, cz, (d - rad <= r_hi) & (d + rad >= r_lo)
+    if (d - rad > r_hi) | (d + rad < r_lo):
+        return cx, cy, cz, False
+    dz = cx * tile_slab[m, 0] + cy * tile_slab[m, 1] + cz * tile_slab[m, 2]
+    h = math.sqrt(max(d2 - dz * dz, 0.0))
+    rho = tile_slab[m, 3]
+    z_lo = dz + tile_slab[m, 4]
+    z_hi = dz + tile_slab[m, 5]
+    v_max = max(abs(z_lo), abs(z_hi))
+    v_min = 0.0 if (z_lo <= 0.0) & (z_hi >= 0.0) else min(abs(z_lo), abs(z_hi))
+    h_min = max(h - rho, 0.0)
+    h_max = h + rho
+    near = math.sqrt(v_min * v_min + h_min * h_min)
+    far = math.sqrt(v_max * v_max + h_max * h_max)
+    return cx, cy, cz, (near <= r_hi) & (far >= r_lo)
 
 
 @numba.njit(**_JIT)
-def tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius):
+def tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius, tile_slab):
     """Tiles whose bounding sphere reaches the window of at least one of traces ta..ta+nbt−1,
     sorted by distance from the block's middle trace: the kernel then sweeps each trace's delay
     row from near to far, so the part of the row being written stays in cache."""
@@ -471,7 +495,7 @@ def tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radiu
             continue
         seen = False
         for t in range(ta, ta + nbt):
-            seen |= _tile_reaches_window(tile_centre, m, ant, t, rad, bin0_s, nb, dt_s)[3]
+            seen |= _tile_reaches_window(tile_centre, tile_slab, m, ant, t, rad, bin0_s, nb, dt_s)[3]
         if seen:
             cx = tile_centre[m, 0] - ant[tm, 0]
             cy = tile_centre[m, 1] - ant[tm, 1]
@@ -577,7 +601,7 @@ def integrate_two_rows(dd, r0, r1, start, oversample, out0, out1):
 
 @numba.njit(parallel=True, fastmath=_FAST, **_JIT)
 def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, traces_per_block,
-                     tile_centre, tile_radius, tile_offsets, max_tile, max_extent_m, rel, normal, e_col, e_row, area,
+                     tile_centre, tile_radius, tile_slab, tile_offsets, max_tile, max_extent_m, rel, normal, e_col, e_row, area,
                      law_code, p0, p1, power_const, frames, antenna, shadow_heights, facet_cell, nadir_rc, ant_h,
                      h_max, spreading, out, best_facet):  # fmt: skip
     """Received power per delay bin from every facet, for blocks of traces.
@@ -595,7 +619,8 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     grid of ``oversample`` sub-bins per bin; with ``spreading`` =
     :data:`SPREAD_CENTRE`, a benchmark-only variant, all of it goes to the bin of
     the facet's centre delay). Facets seen from behind contribute nothing.
-    Tiles whose bounding sphere cannot reach a trace's window are skipped whole.
+    Tiles that cannot reach a trace's window (bounding sphere, then slab:
+    :func:`_tile_reaches_window`) are skipped whole.
     ``max_extent_m`` bounds every facet's half-extent (|e_col| + |e_row|)/2: it
     sizes the margins of the delay rows so that no deposit needs a bounds test.
 
@@ -641,7 +666,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     for blk in numba.prange(nblk):
         ta = blk * traces_per_block
         nbt = min(ta + traces_per_block, nt) - ta
-        order = tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius)
+        order = tiles_in_range_order(ant, bin0_s, nb, dt_s, ta, nbt, tile_centre, tile_radius, tile_slab)
         dd = np.zeros(nbt * nrows * nrow)  # second differences on the sub-bin grid, rows by trace (and side)
         best_val = np.zeros((nbt, nb + 1 if attribute else 0))  # per bin, + 1 discarded bin
         best_idx = np.full((nbt, nb + 1 if attribute else 0), -1, dtype=np.int64)
@@ -662,7 +687,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
             f0u = np.uint64(f0)
             for tt in range(nbt):
                 t = ta + tt
-                cx, cy, cz, reaches = _tile_reaches_window(tile_centre, m, ant, t, rad, bin0_s, nb, dt_s)
+                cx, cy, cz, reaches = _tile_reaches_window(tile_centre, tile_slab, m, ant, t, rad, bin0_s, nb, dt_s)
                 if not reaches:
                     continue
                 x0 = bin0_s[t] * half_c * inv_sub_m
@@ -714,24 +739,22 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     ry = right_unit[t, 1]
                     rz = right_unit[t, 2]
                     strip = strip_half_m[t]
+                    row0i = np.int64(row0)
                     for i in range(n):
                         f = f0u + np.uint64(i)
-                        vx = cx + rel[0, f]
-                        vy = cy + rel[1, f]
-                        vz = cz + rel[2, f]
-                        cross = vx * rx + vy * ry + vz * rz
+                        cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
                         # second row written: right 1, nadir strip 2, left none (0)
                         bs[i] = np.uint64(nrow) if cross > strip else (np.uint64(0) if cross < -strip else np.uint64(2 * nrow))
-                        r2 = vx * vx + vy * vy + vz * vz
-                        inv_r = 1.0 / math.sqrt(r2)
-                        wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) * inv_r * inv_sub_m
-                        wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) * inv_r * inv_sub_m
-                        x = min(max(r2 * inv_r * inv_sub_m - x0, -1.0 * margin), 1.0 * (nsub + margin))
-                        # the bin of the facet's centre (int() truncates toward 0), nb when outside;
-                        # density: power per sample of delay extent, p / max(extent, 1 sample)
+                        # the facet's centre from its trapezoid (first corner + half the widths, sub-bins:
+                        # within half a sub-bin of its centre delay); its bin (int() truncates toward 0),
+                        # nb when outside; density: power per sample of delay extent,
+                        # p / max(extent, 1 sample), with the extent A (the wider width, rounded)
+                        a = 1.0 * ba[i]
+                        b = 1.0 * bb[i]
+                        x = (np.int64(bn[i]) - row0i) + 0.5 * (a + b)
                         k = math.floor(float(int(x)) / ov)
                         bk[i] = np.uint64(k) if (k >= 0) & (k < nb) else np.uint64(nb)
-                        bd[i] = (1.0 * ba[i] * bb[i]) / max(max(wa, wb) / ov, 1.0)  # bp holds p / (A B)
+                        bd[i] = (a * b) / max(a / ov, 1.0)  # bp holds p / (A B)
                     bv = best_val[tt]
                     bf = best_idx[tt]
                     for i in range(n):

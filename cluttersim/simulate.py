@@ -527,7 +527,7 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
         np.ascontiguousarray(ant_m, dtype=np.float64), np.ascontiguousarray(right_unit, dtype=np.float64),
         np.ascontiguousarray(strip_half_m, dtype=np.float64), np.ascontiguousarray(bin0_s, dtype=np.float64),
         config.radar.sample_interval_s, OVERSAMPLE, TRACES_PER_BLOCK,
-        f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.max_tile_facets, float(f.tile_extent_m.max(initial=0.0)),
+        f.tile_centre_m, f.tile_radius_m, f.tile_slab, f.tile_offsets, f.max_tile_facets, float(f.tile_extent_m.max(initial=0.0)),
         f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2,
         config.surface.law_code, p0, p1, config.radar.radar_constant_w_m2(),
         np.ascontiguousarray(frames, dtype=np.float64), config.kernel_weighting(), *shadow, DELAY_SPREADING, binned, best,
