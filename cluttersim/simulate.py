@@ -201,7 +201,7 @@ def simulate(
     if sources:
         attrs["first_return_threshold_db"] = first_return_db
         attrs["nadir_strip"] = "pulse-limited footprint radius" if nadir_strip_m is None else f"{nadir_strip_m} m"
-    datasets = [run.dataset(scene, attrs, first_return_db) for run in runs]
+    datasets = [run.dataset(attrs, first_return_db) for run in runs]
     ds = datasets[0] if len(datasets) == 1 else stack_bands(datasets, config)
     stats.seconds_total = time.perf_counter() - t_start
     return ds
@@ -285,8 +285,10 @@ class _BandRun:
         else:
             self.power[rows] = np.abs(signal) ** 2
 
-    def dataset(self, scene: "Scene", attrs: dict, first_return_db: float) -> xr.Dataset:
-        """Presum, add noise and assemble this band's radargram Dataset."""
+    def dataset(self, attrs: dict, first_return_db: float) -> xr.Dataset:
+        """Presum, add noise and assemble this band's radargram Dataset (with the band's own radar:
+        its main lobe for the first return, its predicted interface echo, its configuration)."""
+        scene = self.scene
         cfg = scene.config
         radar, proc = cfg.radar, cfg.processing
         n = proc.presum
