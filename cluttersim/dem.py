@@ -161,6 +161,12 @@ class DemSource:
             return None
         return Window(c0, r0, c1 - c0, r1 - r0)
 
+    def read_decimated(self, window: Window, max_cells: int) -> "DemWindow":
+        """Read a window decimated by a whole factor so that neither side exceeds ``max_cells``
+        (for pictures: relief under maps)."""
+        scale = max(1, math.ceil(max(window.height, window.width) / max_cells))
+        return self.read(window, out_shape=(max(1, window.height // scale), max(1, window.width // scale)))
+
     def read(self, window: Window, out_shape: tuple[int, int] | None = None) -> "DemWindow":
         """Read a window of elevations (holes as NaN), optionally decimated to ``out_shape``.
 

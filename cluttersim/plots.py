@@ -1358,10 +1358,17 @@ def _shaded_relief_rgba(elev: np.ndarray) -> tuple[np.ndarray, Normalize]:
     return rgba, norm
 
 
+def hillshade_intensity(elev) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Hillshade of heights (row 0 north) in [0, 1] with the figures' light and exaggeration rule,
+    and the hole-filled heights and validity mask it was made from: ``(intensity, filled, valid)``."""
+    filled, valid, _, vert_exag = _relief_inputs(np.asarray(elev, dtype=np.float64))
+    intensity = _LIGHT.hillshade(filled, vert_exag=vert_exag) if filled.size else filled
+    return intensity, filled, valid
+
+
 def _grey_hillshade_rgba(elev: np.ndarray) -> np.ndarray:
     """Greyscale hillshade as RGBA (ny, nx, 4), transparent in holes (same light and exaggeration rule)."""
-    filled, valid, _, vert_exag = _relief_inputs(elev)
-    intensity = _LIGHT.hillshade(filled, vert_exag=vert_exag) if filled.size else filled
+    intensity, _, valid = hillshade_intensity(elev)
     dark, light = _HILLSHADE_GREY_RANGE
     grey = dark + (light - dark) * intensity
     return np.stack([grey, grey, grey, np.where(valid, 1.0, 0.0)], axis=-1)

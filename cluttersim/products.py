@@ -113,8 +113,7 @@ def track_map_data(src: DemSource, ds):
     h_lo, h_hi = float(np.nanmin(h)), float(np.nanmax(h))
     radius = ground_radius_m(src.body, track.alt_m, 0.5 * SPEED_OF_LIGHT_M_S * np.nan_to_num(end_s), h_lo, h_hi)
     window = _window_for_radius(src, track, on_dem, radius)
-    scale = max(1, int(np.ceil(max(window.height, window.width) / _MAP_CELLS)))
-    dw = src.read(window, out_shape=(max(1, window.height // scale), max(1, window.width // scale)))
+    dw = src.read_decimated(window, _MAP_CELLS)
     return dw.elevation_m, MapFrame.of(src, dw.elevation_m, dw.transform)
 
 

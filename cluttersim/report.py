@@ -63,6 +63,7 @@ import numpy as np
 
 from .errors import ClutterSimError, ConfigError, DemError
 from .outputs import atomic_paths, check_new
+from .plots import hillshade_intensity, power_db
 
 #: Default file name of the report (in the run directory).
 REPORT_FILE = "report.html"
@@ -226,22 +227,6 @@ def strongest_in_blocks(power, shape: GridShape) -> tuple[np.ndarray, np.ndarray
     return np.minimum(t, shape.ntrace - 1), np.minimum(s, shape.nsample - 1), pick.astype(np.uint8)
 
 
-def power_db(power) -> np.ndarray:
-    """10 log10 of power (any unit); −inf for zero, NaN stays NaN."""
-    p = np.asarray(power, dtype=np.float64)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.where(p > 0, 10.0 * np.log10(np.where(p > 0, p, 1.0)), np.where(np.isnan(p), np.nan, -np.inf))
-
-
-def side_names(left, right) -> np.ndarray:
-    """"left", "right", "nadir strip" (the largest share; nadir strip = 1 − left − right), "" if unknown."""
-    left = np.asarray(left, dtype=np.float64)
-    right = np.asarray(right, dtype=np.float64)
-    shares = np.stack([left, right, 1.0 - left - right])
-    out = np.array(["left", "right", "nadir strip"])[np.argmax(np.nan_to_num(shares, nan=-1.0), axis=0)]
-    return np.where(np.isfinite(left) & np.isfinite(right), out, "")
-
-
 # --------------------------------------------------------------------------- images
 
 
@@ -295,23 +280,9 @@ def overlay_image(observed_db, simulated_db, vmax_db: float) -> np.ndarray:
 
 
 def relief_image(elevation_m) -> np.ndarray:
-    """uint8 RGB shaded relief: a Lambertian hillshade (light from the north-west, 45° up) tinting
-    heights from sage (low) to sand (high); holes in pale grey."""
-    elev = np.asarray(elevation_m, dtype=np.float64)
-    valid = np.isfinite(elev)
-    filled = np.where(valid, elev, float(np.nanmean(elev)) if valid.any() else 0.0)
-    if min(filled.shape) > 1:
-        gy, gx = np.gradient(filled)
-    else:
-        gy = gx = np.zeros_like(filled)
-    slope = np.hypot(gx, gy)[valid]
-    typical = float(np.median(slope)) if slope.size else 0.0
-    k = 0.25 / typical if typical > 0 else 1.0  # median slope shaded as ~14°
-    nx, ny, nz = -gx * k, gy * k, np.ones_like(filled)  # rows run south: +row is −north
-    norm = np.sqrt(nx**2 + ny**2 + nz**2)
-    az, alt = np.radians(315.0), np.radians(45.0)
-    light = np.array([np.sin(az) * np.cos(alt), np.cos(az) * np.cos(alt), np.sin(alt)])
-    shade = np.clip((nx * light[0] + ny * light[1] + nz * light[2]) / norm, 0.0, 1.0)
+    """uint8 RGB shaded relief: the figures' hillshade (:func:`cluttersim.plots.hillshade_intensity`)
+    tinting heights from sage (low) to sand (high); holes in pale grey."""
+    shade, filled, valid = hillshade_intensity(elevation_m)
     lo, hi = (float(filled[valid].min()), float(filled[valid].max())) if valid.any() else (0.0, 1.0)
     t = (filled - lo) / (hi - lo) if hi > lo else np.zeros_like(filled)
     tint = _ramp(t, ((0.0, (120, 140, 118)), (0.5, (190, 182, 150)), (1.0, (236, 226, 200))))
@@ -572,11 +543,6 @@ def _cell_size(src) -> tuple[float, float]:
     if src.is_geographic:
         return math.radians(side) * radius, side
     return side, math.degrees(side / radius)
-
-
-def _median_nadir_axis_us(traces: dict) -> float | None:
-    vals = [v for v in traces["nadir_axis_us"] if v is not None]
-    return float(np.median(vals)) if vals else None
 
 
 # --------------------------------------------------------------------------- tables

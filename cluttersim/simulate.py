@@ -220,13 +220,9 @@ def _kernel_groups(runs, coherent: bool, sources: bool, strip_per_band: bool) ->
     if coherent:
         return [[run] for run in runs]
     groups: dict[tuple, list] = {}
-    for run in runs:
-        cfg = run.scene.config
-        key = tuple(cfg.antenna.kernel_params())
-        if cfg.processing.aperture != "none":
-            key += (run.radar.wavelength_m,)
-        if sources and strip_per_band:
-            key += (run.radar.bandwidth_hz,)
+    for run in runs:  # the antenna and the surface law are the same for every band
+        key = (run.radar.wavelength_m if run.scene.config.processing.aperture != "none" else None,
+               run.radar.bandwidth_hz if sources and strip_per_band else None)  # fmt: skip
         groups.setdefault(key, []).append(run)
     return list(groups.values())
 

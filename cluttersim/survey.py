@@ -884,10 +884,6 @@ class SurveyGrid:
             raise ConfigError(f"grid_km = {grid_km:g}: gives a {width} x {height} map; expected at most 25 million cells")
         return cls(Affine(res, 0.0, x0, 0.0, -res, y1), width, height)
 
-    def cell_xy(self):
-        """CRS x (width,) and y (height,) of the cell centres."""
-        t = self.transform
-        return t.c + t.a * (np.arange(self.width) + 0.5), t.f + t.e * (np.arange(self.height) + 0.5)
 
 
 def grid_results(src: DemSource, grid: SurveyGrid, results) -> tuple[np.ndarray, np.ndarray]:
@@ -1015,6 +1011,5 @@ def _relief(src: DemSource, grid: SurveyGrid):
     ys = np.array([t.f, t.f + t.e * grid.height])
     col, row = ~src.transform @ (xs, ys)
     window = src.window_around(np.asarray(row) - 0.5, np.asarray(col) - 0.5, pad=1)
-    scale = max(1, int(math.ceil(max(window.height, window.width) / _RELIEF_CELLS)))
-    dw = src.read(window, out_shape=(max(1, window.height // scale), max(1, window.width // scale)))
+    dw = src.read_decimated(window, _RELIEF_CELLS)
     return dw.elevation_m, dw.transform
