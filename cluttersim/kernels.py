@@ -637,10 +637,10 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     nadir strip (:data:`SIDE_NADIR`) when its cross-track offset
     ``(P − A)·right_unit[t]`` is within ``strip_half_m[t]``, else left or right;
     rows :data:`SIDE_LEFT` and :data:`SIDE_RIGHT` of ``out`` receive the power
-    of each side on the same sub-bin grid as the total: facets right of the
-    track and in the nadir strip are also written to a row of their own (the
-    total row is the same computation as without the source record), and the
-    left side is the total minus the two. ``best_facet`` (ntrace, nbins) receives,
+    of each side on the same sub-bin grid as the total: each facet is written
+    once, to the delay row of its side, and the total is the sum of the three
+    rows once integrated (equal to the total without the source record to
+    rounding). ``best_facet`` (ntrace, nbins) receives,
     per bin, the facet centred in that bin with the largest power density
     (−1 where none). Returns the number of facet evaluations (front-facing
     facets whose delay reaches the window).
@@ -656,6 +656,8 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     centre = spreading == SPREAD_CENTRE
     ov = 1 if centre else oversample  # sub-bins per bin of the rows
     spread_on = 0.0 if centre else 1.0
+    ovf = 1.0 * ov
+    inv_ov = 1.0 / ov
     nsub = nb * ov
     inv_sub_m = ov / (half_c * dt_s)
     # a facet reaching the window has every corner within 2 half-extents (+ rounding) of it
@@ -740,48 +742,49 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     rz = right_unit[t, 2]
                     strip = strip_half_m[t]
                     row0i = np.int64(row0)
-                    for i in range(n):
+                    for i in range(n):  # vectorised: side, centre bin and density weight of every facet
                         f = f0u + np.uint64(i)
                         cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
-                        # second row written: right 1, nadir strip 2, left none (0)
+                        # the row of the facet's side: left 0, right 1, nadir strip 2
                         bs[i] = np.uint64(nrow) if cross > strip else (np.uint64(0) if cross < -strip else np.uint64(2 * nrow))
                         # the facet's centre from its trapezoid (first corner + half the widths, sub-bins:
-                        # within half a sub-bin of its centre delay); its bin (int() truncates toward 0),
-                        # nb when outside; density: power per sample of delay extent,
-                        # p / max(extent, 1 sample), with the extent A (the wider width, rounded)
+                        # within half a sub-bin of its centre delay); its bin, floor(j / ov) for the sub-bin
+                        # j = int(x) (int() truncates toward 0), written (j + 1/2) / ov so that it needs no
+                        # division; nb when outside
                         a = 1.0 * ba[i]
                         b = 1.0 * bb[i]
                         x = (np.int64(bn[i]) - row0i) + 0.5 * (a + b)
-                        k = math.floor(float(int(x)) / ov)
+                        k = math.floor((float(int(x)) + 0.5) * inv_ov)
                         bk[i] = np.uint64(k) if (k >= 0) & (k < nb) else np.uint64(nb)
-                        bd[i] = (a * b) / max(a / ov, 1.0)  # bp holds p / (A B)
+                        # density: power per sample of delay extent, p / max(A / ov, 1) with the extent A
+                        # (the wider width, rounded); bp holds p / (A B), so the weight is A B / max(A / ov, 1)
+                        bd[i] = b * min(a, ovf)
                     bv = best_val[tt]
                     bf = best_idx[tt]
+                    # one scalar pass: the facet's side row and the densest facet per bin (an update that
+                    # is rarely taken once a bin has seen a few facets, so the branch is predictable)
                     for i in range(n):
-                        density = bp[i] * bd[i]
+                        p = bp[i]
+                        n_eval += p != 0.0
+                        if centre:
+                            dd[bn[i] + bs[i]] += p
+                        else:
+                            _deposit_kinks(dd, bn[i] + bs[i], ba[i], bb[i], p)
+                        density = p * bd[i]
                         kb = bk[i]
-                        old = bv[kb]
-                        better = density > old
-                        bv[kb] = density if better else old
-                        bf[kb] = f0 + i if better else bf[kb]
-                if centre:
+                        if density > bv[kb]:
+                            bv[kb] = density
+                            bf[kb] = f0 + i
+                elif centre:
                     for i in range(n):
                         p = bp[i]
                         n_eval += p != 0.0
                         dd[bn[i]] += p
-                    if attribute:
-                        for i in range(n):
-                            if bs[i] != 0:
-                                dd[bn[i] + bs[i]] += bp[i]
                 else:
                     for i in range(n):
                         n_eval += bp[i] != 0.0
                         _deposit_kinks(dd, bn[i], ba[i], bb[i], bp[i])
-                    if attribute:  # a branch, but taken alike by most facets of a tile
-                        for i in range(n):
-                            if bs[i] != 0:
-                                _deposit_kinks(dd, bn[i] + bs[i], ba[i], bb[i], bp[i])
-        side_bins = np.zeros((3, nb if attribute else 0))  # total, right, nadir strip of one trace
+        side_bins = np.zeros((3, nb if attribute else 0))  # left, right, nadir strip of one trace
         for tt in range(nbt):
             t = ta + tt
             r0 = tt * nrows * nrow
@@ -803,11 +806,9 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     integrate_row(dd[r0 : r0 + nrow], margin, oversample, side_bins[0])
                     integrate_two_rows(dd, r0 + nrow, r0 + 2 * nrow, margin, oversample, side_bins[1], side_bins[2])
                 for k in range(nb):
-                    out[t, 0, k] += side_bins[0, k]
+                    out[t, 0, k] += side_bins[0, k] + side_bins[1, k] + side_bins[2, k]
+                    out[t, SIDE_LEFT, k] += side_bins[0, k]
                     out[t, SIDE_RIGHT, k] += side_bins[1, k]
-                    left = side_bins[0, k] - side_bins[1, k] - side_bins[2, k]
-                    if left > 0.0:
-                        out[t, SIDE_LEFT, k] += left
             if attribute:
                 for k in range(nb):
                     if best_idx[tt, k] >= 0:
