@@ -239,6 +239,24 @@ class DemWindow:
         x, y = self.transform @ (cc, rr)
         return self.source.xy_to_lonlat(x, y)
 
+    def lonlat_of_cells(self, cells) -> tuple[np.ndarray, np.ndarray]:
+        """Geodetic (lon, lat) in degrees of the centres of cells given as flat indices
+        (row · nx + col) into this window: the values of :meth:`cell_lonlat` at those cells,
+        without building the full grids (a geographic grid's latitude depends on the row only,
+        its longitude on the column; a projected grid's distinct cells are transformed once)."""
+        cells = np.asarray(cells, dtype=np.int64)
+        ny, nx = self.shape
+        if self.source.is_geographic:
+            rows, cols = np.divmod(cells, nx)
+            t = self.transform
+            lat_of_row = np.clip(t.f + t.e * (np.arange(ny) + 0.5), -90.0, 90.0)
+            return (t.c + t.a * (np.arange(nx) + 0.5))[cols], lat_of_row[rows]
+        distinct, where = np.unique(cells, return_inverse=True)
+        rows, cols = np.divmod(distinct, nx)
+        x, y = self.transform @ (cols + 0.5, rows + 0.5)
+        lon, lat = self.source.xy_to_lonlat(np.asarray(x), np.asarray(y))
+        return np.asarray(lon)[where].reshape(cells.shape), np.asarray(lat)[where].reshape(cells.shape)
+
     def bilinear_m(self, lon_deg, lat_deg) -> np.ndarray:
         """Elevation at points by bilinear interpolation between cell centres (NaN outside or in holes)."""
         x, y = self.source.lonlat_to_xy(lon_deg, lat_deg)

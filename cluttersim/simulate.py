@@ -619,11 +619,10 @@ class SourceRecord:
 
     def to_variables(self, facets, window, body, track, power, window_start, nadir_delay, dt, threshold_db, mainlobe):
         """The Dataset variables of the source record and the first return."""
-        lon_grid, lat_grid = window.cell_lonlat()
-        cell = facets.cell[np.maximum(self.facet, 0)]
+        lon, lat = window.lonlat_of_cells(facets.cell[np.maximum(self.facet, 0)])
         none = self.facet < 0
-        src_lat = np.where(none, np.nan, lat_grid.ravel()[cell]).astype(np.float32)
-        lon_wrapped = (lon_grid.ravel()[cell] + 180.0) % 360.0 - 180.0  # windows across ±180° run past it
+        src_lat = np.where(none, np.nan, lat).astype(np.float32)
+        lon_wrapped = (lon + 180.0) % 360.0 - 180.0  # windows across ±180° run past it
         src_lon = np.where(none, np.nan, lon_wrapped).astype(np.float32)
         fr_delay, fr_sample = first_return(power, window_start, nadir_delay, dt, threshold_db, mainlobe)
         has = fr_sample >= 0

@@ -220,3 +220,31 @@ def test_track_leaving_the_dem_reports_the_count_and_simulates_the_rest(plain):
     inside = ~off & (lat < 1.99)
     np.testing.assert_allclose(ds["nadir_delay"].values[inside], analytic_delay_s(50e3, 100.0), rtol=1e-9)
     assert np.isfinite(ds["power"].values[~off]).all()
+
+
+@pytest.mark.parametrize("code", ["IAU_2015:49935", MARS_SPHERE])  # south polar stereographic; lat/lon
+def test_cell_centres_by_flat_index(tmp_path, code):
+    """The source record's ground positions: a window's cells given as flat indices row·nx + col
+    are placed at the GeoTIFF's cell centres (west + (col + ½)·res, north − (row + ½)·res), turned
+    into lon/lat by PROJ's inverse projection (pyproj) for a projected grid; the same as the
+    window's full lon/lat grids."""
+    from rasterio.windows import Window
+
+    projected = code != MARS_SPHERE
+    res, west, north = (500.0, -50e3, 50e3) if projected else (0.01, 10.0, -20.0)
+    dem = write_geotiff(tmp_path / "g.tif", np.zeros((200, 200)), west, north, res, crs=code)
+    window = DemSource.open(dem).read(Window(30, 40, 120, 90))  # col_off, row_off, width, height
+    rng = np.random.default_rng(3)
+    cells = rng.integers(0, 90 * 120, size=(7, 50))
+    lon, lat = window.lonlat_of_cells(cells)
+    rows, cols = np.divmod(cells, 120)
+    x = west + (30 + cols + 0.5) * res
+    y = north - (40 + rows + 0.5) * res
+    if projected:
+        crs = pyproj.CRS(code)
+        x, y = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(x, y)
+    np.testing.assert_allclose(lon, x, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(lat, y, rtol=0, atol=1e-9)
+    lon_grid, lat_grid = window.cell_lonlat()
+    np.testing.assert_allclose(lon, lon_grid.ravel()[cells], rtol=0, atol=1e-12)
+    np.testing.assert_allclose(lat, lat_grid.ravel()[cells], rtol=0, atol=1e-12)
