@@ -239,18 +239,26 @@ class DemWindow:
         x, y = self.transform @ (cc, rr)
         return self.source.xy_to_lonlat(x, y)
 
+    def lonlat_axes(self) -> tuple[np.ndarray, np.ndarray]:
+        """A geographic window's cell-centre longitudes per column and latitudes per row (degrees;
+        those of :meth:`cell_lonlat`, whose grids repeat them)."""
+        if not self.source.is_geographic:
+            raise ValueError("lonlat_axes: a projected grid has no longitude per column")
+        ny, nx = self.shape
+        t = self.transform
+        return t.c + t.a * (np.arange(nx) + 0.5), np.clip(t.f + t.e * (np.arange(ny) + 0.5), -90.0, 90.0)
+
     def lonlat_of_cells(self, cells) -> tuple[np.ndarray, np.ndarray]:
         """Geodetic (lon, lat) in degrees of the centres of cells given as flat indices
         (row · nx + col) into this window: the values of :meth:`cell_lonlat` at those cells,
         without building the full grids (a geographic grid's latitude depends on the row only,
         its longitude on the column; a projected grid's distinct cells are transformed once)."""
         cells = np.asarray(cells, dtype=np.int64)
-        ny, nx = self.shape
+        nx = self.shape[1]
         if self.source.is_geographic:
             rows, cols = np.divmod(cells, nx)
-            t = self.transform
-            lat_of_row = np.clip(t.f + t.e * (np.arange(ny) + 0.5), -90.0, 90.0)
-            return (t.c + t.a * (np.arange(nx) + 0.5))[cols], lat_of_row[rows]
+            lon_of_col, lat_of_row = self.lonlat_axes()
+            return lon_of_col[cols], lat_of_row[rows]
         distinct, where = np.unique(cells, return_inverse=True)
         rows, cols = np.divmod(distinct, nx)
         x, y = self.transform @ (cols + 0.5, rows + 0.5)

@@ -865,6 +865,24 @@ def dominant_source(binned, best_facet, weights, first, nsamples, out):
             out[t, s] = src
 
 
+@numba.njit(parallel=True, **_JIT)
+def cell_lonlat_of_facets(facet, facet_cell, nx, lon_of_col, lat_of_row, out_lon, out_lat):
+    """Per sample, the longitude and latitude of the centre of facet ``facet[t, s]``'s cell in a
+    geographic grid (NaN where the index is −1): cell = row · nx + col, read from the grid's
+    per-column longitudes and per-row latitudes, written into ``out_lon``/``out_lat``."""
+    for t in numba.prange(facet.shape[0]):
+        for s in range(facet.shape[1]):
+            f = facet[t, s]
+            if f < 0:
+                out_lon[t, s] = np.nan
+                out_lat[t, s] = np.nan
+            else:
+                c = facet_cell[f]
+                r = c // nx
+                out_lon[t, s] = lon_of_col[c - r * nx]
+                out_lat[t, s] = lat_of_row[r]
+
+
 @numba.njit(inline="always", **_JIT)
 def _window_fraction(x, wa, wb, lo, hi):
     """Share of a facet's trapezoidal delay distribution (centre x, widths wa, wb; bin

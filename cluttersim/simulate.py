@@ -619,11 +619,17 @@ class SourceRecord:
 
     def to_variables(self, facets, window, body, track, power, window_start, nadir_delay, dt, threshold_db, mainlobe):
         """The Dataset variables of the source record and the first return."""
-        lon, lat = window.lonlat_of_cells(facets.cell[np.maximum(self.facet, 0)])
-        none = self.facet < 0
-        src_lat = np.where(none, np.nan, lat).astype(np.float32)
-        lon_wrapped = (lon + 180.0) % 360.0 - 180.0  # windows across ±180° run past it
-        src_lon = np.where(none, np.nan, lon_wrapped).astype(np.float32)
+        src_lat = np.empty(self.facet.shape, dtype=np.float32)
+        src_lon = np.empty(self.facet.shape, dtype=np.float32)
+        if window.source.is_geographic:
+            lon_of_col, lat_of_row = window.lonlat_axes()
+            lon_of_col = (lon_of_col + 180.0) % 360.0 - 180.0  # windows across ±180° run past it
+            kernels.cell_lonlat_of_facets(self.facet, facets.cell, window.shape[1], lon_of_col, lat_of_row, src_lon, src_lat)
+        else:
+            lon, lat = window.lonlat_of_cells(facets.cell[np.maximum(self.facet, 0)])
+            none = self.facet < 0
+            src_lat[...] = np.where(none, np.nan, lat)
+            src_lon[...] = np.where(none, np.nan, (lon + 180.0) % 360.0 - 180.0)
         fr_delay, fr_sample = first_return(power, window_start, nadir_delay, dt, threshold_db, mainlobe)
         has = fr_sample >= 0
         rows = np.flatnonzero(has)

@@ -248,3 +248,14 @@ def test_cell_centres_by_flat_index(tmp_path, code):
     lon_grid, lat_grid = window.cell_lonlat()
     np.testing.assert_allclose(lon, lon_grid.ravel()[cells], rtol=0, atol=1e-12)
     np.testing.assert_allclose(lat, lat_grid.ravel()[cells], rtol=0, atol=1e-12)
+    if not projected:  # the source record's compiled lookup: the same centres, NaN for "no facet"
+        from cluttersim.kernels import cell_lonlat_of_facets
+
+        facet = np.arange(cells.size, dtype=np.int32).reshape(cells.shape)
+        facet[0, :5] = -1
+        out_lon = np.empty(cells.shape, dtype=np.float32)
+        out_lat = np.empty(cells.shape, dtype=np.float32)
+        cell_lonlat_of_facets(facet, cells.ravel(), 120, *window.lonlat_axes(), out_lon, out_lat)
+        assert np.isnan(out_lon[0, :5]).all() and np.isnan(out_lat[0, :5]).all()
+        np.testing.assert_array_equal(out_lon[facet >= 0], x[facet >= 0].astype(np.float32))
+        np.testing.assert_array_equal(out_lat[facet >= 0], y[facet >= 0].astype(np.float32))
