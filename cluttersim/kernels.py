@@ -399,15 +399,19 @@ def trapezoid_kinks(x, wa, wb):
     The facet's range extent projects its two edges onto the line of sight
     (widths ``wa``, ``wb``, centre ``x``, all in sub-bins): a trapezoid, the
     convolution of two boxes. Its widths are rounded to whole sub-bins (at
-    least one), A ≥ B, and its first corner to ``n1 = floor(x − (A+B)/2 + 1/2)``;
+    least one), A ≥ B, and its first corner to ``n1 = floor(x − (A+B)/2 + 1)``;
     power p is then written as four slope changes, +w at n1, −w at n1+B and
     n1+A, +w at n1+A+B with w = p / (A B), into a second-difference row
     (:func:`integrate_row`): constant cost whatever the facet's width, and
-    exactly p once integrated. Returns (n1, A, B).
+    exactly p once integrated. Once integrated the power fills sub-bins n1 to
+    n1+A+B−2, the discrete convolution of the two boxes, centred at position
+    n1 + (A+B)/2 − 1/2 (sub-bin j covers [j, j+1)), which the floor places at x
+    on average (``+ 1``, not ``+ 1/2``: that put every facet half a sub-bin
+    early). With A = B = 1 all of p goes to sub-bin floor(x). Returns (n1, A, B).
     """
     a = max(1, int(max(wa, wb) + 0.5))
     b = max(1, int(min(wa, wb) + 0.5))
-    return math.floor(x - 0.5 * (a + b) + 0.5), a, b
+    return math.floor(x - 0.5 * (a + b) + 1.0), a, b
 
 
 @numba.njit(**_JIT)
@@ -711,7 +715,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     xc = min(max(x, -1.0 * margin), 1.0 * (nsub + margin))
                     # centre spreading: widths 0, so A = B = 1 and the first corner floor(x); no branch on
                     # the mode here, it would stop the vectorisation (as do more output buffers)
-                    n1, a, b = trapezoid_kinks(xc + 0.5 * (1.0 - spread_on), wa * spread_on, wb * spread_on)
+                    n1, a, b = trapezoid_kinks(xc, wa * spread_on, wb * spread_on)
                     bn[i] = row0 + np.uint64(min(max(n1, -margin), nsub))
                     ba[i] = np.uint64(a)
                     bb[i] = np.uint64(b)
@@ -747,13 +751,13 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                         cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
                         # the row of the facet's side: left 0, right 1, nadir strip 2
                         bs[i] = np.uint64(nrow) if cross > strip else (np.uint64(0) if cross < -strip else np.uint64(2 * nrow))
-                        # the facet's centre from its trapezoid (first corner + half the widths, sub-bins:
-                        # within half a sub-bin of its centre delay); its bin, floor(j / ov) for the sub-bin
-                        # j = int(x) (int() truncates toward 0), written (j + 1/2) / ov so that it needs no
-                        # division; nb when outside
+                        # the facet's centre from its trapezoid (first corner + (A+B)/2 − 1/2 sub-bins:
+                        # within half a sub-bin of its centre delay, :func:`trapezoid_kinks`); its bin,
+                        # floor(j / ov) for the sub-bin j = int(x) (int() truncates toward 0), written
+                        # (j + 1/2) / ov so that it needs no division; nb when outside
                         a = 1.0 * ba[i]
                         b = 1.0 * bb[i]
-                        x = (np.int64(bn[i]) - row0i) + 0.5 * (a + b)
+                        x = (np.int64(bn[i]) - row0i) + 0.5 * (a + b - 1.0)
                         k = math.floor((float(int(x)) + 0.5) * inv_ov)
                         bk[i] = np.uint64(k) if (k >= 0) & (k < nb) else np.uint64(nb)
                         # density: power per sample of delay extent, p / max(A / ov, 1) with the extent A
