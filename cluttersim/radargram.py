@@ -234,7 +234,7 @@ def write_netcdf_to(ds: xr.Dataset, path) -> None:
 def _zlib_compressor():
     """``compress(data, level)`` producing a zlib stream (RFC 1950, the format of HDF5's deflate
     filter, which any reader decodes): ISA-L's (``isal``; levels 0–3, about 7× faster than zlib's
-    level 1 on these arrays for a file under 3 % larger), or else the standard library's."""
+    level 1 on these arrays, for a file of the same size), or else the standard library's."""
     try:
         from isal import isal_zlib
     except ImportError:  # pragma: no cover - isal is a dependency; a platform without its wheel
