@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -113,17 +114,26 @@ class DemSource:
 
         return GeographicCRS(name="lat/lon east", datum=self.crs.datum, ellipsoidal_cs=Ellipsoidal2DCS())
 
+    # Transformers are made once per DemSource (setting one up costs ~15 ms, more than
+    # transforming a whole track); a DemSource is not shared between threads.
+    @cached_property
     def _to_crs(self) -> pyproj.Transformer | None:
         if self.crs is None or self.crs.is_geographic:
             return None
         return pyproj.Transformer.from_crs(self._lonlat_crs(), self.crs, always_xy=True)
+
+    @cached_property
+    def _from_crs(self) -> pyproj.Transformer | None:
+        if self.crs is None or self.crs.is_geographic:
+            return None
+        return pyproj.Transformer.from_crs(self.crs, self._lonlat_crs(), always_xy=True)
 
     def lonlat_to_xy(self, lon_deg, lat_deg):
         """Geodetic lon/lat (degrees) → DEM CRS x, y. For geographic DEMs,
         longitudes are wrapped into the DEM's own longitude range."""
         lon = np.asarray(lon_deg, dtype=np.float64)
         lat = np.asarray(lat_deg, dtype=np.float64)
-        tr = self._to_crs()
+        tr = self._to_crs
         if tr is None:
             west = self.transform.c
             return (lon - west) % 360.0 + west, lat
@@ -132,9 +142,9 @@ class DemSource:
 
     def xy_to_lonlat(self, x, y):
         """DEM CRS x, y → geodetic lon/lat in degrees."""
-        if self.crs is None or self.crs.is_geographic:
+        tr = self._from_crs
+        if tr is None:
             return np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64)
-        tr = pyproj.Transformer.from_crs(self.crs, self._lonlat_crs(), always_xy=True)
         lon, lat = tr.transform(np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
         return np.asarray(lon), np.asarray(lat)
 
@@ -225,17 +235,10 @@ class DemWindow:
 
     def cell_lonlat(self) -> tuple[np.ndarray, np.ndarray]:
         """Geodetic (lon, lat) in degrees of every cell centre, each (ny, nx)."""
-        ny, nx = self.shape
-        cols = np.arange(nx) + 0.5
-        rows = np.arange(ny) + 0.5
         if self.source.is_geographic:
-            x = self.transform.c + self.transform.a * cols
-            y = self.transform.f + self.transform.e * rows
-            lon, lat = np.meshgrid(x, y)
-            if np.nanmax(np.abs(lat)) > 90 + 1e-9:
-                raise DemError(f"{self.source.path}: latitudes beyond ±90° in a geographic DEM")
-            return lon, np.clip(lat, -90.0, 90.0)
-        cc, rr = np.meshgrid(cols, rows)
+            return tuple(np.meshgrid(*self.lonlat_axes()))
+        ny, nx = self.shape
+        cc, rr = np.meshgrid(np.arange(nx) + 0.5, np.arange(ny) + 0.5)
         x, y = self.transform @ (cc, rr)
         return self.source.xy_to_lonlat(x, y)
 
@@ -246,7 +249,10 @@ class DemWindow:
             raise ValueError("lonlat_axes: a projected grid has no longitude per column")
         ny, nx = self.shape
         t = self.transform
-        return t.c + t.a * (np.arange(nx) + 0.5), np.clip(t.f + t.e * (np.arange(ny) + 0.5), -90.0, 90.0)
+        lat = t.f + t.e * (np.arange(ny) + 0.5)
+        if np.nanmax(np.abs(lat)) > 90 + 1e-9:
+            raise DemError(f"{self.source.path}: latitudes beyond ±90° in a geographic DEM")
+        return t.c + t.a * (np.arange(nx) + 0.5), np.clip(lat, -90.0, 90.0)
 
     def lonlat_of_cells(self, cells) -> tuple[np.ndarray, np.ndarray]:
         """Geodetic (lon, lat) in degrees of the centres of cells given as flat indices
