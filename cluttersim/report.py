@@ -61,6 +61,7 @@ from typing import ClassVar
 
 import numpy as np
 
+from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ClutterSimError, ConfigError, DemError
 from .outputs import atomic_paths, check_new
 from .plots import hillshade_intensity, power_db
@@ -340,7 +341,7 @@ REQUIRED_VARIABLES = ("window_start", "lat", "lon", "alt", "nadir_delay", "on_de
 def _open_sim(path, band):
     from .radargram import open_radargram
 
-    ds = open_radargram(path) if band is None else open_radargram(path, band=band)
+    ds = open_radargram(path, band=band)
     for name in REQUIRED_VARIABLES:
         if name not in ds:
             raise ClutterSimError(f"{path}: variable '{name}' missing; expected a radargram written by cluttersim")
@@ -538,7 +539,7 @@ class _MapPixels:
 
 def _cell_size(src) -> tuple[float, float]:
     """A DEM cell's size: (metres, degrees of arc on the body's mean radius), the finer of its two sides."""
-    radius = (2.0 * src.body.semi_major_m + src.body.semi_minor_m) / 3.0
+    radius = src.body.mean_radius_m
     side = min(abs(src.transform.a), abs(src.transform.e))
     if src.is_geographic:
         return math.radians(side) * radius, side
@@ -750,7 +751,7 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
         "title": f"{inputs.run_dir.resolve().name}",
         "generated_utc": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         "permittivity": float(permittivity),
-        "c_m_s": 299_792_458.0,
+        "c_m_s": SPEED_OF_LIGHT_M_S,
         "dt_us": dt_s * 1e6,
         "dynamic_range_db": DYNAMIC_RANGE_DB,
         "power_unit": "dBW",

@@ -543,7 +543,9 @@ function wire() {
   const stage = $("rg-stage");
   stage.addEventListener("pointermove", (ev) => {
     if (document.body.dataset.ready !== "1") return;
-    state.hover = pointerCell(ev);
+    const cell = pointerCell(ev);
+    if (sameCell(cell, state.hover)) return;  // still in the same cell: nothing to redraw
+    state.hover = cell;
     if (!state.pinned) show(state.hover);
     refreshCross();
   });
