@@ -192,6 +192,12 @@ class RadarConfig:
         """Samples placed before the earliest surface echo in ``"auto"`` mode."""
         return min(AUTO_WINDOW_MARGIN_SAMPLES, self.samples // 4)
 
+    @property
+    def mainlobe_samples(self) -> int:
+        """Samples spanned by the compressed pulse's main lobe, ⌈1 / (B dt)⌉ (at least 1): the
+        delay resolution 1/B (common practice) on the sample grid."""
+        return max(1, int(math.ceil(1.0 / (self.bandwidth_hz * self.sample_interval_s))))
+
     def radar_constant_w_m2(self) -> float:
         """Pt G² λ² / (4π)³, the factor multiplying σ0 A / R⁴ in the radar equation (W m²)."""
         return self.transmit_power_w * self.gain_linear**2 * self.wavelength_m**2 / (4.0 * math.pi) ** 3

@@ -309,7 +309,7 @@ class _BandRun:
             if n > 1:
                 left, right = presum.presum_sides(record.left, record.right, self.power, n)
                 record = SourceRecord(left=left, right=right, facet=presum.presum_dominant(record.facet, self.power, n))
-            mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
+            mainlobe = radar.mainlobe_samples
             extra = record.to_variables(scene.facets, scene.window, scene.src.body, track_out, clutter, window_start,
                                         nadir_delay, dt, first_return_db, mainlobe)  # fmt: skip
             extra["nadir_strip_half_width"] = ("trace", per_trace(self.strip_m), "m",

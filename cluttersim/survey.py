@@ -462,7 +462,7 @@ def survey_track(job: TrackJob) -> TrackResult:
     dt = radar.sample_interval_s
     survey = job.survey
     window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
-    mainlobe = max(1, int(math.ceil(1.0 / (radar.bandwidth_hz * dt))))
+    mainlobe = radar.mainlobe_samples
     index_db, fraction, depth, surface, truncated = clutter_index(
         ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
         ds["nadir_delay"].values, dt, window_s, mainlobe, survey["threshold_db"], survey["permittivity"],
@@ -748,7 +748,7 @@ def run_survey(
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     _check_window_fits(sim_config, config)
     planned = plan_tracks(src, config)
-    grid = SurveyGrid.for_region(src, config, planned)
+    grid = SurveyGrid.for_region(src, config)
     track_dir = out_dir / TRACKS_DIR
     jobs, done = [], {}
     for st in planned:
@@ -860,7 +860,7 @@ class SurveyGrid:
     height: int
 
     @classmethod
-    def for_region(cls, src: DemSource, config: SurveyConfig, tracks=None) -> SurveyGrid:
+    def for_region(cls, src: DemSource, config: SurveyConfig) -> SurveyGrid:
         from affine import Affine
 
         lon0, lat0, lon1, lat1 = config.region
