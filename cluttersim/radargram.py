@@ -211,7 +211,7 @@ def write_netcdf_to(ds: xr.Dataset, path) -> None:
 
     The arrays of :data:`_DEFLATED` are stored in chunks of :data:`_CHUNK_TRACES`
     traces with the HDF5 shuffle and deflate filters. Large float32 ones are
-    compressed on several threads (zlib releases the GIL) and written as
+    compressed on several threads (the compressor releases the GIL) and written as
     finished chunks (:func:`_write_deflated_chunks`): xarray first writes the
     file with all variables, attributes and filters, those arrays holding
     zeros, then each chunk is replaced by the same data HDF5 would have written.
