@@ -16,7 +16,7 @@ $(VENV)/.installed: pyproject.toml | $(BIN)/python
 	touch $@
 
 $(VENV)/.installed-test: pyproject.toml | $(BIN)/python
-	$(BIN)/python -m pip install --quiet -e '.[test,dask]'
+	$(BIN)/python -m pip install --quiet -e '.[test,dask,pds,segy]'
 	touch $@ $(VENV)/.installed
 
 install: $(VENV)/.installed

@@ -6,6 +6,7 @@ import click
 
 from cluttersim.compare import CompareSettings, compare_to_dir, format_summary
 from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
+from cluttersim.readers import ARCHIVE_SUFFIXES
 
 from .options import (
     band_option, load_config, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option,
@@ -17,14 +18,17 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 
 @click.command("compare")
 @click.option("--observed", "observed_path", required=True, type=click.Path(dir_okay=False),
-              help="Observed radargram: .nc/.h5, .npy, .tif/.png image or raw binary (.bin/.raw/.dat).")
-@click.option("--observed-track", "track_path", required=True, type=click.Path(dir_okay=False),
-              help="Track CSV of the observed traces (lat, lon, alt[, time]), one row per trace.")
+              help="Observed radargram: .nc/.h5, .npy, .tif/.png image, raw binary (.bin/.raw/.dat), "
+                   "or a product with its own track: PDS3 .lbl, PDS4 .xml, MATLAB .mat, SEG-Y .sgy/.segy.")
+@click.option("--observed-track", "track_path", type=click.Path(dir_okay=False),
+              help="Track CSV of the observed traces (lat, lon, alt[, time]), one row per trace "
+                   "[archive products: their own].")
 @click.option("--sim", "sim_path", type=click.Path(dir_okay=False), help="Simulated RUN_DIR/radargram.nc to compare with.")
 @click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="…or simulate the observed track over this DEM now.")
 @radar_option
 @click.option("--body-radius-m", type=float, default=None, help="Sphere radius (m) for a DEM without CRS (with --dem).")
-@click.option("--sample-interval-s", required=True, type=_POSITIVE, help="Observed sample interval, s.")
+@click.option("--sample-interval-s", type=_POSITIVE, default=None,
+              help="Observed sample interval, s [archive products: their own].")
 @click.option("--window-start-s", type=click.FloatRange(min=0.0), default=None,
               help="Absolute two-way delay of observed sample 0, s (all traces).")
 @click.option("--window-start-column", default=None, help="…or the track CSV column with each trace's window start, s.")
@@ -42,6 +46,12 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
               help="Raw binary byte order.")
 @click.option("--raw-offset-bytes", type=click.IntRange(min=0), default=0, show_default=True,
               help="Raw binary header bytes to skip.")
+# archive products (PDS3/PDS4, MATLAB, SEG-Y): where each field is read from
+@click.option("--map", "field_map", multiple=True, metavar="FIELD=NAME[:UNIT]",
+              help="Read FIELD (data, lat, lon, alt, radius, time, sample_interval, window_start, window_shift, "
+                   "fast_time) from the column, keyword, variable or header field NAME; repeatable.")
+@click.option("--geometry", "geometry_path", type=click.Path(dir_okay=False), default=None,
+              help="PDS: a second product (label) whose table holds the geometry and timing.")
 @click.option("--match-tolerance-m", type=_POSITIVE, default=None,
               help="Largest distance to the matched simulated trace, m [default: the simulated trace spacing].")
 @click.option("--max-offset-us", type=_POSITIVE, default=None,
@@ -66,7 +76,7 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 @quiet_option
 def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_radius_m, sample_interval_s,
                 window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
-                byte_order, raw_offset_bytes, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
+                byte_order, raw_offset_bytes, field_map, geometry_path, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
                 delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, band, max_memory,
                 top, out_dir, overwrite, quiet):  # fmt: skip
     """Compare an observed radargram with the simulated clutter of its track.
@@ -90,11 +100,30 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         raise click.UsageError("give either --sim RUN_DIR/radargram.nc or --dem DEM (to simulate the observed track)")
     if (radar_path is not None or body_radius_m is not None) and dem_path is None:
         raise click.UsageError("--radar and --body-radius-m apply with --dem only (a --sim radargram carries its own)")
-    if (window_start_s is None) == (window_start_column is None):
-        raise click.UsageError("give exactly one of --window-start-s or --window-start-column")
     fmt = ObservedFormat(file_format=file_format, values=values, variable=variable, axis_order=axis_order,
                          raw_dtype=raw_dtype, raw_shape=tuple(raw_shape) if raw_shape else None,
-                         byte_order=byte_order, raw_offset_bytes=raw_offset_bytes)  # fmt: skip
+                         byte_order=byte_order, raw_offset_bytes=raw_offset_bytes, fields=tuple(field_map),
+                         geometry=geometry_path)  # fmt: skip
+    archive = file_format_of(observed_path, fmt) in ARCHIVE_SUFFIXES
+    observed = observed_path
+    if window_start_s is not None and window_start_column is not None:
+        raise click.UsageError("give one of --window-start-s or --window-start-column, not both")
+    if not archive:
+        if window_start_s is None and window_start_column is None:
+            raise click.UsageError("give exactly one of --window-start-s or --window-start-column")
+        if track_path is None or sample_interval_s is None:
+            raise click.UsageError("this observed file carries no track or timing: give --observed-track and --sample-interval-s")
+        if field_map or geometry_path:
+            raise click.UsageError("--map and --geometry apply to PDS3/PDS4, MATLAB and SEG-Y products only")
+    else:  # read here: the reader may need the body (radii), and says where each field came from
+        from cluttersim.observed import body_for_observed, load_observed
+
+        observed = load_observed(observed_path, track_path, sample_interval_s, window_start_s=window_start_s,
+                                      window_start_column=window_start_column, fmt=fmt,
+                                      body=body_for_observed(sim_path, dem_path, body_radius_m))  # fmt: skip
+        if not quiet:
+            click.echo(f"read {observed.source}: {observed.n_traces} traces × {observed.n_samples} samples; "
+                       + "; ".join(observed.notes))  # fmt: skip
     raw_given = raw_dtype is not None or raw_shape is not None or raw_offset_bytes
     is_raw = file_format_of(observed_path, fmt) == "raw"
     if raw_given and not is_raw:
@@ -108,7 +137,7 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         explained_within_db=explained_within_db, permittivity=permittivity, continuity_traces=continuity_traces,
     )  # fmt: skip
     result, paths = compare_to_dir(
-        observed_path, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
+        observed, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
         config=load_config(radar_path) if dem_path else None, body_radius_m=body_radius_m,
         window_start_s=window_start_s, window_start_column=window_start_column, fmt=fmt, settings=settings,
         overwrite=overwrite, progress=not quiet, band=band, max_memory_bytes=max_memory,

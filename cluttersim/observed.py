@@ -44,14 +44,17 @@ from pathlib import Path
 import numpy as np
 
 from .errors import ObservedDataError, TrackError
+from .readers import ARCHIVE_SUFFIXES
 from .track import Track
 
-#: File formats and the suffixes that select them.
+#: File formats and the suffixes that select them (the archive formats, which carry their own
+#: track and timing, are read by :mod:`cluttersim.readers`).
 FORMAT_SUFFIXES = {
     "netcdf": (".nc", ".nc4", ".cdf", ".h5", ".hdf5", ".he5"),
     "npy": (".npy",),
     "image": (".tif", ".tiff", ".png"),
     "raw": (".bin", ".raw", ".dat"),
+    **ARCHIVE_SUFFIXES,
 }
 #: What the stored values are.
 VALUE_KINDS = ("amplitude", "power", "db")
@@ -93,6 +96,11 @@ class ObservedFormat:
         ``little`` or ``big`` (raw files, multi-byte types).
     raw_offset_bytes : int
         Header bytes to skip at the start of a raw file.
+    fields : tuple of str
+        Archive formats: ``FIELD=NAME[:UNIT]`` overrides of the field mapping
+        (:mod:`cluttersim.readers.fields`).
+    geometry : str or None
+        PDS: a second product (label) whose tables hold the geometry.
     """
 
     file_format: str | None = None
@@ -103,6 +111,8 @@ class ObservedFormat:
     raw_shape: tuple[int, int] | None = None
     byte_order: str = "little"
     raw_offset_bytes: int = 0
+    fields: tuple[str, ...] = ()
+    geometry: str | None = None
 
     def __post_init__(self):
         if self.file_format is not None and self.file_format not in FORMAT_SUFFIXES:
@@ -148,6 +158,8 @@ class ObservedRadargram:
     track: Track
     source: str
     values: str = "power"
+    #: where an archive reader took each field from (``field <- NAME (unit)``), for the summary
+    notes: tuple[str, ...] = ()
 
     @property
     def n_traces(self) -> int:
@@ -160,30 +172,37 @@ class ObservedRadargram:
 
 def load_observed(
     path,
-    track,
-    sample_interval_s: float,
+    track=None,
+    sample_interval_s: float | None = None,
     *,
     window_start_s: float | None = None,
     window_start_column: str | None = None,
     fmt: ObservedFormat | None = None,
+    body=None,
 ) -> ObservedRadargram:
     """Read an observed radargram, its track and its timing, checking that they agree.
 
     Parameters
     ----------
-    path : str or Path
-        The observed array (see the module docstring for the formats).
+    path : str, Path or ObservedRadargram
+        The observed array (see the module docstring for the formats); an
+        ObservedRadargram already read is returned as it is.
     track : str, Path or Track
         Track CSV (``lat``, ``lon``, ``alt``, optional ``time``), one row per trace.
+        Optional for archive products (PDS3/PDS4, MATLAB, SEG-Y), which carry
+        their track; given, it replaces theirs.
     sample_interval_s : float
-        Delay between samples, s (positive).
+        Delay between samples, s (positive); optional for archive products.
     window_start_s : float, optional
         Absolute two-way delay of sample 0, s, the same for every trace.
     window_start_column : str, optional
         Or: the column of the track CSV holding each trace's window start, s.
-        Exactly one of the two is required.
+        Exactly one of the two is required, except for archive products.
     fmt : ObservedFormat, optional
         How to read the file; defaults read power, format from the suffix.
+    body : Body, optional
+        The body, for archive products that give the antenna's distance from
+        its centre instead of a height.
 
     Returns
     -------
@@ -198,12 +217,22 @@ def load_observed(
     TrackError
         For a bad track CSV.
     """
+    if isinstance(path, ObservedRadargram):
+        return path
     path = Path(path)
     fmt = fmt or ObservedFormat()
-    if not (isinstance(sample_interval_s, (int, float)) and math.isfinite(sample_interval_s) and sample_interval_s > 0):
-        raise ObservedDataError(f"sample interval {sample_interval_s!r} s: expected a positive number of seconds")
-    if (window_start_s is None) == (window_start_column is None):
+    archive = file_format_of(path, fmt) in ARCHIVE_SUFFIXES
+    if sample_interval_s is not None or not archive:
+        if not (isinstance(sample_interval_s, (int, float)) and math.isfinite(sample_interval_s) and sample_interval_s > 0):
+            raise ObservedDataError(f"sample interval {sample_interval_s!r} s: expected a positive number of seconds")
+    if window_start_s is not None and window_start_column is not None:
         raise ObservedDataError("give the observed window start either as a constant (s) or as a track CSV column, not both")
+    if archive:
+        return _load_archive(path, track, sample_interval_s, window_start_s, window_start_column, fmt, body)
+    if window_start_s is None and window_start_column is None:
+        raise ObservedDataError("give the observed window start either as a constant (s) or as a track CSV column")
+    if track is None:
+        raise ObservedDataError(f"{path}: this file carries no track; give the track CSV (--observed-track)")
     if not isinstance(track, Track):
         track_path = Path(track)
         track = Track.from_csv(track_path)
@@ -212,13 +241,7 @@ def load_observed(
     stored = read_observed_array(path, fmt)
     power = to_trace_sample(stored, path, fmt, len(track), track.source)
     power = values_to_power(power, fmt.values, str(path))
-    empty = np.flatnonzero(~np.isfinite(power).any(axis=1))
-    if empty.size:
-        listed = ", ".join(str(i) for i in empty[:5]) + (", ..." if empty.size > 5 else "")
-        raise ObservedDataError(
-            f"{path}: trace(s) {listed} have no finite value ({empty.size} of {power.shape[0]}); "
-            "expected every trace to hold data (cut empty traces and their track rows)"
-        )
+    _check_no_empty_trace(power, path)
     if window_start_column is not None:
         if track_path is None:
             raise ObservedDataError("window_start_column needs the track as a CSV path")
@@ -231,6 +254,84 @@ def load_observed(
         power=power, sample_interval_s=float(sample_interval_s), window_start_s=start, track=track, source=str(path),
         values=fmt.values,
     )  # fmt: skip
+
+
+def _check_no_empty_trace(power: np.ndarray, path) -> None:
+    empty = np.flatnonzero(~np.isfinite(power).any(axis=1))
+    if empty.size:
+        listed = ", ".join(str(i) for i in empty[:5]) + (", ..." if empty.size > 5 else "")
+        raise ObservedDataError(
+            f"{path}: trace(s) {listed} have no finite value ({empty.size} of {power.shape[0]}); "
+            "expected every trace to hold data (cut empty traces and their track rows)"
+        )
+
+
+def _load_archive(path: Path, track, sample_interval_s, window_start_s, window_start_column, fmt, body):
+    """An archive product (PDS3/PDS4, MATLAB, SEG-Y): echoes, track and timing from the product,
+    each replaceable by what the user gives (a track CSV, a sample interval, a window start)."""
+    from .readers import read_product
+
+    kind = file_format_of(path, fmt)
+    if fmt.raw_dtype is not None or fmt.raw_shape is not None or fmt.raw_offset_bytes:
+        raise ObservedDataError(f"{path}: --raw-* options apply to raw binary files only, not to format {kind!r}")
+    if not path.exists():
+        raise ObservedDataError(f"{path}: observed product not found")
+    track_path = None
+    if track is not None and not isinstance(track, Track):
+        track_path = Path(track)
+        track = Track.from_csv(track_path)
+    content = read_product(
+        path, kind, field_map=fmt.fields, geometry=fmt.geometry, axis_order=fmt.axis_order, body=body,
+        sample_interval_s=sample_interval_s, track_given=track is not None,
+        window_start_given=window_start_s is not None or window_start_column is not None,
+    )  # fmt: skip
+    power = values_to_power(content.values, fmt.values, str(path))
+    n = power.shape[0]
+    if track is None:
+        track = Track(lat_deg=content.lat_deg, lon_deg=content.lon_deg, alt_m=content.alt_m, time_s=content.time_s,
+                      source=f"{path} (its geometry)")  # fmt: skip
+    elif len(track) != n:
+        raise ObservedDataError(
+            f"{path}: {n} traces, but the track {track.source} has {len(track)} rows; expected one track row per trace"
+        )
+    _check_no_empty_trace(power, path)
+    if window_start_column is not None:
+        if track_path is None:
+            raise ObservedDataError("window_start_column needs the track as a CSV path")
+        start = read_csv_column(track_path, window_start_column)
+    elif window_start_s is not None:
+        if not (math.isfinite(window_start_s) and window_start_s >= 0):
+            raise ObservedDataError(f"window start {window_start_s!r} s: expected a delay >= 0 s")
+        start = np.full(n, float(window_start_s))
+    else:
+        start = content.window_start_s
+    return ObservedRadargram(power=power, sample_interval_s=float(content.sample_interval_s), window_start_s=start,
+                             track=track, source=str(path), values=fmt.values, notes=content.notes)  # fmt: skip
+
+
+def body_for_observed(sim=None, dem=None, body_radius_m=None):
+    """The body of a comparison, for products that give radii: the sphere ``body_radius_m``,
+    else the DEM's CRS, else the simulated radargram's attributes; None if none is known."""
+    from .body import Body
+
+    if body_radius_m is not None:
+        return Body.sphere(body_radius_m)
+    if dem is not None:
+        from .dem import DemSource
+
+        return DemSource.open(dem).body
+    if sim is not None:
+        import xarray as xr
+
+        try:
+            with xr.open_dataset(sim, engine="h5netcdf") as ds:
+                a, b = ds.attrs.get("body_semi_major_m"), ds.attrs.get("body_semi_minor_m")
+                name = str(ds.attrs.get("body_name", "body"))
+        except (OSError, ValueError):
+            return None
+        if a is not None and b is not None:
+            return Body(name=name, semi_major_m=float(a), semi_minor_m=float(b))
+    return None
 
 
 def file_format_of(path, fmt: ObservedFormat) -> str:
