@@ -21,6 +21,7 @@ from affine import Affine
 from rasterio.windows import Window
 
 from .body import Body
+from .demcrs import as_geographic, check_not_radii, vsi_path
 from .errors import DemError
 
 
@@ -68,8 +69,9 @@ class DemSource:
         taken as geographic degrees on a sphere of that radius) and overrides
         nothing otherwise.
         """
-        path = Path(path)
-        if not path.exists():
+        vsi = vsi_path(path)  # GDAL virtual file systems (/vsizip/, /vsicurl/...): GDAL finds them
+        path = Path(vsi or path)
+        if vsi is None and not path.exists():
             raise DemError(f"{path}: DEM file not found")
         try:
             with rasterio.open(path) as ds:
@@ -99,6 +101,9 @@ class DemSource:
                     f"{path}: geographic CRS {crs.name!r} has axes {axes}; expected latitude north and longitude east "
                     "(re-grid the DEM to east-positive longitudes)"
                 )
+            geographic = as_geographic(crs, transform)  # equirectangular on a sphere: a lon/lat grid
+            if geographic is not None:
+                crs, transform = geographic
             body = Body.from_crs(crs)
             if body_radius_m is not None:
                 body = Body.sphere(body_radius_m, name=f"sphere overriding {body.name}")
@@ -214,6 +219,7 @@ class DemSource:
             raise DemError(f"{self.path}: cannot read elevations, the file may be truncated or corrupt ({cause})") from None
         elev = np.ma.filled(data.astype(np.float64), np.nan)
         elev[~np.isfinite(elev)] = np.nan
+        check_not_radii(elev, self.body.mean_radius_m, self.path)
         wt = rasterio.windows.transform(window, self.transform)
         if out_shape is not None:
             wt = wt @ Affine.scale(window.width / out_shape[1], window.height / out_shape[0])
