@@ -26,6 +26,7 @@ demo: $(VENV)/.installed
 
 test: $(VENV)/.installed-test
 	bash .ci/install-browser
+	bash .ci/install-proj-data
 	$(BIN)/python -m pytest
 
 bench: $(VENV)/.installed

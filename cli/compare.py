@@ -9,7 +9,7 @@ from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_D
 from cluttersim.readers import ARCHIVE_SUFFIXES
 
 from .options import (
-    band_option, load_config, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option,
+    band_option, height_datum_options, load_config, track_for_dem, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option,
     radar_option,
 )
 
@@ -52,6 +52,7 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
                    "fast_time) from the column, keyword, variable or header field NAME; repeatable.")
 @click.option("--geometry", "geometry_path", type=click.Path(dir_okay=False), default=None,
               help="PDS: a second product (label) whose table holds the geometry and timing.")
+@height_datum_options
 @click.option("--match-tolerance-m", type=_POSITIVE, default=None,
               help="Largest distance to the matched simulated trace, m [default: the simulated trace spacing].")
 @click.option("--max-offset-us", type=_POSITIVE, default=None,
@@ -76,7 +77,7 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 @quiet_option
 def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_radius_m, sample_interval_s,
                 window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
-                byte_order, raw_offset_bytes, field_map, geometry_path, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
+                byte_order, raw_offset_bytes, field_map, geometry_path, track_height_datum, dem_height_datum, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
                 delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, band, max_memory,
                 top, out_dir, overwrite, quiet):  # fmt: skip
     """Compare an observed radargram with the simulated clutter of its track.
@@ -130,6 +131,18 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         raise click.UsageError("--raw-dtype, --raw-shape and --raw-offset-bytes apply to raw binary files only")
     if is_raw and (raw_dtype is None or raw_shape is None):
         raise click.UsageError("a raw binary observed file needs --raw-dtype and --raw-shape TRACES SAMPLES")
+    if track_height_datum is not None or dem_height_datum is not None:  # the track into the DEM's heights' datum
+        if dem_path is None:
+            raise click.UsageError("--track-height-datum and --dem-height-datum apply with --dem")
+        from dataclasses import replace
+
+        from cluttersim.dem import DemSource
+        from cluttersim.observed import load_observed
+
+        observed = load_observed(observed, track_path, sample_interval_s, window_start_s=window_start_s,
+                                 window_start_column=window_start_column, fmt=fmt)  # fmt: skip
+        src = DemSource.open(dem_path, body_radius_m)
+        observed = replace(observed, track=track_for_dem(observed.track, src, track_height_datum, dem_height_datum, quiet))
     settings = CompareSettings(
         match_tolerance_m=match_tolerance_m, max_offset_s=None if max_offset_us is None else max_offset_us * 1e-6,
         per_trace_offset=per_trace_offset, offset_window_traces=offset_window_traces,

@@ -87,3 +87,32 @@ band_option = click.option(
     metavar="NAME",
     help="Band of a multi-band run ([[band]] tables of the radar TOML) [default: the first].",
 )
+
+
+def height_datum_options(fn):
+    """--track-height-datum and --dem-height-datum (vertical datums; cluttersim.datums)."""
+    fn = click.option(
+        "--dem-height-datum", default=None, metavar="DATUM",
+        help="Declare the DEM heights' reference when its CRS has no vertical part: ellipsoid, geoid:EGM96, "
+             "geoid:EGM2008, geoid:EPSG:CODE or geoid:GRID_FILE [default: the ellipsoid].",
+    )(fn)  # fmt: skip
+    return click.option(
+        "--track-height-datum", default=None, metavar="DATUM",
+        help="What the track altitudes are above: ellipsoid, geoid:EGM96, geoid:EGM2008, geoid:EPSG:CODE or "
+             "geoid:GRID_FILE; they are moved into the DEM's vertical reference [default: already in it].",
+    )(fn)  # fmt: skip
+
+
+def track_for_dem(track, dem_source, track_height_datum, dem_height_datum, quiet):
+    """The track in the DEM's vertical reference (prints what was done unless quiet)."""
+    from cluttersim.datums import parse_height_datum, track_in_dem_datum
+
+    if track_height_datum is None:
+        if dem_height_datum is not None:
+            raise click.UsageError("--dem-height-datum needs --track-height-datum (the track's own reference)")
+        return track
+    track, note = track_in_dem_datum(track, dem_source, parse_height_datum(track_height_datum),
+                                     parse_height_datum(dem_height_datum))  # fmt: skip
+    if note and not quiet:
+        click.echo(note)
+    return track

@@ -9,7 +9,7 @@ import click
 from cluttersim.products import simulate_to_dir
 
 from .options import (
-    load_config, max_memory_option, with_antenna, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
+    height_datum_options, load_config, max_memory_option, track_for_dem, with_antenna, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
 )  # fmt: skip
 
 
@@ -31,13 +31,14 @@ from .options import (
               help="Override the Gaussian beam's 3 dB beamwidths, degrees.")
 @click.option("--shadowing/--no-shadowing", default=None,
               help="Line-of-sight shadowing by the terrain (overrides [processing] shadowing).")
+@height_datum_options
 @permittivity_option
 @max_memory_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, permittivity, max_memory, out_dir, overwrite,
+                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, track_height_datum, dem_height_datum, permittivity, max_memory, out_dir, overwrite,
                  quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
@@ -56,6 +57,12 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     config = with_antenna(load_config(radar_path), antenna_pattern, antenna_axis, beamwidth_deg)
     if shadowing is not None:
         config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, shadowing=shadowing))
+    if track_height_datum is not None or dem_height_datum is not None:
+        from cluttersim.dem import DemSource
+        from cluttersim.track import Track
+
+        dem_path = DemSource.open(dem_path, body_radius_m)
+        track_path = track_for_dem(Track.from_csv(track_path), dem_path, track_height_datum, dem_height_datum, quiet)
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
         sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,

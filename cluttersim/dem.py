@@ -21,6 +21,7 @@ from affine import Affine
 from rasterio.windows import Window
 
 from .body import Body
+from .datums import HeightDatum, split_compound
 from .demcrs import as_geographic, check_not_radii, vsi_path
 from .errors import DemError
 
@@ -47,6 +48,10 @@ class DemSource:
     width: int
     height: int
     nodata: float | None
+    #: the heights' vertical reference from a compound CRS (None: above the ellipsoid, or as declared)
+    vertical_datum: HeightDatum | None = None
+    #: metres per stored height unit (0.3048 for a vertical CRS in feet)
+    height_unit_m: float = 1.0
 
     @property
     def is_geographic(self) -> bool:
@@ -85,6 +90,7 @@ class DemSource:
             raise DemError(f"{path}: rotated rasters are not supported, expected a north-up grid")
         if transform == Affine.identity():
             raise DemError(f"{path}: has no georeferencing (no geotransform)")
+        vertical_datum, height_unit_m = None, 1.0
         if rcrs is None:
             if body_radius_m is None:
                 raise DemError(f"{path}: DEM has no CRS; give --body-radius-m to read it as lon/lat degrees on a sphere")
@@ -95,6 +101,7 @@ class DemSource:
                 crs = pyproj.CRS.from_wkt(rcrs.to_wkt())
             except pyproj.exceptions.CRSError as exc:
                 raise DemError(f"{path}: CRS not understood by pyproj ({exc})") from None
+            crs, vertical_datum, height_unit_m = split_compound(crs)  # heights' datum and unit
             if crs.is_geographic and [a.direction for a in crs.axis_info[:2]] not in (["north", "east"], ["east", "north"]):
                 axes = ", ".join(f"{a.name} ({a.direction})" for a in crs.axis_info[:2])
                 raise DemError(
@@ -107,7 +114,8 @@ class DemSource:
             body = Body.from_crs(crs)
             if body_radius_m is not None:
                 body = Body.sphere(body_radius_m, name=f"sphere overriding {body.name}")
-        return cls(path=path, crs=crs, body=body, transform=transform, width=width, height=height, nodata=nodata)
+        return cls(path=path, crs=crs, body=body, transform=transform, width=width, height=height, nodata=nodata,
+                   vertical_datum=vertical_datum, height_unit_m=height_unit_m)  # fmt: skip
 
     # ----------------------------------------------------------------- coordinates
 
@@ -219,6 +227,8 @@ class DemSource:
             raise DemError(f"{self.path}: cannot read elevations, the file may be truncated or corrupt ({cause})") from None
         elev = np.ma.filled(data.astype(np.float64), np.nan)
         elev[~np.isfinite(elev)] = np.nan
+        if self.height_unit_m != 1.0:
+            elev *= self.height_unit_m
         check_not_radii(elev, self.body.mean_radius_m, self.path)
         wt = rasterio.windows.transform(window, self.transform)
         if out_shape is not None:
