@@ -108,7 +108,7 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
     archive = file_format_of(observed_path, fmt) in ARCHIVE_SUFFIXES
     observed = observed_path
     if window_start_s is not None and window_start_column is not None:
-        raise click.UsageError("give one of --window-start-s or --window-start-column, not both")
+        raise click.UsageError("give exactly one of --window-start-s or --window-start-column, not both")
     if not archive:
         if window_start_s is None and window_start_column is None:
             raise click.UsageError("give exactly one of --window-start-s or --window-start-column")

@@ -145,3 +145,37 @@ def test_ellipsoid_to_ellipsoid_is_a_note_only(tmp_path):
     res = CliRunner().invoke(cli, ["simulate", "--dem", str(tmp_path / "plain.tif"), "--track", "x.csv", "--out",
                                    str(tmp_path / "r"), "--dem-height-datum", "geoid:EGM96"])  # fmt: skip
     assert res.exit_code != 0
+
+
+@needs_egm96
+def test_real_terrain_in_egm96_heights_under_an_ellipsoidal_track(tmp_path):
+    """matplotlib's sample DEM (USGS 3-arc-second elevations around the Jacksboro fault, TN) stored
+    as EGM96 heights (compound CRS), an airborne track in WGS 84 ellipsoidal heights: the nadir
+    delay is 2 (h − N − z) / c with z interpolated by SciPy and N from pyproj (EGM96 here ≈ −32 m)."""
+    from matplotlib import cbook
+    from scipy.interpolate import RegularGridInterpolator
+
+    from cluttersim import Body, great_circle_track
+
+    data = cbook.get_sample_data("jacksboro_fault_dem.npz")
+    z = data["elevation"].astype(float)
+    dx, dy = float(data["dx"]), float(data["dy"])
+    west, north = float(data["xmin"]), float(data["ymin"])  # 'ymin' holds the northern edge (36.73°)
+    dem = write_geotiff(tmp_path / "jb.tif", z, west, north, dx, dy, crs="EPSG:4326+5773")
+    body = Body.from_crs(pyproj.CRS("EPSG:4326"))
+    t = great_circle_track(body, 36.70, -84.39, 36.48, -84.10, 2500.0, 1500.0)
+    t.to_csv(tmp_path / "t.csv")
+    out = tmp_path / "run"
+    res = CliRunner().invoke(cli, ["simulate", "--dem", str(dem), "--track", str(tmp_path / "t.csv"), "--out", str(out),
+                                   "--no-sources", "--track-height-datum", "ellipsoid"])  # fmt: skip
+    assert res.exit_code == 0, res.output
+    with xr.open_dataset(out / "radargram.nc", engine="h5netcdf") as ds:
+        delay = ds["nadir_delay"].values
+    lats = north - dy * (np.arange(z.shape[0]) + 0.5)
+    lons = west + dx * (np.arange(z.shape[1]) + 0.5)
+    elev = RegularGridInterpolator((lats[::-1], lons), z[::-1])(np.column_stack([t.lat_deg, t.lon_deg]))
+    _, _, above_geoid = pyproj.Transformer.from_crs("EPSG:4979", "EPSG:4326+5773", always_xy=True).transform(
+        t.lon_deg, t.lat_deg, t.alt_m
+    )
+    assert np.all(np.abs(above_geoid - t.alt_m) > 25)  # the geoid is ~30 m below the ellipsoid here
+    np.testing.assert_allclose(delay, 2 * (above_geoid - elev) / C, rtol=0, atol=1e-11)
