@@ -123,8 +123,8 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
                                       window_start_column=window_start_column, fmt=fmt,
                                       body=body_for_observed(sim_path, dem_path, body_radius_m))  # fmt: skip
         if not quiet:
-            click.echo(f"read {observed.source}: {observed.n_traces} traces × {observed.n_samples} samples; "
-                       + "; ".join(observed.notes))  # fmt: skip
+            click.echo(f"read {observed.source}: {observed.n_traces} traces × {observed.n_samples} samples")
+            click.echo("".join(f"  {note}\n" for note in observed.notes), nl=False)
     raw_given = raw_dtype is not None or raw_shape is not None or raw_offset_bytes
     is_raw = file_format_of(observed_path, fmt) == "raw"
     if raw_given and not is_raw:

@@ -14,6 +14,7 @@
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pyproj
@@ -114,3 +115,10 @@ def vsi_path(path) -> str | None:
                 end = i + len(ext)
                 return f"/{prefix}/{{{rest[:end]}}}{rest[end:]}"
     return s
+
+
+def dem_size_bytes(path) -> int:
+    """The DEM file's size for cache keys; −1 for a GDAL virtual path (no local file to stat)."""
+    if vsi_path(path) is not None:
+        return -1
+    return Path(path).stat().st_size

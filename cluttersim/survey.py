@@ -58,6 +58,7 @@ import numpy as np
 
 from .config import SimulationConfig, default_config
 from .dem import DemSource
+from .demcrs import dem_size_bytes
 from .errors import (
     ClutterSimError,
     ConfigError,
@@ -495,7 +496,7 @@ def job_key(dem: DemSource, sim_config: SimulationConfig, config: SurveyConfig, 
     """A digest of everything that shapes one track's result: the DEM (path and size), the radar,
     the reduction settings and the track's positions."""
     h = hashlib.sha256()
-    meta = {"dem": str(dem.path.resolve()), "dem_bytes": dem.path.stat().st_size, "body_radius_m": body_radius_m,
+    meta = {"dem": str(dem.path.resolve()), "dem_bytes": dem_size_bytes(dem.path), "body_radius_m": body_radius_m,
             "config": sim_config.to_dict(), "survey": config.reduction()}  # fmt: skip
     h.update(json.dumps(meta, sort_keys=True, default=str).encode())
     for a in (track.lat_deg, track.lon_deg, track.alt_m):

@@ -312,3 +312,47 @@ def test_radius_without_a_body_is_explained(tmp_path):
     lat, h = radius_to_height(np.array([10.0]), np.array([5.0]), np.array([3.7e6]), Body.sphere(3.4e6), "x")
     assert lat[0] == 10.0 and h[0] == pytest.approx(3.0e5)
     assert math.isfinite(h[0])
+
+
+def test_pds3_attached_label_with_a_separate_geometry_product(files, tmp_path):
+    """An image with its label attached (label records, then the image at ^IMAGE = record N), read
+    with --format pds3; the geometry a separate PDS3 product named with --geometry."""
+    amp = files["amplitude"]
+    img = amp.T.astype("<f4")  # (sample, trace) as drawn
+    record = 4 * NTRACE
+    label_records = 4
+    label = (f"PDS_VERSION_ID = PDS3\r\nRECORD_TYPE = FIXED_LENGTH\r\nRECORD_BYTES = {record}\r\n"
+             f"FILE_RECORDS = {label_records + SAMPLES}\r\nLABEL_RECORDS = {label_records}\r\n^IMAGE = {label_records + 1}\r\n"
+             f"OBJECT = IMAGE\r\n  LINES = {SAMPLES}\r\n  LINE_SAMPLES = {NTRACE}\r\n  SAMPLE_TYPE = PC_REAL\r\n"
+             "  SAMPLE_BITS = 32\r\nEND_OBJECT = IMAGE\r\nEND\r\n").encode()  # fmt: skip
+    assert len(label) <= label_records * record
+    (tmp_path / "rg.img").write_bytes(label.ljust(label_records * record, b" ") + img.tobytes())
+    t = track_arrays(files)
+    cols = [("LATITUDE", t["lat"], "{:.9f}", 14, "DEGREE"), ("LONGITUDE", t["lon"], "{:.9f}", 14, "DEGREE"),
+            ("ALTITUDE", t["alt"], "{:.4f}", 12, "METER"), ("TIME", t["time"], "{:.4f}", 10, "SECOND")]  # fmt: skip
+    table, defs, row_bytes = ascii_table_pds3(cols, NTRACE)
+    (tmp_path / "geom.tab").write_bytes(table)
+    (tmp_path / "geom.lbl").write_text(
+        "PDS_VERSION_ID = PDS3\r\nRECORD_TYPE = FIXED_LENGTH\r\n"
+        f"RECORD_BYTES = {row_bytes}\r\nFILE_RECORDS = {NTRACE}\r\n^TABLE = \"geom.tab\"\r\n"
+        f"SAMPLE_INTERVAL = {DT * 1e6!r} <MICROSECONDS>\r\n"
+        f"OBJECT = TABLE\r\n  INTERCHANGE_FORMAT = ASCII\r\n  ROWS = {NTRACE}\r\n  COLUMNS = {len(cols)}\r\n"
+        f"  ROW_BYTES = {row_bytes}\r\n{defs}END_OBJECT = TABLE\r\nEND\r\n"
+    )
+    res = run(["compare", "--observed", tmp_path / "rg.img", "--format", "pds3", "--geometry", tmp_path / "geom.lbl",
+               "--window-start-s", repr(files["start"]), "--values", "amplitude", "--sim", files["sim"],
+               "--out", tmp_path / "cmp"])  # fmt: skip
+    check_summary(res)
+    # without the geometry product, the missing track field is named
+    res = run(["compare", "--observed", tmp_path / "rg.img", "--format", "pds3", "--window-start-s", repr(files["start"]),
+               "--values", "amplitude", "--sim", files["sim"], "--out", tmp_path / "cmp2"])  # fmt: skip
+    assert res.exit_code == 1 and "no field for lat" in res.output
+
+
+def test_missing_optional_reader_says_what_to_install(files, tmp_path, monkeypatch):
+    import sys
+
+    (tmp_path / "x.lbl").write_text("PDS_VERSION_ID = PDS3\r\nEND\r\n")
+    monkeypatch.setitem(sys.modules, "pdr", None)  # import pdr now raises ImportError
+    res = run(["compare", "--observed", tmp_path / "x.lbl", "--sim", files["sim"], "--out", tmp_path / "cmp"])
+    assert res.exit_code == 1 and "pip install 'cluttersim[pds]'" in res.output
