@@ -356,3 +356,45 @@ def test_missing_optional_reader_says_what_to_install(files, tmp_path, monkeypat
     monkeypatch.setitem(sys.modules, "pdr", None)  # import pdr now raises ImportError
     res = run(["compare", "--observed", tmp_path / "x.lbl", "--sim", files["sim"], "--out", tmp_path / "cmp"])
     assert res.exit_code == 1 and "pip install 'cluttersim[pds]'" in res.output
+
+
+def test_pds4_binary_table_with_one_echo_per_row(files, tmp_path):
+    """PDS4 Table_Binary: one record per trace with latitude, longitude, altitude (km) and window
+    start (µs) fields, and the echo as a Group_Field_Binary of repeated MSB reals."""
+    amp = files["amplitude"][:, :48].astype(np.float64)
+    t = track_arrays(files)
+    rec = np.zeros(NTRACE, dtype=[("lat", ">f8"), ("lon", ">f8"), ("alt", ">f8"), ("ws", ">f8"), ("echo", ">f4", (48,))])
+    rec["lat"], rec["lon"], rec["alt"], rec["ws"], rec["echo"] = t["lat"], t["lon"], t["alt"] / 1e3, files["start"] * 1e6, amp
+    rec.tofile(tmp_path / "echoes.dat")
+    fields = "".join(
+        f"<Field_Binary><name>{n}</name><field_location unit=\"byte\">{1 + 8 * k}</field_location>"
+        f"<data_type>IEEE754MSBDouble</data_type><field_length unit=\"byte\">8</field_length><unit>{u}</unit></Field_Binary>"
+        for k, (n, u) in enumerate((("LATITUDE", "deg"), ("LONGITUDE", "deg"), ("ALTITUDE", "km"), ("WINDOW_START", "microseconds")))
+    )  # fmt: skip
+    (tmp_path / "echoes.xml").write_text(f"""<?xml version="1.0" encoding="UTF-8"?>
+<Product_Observational xmlns="http://pds.nasa.gov/pds4/pds/v1">
+  <Identification_Area><logical_identifier>urn:invented:sounder:echoes_0001</logical_identifier><version_id>1.0</version_id>
+    <title>invented echoes</title><information_model_version>1.20.0.0</information_model_version>
+    <product_class>Product_Observational</product_class></Identification_Area>
+  <Observation_Area><Mission_Area><sample_interval unit="s">{DT!r}</sample_interval></Mission_Area></Observation_Area>
+  <File_Area_Observational>
+    <File><file_name>echoes.dat</file_name></File>
+    <Table_Binary>
+      <name>ECHO_TABLE</name><offset unit="byte">0</offset><records>{NTRACE}</records>
+      <Record_Binary>
+        <fields>4</fields><groups>1</groups><record_length unit="byte">{rec.itemsize}</record_length>{fields}
+        <Group_Field_Binary><repetitions>48</repetitions><fields>1</fields><groups>0</groups>
+          <group_location unit="byte">33</group_location><group_length unit="byte">192</group_length>
+          <Field_Binary><name>ECHO</name><field_location unit="byte">1</field_location><data_type>IEEE754MSBSingle</data_type>
+            <field_length unit="byte">4</field_length></Field_Binary>
+        </Group_Field_Binary>
+      </Record_Binary>
+    </Table_Binary>
+  </File_Area_Observational>
+</Product_Observational>
+""")
+    obs = load_observed(tmp_path / "echoes.xml", fmt=ObservedFormat(values="amplitude"))
+    np.testing.assert_allclose(obs.power, amp.astype(np.float32).astype(np.float64) ** 2, rtol=1e-7)
+    np.testing.assert_allclose(obs.track.alt_m, t["alt"], rtol=1e-12)
+    np.testing.assert_allclose(obs.window_start_s, files["start"], rtol=1e-12)
+    assert obs.sample_interval_s == DT
