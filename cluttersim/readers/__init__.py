@@ -33,8 +33,9 @@ FAMILY = {"pds3": "pds", "pds4": "pds", "matlab": "matlab", "segy": "segy"}
 class Lookup:
     """Named values of a product: name → (values, unit or None); matched without regard to case.
 
-    ``values`` is a scalar (a label keyword: the same for every trace) or a 1-D
-    array (a column: one value per trace).
+    ``values`` is a scalar (a label keyword: the same for every trace), a 1-D
+    array (a column: one value per trace), or a callable returning one (read on
+    first use).
     """
 
     source: str
@@ -44,11 +45,14 @@ class Lookup:
         self.entries.setdefault(str(name), (values, unit))
 
     def get(self, name: str):
-        if name in self.entries:
-            return name, *self.entries[name]
-        lowered = {k.lower(): k for k in self.entries}
-        key = lowered.get(name.lower())
-        return None if key is None else (key, *self.entries[key])
+        key = name if name in self.entries else {k.lower(): k for k in self.entries}.get(name.lower())
+        if key is None:
+            return None
+        values, unit = self.entries[key]
+        if callable(values):  # read on first use (e.g. a SEG-Y header field: one pass over the file)
+            values = values()
+            self.entries[key] = (values, unit)
+        return key, values, unit
 
     def names(self) -> list[str]:
         return list(self.entries)

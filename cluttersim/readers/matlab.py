@@ -97,8 +97,11 @@ def read_matlab(path, file_format: str, mapping: dict, *, geometry=None, axis_or
         v = np.squeeze(value)
         if v.ndim <= 1:
             lookup.add(name, v if v.ndim == 1 else float(v.real))
-    lengths = {np.asarray(v).size for v, _ in lookup.entries.values()}
     n_fast, n_tr = matrix.shape
+    # the traces lie along the axis as long as the latitude vector (else: as any vector)
+    lat_names = (mapping["lat"].name,) if "lat" in mapping else DEFAULT_NAMES["matlab"]["lat"]
+    lat = next((lookup.get(n) for n in lat_names if lookup.get(n) is not None), None)
+    lengths = {np.asarray(lat[1]).size} if lat is not None else {np.asarray(v).size for v, _ in lookup.entries.values()}
     if axis_order is None:
         if n_tr in lengths and n_fast not in lengths:
             axis_order = "samples-traces"

@@ -33,6 +33,7 @@ _TIME_UNITS = {"DelayRecordingTime": "ms", "Interval": "us", "TRACE_SAMPLE_INTER
 _ELEVATIONS = ("ReceiverGroupElevation", "SourceSurfaceElevation", "SourceDatumElevation", "ReceiverDatumElevation",
                "SourceDepth")  # fmt: skip
 _COORDINATES = ("SourceX", "SourceY", "GroupX", "GroupY", "CDP_X", "CDP_Y")
+_DATE = ("YearDataRecorded", "DayOfYear", "HourOfDay", "MinuteOfHour", "SecondOfMinute")
 
 
 def _scaled(raw: np.ndarray, scalar: np.ndarray) -> np.ndarray:
@@ -53,12 +54,20 @@ def read_segy(path, file_format: str, mapping: dict, *, geometry=None, axis_orde
         raise ObservedDataError(f"{path}: SEG-Y file not found")
     if geometry is not None:
         raise ObservedDataError(f"{path}: --geometry applies to PDS products; name SEG-Y header fields with --map")
+    tf = segyio.TraceField
+    fields = [n for n in dir(tf) if not n.startswith("_") and isinstance(getattr(tf, n), int)]
+
+    def column(name):
+        """One trace-header field of every trace (one pass over the file)."""
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            return np.asarray(f.attributes(getattr(tf, name))[:])
+
+    used = set(_COORDINATES) | set(_ELEVATIONS) | set(_TIME_UNITS) | set(_DATE) | {
+        "SourceGroupScalar", "CoordinateUnits", "ElevationScalar"} | {s.name for s in mapping.values()}  # fmt: skip
     try:
         with segyio.open(str(path), "r", ignore_geometry=True) as f:
             values = np.asarray(f.trace.raw[:], dtype=np.float64)
-            tf = segyio.TraceField
-            header = {name: np.asarray(f.attributes(getattr(tf, name))[:]) for name in dir(tf)
-                      if not name.startswith("_") and isinstance(getattr(tf, name), int)}  # fmt: skip
+            header = {name: np.asarray(f.attributes(getattr(tf, name))[:]) for name in fields if name in used}
             binary = {name: f.bin[getattr(segyio.BinField, name)] for name in ("Interval", "Samples", "Format")}
     except (OSError, RuntimeError, ValueError) as exc:
         raise ObservedDataError(f"{path}: not a SEG-Y file segyio can read ({exc})") from None
@@ -88,8 +97,11 @@ def read_segy(path, file_format: str, mapping: dict, *, geometry=None, axis_orde
     time = _time_of_day(header)
     if time is not None:
         lookup.add("time", time, "s")
-    for name, col in header.items():  # every other header field, raw, by its segyio name
-        lookup.add(name, col.astype(np.float64), None)
+    for name in fields:  # every other header field, raw, by its segyio name (read if asked for)
+        if name in header:
+            lookup.add(name, header[name].astype(np.float64), None)
+        else:
+            lookup.add(name, lambda name=name: column(name).astype(np.float64), None)
     if axis_order == "samples-traces":
         values = values.T
     return lookup, values
