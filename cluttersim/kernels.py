@@ -128,8 +128,8 @@ def pattern_gain_two_way(params, frame, ux, uy, uz):
 def direction_weight(params, frame, vx, vy, vz, inv_r):
     """Weight of a facet at offset v from the antenna: the two-way antenna pattern
     (:func:`pattern_gain_two_way`, params[0:5]) times the along-track processing weight
-    (params[5:8] = aperture code, aperture length (code 3: the resolution δ), wavelength;
-    :mod:`cluttersim.aperture`)."""
+    (params[5:8] = aperture code, aperture length (code 3: the resolution δ; code 1: table steps
+    per unit u), wavelength, then for code 1 the unfocused response table; :mod:`cluttersim.aperture`)."""
     ux = vx * inv_r
     uy = vy * inv_r
     uz = vz * inv_r
@@ -138,9 +138,17 @@ def direction_weight(params, frame, vx, vy, vz, inv_r):
     if code != 0.0:
         y = vx * frame[0, 0] + vy * frame[0, 1] + vz * frame[0, 2]  # along-track offset, m
         r = 1.0 / inv_r
-        if code == 1.0:
-            if y * y > 0.5 * params[7] * r:  # outside the first Fresnel zone, |y| > √(λR/2)
-                w = 0.0
+        if code == 1.0:  # unfocused: the tabulated response of an unphased sum in u = |y|/√(λR)
+            u = abs(y) / math.sqrt(params[7] * r)
+            x = u * params[6]
+            n_tab = params.shape[0] - 8
+            if x < n_tab - 1:
+                k = int(x)
+                f = x - k
+                w *= (1.0 - f) * params[8 + k] + f * params[9 + k]
+            else:  # far field: sinc²(2u)
+                sx = math.sin(2.0 * math.pi * u) / (2.0 * math.pi * u)
+                w *= sx * sx
         else:
             if code == 2.0:
                 x = math.pi * y * 2.0 * params[6] / (params[7] * r)  # π y / δ, δ = λR/(2L)
