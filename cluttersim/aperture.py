@@ -83,8 +83,8 @@ def unfocused_response(u, aperture_over_fresnel: float = 1.0):
 
 #: The unfocused response is tabulated for the kernel on |u| = |y|/√(λR) in [0, UNFOCUSED_TABLE_MAX]
 #: every 1/UNFOCUSED_TABLE_STEPS and linearly interpolated; beyond, its far-field form sinc²(2u).
-UNFOCUSED_TABLE_MAX = 32.0
-UNFOCUSED_TABLE_STEPS = 64
+UNFOCUSED_TABLE_MAX = 16.0
+UNFOCUSED_TABLE_STEPS = 512
 
 
 def unfocused_table() -> np.ndarray:

@@ -139,3 +139,41 @@ class IonosphereConfig:
 
     def to_dict(self) -> dict:
         return asdict(self)
+
+
+def disperse_radargram(ds, tec_el_m2: float, collision_frequency_hz: float = 0.0):
+    """A simulated radargram as it would look through a layer of ``tec_el_m2`` (for ``compare``).
+
+    The radargram's ``power`` was compressed with the undisturbed pulse; without the
+    power per delay bin behind it, each trace is convolved with the dispersed pulse's
+    power response |h_iono(kΔt)|² (:func:`cluttersim.radar.pulse_power_kernel`) normalised
+    to a sum of 1. A phase-only layer keeps ∫|h|², so a diffuse echo keeps its level and
+    a point echo's peak drops by max|h_iono|² when the dispersion is much wider than the
+    pulse (1/B); for a weak layer this smears the echo by one pulse width more than a
+    simulation through the layer would (use ``[ionosphere]`` in the radar TOML then).
+    The result carries ``ionosphere_tec_el_m2``.
+    """
+    import json
+
+    from scipy.ndimage import convolve1d
+
+    from .config import SimulationConfig
+    from .radar import pulse_power_kernel
+
+    layer = IonosphereConfig(tec_el_m2=float(tec_el_m2), collision_frequency_hz=float(collision_frequency_hz))
+    if not layer.active:
+        return ds
+    radar = SimulationConfig.from_dict(json.loads(ds.attrs["cluttersim_config"])).radar
+    layer.check_band(radar.center_frequency_hz, radar.bandwidth_hz)
+    _, weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window,
+                                    radar.center_frequency_hz, layer)  # fmt: skip
+    _, plain = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
+    weights = weights / plain.sum()  # phase only: Σ weights = Σ plain; absorption lowers it
+    out = ds.copy()
+    power = np.nan_to_num(ds["power"].values.astype(np.float64))
+    dispersed = convolve1d(power, weights, axis=-1, mode="constant")
+    attrs = dict(ds["power"].attrs)
+    out["power"] = (ds["power"].dims, np.where(np.isnan(ds["power"].values), np.nan, dispersed).astype(np.float32))
+    out["power"].attrs = attrs
+    out.attrs["ionosphere_tec_el_m2"] = layer.tec_el_m2
+    return out

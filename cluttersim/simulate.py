@@ -143,6 +143,7 @@ def simulate(
     if len(track) < proc.presum:
         raise TrackError(f"{track.source}: {len(track)} pulses, fewer than [processing] presum = {proc.presum}")
     scene = prepare_scene(src, track, config, stats, max_memory_bytes=max_memory_bytes, sources=sources)
+    warn_grazing_without_shadowing(scene)
     idx, pad = scene.idx, scene.pad
     ant_on = np.ascontiguousarray(scene.ant_m[idx])
     dt = radar.sample_interval_s
@@ -212,6 +213,29 @@ def simulate(
     ds = datasets[0] if len(datasets) == 1 else stack_bands(datasets, config)
     stats.seconds_total = time.perf_counter() - t_start
     return ds
+
+
+#: Shadowing matters when the recording window reaches ground seen this low above the horizontal
+#: (deg): the range at the window's end exceeds h / sin(angle), h the median height above the nadir
+#: terrain (airborne and low passes over relief; an orbiter's window rarely reaches that far out).
+GRAZING_ELEVATION_DEG = 15.0
+
+
+def warn_grazing_without_shadowing(scene: "Scene") -> None:
+    """Warn when ``[processing] shadowing`` is off and the geometry is grazing (see
+    :data:`GRAZING_ELEVATION_DEG`): there terrain hidden behind ridges would still echo (about 20 %
+    too much energy 20 km off-track at 5 km up in the test scene of the issue)."""
+    if scene.config.processing.shadowing or scene.idx.size == 0:
+        return
+    h = float(np.nanmedian((scene.track.alt_m - scene.h_nadir_m)[scene.idx]))
+    end_m = 0.5 * SPEED_OF_LIGHT_M_S * float(np.nanmedian(scene.start_s + scene.config.radar.window_length_s))
+    if h > 0 and end_m > h / math.sin(math.radians(GRAZING_ELEVATION_DEG)):
+        warnings.warn(
+            f"{scene.track.source}: the window reaches ground {end_m / 1e3:.1f} km away from {h / 1e3:.2f} km up "
+            f"(below {GRAZING_ELEVATION_DEG:g}° elevation) with [processing] shadowing off: terrain hidden behind "
+            "ridges still echoes; set shadowing = true",
+            stacklevel=3,
+        )
 
 
 def _kernel_groups(runs, coherent: bool, sources: bool, strip_per_band: bool) -> list[list["_BandRun"]]:
@@ -507,15 +531,26 @@ def scene_for_band(scene: Scene, band_config: SimulationConfig) -> Scene:
 
 def shadow_inputs(scene: Scene, traces):
     """Kernel inputs for line-of-sight shadowing of some traces (indices into the track):
-    (window heights, facet cells, nadir (row, col) in the window, antenna heights, highest
-    terrain); small dummies when ``[processing] shadowing`` is off."""
+    (window heights, facet cells, per trace (nadir row, nadir col in the window, Δy²/(2Rp),
+    Δx²/(2Rp)) for the curved line of sight (:func:`cluttersim.kernels.hidden_from_antenna`),
+    antenna heights, highest terrain); small dummies when ``[processing] shadowing`` is off."""
     n = len(traces)
     if not scene.config.processing.shadowing:
-        return np.zeros((1, 1), np.float32), scene.facets.cell[:1], np.zeros((n, 2)), np.zeros(n), 0.0
+        return np.zeros((1, 1), np.float32), scene.facets.cell[:1], np.zeros((n, 4)), np.zeros(n), 0.0
     heights = scene.shadow_heights_m
     x, y = scene.src.lonlat_to_xy(scene.track.lon_deg[traces], scene.track.lat_deg[traces])
     col, row = ~scene.window.transform @ (np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
-    nadir_rc = np.column_stack([np.asarray(row) - 0.5, np.asarray(col) - 0.5])
+    # the curvature of the body under the line of sight: Δy²/(2Rp), Δx²/(2Rp) per row and column step
+    rp = scene.src.body.mean_radius_m
+    t = scene.window.transform
+    if scene.src.is_geographic:
+        lat = math.radians(float(np.nanmedian(scene.track.lat_deg[traces])))
+        dy_m = rp * math.radians(abs(t.e))
+        dx_m = rp * math.radians(abs(t.a)) * max(math.cos(lat), 1e-3)
+    else:
+        dy_m, dx_m = abs(t.e), abs(t.a)
+    nadir_rc = np.column_stack([np.asarray(row) - 0.5, np.asarray(col) - 0.5, np.full(n, dy_m**2 / (2.0 * rp)),
+                                np.full(n, dx_m**2 / (2.0 * rp))])  # fmt: skip
     return heights, scene.facets.cell, nadir_rc, scene.track.alt_m[traces].astype(np.float64), float(heights.max())
 
 
