@@ -325,7 +325,8 @@ def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
     ``power`` and ``noise_power`` are multiplied by τ_eff/Δt (so their ratio, that
     file's own, is kept) and the attributes ``power_convention`` and
     ``power_convention_converted_from`` say so. Predicted specular powers are left
-    as they were (they had no spherical divergence then).
+    as they were (they had no spherical divergence then). A file without the radar
+    attributes (not written by cluttersim) is returned unchanged.
     """
     from .radar import LEGACY_POWER_CONVENTION, POWER_CONVENTION, effective_pulse_duration_s
 
@@ -339,9 +340,8 @@ def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
         dt = float(ds.attrs["radar_sample_interval_s"])
         window = str(ds.attrs.get("radar_range_window", "hann"))
         factor = effective_pulse_duration_s(bandwidth, window) / dt
-    except (KeyError, ValueError) as exc:
-        raise ClutterSimError(f"{source}: a radargram without power_convention needs the radar_bandwidth_hz, "
-                              f"radar_sample_interval_s and radar_range_window attributes ({exc})") from None  # fmt: skip
+    except (KeyError, ValueError, TypeError):
+        return ds  # not written by cluttersim (no radar attributes): nothing to convert; readers check the rest
     ds = ds.copy()
     for name in ("power", "noise_power"):
         if name in ds:
