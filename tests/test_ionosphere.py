@@ -104,3 +104,29 @@ def test_ionosphere_table():
     with pytest.raises(ConfigError, match="1 TECU = 1e16"):
         SimulationConfig.from_dict({"radar": {"center_frequency_hz": 5e6, "bandwidth_hz": 4e6},
                                     "ionosphere": {"tec_el_m2": 1e18}})  # fmt: skip
+
+
+def test_compare_correction_delays_and_smears_a_finished_simulation():
+    """disperse_radargram (compare --tec-el-m2 on a given simulation): a point echo of the plain
+    pulse moves later by the group delay at the centre frequency (Davies 1990), keeps its energy
+    (phase-only layer) and loses peak."""
+    import json
+
+    import xarray as xr
+
+    from cluttersim.ionosphere import disperse_radargram
+
+    cfg = SimulationConfig()  # 20 MHz, 10 MHz, 37.5 ns, Hann
+    dt = cfg.radar.sample_interval_s
+    off, plain = pulse_power_kernel(10e6, dt, "hann")
+    power = np.zeros((2, 1024))
+    power[:, 200 + off] = plain  # an echo at sample 200
+    ds = xr.Dataset({"power": (("trace", "sample"), power.astype(np.float32))},
+                    attrs={"cluttersim_config": json.dumps(cfg.to_dict())})  # fmt: skip
+    out = disperse_radargram(ds, 1e15)
+    p = out["power"].values[0].astype(float)
+    shift_s = (np.argmax(p) - 200) * dt
+    assert shift_s == pytest.approx(group_delay_two_way_s(1e15, 20e6), abs=3 * dt)
+    assert p.sum() == pytest.approx(plain.sum(), rel=1e-3)
+    assert p.max() < 0.9
+    assert out.attrs["ionosphere_tec_el_m2"] == 1e15
