@@ -44,15 +44,20 @@ def main(argv=None) -> int:
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--only", action="append", help="run only the variants whose name starts with this")
     args = ap.parse_args(argv)
     dem, track, base = case_inputs("small")
     variants = {
         "plain": base,
         "ionosphere 2e15": dataclasses.replace(base, ionosphere=IonosphereConfig(tec_el_m2=2e15)),
         "ionosphere 1e16": dataclasses.replace(base, ionosphere=IonosphereConfig(tec_el_m2=1e16)),
+        "focused aperture (for scale)": dataclasses.replace(
+            base, processing=ProcessingConfig(aperture="focused", aperture_length_m=3000.0)),
         "unfocused aperture": dataclasses.replace(base, processing=ProcessingConfig(aperture="unfocused")),
         "shadowing (curved march)": dataclasses.replace(base, processing=ProcessingConfig(shadowing=True)),
     }
+    if args.only:
+        variants = {k: v for k, v in variants.items() if k == "plain" or any(k.startswith(o) for o in args.only)}
     results = {}
     for name, cfg in variants.items():
         simulate(dem, track, cfg, sources=False)  # compile / warm
