@@ -477,8 +477,9 @@ def survey_track(job: TrackJob) -> TrackResult:
 
 
 def survey_sim_config(config: SimulationConfig, band: str | None = None) -> SimulationConfig:
-    """The configuration a survey simulates with: [noise] and [subsurface] dropped (the index
-    compares surface clutter with the surface echo); one band of a multi-band radar (``band``,
+    """The configuration a survey simulates with: [noise], [subsurface] and [ionosphere] dropped (the
+    index compares surface clutter with the surface echo, both delayed alike by a layer, and its
+    window is placed by the geometric nadir delay); one band of a multi-band radar (``band``,
     default the first); coherent mode refused."""
     if config.processing.mode == "coherent":
         raise ConfigError("[processing] mode = 'coherent': the survey needs the incoherent mode's source record; "
@@ -487,7 +488,7 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
         config = config.for_band(band or config.band_names[0])
     elif band is not None:
         raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
-    return dataclasses.replace(config, noise=None, subsurface=None)
+    return dataclasses.replace(config, noise=None, subsurface=None, ionosphere=None)
 
 
 def job_key(dem: DemSource, sim_config: SimulationConfig, config: SurveyConfig, track: Track,
@@ -734,7 +735,7 @@ def run_survey(
         The DEM; with a Dask scheduler, its path must be readable by every worker.
     config : SurveyConfig
     sim_config : SimulationConfig, optional
-        The radar (default: the built-in one); [noise] and [subsurface] are ignored.
+        The radar (default: the built-in one); [noise], [subsurface] and [ionosphere] are ignored.
     out_dir : path
         Gets ``tracks/<id>.nc`` (one per track, as each finishes) and :data:`SURVEY_FILES`.
         Tracks already there from an interrupted run with the same arguments are not
