@@ -99,6 +99,8 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
       cluttersim compare --observed obs.bin --raw-dtype float32 --raw-shape 2000 1024 \\
           --byte-order big --observed-track obs_track.csv --sample-interval-s 37.5e-9 \\
           --window-start-column window_start --values db --dem site.tif --out cmp2
+      cluttersim compare --observed RG_0001.LBL --map radius=SC_RADIUS:km \\
+          --dem site.tif --out cmp3
     """
     if (sim_path is None) == (dem_path is None):
         raise click.UsageError("give either --sim RUN_DIR/radargram.nc or --dem DEM (to simulate the observed track)")

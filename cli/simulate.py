@@ -32,13 +32,16 @@ from .options import (
 @click.option("--shadowing/--no-shadowing", default=None,
               help="Line-of-sight shadowing by the terrain (overrides [processing] shadowing).")
 @height_datum_options
+@click.option("--dem-height-unit", type=click.Choice(["m", "ft", "us-ft"]), default=None,
+              help="Declare the unit of the DEM's values (ft: 0.3048 m, us-ft: 1200/3937 m) "
+                   "[default: its CRS's vertical unit, else metres].")
 @permittivity_option
 @max_memory_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, track_height_datum, dem_height_datum, permittivity, max_memory, out_dir, overwrite,
+                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, track_height_datum, dem_height_datum, dem_height_unit, permittivity, max_memory, out_dir, overwrite,
                  quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
@@ -57,11 +60,14 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     config = with_antenna(load_config(radar_path), antenna_pattern, antenna_axis, beamwidth_deg)
     if shadowing is not None:
         config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, shadowing=shadowing))
-    if track_height_datum is not None or dem_height_datum is not None:
+    if track_height_datum is not None or dem_height_datum is not None or dem_height_unit is not None:
+        from cluttersim.datums import HEIGHT_UNITS_M
         from cluttersim.dem import DemSource
         from cluttersim.track import Track
 
         dem_path = DemSource.open(dem_path, body_radius_m)
+        if dem_height_unit is not None:
+            dem_path = dataclasses.replace(dem_path, height_unit_m=HEIGHT_UNITS_M[dem_height_unit])
         track_path = track_for_dem(Track.from_csv(track_path), dem_path, track_height_datum, dem_height_datum, quiet)
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,

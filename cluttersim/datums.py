@@ -34,6 +34,9 @@ from .errors import DemError, TrackError
 
 #: Named geoids and their EPSG vertical CRS (heights above that geoid, metres).
 GEOIDS = {"EGM96": "EPSG:5773", "EGM2008": "EPSG:3855", "EGM84": "EPSG:5798"}
+#: Height units a user may declare for a DEM's values, in metres: the international foot 0.3048 m
+#: and the US survey foot 1200/3937 m (NIST SP 811, 2008, B.8 and B.6).
+HEIGHT_UNITS_M = {"m": 1.0, "ft": 0.3048, "us-ft": 1200.0 / 3937.0}
 #: Where distributions put PROJ's data (grids); searched after pyproj's own directory.
 SYSTEM_PROJ_DIRS = ("/usr/share/proj", "/usr/local/share/proj")
 

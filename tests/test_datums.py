@@ -179,3 +179,11 @@ def test_real_terrain_in_egm96_heights_under_an_ellipsoidal_track(tmp_path):
     )
     assert np.all(np.abs(above_geoid - t.alt_m) > 25)  # the geoid is ~30 m below the ellipsoid here
     np.testing.assert_allclose(delay, 2 * (above_geoid - elev) / C, rtol=0, atol=1e-11)
+
+
+def test_declared_height_unit_feet(tmp_path):
+    """A DEM without a vertical CRS whose values are feet, declared with --dem-height-unit ft
+    (0.3048 m, NIST SP 811): the nadir delay is 2 (H − 0.3048 z) / c."""
+    dem = write_geotiff(tmp_path / "ft.tif", np.full((200, 200), 1000.0), 14.8, 45.2, 0.002, crs="EPSG:4326")
+    delay, _ = simulate_cli(tmp_path, dem, "--dem-height-unit", "ft")
+    np.testing.assert_allclose(delay, 2 * (H_TRACK - 304.8) / C, rtol=0, atol=2e-11)
