@@ -398,3 +398,13 @@ def test_pds4_binary_table_with_one_echo_per_row(files, tmp_path):
     np.testing.assert_allclose(obs.track.alt_m, t["alt"], rtol=1e-12)
     np.testing.assert_allclose(obs.window_start_s, files["start"], rtol=1e-12)
     assert obs.sample_interval_s == DT
+
+
+@pytest.mark.parametrize("name", ["bad.lbl", "bad.xml", "bad.mat", "bad.sgy"])
+def test_unreadable_products_give_one_line(tmp_path, name):
+    """Not a product of its suffix: one line naming the file, exit 1, no traceback, no output."""
+    (tmp_path / name).write_text("garbage\n")
+    res = run(["compare", "--observed", tmp_path / name, "--sim", tmp_path / "none.nc", "--out", tmp_path / "out"])
+    assert res.exit_code == 1, res.output
+    assert res.output.startswith("cluttersim: error: ") and name in res.output and "Traceback" not in res.output
+    assert len(res.output.strip().splitlines()) == 1 and not (tmp_path / "out").exists()

@@ -39,8 +39,8 @@ def _variables_v5(path: Path) -> dict:
 
     try:
         raw = loadmat(path, squeeze_me=False, struct_as_record=False)
-    except (ValueError, TypeError, OSError) as exc:
-        raise ObservedDataError(f"{path}: not a readable MATLAB file ({exc})") from None
+    except Exception as exc:  # scipy's MatReadError, ValueError, OSError...: all mean "cannot read it"
+        raise ObservedDataError(f"{path}: not a readable MATLAB file ({type(exc).__name__}: {exc})") from None
     out = {}
 
     def walk(prefix, value):

@@ -30,18 +30,18 @@ from . import Lookup
 from .fields import DEFAULT_NAMES, missing_field
 
 
-def _import_pdr():
+def _import_pdr(path):
     try:
         import pdr
     except ImportError:
         raise ObservedDataError(
-            "reading PDS3/PDS4 products needs the optional package pdr: pip install 'cluttersim[pds]'"
+            f"{path}: reading PDS3/PDS4 products needs the optional package pdr: pip install 'cluttersim[pds]'"
         ) from None
     return pdr
 
 
 def _open(path: Path):
-    pdr = _import_pdr()
+    pdr = _import_pdr(path)
     if not path.exists():
         raise ObservedDataError(f"{path}: PDS product (label) not found")
     try:
@@ -161,6 +161,9 @@ def read_pds(path, file_format: str, mapping: dict, *, geometry=None, axis_order
     path = Path(path)
     data = _open(path)
     objects = _objects(data, path)
+    if not objects:
+        raise ObservedDataError(f"{path}: no array or table found through this PDS label; expected a PDS3/PDS4 label "
+                                "pointing at the radargram (or --format pds3 for a file with an attached label)")  # fmt: skip
     lookup = Lookup(str(path))
     tables = {k: v for k, v in objects.items() if hasattr(v, "columns")}
     arrays = {k: v for k, v in objects.items() if isinstance(v, np.ndarray)}

@@ -48,7 +48,7 @@ def read_segy(path, file_format: str, mapping: dict, *, geometry=None, axis_orde
     try:
         import segyio
     except ImportError:
-        raise ObservedDataError("reading SEG-Y needs the optional package segyio: pip install 'cluttersim[segy]'") from None
+        raise ObservedDataError(f"{path}: reading SEG-Y needs the optional package segyio: pip install 'cluttersim[segy]'") from None
     path = Path(path)
     if not path.exists():
         raise ObservedDataError(f"{path}: SEG-Y file not found")
