@@ -25,6 +25,8 @@ ARCHIVE_SUFFIXES = {
     "matlab": (".mat",),
     "segy": (".sgy", ".segy"),
 }
+#: Fields that must vary per trace (a label keyword cannot give them).
+_PER_TRACE = ("lat", "lon", "alt", "radius", "time")
 #: Which default names (:data:`.fields.DEFAULT_NAMES`) each format uses.
 FAMILY = {"pds3": "pds", "pds4": "pds", "matlab": "matlab", "segy": "segy"}
 
@@ -129,6 +131,11 @@ def assemble(lookup: Lookup, values: np.ndarray, family: str, mapping: dict[str,
     def per_trace(fld, hit, convert=True):
         key, vals, unit, defaulted = hit
         arr = np.asarray(vals, dtype=np.float64)
+        if arr.ndim == 0 and fld in _PER_TRACE and n > 1:
+            raise ObservedDataError(
+                f"{lookup.source}: {key} ({fld}) is a single value; expected a column with one value per trace ({n}): "
+                f"name it with --map {fld}=NAME"
+            )
         if arr.ndim == 0:
             arr = np.full(n, float(arr))
         arr = arr.ravel()
@@ -158,6 +165,9 @@ def assemble(lookup: Lookup, values: np.ndarray, family: str, mapping: dict[str,
             lat, alt = radius_to_height(lat, lon, radius, body, lookup.source)
             notes.append("alt = distance from the body's centre - the reference surface (lat read as planetocentric)")
         hit_t = find("time", required=False)
+        if hit_t is not None and np.ndim(hit_t[1]) == 0 and n > 1 and "time" not in mapping:
+            notes.append(f"time <- {hit_t[0]} not used: a single value, not one per trace")
+            hit_t = None
         if hit_t is not None:
             t = per_trace("time", hit_t)
             if np.all(np.diff(t) > 0):
