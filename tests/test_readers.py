@@ -176,13 +176,15 @@ def test_pds4_product_with_radius_and_mapped_columns(files, tmp_path):
     assert not (tmp_path / "cmp2").exists() or not any((tmp_path / "cmp2").iterdir())
 
 
-def test_pds3_table_with_one_echo_per_row_matches_the_array(files, tmp_path):
+@pytest.mark.parametrize("west", [False, True])
+def test_pds3_table_with_one_echo_per_row_matches_the_array(files, tmp_path, west):
     """A PDS3 binary TABLE, one record per trace: latitude, longitude, altitude (m) and the echo as
-    a column of ITEMS (MSB reals), the window start a keyword in seconds; read as the array written."""
+    a column of ITEMS (MSB reals), the window start a keyword in seconds; read as the array written.
+    With POSITIVE_LONGITUDE_DIRECTION = WEST the stored longitudes are west-positive (negated)."""
     amp = files["amplitude"][:, :64].astype(np.float64)
     t = track_arrays(files)
     rec = np.zeros(NTRACE, dtype=[("lat", ">f8"), ("lon", ">f8"), ("alt", ">f8"), ("echo", ">f4", (64,))])
-    rec["lat"], rec["lon"], rec["alt"], rec["echo"] = t["lat"], t["lon"], t["alt"], amp
+    rec["lat"], rec["lon"], rec["alt"], rec["echo"] = t["lat"], -t["lon"] if west else t["lon"], t["alt"], amp
     rec.tofile(tmp_path / "ECHOES.DAT")
     cols = "".join(
         f"  OBJECT = COLUMN\r\n    NAME = {n}\r\n    DATA_TYPE = IEEE_REAL\r\n    START_BYTE = {s}\r\n"
@@ -193,13 +195,16 @@ def test_pds3_table_with_one_echo_per_row_matches_the_array(files, tmp_path):
     (tmp_path / "ECHOES.LBL").write_text(
         f"PDS_VERSION_ID = PDS3\r\nRECORD_TYPE = FIXED_LENGTH\r\nRECORD_BYTES = {rec.itemsize}\r\nFILE_RECORDS = {NTRACE}\r\n"
         f"^ECHO_TABLE = \"ECHOES.DAT\"\r\nSAMPLE_INTERVAL = {DT!r} <S>\r\nWINDOW_START = {files['start']!r}\r\n"
+        + ("POSITIVE_LONGITUDE_DIRECTION = WEST\r\n" if west else "") +
         f"OBJECT = ECHO_TABLE\r\n  INTERCHANGE_FORMAT = BINARY\r\n  ROWS = {NTRACE}\r\n  COLUMNS = 4\r\n"
         f"  ROW_BYTES = {rec.itemsize}\r\n{cols}END_OBJECT = ECHO_TABLE\r\nEND\r\n"
     )
     obs = load_observed(tmp_path / "ECHOES.LBL", fmt=ObservedFormat(values="amplitude"))
     np.testing.assert_allclose(obs.power, amp.astype(np.float32).astype(np.float64) ** 2, rtol=1e-7)
     np.testing.assert_array_equal(obs.track.lat_deg, t["lat"])
+    np.testing.assert_array_equal(obs.track.lon_deg, t["lon"])
     assert any("window_start <- WINDOW_START (no unit given: read as s)" in n for n in obs.notes)
+    assert any("west-positive" in n for n in obs.notes) == west
 
 
 def write_mat73(path, variables):

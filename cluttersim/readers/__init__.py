@@ -42,6 +42,9 @@ class Lookup:
 
     source: str
     entries: dict = field(default_factory=dict)
+    #: the product declares west-positive longitudes (PDS3 POSITIVE_LONGITUDE_DIRECTION = WEST,
+    #: PDS4 longitude_direction "Positive West"): they are negated to east-positive
+    west_longitudes: bool = False
 
     def add(self, name: str, values, unit=None) -> None:
         self.entries.setdefault(str(name), (values, unit))
@@ -152,6 +155,9 @@ def assemble(lookup: Lookup, values: np.ndarray, family: str, mapping: dict[str,
     if not track_given:
         lat = per_trace("lat", find("lat"))
         lon = per_trace("lon", find("lon"))
+        if lookup.west_longitudes and not ("lon" in mapping and mapping["lon"].unit):  # a given unit decides
+            lon = -lon
+            notes.append("lon: the label declares west-positive longitudes; negated to east-positive")
         use_radius = "radius" in mapping and "alt" not in mapping
         hit_alt = None if use_radius else find("alt", required=False)
         if hit_alt is not None:

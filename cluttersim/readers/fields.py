@@ -15,7 +15,9 @@ field              meaning                                             default u
                    column, a MATLAB variable)
 ``lat``            antenna latitude (geodetic; planetocentric with     deg
                    ``radius``)
-``lon``            antenna longitude, east-positive                    deg
+``lon``            antenna longitude, east-positive (``:deg_west`` for    deg
+                   west-positive values; PDS labels that declare
+                   west-positive longitudes are negated)
 ``alt``            antenna height above the body's reference surface   m
 ``radius``         or: antenna distance from the body's centre         m
 ``time``           time of each trace (any epoch)                      s
@@ -45,7 +47,7 @@ FIELD_KINDS = {
 
 #: Units by kind: name (lower case) → factor to the SI unit (deg for angles, samples for shifts).
 UNITS = {
-    "angle": {"deg": 1.0, "degree": 1.0, "degrees": 1.0, "rad": 180.0 / math.pi, "radian": 180.0 / math.pi,
+    "angle": {"deg": 1.0, "degree": 1.0, "degrees": 1.0, "deg_west": -1.0, "degrees_west": -1.0, "rad": 180.0 / math.pi, "radian": 180.0 / math.pi,
               "radians": 180.0 / math.pi, "arcsec": 1.0 / 3600.0},
     "length": {"m": 1.0, "meter": 1.0, "meters": 1.0, "metre": 1.0, "metres": 1.0, "km": 1e3, "kilometer": 1e3,
                "kilometers": 1e3, "kilometre": 1e3, "kilometres": 1e3, "ft": 0.3048, "feet": 0.3048, "foot": 0.3048},

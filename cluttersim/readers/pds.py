@@ -152,8 +152,13 @@ def _fill(lookup: Lookup, path: Path, file_format: str, data, objects: dict) -> 
                 lookup.add(str(col), values.astype(np.float64), units.get(str(col)))
     if data.standard == "PDS3":
         _pds3_keywords(data.metadata, lookup)
+        direction = data.metaget("POSITIVE_LONGITUDE_DIRECTION")
     else:
         _pds4_units_and_keywords(root, lookup)
+        direction = next((el.text for el in root.iter() if _local(el.tag) == "longitude_direction"), None) \
+            if root is not None else None  # fmt: skip
+    if direction is not None and "west" in str(direction).lower():
+        lookup.west_longitudes = True  # the label says longitudes count westward
 
 
 def read_pds(path, file_format: str, mapping: dict, *, geometry=None, axis_order=None):
