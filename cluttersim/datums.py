@@ -198,3 +198,16 @@ def track_in_dem_datum(track, dem, track_datum: HeightDatum | None, dem_datum: H
     note = (f"track heights moved from {track_datum.name} to the DEM's {dem_datum.name}{assumed}: "
             f"{np.min(shift):+.2f} to {np.max(shift):+.2f} m")  # fmt: skip
     return replace(track, alt_m=track.alt_m + shift), note
+
+
+#: radargram attribute recording a height unit declared for the run's DEM (metres per unit)
+HEIGHT_UNIT_ATTR = "dem_height_unit_m"
+
+
+def with_recorded_height_unit(src, attrs):
+    """The DEM source with the height unit a finished run recorded (``simulate --dem-height-unit``),
+    so that reading the run's DEM again gives the heights it was simulated with."""
+    from dataclasses import replace
+
+    unit = attrs.get(HEIGHT_UNIT_ATTR)
+    return src if unit is None else replace(src, height_unit_m=float(unit))

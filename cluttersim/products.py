@@ -70,6 +70,10 @@ def simulate_to_dir(
     ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
                   nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
                   max_memory_bytes=max_memory_bytes)  # fmt: skip
+    if src.height_unit_m != 1.0:  # so that `sources` and `report` read the DEM's heights as simulated
+        from .datums import HEIGHT_UNIT_ATTR
+
+        ds.attrs[HEIGHT_UNIT_ATTR] = src.height_unit_m
     write_run(ds, src, paths, permittivity=permittivity)
     return paths
 

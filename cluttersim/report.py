@@ -811,6 +811,7 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
     max_columns, max_rows : int
         Size of the embedded pointing grid before samples are grouped in blocks.
     """
+    from .datums import with_recorded_height_unit
     from .dem import DemSource
 
     if not (isinstance(permittivity, (int, float)) and math.isfinite(permittivity) and permittivity >= 1):
@@ -826,6 +827,7 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
     radius = ds.attrs.get("body_radius_given_m")
     try:
         src = DemSource.open(dem_path, body_radius_m=float(radius) if radius is not None else None)
+        src = with_recorded_height_unit(src, ds.attrs)
     except DemError as exc:
         hint = "" if dem else " (the DEM recorded in the run; give its new place with --dem)"
         raise DemError(f"{exc}{hint}") from None

@@ -23,6 +23,7 @@ from . import kernels
 from .antenna import trace_frames
 from .attribution import right_unit_vectors
 from .config import SimulationConfig
+from .datums import with_recorded_height_unit
 from .dem import DemSource
 from .errors import ClutterSimError, ConfigError
 from .radar import apparent_depth_m, delay_after_surface_s
@@ -62,6 +63,7 @@ def load_run(run_dir, dem=None, band: str | None = None) -> Run:
         raise ClutterSimError(f"{run_dir}/radargram.nc: attribute {exc} missing; expected a cluttersim run") from None
     radius = ds.attrs.get("body_radius_given_m")
     src = DemSource.open(dem_path, body_radius_m=float(radius) if radius is not None else None)
+    src = with_recorded_height_unit(src, ds.attrs)
     time_s = ds["time"].values if "time" in ds else None
     track = Track(ds["lat"].values, ds["lon"].values, ds["alt"].values, time_s, source=f"{run_dir}/radargram.nc")
     with warnings.catch_warnings():
