@@ -62,19 +62,25 @@ def _p1(q, length):
 
 
 @numba.njit(inline="always", **_JIT)
-def _deposit_ramp(dd, base, x, delta_m, q, s):
+def _deposit_ramp(dd, base, x, delta_m, q, s, p0d, p1d, ed):
     """s·max(r − c, 0)·e^{−jqr} cell-integrated, demodulated per cell, as second differences
-    into ``dd`` (index ``base`` is cell 0); ``x`` = c in cells from the grid start."""
+    into ``dd`` (index ``base`` is cell 0); ``x`` = c in cells from the grid start. ``p0d``,
+    ``p1d``: :func:`_p0`, :func:`_p1` of a whole cell; ``ed`` = e^{−jqδ}."""
     mc = math.floor(x)
     yc = (x - mc) * delta_m
     rest = delta_m - yc
-    v0 = s * complex(math.cos(q * yc), -math.sin(q * yc)) * _p1(q, rest)
-    p0 = _p0(q, delta_m)
-    v1 = s * (rest * p0 + _p1(q, delta_m))
+    ey = complex(math.cos(q * yc), -math.sin(q * yc))
+    xr = q * rest
+    if abs(xr) < 2e-2:
+        p1r = _p1(q, rest)
+    else:  # e^{−jq·rest} = e^{−jqδ} e^{+jq·yc}: one sine and cosine per ramp
+        p1r = (ed * ey.conjugate() * complex(1.0, xr) - 1.0) / (q * q)
+    v0 = s * ey * p1r
+    v1 = s * (rest * p0d + p1d)
     i = base + mc
     dd[i] += v0
     dd[i + 1] += v1 - 2.0 * v0
-    dd[i + 2] += v0 - v1 + s * delta_m * p0
+    dd[i + 2] += v0 - v1 + s * delta_m * p0d
 
 
 @numba.njit(inline="always", **_JIT)
@@ -103,9 +109,10 @@ def _deposit_point(dd, base, x, delta_m, q, s):
 
 
 @numba.njit(inline="always", **_JIT)
-def deposit_trapezoid(dd, base, x, wa_cells, wb_cells, delta_m, q, amp):
+def deposit_trapezoid(dd, base, x, wa_cells, wb_cells, delta_m, q, amp, p0d, p1d, ed):
     """A unit-area trapezoid (the convolution of boxes of widths ``wa_cells``, ``wb_cells``,
-    centred at ``x``, all in cells) times ``amp`` e^{−jqr}, into the second-difference row."""
+    centred at ``x``, all in cells) times ``amp`` e^{−jqr}, into the second-difference row
+    (``p0d``, ``p1d``, ``ed``: see :func:`_deposit_ramp`)."""
     wa = max(wa_cells, wb_cells)
     wb = min(wa_cells, wb_cells)
     if wa < NARROW_CELL_FRACTION:
@@ -118,10 +125,10 @@ def deposit_trapezoid(dd, base, x, wa_cells, wb_cells, delta_m, q, amp):
         s = amp / (wa * wb * delta_m * delta_m)
         hs = 0.5 * (wa + wb)
         hd = 0.5 * (wa - wb)
-        _deposit_ramp(dd, base, x - hs, delta_m, q, s)
-        _deposit_ramp(dd, base, x - hd, delta_m, q, -s)
-        _deposit_ramp(dd, base, x + hd, delta_m, q, -s)
-        _deposit_ramp(dd, base, x + hs, delta_m, q, s)
+        _deposit_ramp(dd, base, x - hs, delta_m, q, s, p0d, p1d, ed)
+        _deposit_ramp(dd, base, x - hd, delta_m, q, -s, p0d, p1d, ed)
+        _deposit_ramp(dd, base, x + hd, delta_m, q, -s, p0d, p1d, ed)
+        _deposit_ramp(dd, base, x + hs, delta_m, q, s, p0d, p1d, ed)
 
 
 @numba.njit(parallel=True, **_JIT)
@@ -160,6 +167,9 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
     shadowing = shadow_heights.shape[0] > 1
     grid_nx = shadow_heights.shape[1]
     margin = int(2.0 * max_extent_m * inv_delta) + 8
+    p0d = _p0(q, delta_m)
+    p1d = _p1(q, delta_m)
+    ed = complex(math.cos(q * delta_m), -math.sin(q * delta_m))
     counts = np.zeros(nt, dtype=np.int64)
     for t in numba.prange(nt):
         r_lo = bin0_s[t] * half_c
@@ -248,7 +258,8 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
                         wa = abs(ax * ux + ay * uy + az * uz - ta * un) * inv_n * inv_delta
                         wb = abs(bx * ux + by * uy + bz * uz - tb * un) * inv_n * inv_delta
                         x = (rs - r_lo) * inv_delta
-                        deposit_trapezoid(dd, base, x, wa, wb, delta_m, q, amp_f * (cos_s * a_sub * inv_rs * inv_rs))
+                        deposit_trapezoid(dd, base, x, wa, wb, delta_m, q, amp_f * (cos_s * a_sub * inv_rs * inv_rs),
+                                          p0d, p1d, ed)
                         n_eval += 1
         # two running sums give the demodulated cell integrals; the carrier of each cell restores the phase
         for side in range(nside):
