@@ -610,6 +610,9 @@ def coherent_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
 
 #: Delay cells per sample of the specular term's grid (odd: one cell is centred on each sample).
 SPECULAR_CELLS_PER_SAMPLE = 9
+#: Traces per call of the specular kernel (its grid, 3 sides × 9 cells × samples of complex128 per
+#: trace, is ~1 MB per trace at 2048 samples).
+SPECULAR_TRACES_PER_CALL = 16
 
 
 def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, right_unit=None, strip_half_m=None,
@@ -634,24 +637,28 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
     k = SPECULAR_CELLS_PER_SAMPLE
     gamma = surface.reflection_coefficient() if reflection_coefficient is None else reflection_coefficient
     nside = 1 if right_unit is None else 3
-    cells = np.zeros((n, nside, nbins * k), dtype=np.complex128)
     if right_unit is None:
         right_unit, strip_half_m = np.zeros((n, 3)), np.zeros(n)
+    traces = np.arange(n) if traces is None else np.asarray(traces)
     amp = physical_optics.field_constant(radar.transmit_power_w, radar.gain_linear, radar.wavelength_m, gamma)
-    n_eval = kernels_coherent.accumulate_specular(
-        np.ascontiguousarray(ant_m, dtype=np.float64), np.ascontiguousarray(right_unit, dtype=np.float64),
-        np.ascontiguousarray(strip_half_m, dtype=np.float64), np.ascontiguousarray(bin0_s, dtype=np.float64),
-        radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,
-        f.e_row_m, f.area_m2, 2.0 * math.pi / radar.wavelength_m, complex(amp), float(surface.rms_height_m or 0.0),
-        1.0 / scene.src.body.mean_radius_m,
-        np.ascontiguousarray(frames, dtype=np.float64), config.kernel_weighting(), *shadow_inputs(scene, traces),
-        float(f.tile_extent_m.max(initial=0.0)), cells,
-    )  # fmt: skip
     offsets, _ = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
     half = int(offsets[-1]) * k
     h = compressed_pulse_amplitude(np.arange(-half, half + 1) * radar.sample_interval_s / k, radar.bandwidth_hz,
                                    radar.range_window)  # fmt: skip
-    signal = fftconvolve(cells, h[None, None, :], mode="same", axes=2)[:, :, (k - 1) // 2 :: k][:, :, :nbins]
+    signal = np.empty((n, nside, nbins), dtype=np.complex128)
+    n_eval = 0
+    for a in range(0, n, SPECULAR_TRACES_PER_CALL):  # the fine grid is 9× a trace: a few traces at a time
+        b = min(a + SPECULAR_TRACES_PER_CALL, n)
+        cells = np.zeros((b - a, nside, nbins * k), dtype=np.complex128)
+        n_eval += kernels_coherent.accumulate_specular(
+            np.ascontiguousarray(ant_m[a:b], dtype=np.float64), np.ascontiguousarray(right_unit[a:b], dtype=np.float64),
+            np.ascontiguousarray(strip_half_m[a:b], dtype=np.float64), np.ascontiguousarray(bin0_s[a:b], dtype=np.float64),
+            radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,
+            f.e_row_m, f.area_m2, 2.0 * math.pi / radar.wavelength_m, complex(amp), float(surface.rms_height_m or 0.0),
+            1.0 / scene.src.body.mean_radius_m, np.ascontiguousarray(frames[a:b], dtype=np.float64),
+            config.kernel_weighting(), *shadow_inputs(scene, traces[a:b]), float(f.tile_extent_m.max(initial=0.0)), cells,
+        )  # fmt: skip
+        signal[a:b] = fftconvolve(cells, h[None, None, :], mode="same", axes=2)[:, :, (k - 1) // 2 :: k][:, :, :nbins]
     return signal, n_eval
 
 
