@@ -188,9 +188,12 @@ def test_smooth_flat_sphere_gives_the_mirror_power(tmp_path, alt_m, cell_over_rf
     """Peak = Pt G² λ² ρ / ((4π)² (2h)² (1 + h/Rp)²) (image method with the convex mirror's
     divergence; Friis 1946, Brown 1977) within 0.5 dB, for cells of ¼ and 2 Fresnel radii:
     +0.07 dB measured, the band-limited pulse's own next-order term; the same for both."""
-    db, peak, _ = flat_sphere_run(tmp_path, alt_m, cell_over_rf)
+    db, peak, ds = flat_sphere_run(tmp_path, alt_m, cell_over_rf)
     assert np.all(np.abs(db) < 0.5), db
     assert np.all(peak == 32)  # at the nadir delay 2h/c
+    # the source record: a mirror echo from the nadir strip, neither left nor right
+    sides = ds["left_fraction"].values[:, 32] + ds["right_fraction"].values[:, 32]
+    assert np.all(sides < 0.05), sides
 
 
 def test_mirror_power_does_not_depend_on_the_sample_interval(tmp_path):
@@ -207,11 +210,17 @@ def test_roughness_of_half_a_wavelength_removes_the_specular_echo(tmp_path):
 
 
 def test_without_permittivity_runs_are_unchanged(tmp_path):
-    """No [surface] permittivity: no specular term, bit for bit the diffuse-only run."""
-    _, _, with_spec = flat_sphere_run(tmp_path, 300e3, 0.5, law=("hagfors", {"C": 400.0, "rho": 0.08}))
-    _, _, without = flat_sphere_run(tmp_path, 300e3, 0.5, permittivity=None, law=("hagfors", {"C": 400.0, "rho": 0.08}))
-    cfg = SimulationConfig.from_dict({"radar": {"samples": 96}, "surface": {"law": "hagfors", "C": 400.0, "rho": 0.08}})
-    assert cfg.surface.permittivity is None and not cfg.surface.specular
+    """No [surface] permittivity: no specular term. A run whose specular term is switched off by its
+    roughness (σh = 1 km: every facet skipped, the term is exactly 0) is bit for bit the run without
+    the key, power and source record; with σh = 0 the mirror echo stands out."""
+    hagfors = ("hagfors", {"C": 400.0, "rho": 0.08})
+    _, _, with_spec = flat_sphere_run(tmp_path, 300e3, 0.5, law=hagfors)
+    _, _, off = flat_sphere_run(tmp_path, 300e3, 0.5, law=hagfors, rms_height_m=1000.0)
+    _, _, without = flat_sphere_run(tmp_path, 300e3, 0.5, permittivity=None, law=hagfors)
+    for name in ("power", "left_fraction", "right_fraction", "source_lat"):
+        np.testing.assert_array_equal(off[name].values, without[name].values)
+    assert "surface_permittivity" not in without.attrs and without.attrs["surface_law"] == "hagfors"
+    assert with_spec.attrs["surface_permittivity"] == 3.15
     assert with_spec["power"].values.max() > 3 * without["power"].values.max()
 
 
