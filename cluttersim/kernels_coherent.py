@@ -215,8 +215,8 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
                     cell = facet_cell[f]
                     rr = cell // grid_nx
                     cc = cell - rr * grid_nx
-                    if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
-                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max):  # fmt: skip
+                    if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc], nadir_rc[t, 0],
+                                           nadir_rc[t, 1], ant_h[t], h_max, nadir_rc[t, 2], nadir_rc[t, 3]):  # fmt: skip
                         continue
                 amp_f = amp_const * (rough * math.sqrt(w))
                 base = margin
