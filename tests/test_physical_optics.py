@@ -12,6 +12,7 @@ from scenes import MARS_RADIUS_M, UTM, UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, 
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim import kernels_coherent
+from cluttersim.antenna import AntennaConfig
 from cluttersim.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
 from cluttersim.physical_optics import (
@@ -158,7 +159,8 @@ def test_surface_keys_are_checked():
 
 
 def flat_sphere_run(tmp_path, alt_m, cell_over_rf, *, permittivity=3.15, rms_height_m=None, mode="incoherent",
-                    random_phase=True, law=("constant", {"sigma0": 1e-12}), sample_interval_s=DT_S):  # fmt: skip
+                    random_phase=True, law=("constant", {"sigma0": 1e-12}), sample_interval_s=DT_S, antenna=None,
+                    shadowing=False):  # fmt: skip
     """Peak power (dB) over the mirror power of a smooth flat Mars-sized sphere, per trace."""
     samples = 96
     radar = RadarConfig(samples=samples, sample_interval_s=sample_interval_s,
@@ -172,7 +174,8 @@ def flat_sphere_run(tmp_path, alt_m, cell_over_rf, *, permittivity=3.15, rms_hei
     # two traces a fifth of a cell apart: the nadir falls at different places within its facet
     track = great_circle_track(Body.sphere(MARS_RADIUS_M), -0.1 * res_deg, 0.0, 0.1 * res_deg, 0.0, alt_m, cell_m / 5)
     surface = SurfaceConfig(law[0], law[1], permittivity=permittivity, rms_height_m=rms_height_m)
-    cfg = SimulationConfig(radar=radar, surface=surface, processing=ProcessingConfig(mode=mode, random_phase=random_phase))
+    cfg = SimulationConfig(radar=radar, surface=surface, antenna=antenna or AntennaConfig(),
+                           processing=ProcessingConfig(mode=mode, random_phase=random_phase, shadowing=shadowing))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # hole-free; nothing to warn about but the DEM's edge
         ds = simulate(dem, track, cfg, sources=mode == "incoherent")
@@ -200,6 +203,17 @@ def test_mirror_power_does_not_depend_on_the_sample_interval(tmp_path):
     a, _, _ = flat_sphere_run(tmp_path, 300e3, 0.5, sample_interval_s=DT_S)
     b, _, _ = flat_sphere_run(tmp_path, 300e3, 0.5, sample_interval_s=12.5e-9)
     assert np.all(np.abs(a - b) < 0.05), (a, b)
+
+
+def test_dipole_gain_and_shadowing_act_on_the_specular_field(tmp_path):
+    """A horizontal half-wave dipole multiplies the nadir mirror echo by its peak directivity squared,
+    D0² = 1.641² (+4.30 dB; Balanis, *Antenna Theory*, §4.6); shadowing hides nothing on a smooth
+    sphere (the same power, bit for bit)."""
+    base, _, plain = flat_sphere_run(tmp_path, 300e3, 0.5)
+    dipole, _, _ = flat_sphere_run(tmp_path, 300e3, 0.5, antenna=AntennaConfig(pattern="dipole", axis="cross-track"))
+    np.testing.assert_allclose(dipole - base, 20 * math.log10(1.641), atol=0.02)
+    _, _, shadowed = flat_sphere_run(tmp_path, 300e3, 0.5, shadowing=True)
+    np.testing.assert_array_equal(shadowed["power"].values, plain["power"].values)
 
 
 def test_roughness_of_half_a_wavelength_removes_the_specular_echo(tmp_path):
