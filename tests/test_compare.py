@@ -24,13 +24,11 @@ from cluttersim.compare import (
     compare,
     compare_to_dir,
     continuity_fraction,
-    detect_unexplained,
     match_traces,
-    noise_floor_db,
-    parabolic_peak_offset,
-    resample_bin_mean_power,
     body_of,
 )
+from cluttersim.compare_detect import detect_unexplained, parabolic_peak_offset
+from cluttersim.compare_grid import resample_bin_mean_power
 from cluttersim.observed import ObservedRadargram
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 from test_attribution import AIRBORNE, config
