@@ -62,6 +62,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import fft as sfft
+from scipy.ndimage import median_filter
 from tqdm.auto import tqdm
 
 from .compare_grid import cubic_convolution
@@ -305,7 +306,9 @@ def fine_costs(problem: _FineProblem, rows, tau, variance=None) -> tuple[np.ndar
         alpha = np.where(negative, 0.0, alpha)
         beta = np.where(negative, so / s, beta)
         cost = soo - 2 * alpha * smo - 2 * beta * so + alpha * alpha * smm + 2 * alpha * beta * sm + beta * beta * s
-    return np.maximum(cost, 0.0), alpha, beta
+    # a window the observed data do not cover says nothing: NaN, never a perfect fit of nothing
+    covered = np.where(good, weight, 0.0).sum(axis=2) >= 0.95 * weight.sum(axis=2)
+    return np.where(covered, np.maximum(cost, 0.0), np.nan), alpha, beta
 
 
 def parabolic_minimum(cost, grid) -> tuple[np.ndarray, np.ndarray]:
@@ -338,12 +341,14 @@ def jackknife_minimum(cost_rows, grid, groups) -> tuple[float, float]:
     ``cost_rows`` (r, g): one row per trace; ``groups`` (r,) group label per row.
     σ² = (G − 1)/G Σ_g (τ₍g₎ − τ̄)², τ₍g₎ the minimum without group g.
     """
-    total = np.nansum(cost_rows, axis=0)
+    finite = np.where(np.isfinite(cost_rows), cost_rows, 0.0)
+    blocked = ~np.isfinite(cost_rows).all(axis=0) & np.isinf(cost_rows).any(axis=0)  # outside the search
+    total = np.where(blocked, np.inf, finite.sum(axis=0))
     tau, _ = parabolic_minimum(total, grid)
     labels = np.unique(groups)
     if labels.size < 2:
         return float(tau), math.nan
-    partial = np.stack([total - np.nansum(cost_rows[groups == lab], axis=0) for lab in labels])
+    partial = np.stack([np.where(blocked, np.inf, total - finite[groups == lab].sum(axis=0)) for lab in labels])
     tau_g, _ = parabolic_minimum(partial, grid)
     g = labels.size
     return float(tau), float(math.sqrt((g - 1) / g * np.sum((tau_g - tau_g.mean()) ** 2)))
@@ -516,14 +521,18 @@ def estimate_delay_offset(
                                     zero_before)  # fmt: skip
             local = np.arange(rows.size)
             cost, alpha, beta = _costs_on_grid(problem, local, grid)
-            tau_hat, edge = parabolic_minimum(np.nansum(cost, axis=0), grid)
+            covered = np.isfinite(cost).all(axis=1)  # the same traces at every offset tried
+            if not covered.any():
+                raise ObservedDataError("no matched trace has observed data over its whole simulated surface echo "
+                                        "near the offset found; check the observed window start and length")
+            tau_hat, edge = parabolic_minimum(cost[covered].sum(axis=0), grid)
             if not edge:
                 break
             centre = float(tau_hat)
         bar.update()
         groups = np.minimum((np.arange(rows.size) * min(JACKKNIFE_GROUPS, rows.size)) // rows.size,
                             JACKKNIFE_GROUPS - 1)  # fmt: skip
-        tau_hat, sigma = jackknife_minimum(cost, grid, groups)
+        tau_hat, sigma = jackknife_minimum(cost[covered], grid, groups[covered])
         if rows.size < 3:
             sigma = math.nan
         own, _ = parabolic_minimum(cost, grid)
@@ -582,18 +591,35 @@ def _per_trace(obs, obs_x0, obs_step, sim, windows, coarse, lags, window_traces,
     lo = np.clip(np.arange(n) - half, 0, n)
     hi = np.clip(np.arange(n) + half + 1, 0, n)
     start = lags[np.argmin(csum[hi] - csum[lo], axis=1)].astype(np.float64)
+    # a few windows can lock onto another echo (a strong off-nadir ridge): the starts are smoothed robustly
+    start = median_filter(start, size=min(n, max(3 * (2 * half + 1), 11)), mode="nearest")
     grid = np.arange(start.min() - FINE_HALF_WIDTH_SAMPLES - 0.5, start.max() + FINE_HALF_WIDTH_SAMPLES + 0.5 + 1e-9,
                      FINE_STEP_SAMPLES)  # fmt: skip
     problem = _fine_problem(obs, obs_x0, obs_step, sim, windows, grid[0], grid[-1], zero_before)
     rows = np.arange(n)
     cost, alpha, beta = _costs_on_grid(problem, rows, grid)
-    ccum = np.concatenate([np.zeros((1, grid.size)), np.cumsum(np.nan_to_num(cost), axis=0)])
-    tau, _ = parabolic_minimum(ccum[hi] - ccum[lo], grid)
+    # each window searches ±FINE_HALF_WIDTH about its own start only: far from the surface echo a window of
+    # noise alone fits as well as the echo does, so the grid's far ends must not compete
+    half_points = int(round(FINE_HALF_WIDTH_SAMPLES / FINE_STEP_SAMPLES))
+    centre = np.clip(np.rint((start - grid[0]) / FINE_STEP_SAMPLES).astype(np.int64), half_points,
+                     grid.size - 1 - half_points)  # fmt: skip
+    tau = np.full(n, np.nan)
     sigma = np.full(n, np.nan)
-    for i in range(n):
-        win = cost[lo[i]:hi[i]]
-        if win.shape[0] >= 3:
-            sigma[i] = jackknife_minimum(win, grid, np.arange(win.shape[0]))[1]
-    j = np.clip(np.rint((tau - grid[0]) / FINE_STEP_SAMPLES).astype(np.int64), 0, grid.size - 1)
-    scale = np.where(alpha[rows, j] > 0, alpha[rows, j], np.nan)
-    return tau, sigma, scale, _correlation(problem, rows, tau)
+    for final in (False, False, True):  # re-centre each window's search on what the previous pass found
+        for i in range(n):
+            sel = slice(centre[i] - half_points, centre[i] + half_points + 1)
+            block = cost[lo[i]:hi[i], sel]
+            block = block[np.isfinite(block).all(axis=1)]  # traces the observed data cover throughout
+            if block.shape[0] == 0:
+                tau[i] = np.nan
+                continue
+            if final and block.shape[0] >= 3:
+                tau[i], sigma[i] = jackknife_minimum(block, grid[sel], np.arange(block.shape[0]))
+            else:
+                tau[i] = parabolic_minimum(block.sum(axis=0), grid[sel])[0]
+        ok = np.isfinite(tau)
+        centre = np.where(ok, np.clip(np.rint((np.nan_to_num(tau) - grid[0]) / FINE_STEP_SAMPLES).astype(np.int64),
+                                      half_points, grid.size - 1 - half_points), centre)  # fmt: skip
+    j = np.clip(np.rint((np.nan_to_num(tau) - grid[0]) / FINE_STEP_SAMPLES).astype(np.int64), 0, grid.size - 1)
+    scale = np.where(np.isfinite(tau) & (alpha[rows, j] > 0), alpha[rows, j], np.nan)
+    return tau, sigma, scale, _correlation(problem, rows, np.nan_to_num(tau))
