@@ -70,6 +70,8 @@ from .errors import ObservedDataError
 
 #: σ of a normal distribution per median absolute deviation (Rousseeuw & Croux 1993).
 MAD_TO_SIGMA = 1.4826
+#: Dynamic range of the coarse search's decibel values (below each trace's peak), dB.
+LOG_RANGE_DB = 30.0
 #: Step of the fine grid of offsets, samples of the simulated grid.
 FINE_STEP_SAMPLES = 0.05
 #: Half width of the fine grid about the coarse offset, samples.
@@ -152,7 +154,9 @@ def coarse_lag_cost(obs_ext, pad_left: int, sim_power, lo, hi, max_lag: int, edg
 
     For trace i and lag ℓ, with m_k the simulated power (0 before its first
     sample) for k in [lo_i, hi_i] and o the observed power on the simulated
-    grid (index ``pad_left`` + k, NaN replaced by the trace's median), the misfit
+    grid (index ``pad_left`` + k, NaN replaced by the trace's median), both in
+    decibels and clipped :data:`LOG_RANGE_DB` below their peak (the observed
+    also at its 20th percentile, about the noise), the misfit
     of o_{k+ℓ} ≈ a m_k + b (a ≥ 0, b free) is
 
         RSS(ℓ) = V_o(ℓ) − C(ℓ)² / V_m   (C > 0),   V_o(ℓ) otherwise,
@@ -206,6 +210,14 @@ def coarse_lag_cost(obs_ext, pad_left: int, sim_power, lo, hi, max_lag: int, edg
         has = np.isfinite(seg).any(axis=1)
         observed_here = np.isfinite(seg).astype(np.float64)
         seg = np.where(np.isfinite(seg), seg, med[:, None])
+        # in decibels, clipped LOG_RANGE_DB below each peak: speckle becomes an additive scatter of ~5.6 dB, while
+        # an echo where the model has none (a surface echo in the lead-in of a later reflector) costs tens of dB
+        t_peak = tmpl.max(axis=1, keepdims=True)
+        o_floor = np.maximum(np.nanpercentile(np.where(seg > 0, seg, np.nan), 20, axis=1, keepdims=True),
+                             seg.max(axis=1, keepdims=True) * 10 ** (-LOG_RANGE_DB / 10))  # fmt: skip
+        o_floor = np.where(np.isfinite(o_floor) & (o_floor > 0), o_floor, 1e-300)
+        tmpl = np.where(in_win, 10 * np.log10(np.maximum(tmpl, np.maximum(t_peak, 1e-300) * 10 ** (-LOG_RANGE_DB / 10))), 0.0)
+        seg = 10 * np.log10(np.maximum(seg, o_floor))
         echo_part = (in_win & (j >= (edge[rows] - lo[rows])[:, None])).astype(np.float64)
 
         def corr(t, s):

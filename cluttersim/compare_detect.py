@@ -329,9 +329,13 @@ def detect_unexplained(
         s_r, k_r = integrate_along_track(ratio, shifts, half)
         s_n, k_n = integrate_along_track(ratio_noise, shifts, half)
         s_d, _ = integrate_along_track(np.where(np.isfinite(ratio), dof, np.nan), shifts, half)
+        # the K traces' noise floors are running means over overlapping windows of traces: their average pools
+        # more noise samples than one floor does (effective size (Σw)²/Σw² of the combined trace weights)
+        w = np.convolve(np.ones(NOISE_WINDOW_TRACES), np.ones(2 * half + 1))
+        pooled = (w.sum() ** 2 / (w**2).sum()) / NOISE_WINDOW_TRACES
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean_r, mean_n, mean_dof = s_r / k_r, s_n / k_n, s_d / k_r
-        dof_noise = noise.n_samples[:, None] * np.ones_like(mean_n)
+            mean_r, mean_n, mean_dof = s_r / k_r, s_n / k_n, pooled * s_d / k_r
+        dof_noise = pooled * noise.n_samples[:, None] * np.ones_like(mean_n)
     else:
         mean_r, mean_n, k_r, k_n, mean_dof = ratio, ratio_noise, np.isfinite(ratio) * 1.0, np.isfinite(ratio_noise) * 1.0, dof
         dof_noise = noise.n_samples[:, None] * np.ones_like(mean_n)

@@ -50,11 +50,12 @@ def shifted_power(sim, shift_samples, start_s, n_samples):
     ws = sim["window_start"].values
     dt = float(sim["delay"].values[1] - sim["delay"].values[0])
     shift = np.broadcast_to(np.asarray(shift_samples, dtype=np.float64), (p.shape[0],))
-    recorded = start_s + np.arange(n_samples) * dt
+    start_s = np.broadcast_to(np.asarray(start_s, dtype=np.float64), (p.shape[0],))
+    recorded = start_s[:, None] + np.arange(n_samples)[None, :] * dt
     out = np.zeros((p.shape[0], n_samples))
     k = np.arange(p.shape[1])
     for i in range(p.shape[0]):
-        true_delay = recorded - shift[i] * dt
+        true_delay = recorded[i] - shift[i] * dt
         spline = CubicSpline(ws[i] + k * dt, p[i])
         inside = (true_delay >= ws[i]) & (true_delay <= ws[i] + k[-1] * dt)
         out[i, inside] = np.clip(spline(true_delay[inside]), 0, None)
@@ -76,8 +77,8 @@ def observe(sim, track, *, shift_samples=0.0, snr_db=30.0, seed=0, speckle=False
             gain_db=GAIN_DB, bandwidth_hz=None) -> Truth:  # fmt: skip
     """An invented observed radargram of ``sim``'s track.
 
-    Recorded on a constant window start :data:`LEAD_SAMPLES` before the
-    earliest simulated window, echoes ``shift_samples`` later than simulated,
+    Recorded on window starts at least :data:`LEAD_SAMPLES` before the
+    simulated ones (on a 100-sample grid), echoes ``shift_samples`` later than simulated,
     noise ``snr_db`` below the surface echo (:func:`surface_peak`), power
     scaled by ``gain_db``. ``reflector(sim, noise_mean) → (delay_s, power)``
     per trace (true frame) adds a steady echo of the compressed-pulse shape.
@@ -85,7 +86,9 @@ def observe(sim, track, *, shift_samples=0.0, snr_db=30.0, seed=0, speckle=False
     rng = np.random.default_rng(seed)
     dt = float(sim["delay"].values[1] - sim["delay"].values[0])
     n = sim.sizes["sample"] + LEAD_SAMPLES + EXTRA_SAMPLES
-    start = float(sim["window_start"].values.min() - LEAD_SAMPLES * dt)
+    # each trace's window starts LEAD_SAMPLES before its simulated one, rounded to 100 samples (a coarse tracker)
+    start = np.round((sim["window_start"].values - LEAD_SAMPLES * dt) / (100 * dt)) * 100 * dt
+    start = np.minimum(start, sim["window_start"].values - LEAD_SAMPLES * dt)
     clutter, recorded = shifted_power(sim, shift_samples, start, n)
     noise_mean = surface_peak(sim) * 10 ** (-snr_db / 10)
     shift = np.broadcast_to(np.asarray(shift_samples, dtype=np.float64), (clutter.shape[0],)).copy()
@@ -94,7 +97,7 @@ def observe(sim, track, *, shift_samples=0.0, snr_db=30.0, seed=0, speckle=False
     if reflector is not None:
         b = bandwidth_hz or bandwidth_of(sim)
         r_delay, r_power = reflector(sim, noise_mean)
-        true_delay = recorded[None, :] - shift[:, None] * dt
+        true_delay = recorded - shift[:, None] * dt
         refl = np.where(np.isfinite(r_delay)[:, None],
                         np.nan_to_num(r_power)[:, None] * hann_pulse_power(true_delay - np.nan_to_num(r_delay)[:, None], b),
                         0.0)  # fmt: skip
@@ -106,7 +109,7 @@ def observe(sim, track, *, shift_samples=0.0, snr_db=30.0, seed=0, speckle=False
     else:
         power = clutter + refl + rng.exponential(noise_mean, clutter.shape)
     obs = ObservedRadargram(power=power * 10 ** (gain_db / 10), sample_interval_s=dt,
-                            window_start_s=np.full(clutter.shape[0], start), track=track, source="invented")  # fmt: skip
+                            window_start_s=start, track=track, source="invented")  # fmt: skip
     return Truth(observed=obs, shift_samples=shift, noise_mean=noise_mean, reflector_delay_s=r_delay, reflector_power=r_power)
 
 
