@@ -23,7 +23,10 @@ Two stages:
    computed with FFTs; the summed, normalised misfit's minimum gives τ₀.
 2. :func:`fine_costs` — a grid of 0.05 sample around τ₀: the least-squares
    misfit Σ w_k (o_k − α S − β)², w a raised-cosine taper at both ends of the
-   fit window so the cost is smooth in τ. Its minimum summed over traces,
+   fit window so the cost is smooth in τ, divided by the window's total sum of
+   squares about its mean (the unexplained fraction 1 − r²: a window moved
+   onto weaker samples does not win by their smaller variance). Its minimum
+   summed over traces,
    refined by a parabola through its three lowest grid values ([4]_), is the
    offset. Ordinary (unweighted) least squares: its estimating equation has
    zero mean whenever the model's mean is right, whatever the noise and
@@ -70,6 +73,9 @@ from .errors import ObservedDataError
 
 #: σ of a normal distribution per median absolute deviation (Rousseeuw & Croux 1993).
 MAD_TO_SIGMA = 1.4826
+#: The fine stage's cost per trace: "unexplained_fraction" (RSS / total sum of squares about the mean, 1 − r²) or
+#: "rss" (the residual sum of squares itself).
+FINE_COST = "unexplained_fraction"
 #: Dynamic range of the coarse search's decibel values (below each trace's peak), dB.
 LOG_RANGE_DB = 30.0
 #: Step of the fine grid of offsets, samples of the simulated grid.
@@ -274,10 +280,10 @@ def _fine_problem(obs_power, obs_x0, obs_step: float, sim_power, windows: FitWin
                         windows=windows, zero_before=zero_before)  # fmt: skip
 
 
-def _model(problem: _FineProblem, rows, tau) -> tuple[np.ndarray, np.ndarray]:
+def _model(problem: _FineProblem, rows, tau, with_echo: bool = False):
     """Simulated power and taper weight at the observed samples of ``rows`` for offsets ``tau`` (g,) or (r, g).
 
-    Returns two arrays (r, g, W).
+    Returns two arrays (r, g, W), and with ``with_echo`` a third: the samples from the leading edge on.
     """
     x0 = problem.x0[rows]
     tau = np.asarray(tau, dtype=np.float64)
@@ -288,6 +294,8 @@ def _model(problem: _FineProblem, rows, tau) -> tuple[np.ndarray, np.ndarray]:
     model = cubic_convolution(sim, x.reshape(r, g * w), before=0.0 if problem.zero_before else np.nan).reshape(r, g, w)
     win = problem.windows
     weight = taper_weight(x, win.lead_start[rows, None, None], win.end[rows, None, None], win.taper)
+    if with_echo:
+        return model, weight, x >= win.edge_start[rows, None, None]
     return model, weight
 
 
@@ -297,7 +305,7 @@ def fine_costs(problem: _FineProblem, rows, tau, variance=None) -> tuple[np.ndar
     Cost = Σ_k c_k (o_k − α m_k − β)², c_k = w_k / V_k (the taper over an
     optional variance per sample; V = 1 if ``variance`` is None). Returns (cost, α, β), each (r, g).
     """
-    model, weight = _model(problem, rows, tau)
+    model, weight, echo = _model(problem, rows, tau, with_echo=True)
     o = problem.obs[rows][:, None, :]
     v = 1.0 if variance is None else variance[:, None, :]
     good = np.isfinite(o) & np.isfinite(model)
@@ -318,8 +326,14 @@ def fine_costs(problem: _FineProblem, rows, tau, variance=None) -> tuple[np.ndar
         alpha = np.where(negative, 0.0, alpha)
         beta = np.where(negative, so / s, beta)
         cost = soo - 2 * alpha * smo - 2 * beta * so + alpha * alpha * smm + 2 * alpha * beta * sm + beta * beta * s
-    # a window the observed data do not cover says nothing: NaN, never a perfect fit of nothing
-    covered = np.where(good, weight, 0.0).sum(axis=2) >= 0.95 * weight.sum(axis=2)
+    # an echo the observed data do not cover says nothing: NaN, never a perfect fit of nothing (missing samples
+    # of the lead-in, where the model is noise alone, only drop out)
+    echo_weight = np.where(echo, weight, 0.0)
+    covered = np.where(good, echo_weight, 0.0).sum(axis=2) >= 0.95 * echo_weight.sum(axis=2)
+    if FINE_COST == "unexplained_fraction":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            tss = soo - so * so / s
+            cost = np.where(tss > 0, np.maximum(cost, 0.0) / tss, 1.0)  # nothing to explain: nothing explained
     return np.where(covered, np.maximum(cost, 0.0), np.nan), alpha, beta
 
 

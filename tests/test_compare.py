@@ -211,7 +211,9 @@ def test_noise_floor_falls_back_to_the_deepest_samples():
     obs[:, :50] += 1e3  # the surface echo fills the start of every window: nothing before it
     floor = noise_floor(obs, np.zeros(obs.shape, dtype=bool))
     assert floor.source == "deepest samples"
-    np.testing.assert_allclose(floor.power, 1.0, rtol=0.1)
+    # the deepest 60 samples of 11-21 traces: relative standard error 1/√660 … 1/√1260 = 4 … 2.8 %
+    np.testing.assert_allclose(floor.power, 1.0, rtol=0.15)
+    assert np.median(floor.power) == pytest.approx(1.0, rel=0.06)
 
 
 def test_p_values_are_the_gamma_and_f_tails():
