@@ -455,10 +455,17 @@ def plot_candidate_map(results, path, *, title: str | None = None) -> Path:
                             edgecolors="k", linewidths=0.3, zorder=3)  # fmt: skip
     ax.set_xlabel("longitude (°)")
     ax.set_ylabel("latitude (°)")
-    ax.set_aspect(1.0 / max(math.cos(math.radians(float(np.nanmean([np.nanmean(r.dataset['lat'].values)
-                                                                   for _, r in results])))), 0.05))  # fmt: skip
+    lats = np.concatenate([np.asarray(r.dataset["lat"].values) for _, r in results])
+    lons = np.concatenate([np.asarray(r.dataset["lon"].values) for _, r in results])
+    coslat = max(math.cos(math.radians(float(np.nanmean(lats)))), 0.05)
+    half = 0.55 * max(float(np.nanmax(lats) - np.nanmin(lats)), float(np.nanmax(lons) - np.nanmin(lons)) * coslat, 1e-3)
+    mid_lat, mid_lon = 0.5 * (np.nanmax(lats) + np.nanmin(lats)), 0.5 * (np.nanmax(lons) + np.nanmin(lons))
+    ax.set_ylim(mid_lat - half, mid_lat + half)
+    ax.set_xlim(mid_lon - half / coslat, mid_lon + half / coslat)
+    ax.set_aspect(1.0 / coslat)
+    ax.ticklabel_format(useOffset=False)
     n_cand = sum(len(r.candidates) for _, r in results)
-    ax.set_title(title or f"{len(results)} tracks, {n_cand} unexplained echoes (at the antenna's nadir)")
+    ax.set_title(title or f"{len(results)} track(s), {n_cand} unexplained echoes at the antenna's nadir", fontsize="medium")
     if sc is not None:
         fig.colorbar(sc, ax=ax, label="candidate score", pad=0.01)
     from matplotlib.lines import Line2D
