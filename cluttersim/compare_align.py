@@ -222,7 +222,9 @@ def coarse_lag_cost(obs_ext, pad_left: int, sim_power, lo, hi, max_lag: int, edg
         o_floor = np.maximum(np.nanpercentile(np.where(seg > 0, seg, np.nan), 20, axis=1, keepdims=True),
                              seg.max(axis=1, keepdims=True) * 10 ** (-LOG_RANGE_DB / 10))  # fmt: skip
         o_floor = np.where(np.isfinite(o_floor) & (o_floor > 0), o_floor, 1e-300)
-        tmpl = np.where(in_win, 10 * np.log10(np.maximum(tmpl, np.maximum(t_peak, 1e-300) * 10 ** (-LOG_RANGE_DB / 10))), 0.0)
+        # the template is clipped at the same level below its peak as the observed (identical data stay identical)
+        relative = np.clip(o_floor / np.maximum(seg.max(axis=1, keepdims=True), 1e-300), 10 ** (-LOG_RANGE_DB / 10), 1.0)
+        tmpl = np.where(in_win, 10 * np.log10(np.maximum(tmpl, np.maximum(t_peak, 1e-300) * relative)), 0.0)
         seg = 10 * np.log10(np.maximum(seg, o_floor))
         echo_part = (in_win & (j >= (edge[rows] - lo[rows])[:, None])).astype(np.float64)
 
