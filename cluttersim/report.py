@@ -411,7 +411,8 @@ def _read_candidates(path) -> list[dict]:
         rows = []
         for line, row in enumerate(reader, start=2):
             try:
-                rows.append({k: (int(row[k]) if k in ("rank", "trace", "sample", "sim_trace") else float(row[k]))
+                rows.append({k: (int(row[k]) if k in ("rank", "trace", "sample", "sim_trace")
+                                 else float(row[k]) if row[k] != "" else math.nan)
                              for k in CANDIDATE_COLUMNS})  # fmt: skip
             except ValueError:
                 raise ClutterSimError(f"{path}: row {line} has a value that is not a number") from None

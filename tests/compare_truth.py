@@ -139,7 +139,8 @@ def layer(depth_m, *, above_clutter_db=None, above_surface_db=None, above_noise_
 
     Its power: ``above_surface_db`` over the surface echo, or the larger of
     ``above_clutter_db`` over the local simulated clutter (± half-width
-    samples, default one range cell + 1) and ``above_noise_db`` over the noise mean.
+    samples, default one range cell + 1) and ``above_noise_db`` over the noise
+    mean; with ``above_noise_db`` None, ``above_clutter_db`` over clutter plus noise.
     """
 
     def make(sim, noise_mean):
@@ -150,7 +151,10 @@ def layer(depth_m, *, above_clutter_db=None, above_surface_db=None, above_noise_
             dt = float(sim["delay"].values[1] - sim["delay"].values[0])
             hw = half_width_samples or int(math.ceil(1.0 / (bandwidth_of(sim) * dt))) + 1
             clutter = np.nan_to_num(local_clutter(sim, delay, hw))
-            power = np.maximum(clutter * 10 ** (above_clutter_db / 10), noise_mean * 10 ** (above_noise_db / 10))
+            if above_noise_db is None:  # over the predicted mean itself: clutter plus noise
+                power = (clutter + noise_mean) * 10 ** (above_clutter_db / 10)
+            else:
+                power = np.maximum(clutter * 10 ** (above_clutter_db / 10), noise_mean * 10 ** (above_noise_db / 10))
         return delay, power
 
     return make

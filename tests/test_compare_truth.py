@@ -82,6 +82,9 @@ def test_identical_data_give_zero_offset_zero_gain_unit_correlation(request, nam
     """Required: identical data → |offset| ≤ 0.1 sample, |gain| ≤ 0.1 dB, correlation ≥ 0.99 (global and per trace)."""
     sim, track = scene_of(request, name)
     result = compare(identical(sim, track), sim, CompareSettings(per_trace_offset=per_trace, offset_window_traces=9))
+    print(f"\nmeasured identical {name} per_trace={per_trace}: offset {result.offset.global_samples:+.5f} "
+          f"(per trace max {np.max(np.abs(result.offset.per_trace_samples)):.5f}) samples, gain "
+          f"{result.gain.gain_db:+.4f} dB, correlation {result.offset.correlation:.5f}")
     assert abs(result.offset.global_samples) <= 0.1
     assert np.all(np.abs(result.offset.per_trace_samples) <= 0.1)
     assert abs(result.gain.gain_db) <= 0.1
@@ -99,12 +102,17 @@ def test_known_fractional_shifts_are_recovered_within_a_quarter_sample(request, 
     """Required: shifts of −20…+20 samples (fractional) within 0.25 sample at 20–40 dB surface SNR, on the demo
     scene and on a real DEM. The gain (no requirement beyond identical data) within 0.5 dB."""
     sim, track = scene_of(request, name)
+    errors, gains = [], []
     for k, shift in enumerate(SHIFTS):
         truth = observe(sim, track, shift_samples=shift, snr_db=snr_db, seed=100 + k)
         result = compare(truth.observed, sim, CompareSettings(max_offset_s=30 * truth.observed.sample_interval_s))
+        errors.append(result.offset.global_samples - shift)
+        gains.append(result.gain.gain_db - GAIN_DB)
         assert result.offset.global_samples == pytest.approx(shift, abs=0.25), (name, snr_db, shift)
         assert result.gain.gain_db == pytest.approx(GAIN_DB, abs=0.5)
         assert not result.offset.at_search_edge
+    print(f"\nmeasured shifts {name} {snr_db:g} dB: largest |error| {np.max(np.abs(errors)):.3f} samples, "
+          f"gain error {np.min(gains):+.2f} … {np.max(gains):+.2f} dB")
 
 
 @pytest.mark.parametrize("name", ["hill", "jacksboro"])
@@ -118,6 +126,7 @@ def test_per_trace_offsets_follow_a_drift(request, name):
     result = compare(truth.observed, sim, CompareSettings(per_trace_offset=True, offset_window_traces=5,
                                                           max_offset_s=30 * truth.observed.sample_interval_s))  # fmt: skip
     err = result.offset.per_trace_samples - drift
+    print(f"\nmeasured drift {name}: rms error {np.sqrt(np.mean(err**2)):.3f} samples")
     assert np.sqrt(np.mean(err**2)) < 0.25
     assert np.all(np.isfinite(result.offset.per_trace_uncertainty_samples))
 
@@ -163,6 +172,7 @@ def test_per_trace_uncertainty_is_honest_over_seeds(hill):
         quoted.append(r.offset.per_trace_uncertainty_samples)
     errs, quoted = np.array(errs), np.array(quoted)
     ratio = errs.std(axis=0, ddof=1) / np.median(quoted, axis=0)  # per trace, over seeds
+    print(f"\nmeasured per-trace (hill, speckle): bias {errs.mean():+.4f}, spread/quoted median {np.median(ratio):.2f}")
     assert 0.5 <= np.median(ratio) <= 2.0, np.median(ratio)
     assert abs(errs.mean()) < 0.1
 
@@ -177,6 +187,8 @@ def test_strong_reflector_after_the_surface_does_not_capture_the_offset(request,
     depth = 90 * dt * 299_792_458.0 / (2 * math.sqrt(3.15))
     truth = observe(sim, track, shift_samples=2.3, snr_db=30.0, seed=5, reflector=layer(depth, above_surface_db=5.0))
     result = compare(truth.observed, sim, CompareSettings(per_trace_offset=per_trace, offset_window_traces=9))
+    print(f"\nmeasured reflector +5 dB at 90 samples, {name} per_trace={per_trace}: error "
+          f"{np.max(np.abs(result.offset.per_trace_samples - 2.3)):.3f} samples")
     assert result.offset.global_samples == pytest.approx(2.3, abs=0.25)
     if per_trace:
         assert np.all(np.abs(result.offset.per_trace_samples - 2.3) <= 0.25)
@@ -214,26 +226,27 @@ def test_reflector_8_db_above_clutter_is_found_at_every_noise_level(hill, noise_
     assert found >= 0.9
 
 
-REFLECTOR_ABOVE_CLUTTER_DB = [0.0, 2.0, 4.0, 6.0, 8.0, 10.0]
+REFLECTOR_ABOVE_CLUTTER_DB = [0.0, 2.0, 4.0, 6.0, 8.0, 10.0, 12.0]
 
 
 @pytest.mark.parametrize("speckle", [False, True])
 def test_detection_probability_rises_with_reflector_strength(hill, speckle):
     """The table of README "How it decides": share of the reflector's traces found against its strength over the
-    local predicted clutter (≥ 20 dB above noise; noise 30 dB under the surface; 3 seeds each; default settings)."""
+    local predicted power (simulated clutter plus noise; noise 30 dB under the surface; 3 seeds each; default
+    settings: pfa 1e-6, 15 traces integrated, 3 dB model tolerance)."""
     sim, track = hill
     found = []
     for above in REFLECTOR_ABOVE_CLUTTER_DB:
         shares = []
         for seed in range(3):
             truth = observe(sim, track, shift_samples=7.3, snr_db=30.0, seed=500 + seed, speckle=speckle,
-                            reflector=layer(40.0, above_clutter_db=above, above_noise_db=20.0))  # fmt: skip
+                            reflector=layer(40.0, above_clutter_db=above, above_noise_db=None))  # fmt: skip
             shares.append(found_fraction(compare(truth.observed, sim), truth, sim))
         found.append(float(np.mean(shares)))
     print("\nmeasured detection (speckle=%s): " % speckle
           + ", ".join(f"{a:+.0f} dB: {f:.0%}" for a, f in zip(REFLECTOR_ABOVE_CLUTTER_DB, found)))
-    assert found[-2] >= 0.9 and found[-1] >= found[-2] - 0.02
-    assert found[0] < found[-1]
+    assert found[REFLECTOR_ABOVE_CLUTTER_DB.index(8.0)] >= 0.9
+    assert found[0] < 0.5 and np.all(np.diff(found) >= -0.05)  # rises with strength
 
 
 def false_alarm_rate(sim, track, seeds, pfa_values, settings=None, **observe_kw):
@@ -262,12 +275,16 @@ def test_false_alarm_rate_matches_pfa_over_a_million_samples(hill):
     sim, track = hill
     exact = CompareSettings(model_tolerance_db=0.0, delay_tolerance_s=1e-12)
     rate, tested = false_alarm_rate(sim, track, range(3000, 3040), PFAS, exact, snr_db=30.0, speckle=True)
+    print(f"\nmeasured false alarms, no tolerances, {tested} samples: "
+          + ", ".join(f"pfa {a:g}: {r:.2e}" for a, r in zip(PFAS, rate)))
     assert tested >= 1_000_000
     for a, r in zip(PFAS, rate):
         assert 0.5 * a <= r <= 2.0 * a, (a, r)
-    rate, tested = false_alarm_rate(sim, track, range(4000, 4040), PFAS[:2], None, snr_db=30.0, speckle=True)
+    rate, tested = false_alarm_rate(sim, track, range(4000, 4040), PFAS, None, snr_db=30.0, speckle=True)
+    print(f"\nmeasured false alarms, default tolerances, {tested} samples: "
+          + ", ".join(f"pfa {a:g}: {r:.2e}" for a, r in zip(PFAS, rate)))
     assert tested >= 1_000_000
-    for a, r in zip(PFAS[:2], rate):
+    for a, r in zip(PFAS[:2], rate[:2]):
         assert 0.5 * a <= r <= 1.0 * a, (a, r)
 
 
