@@ -427,7 +427,7 @@ def input_warnings(offset: DelayOffset, noise: NoiseFloor, obs_power, max_off_s:
 def compare_to_dir(
     observed_path, observed_track, sample_interval_s: float, out_dir, *, sim=None, dem=None, config=None,
     body_radius_m=None, window_start_s=None, window_start_column=None, fmt=None, settings=None,
-    overwrite: bool = False, progress: bool = False, band=None, max_memory_bytes="auto",
+    overwrite: bool = False, progress: bool = False, band=None, max_memory_bytes="auto", tec_el_m2=None,
 ) -> tuple[Comparison, dict[str, Path]]:  # fmt: skip
     """Read an observed radargram, compare it with a simulation and write the products into ``out_dir``.
 
@@ -440,6 +440,10 @@ def compare_to_dir(
     ``cluttersim sources``). ``band`` names the band of a multi-band radar
     (default: the first); ``max_memory_bytes`` bounds the on-the-fly
     simulation (:func:`~cluttersim.simulate.simulate`).
+    ``tec_el_m2`` puts an ionospheric layer of that total electron content
+    between the simulation and the observation: the on-the-fly simulation
+    runs through it (``[ionosphere]``), a given ``sim`` is dispersed by
+    :func:`cluttersim.ionosphere.disperse_radargram`.
 
     Products (:data:`COMPARE_FILES`): ``comparison.nc``, ``candidates.csv``,
     ``candidates.geojson``, ``side_by_side.png``, ``overlay.png``,
@@ -466,17 +470,27 @@ def compare_to_dir(
     if sim is not None:
         sim_ds = open_radargram(sim, band=band)
         sim_source = str(sim)
+        if tec_el_m2:
+            from .ionosphere import disperse_radargram
+
+            sim_ds = disperse_radargram(sim_ds, tec_el_m2)
+            sim_source += f" through TEC {tec_el_m2:.3g} el/m²"
     else:
         sim_ds, sim_source = simulate_expectation(dem, observed, config, body_radius_m=body_radius_m, band=band,
-                                                  progress=progress, max_memory_bytes=max_memory_bytes)  # fmt: skip
+                                                  progress=progress, max_memory_bytes=max_memory_bytes,
+                                                  tec_el_m2=tec_el_m2)  # fmt: skip
     result = compare(observed, sim_ds, settings, progress=progress, sim_source=sim_source)
     write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None)
     return result, paths
 
 
 def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_radius_m=None, band=None,
-                         progress: bool = False, max_memory_bytes="auto") -> tuple[xr.Dataset, str]:  # fmt: skip
-    """Simulate the noise-free, incoherent clutter expectation of an observed track on its sampling."""
+                         progress: bool = False, max_memory_bytes="auto",
+                         tec_el_m2=None) -> tuple[xr.Dataset, str]:  # fmt: skip
+    """Simulate the noise-free, incoherent clutter expectation of an observed track on its sampling.
+
+    ``tec_el_m2``: through an ionospheric layer of that total electron content (``[ionosphere]``).
+    """
     from .config import default_config
     from .simulate import simulate
 
@@ -491,6 +505,10 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
     config = replace(config, noise=None, processing=processing,
                      radar=replace(config.radar, sample_interval_s=observed.sample_interval_s,
                                    samples=max(observed.n_samples, 2)))  # fmt: skip
+    if tec_el_m2:
+        from .ionosphere import IonosphereConfig
+
+        config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
     sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
                       max_memory_bytes=max_memory_bytes)  # fmt: skip
     return sim_ds, f"simulated on the fly from {Path(dem).name}"

@@ -381,14 +381,15 @@ def read_track_list(path) -> list[dict]:
 
 
 def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, progress: bool = False,
-                 max_memory_bytes="auto", on_result=None):  # fmt: skip
+                 max_memory_bytes="auto", on_result=None, tec_el_m2=None):  # fmt: skip
     """Compare every track of a list (:func:`read_track_list`) and combine their candidates.
 
     Each row's products go to ``out_dir/<name>/`` (as :func:`~cluttersim.compare.compare_to_dir`);
     the combined ``candidates.csv`` and ``candidates.geojson`` (a ``track``
     column/property first, ranked by score over all tracks) and
     ``candidates_map.png`` (the tracks and their candidates) go to ``out_dir``.
-    ``on_result(name, Comparison)`` is called after each track.
+    ``on_result(name, Comparison)`` is called after each track; ``tec_el_m2``
+    applies to every row (see :func:`~cluttersim.compare.compare_to_dir`).
 
     Returns
     -------
@@ -415,6 +416,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
                 dem=j.get("dem"), config=configs.get(j.get("radar")), window_start_s=j.get("window_start_s"),
                 window_start_column=j.get("window_start_column"), fmt=ObservedFormat(values=j["values"]),
                 settings=settings, overwrite=overwrite, progress=progress, max_memory_bytes=max_memory_bytes,
+                tec_el_m2=tec_el_m2,
             )  # fmt: skip
         except ObservedDataError as exc:
             raise ObservedDataError(f"track {j['name']!r} of {list_path}: {exc}") from None

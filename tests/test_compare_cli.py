@@ -379,3 +379,16 @@ def test_many_tracks_give_one_combined_table_geojson_and_map(files, tmp_path):
     assert imread(out / "candidates_map.png").shape[0] > 100
     again = run(["compare", "--list", tmp_path / "list.csv", "--out", out])
     assert again.exit_code == 2 and "already exists; pass --overwrite" in again.output
+
+
+def test_a_given_tec_delays_the_simulation_before_the_alignment(files, tmp_path):
+    """--tec-el-m2: the simulation is seen through the layer, later by 2 · 40.3 · TEC / (c f²) at the
+    centre frequency (Davies, Ionospheric Radio), so the offset found shrinks by that many samples."""
+    from cluttersim.ionosphere import group_delay_two_way_s
+
+    out = tmp_path / "cmp_tec"
+    res = run(base_args(files, out) + ["--sim", files["sim"], "--tec-el-m2", "3e14"])
+    assert res.exit_code == 0, res.output
+    offset_line = next(line for line in res.output.splitlines() if line.startswith("delay offset:"))
+    delay_samples = group_delay_two_way_s(3e14, files["radar"].radar.center_frequency_hz) / DT
+    assert float(offset_line.split()[2]) == pytest.approx(7.3 - delay_samples, abs=0.5)
