@@ -644,6 +644,15 @@ def cautions(inputs: RunInputs, sim_shape: GridShape, permittivity: float, quant
     except ValueError:
         cfg = {}
     proc = cfg.get("processing", {})
+    surface = cfg.get("surface", {})
+    if "permittivity" in surface:
+        out.append("Specular reflection is physical optics over planar DEM facets, weakened only by rms_height_m "
+                   f"({surface.get('rms_height_m', 0)} m): glints from slopes facing the antenna are those of smooth "
+                   "facets. Where the specular echo dominates a sample, the source shown is still the densest "
+                   "diffuse facet; the left/right shares include the specular power.")  # fmt: skip
+    elif proc.get("mode") != "coherent" or proc.get("random_phase", True):
+        out.append("No specular reflection ([surface] permittivity not set): over smooth ground the nadir echo "
+                   "is weaker than a smooth surface returns (15-20 dB at HF).")  # fmt: skip
     if not proc.get("shadowing", False):
         out.append("Shadowing was off: terrain hidden behind ridges still echoes if it faces the antenna.")
     if proc.get("aperture", "none") == "none":
