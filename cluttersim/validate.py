@@ -1,0 +1,88 @@
+"""Checks shared by the readers and configs: finite numbers, plausible heights, track geometry.
+
+Each function raises the project's own error (the caller's class) with one line
+naming the value and what was expected, or returns the cleaned value.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import TrackError
+
+#: Largest |height| (m) above or below the reference surface accepted in a DEM of an Earth- or
+#: Mars-sized body. The highest and lowest points of the terrestrial planets lie within it (Mars:
+#: Olympus Mons about +21.9 km and Hellas about −8.2 km on the areoid; Earth: +8.8 km, −11.0 km; from
+#: memory, common knowledge), so a cell beyond it is a nodata value that lost its tag (−3.4e38,
+#: −99999, 1e20), not terrain.
+MAX_ABS_HEIGHT_M = 30_000.0
+#: For small bodies the bound is this many mean radii if that is less (an irregular asteroid's
+#: surface lies within a radius or so of its mean sphere).
+MAX_ABS_HEIGHT_RADII = 1.5
+#: Largest transmitted power accepted, W (the most powerful radar transmitters are in the
+#: megawatt range: common practice; 1 GW leaves room for any sounder).
+MAX_TRANSMIT_POWER_W = 1e9
+#: Longitudes accepted in tracks, degrees (either −180..180 or 0..360 conventions, and a track
+#: continuing past either end; beyond a full turn it is a typing or unit error).
+MAX_ABS_LONGITUDE_DEG = 360.0
+#: Largest angle (degrees of arc at the body's centre) between consecutive traces: a quarter of a
+#: great circle. No sounder's trace spacing comes near it; a jump this large is a wrong sign or
+#: convention in one row.
+MAX_TRACE_STEP_DEG = 90.0
+
+
+def height_limit_m(mean_radius_m: float) -> float:
+    """The largest plausible |height| (m) on a body of this mean radius: :data:`MAX_ABS_HEIGHT_M`,
+    or :data:`MAX_ABS_HEIGHT_RADII` mean radii for a body small enough."""
+    return float(min(MAX_ABS_HEIGHT_M, MAX_ABS_HEIGHT_RADII * mean_radius_m))
+
+
+def is_finite_number(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def check_longitudes(lon_deg, source: str) -> None:
+    """Refuse longitudes beyond ±:data:`MAX_ABS_LONGITUDE_DEG` (TrackError naming the first row)."""
+    lon = np.asarray(lon_deg, dtype=np.float64)
+    bad = np.flatnonzero(np.abs(lon) > MAX_ABS_LONGITUDE_DEG)
+    if bad.size:
+        raise TrackError(
+            f"{source}: column 'lon' row {bad[0] + 1} = {lon[bad[0]]:g}: expected -360..360 degrees "
+            "(east-positive, -180..180 or 0..360)"
+        )
+
+
+def central_angle_deg(lat1, lon1, lat2, lon2):
+    """Angle at the centre of a sphere between points (degrees), by the haversine formula
+    (Sinnott 1984, Sky & Telescope 68:159), accurate at small angles."""
+    p1, p2 = np.radians(lat1), np.radians(lat2)
+    dlat, dlon = p2 - p1, np.radians(np.asarray(lon2) - np.asarray(lon1))
+    a = np.sin(dlat / 2) ** 2 + np.cos(p1) * np.cos(p2) * np.sin(dlon / 2) ** 2
+    return np.degrees(2 * np.arcsin(np.sqrt(np.clip(a, 0.0, 1.0))))
+
+
+def check_trace_steps(lat_deg, lon_deg, source: str) -> None:
+    """Refuse consecutive traces more than :data:`MAX_TRACE_STEP_DEG` apart or at the same position
+    (a trace without a direction of travel has no left and right)."""
+    lat = np.asarray(lat_deg, dtype=np.float64)
+    lon = np.asarray(lon_deg, dtype=np.float64)
+    if lat.size < 2:
+        return
+    step = central_angle_deg(lat[:-1], lon[:-1], lat[1:], lon[1:])
+    far = np.flatnonzero(step > MAX_TRACE_STEP_DEG)
+    if far.size:
+        i = far[0]
+        raise TrackError(
+            f"{source}: rows {i + 1} and {i + 2} are {step[i]:.1f}° of arc apart (lat/lon {lat[i]:g}, {lon[i]:g} then "
+            f"{lat[i + 1]:g}, {lon[i + 1]:g}): expected consecutive traces within {MAX_TRACE_STEP_DEG:g}° (a wrong sign or "
+            "longitude convention in one row?)"
+        )
+    same = np.flatnonzero((lat[1:] == lat[:-1]) & (lon[1:] == lon[:-1]))
+    if same.size:
+        i = same[0]
+        raise TrackError(
+            f"{source}: rows {i + 1} and {i + 2} are at the same position ({lat[i]:g}, {lon[i]:g}): expected the "
+            "antenna to move between traces (left and right need a direction of travel; drop repeated rows)"
+        )
