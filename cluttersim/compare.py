@@ -59,7 +59,7 @@ from tqdm.auto import tqdm
 from .body import Body
 from .errors import ConfigError, ObservedDataError
 from .observed import ObservedRadargram
-from .outputs import atomic_paths, check_new
+from .outputs import atomic_paths, check_new, locked_output
 from .radar import apparent_depth_m
 
 #: σ of a normal distribution per median absolute deviation ([3]_).
@@ -1043,6 +1043,7 @@ def _nan_safe(value: float) -> float:
 # --------------------------------------------------------------------------- products
 
 
+@locked_output("out_dir")
 def compare_to_dir(
     observed_path, observed_track, sample_interval_s: float, out_dir, *, sim=None, dem=None, config=None,
     body_radius_m=None, window_start_s=None, window_start_column=None, fmt=None, settings=None,
@@ -1105,13 +1106,13 @@ def compare_to_dir(
 def write_comparison(result: Comparison, paths: dict[str, Path], sim_ds=None) -> None:
     """Write a comparison's products atomically to ``paths`` (keys of :data:`COMPARE_FILES`, and ``simulation``)."""
     from . import plots
-    from .radargram import write_netcdf_to
+    from .radargram import save_netcdf, write_netcdf_to
 
     keys = list(paths)
     with atomic_paths([paths[k] for k in keys]) as temps:
         tmp = dict(zip(keys, temps))
-        result.dataset.to_netcdf(
-            tmp["comparison"], engine="h5netcdf", format="NETCDF4",
+        save_netcdf(
+            result.dataset, tmp["comparison"],
             encoding={v: {"zlib": True, "complevel": 4, "shuffle": True}
                       for v in ("observed_power", "simulated_power", "detected", "explained")},
         )  # fmt: skip

@@ -19,7 +19,7 @@ from .dem import DemSource
 from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
 from .report import REPORT_FILE, write_report
-from .outputs import atomic_paths, check_new
+from .outputs import atomic_paths, check_new, locked_output
 from .simulate import RunStats, simulate
 from .track import great_circle_track
 
@@ -59,6 +59,7 @@ def demo_dem_path() -> Path:
     return Path(module.make_demo_dem(DEMO_DEM))
 
 
+@locked_output("out_dir")
 def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool = True) -> tuple[dict[str, Path], RunStats]:
     """Run the demo scenario end to end; returns the product paths and run counters."""
     out_dir = Path(out_dir)
