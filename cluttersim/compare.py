@@ -1079,6 +1079,10 @@ def compare_to_dir(
     if dem is not None:
         paths["simulation"] = out_dir / "radargram.nc"
     check_new(paths.values(), overwrite)
+    from .memory import check_observed_memory
+
+    check_observed_memory(observed_path, max_memory_bytes, file_format=fmt.file_format if fmt else None,
+                          raw_shape=fmt.raw_shape if fmt else None, variable=fmt.variable if fmt else None)  # fmt: skip
     observed = load_observed(observed_path, observed_track, sample_interval_s, window_start_s=window_start_s,
                              window_start_column=window_start_column, fmt=fmt)  # fmt: skip
     if sim is not None:

@@ -442,3 +442,12 @@ def mask_implausible_heights(elevation_m: np.ndarray, body: Body, path) -> tuple
         )
     elevation_m[bad] = np.nan
     return count, extreme
+
+
+def crs_linear_unit_m(crs) -> float:
+    """Metres per unit of a projected CRS's x axis (1 for metres; 0.3048 for international feet);
+    1 for a geographic CRS or none (their grids are in degrees)."""
+    if crs is None or crs.is_geographic or not crs.axis_info:
+        return 1.0
+    factor = crs.axis_info[0].unit_conversion_factor
+    return float(factor) if factor and math.isfinite(factor) else 1.0

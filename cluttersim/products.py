@@ -13,7 +13,7 @@ import numpy as np
 
 from .body import Body
 from .constants import SPEED_OF_LIGHT_M_S
-from .dem import DemSource
+from .dem import DemSource, crs_linear_unit_m
 from .outputs import atomic_paths, check_new, locked_output
 from .radargram import band_names, select_band, write_netcdf_to
 from .simulate import _window_for_radius, ground_radius_m, simulate
@@ -173,7 +173,7 @@ class MapFrame:
         x1, y1 = x0 + transform.a * nx, y0 + transform.e * ny
         if src.is_geographic:
             return cls(src, (x0, x1, y1, y0), x0, 1.0, ("longitude (°E)", "latitude (°N)"))
-        k = 1e-3
+        k = 1e-3 * crs_linear_unit_m(src.crs)  # km, whatever the CRS's unit
         return cls(src, (x0 * k, x1 * k, y1 * k, y0 * k), x0, k, ("easting (km)", "northing (km)"))
 
     def xy(self, lon_deg, lat_deg):

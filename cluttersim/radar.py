@@ -25,6 +25,7 @@ import numpy as np
 
 from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ConfigError
+from .validate import MAX_TRANSMIT_POWER_W
 
 #: Raised-cosine window coefficients a0 in w(f) = a0 + (1 − a0) cos(2πf/B), |f| ≤ B/2 ([3]_).
 RANGE_WINDOWS = {"none": 1.0, "hann": 0.5, "hamming": 0.54}
@@ -102,6 +103,13 @@ def compressed_pulse_amplitude(t_s, bandwidth_hz: float, window: str = "hann"):
     return (a0 * np.sinc(x) + 0.5 * (1.0 - a0) * (np.sinc(x - 1.0) + np.sinc(x + 1.0))) / a0
 
 
+def pulse_half_width_samples(bandwidth_hz: float, sample_interval_s: float, window: str = "hann") -> int:
+    """Samples on each side of the centre of :func:`pulse_power_kernel`'s response (known before
+    the response is computed, for the memory check)."""
+    extent_s = (64.0 if window == "none" else 16.0) / bandwidth_hz
+    return int(math.ceil(extent_s / sample_interval_s))
+
+
 def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: str = "hann", oversample: int = 64):
     """Compressed-pulse power response integrated over delay samples.
 
@@ -111,8 +119,7 @@ def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: st
     truncated where the window's sidelobes have decayed (±16/B for Hann and
     Hamming, ±64/B unweighted).
     """
-    extent_s = (64.0 if window == "none" else 16.0) / bandwidth_hz
-    half = int(math.ceil(extent_s / sample_interval_s))
+    half = pulse_half_width_samples(bandwidth_hz, sample_interval_s, window)
     offsets = np.arange(-half, half + 1)
     sub = (np.arange(oversample) + 0.5) / oversample - 0.5
     t = (offsets[:, None] + sub[None, :]) * sample_interval_s
@@ -146,6 +153,10 @@ class RadarConfig:
             value = getattr(self, key)
             if not (math.isfinite(value) and value > 0):
                 raise ConfigError(f"[radar] {key} = {value!r}: expected a positive number")
+        if self.transmit_power_w > MAX_TRANSMIT_POWER_W:
+            raise ConfigError(
+                f"[radar] transmit_power_w = {self.transmit_power_w!r}: expected at most {MAX_TRANSMIT_POWER_W:g} W"
+            )
         if self.samples < 2:
             raise ConfigError(f"[radar] samples = {self.samples!r}: expected an integer of at least 2")
         if self.samples > 1_000_000:

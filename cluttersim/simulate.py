@@ -36,10 +36,11 @@ from .facets import Facets, build_facets
 from .noise import add_complex_noise, add_noise
 from .antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
-from .radar import compressed_pulse_amplitude, pulse_limited_radius_m, pulse_power_kernel
+from .radar import compressed_pulse_amplitude, pulse_half_width_samples, pulse_limited_radius_m, pulse_power_kernel
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track
+from .validate import check_far_field, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
@@ -125,6 +126,7 @@ def simulate(
         the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).
     """
     t_start = time.perf_counter()
+    check_run_arguments(first_return_db=first_return_db, nadir_strip_m=nadir_strip_m)
     stats = stats if stats is not None else RunStats()
     config = config if config is not None else default_config()
     radar = config.radar  # the window (samples, sample interval, start) is shared by every band
@@ -399,10 +401,8 @@ def prepare_scene(
         )
 
     # the widest compressed pulse (lowest bandwidth) sets the padding of every band
-    band_pulses = [pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window)
-                   for r in (cfg.radar for _, cfg in config.per_band())]  # fmt: skip
-    pad = max(int(offsets[-1]) for offsets, _ in band_pulses)
-    kernel_weights = band_pulses[0][1]
+    band_radars = [cfg.radar for _, cfg in config.per_band()]
+    pad = max(pulse_half_width_samples(r.bandwidth_hz, r.sample_interval_s, r.range_window) for r in band_radars)
 
     given = max_memory_bytes != "auto"
     limit = max_memory_bytes
@@ -413,11 +413,15 @@ def prepare_scene(
 
     def check(win):
         est = memory.estimate_memory_bytes(
-            win.width * win.height, len(track) * len(band_pulses), radar.samples, sources=sources,
+            win.width * win.height, len(track) * len(band_radars), radar.samples, sources=sources,
             threads=numba.get_num_threads(),
             pad_samples=pad, oversample=OVERSAMPLE, traces_per_block=TRACES_PER_BLOCK,
         )  # fmt: skip
         memory.check_memory(est, limit, given=given)
+
+    check(Window(0, 0, 1, 1))  # the radargram and the kernel's rows alone, before anything is allocated
+    band_pulses = [pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window) for r in band_radars]
+    kernel_weights = band_pulses[0][1]
 
     window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
     warn_holes(window)
@@ -436,6 +440,7 @@ def prepare_scene(
             f"{track.source}: row {i + 1} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
             f"({h_nadir[i]:.1f} m); expected the antenna above the surface"
         )
+    check_far_field(track, h_nadir, config)
     nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S
 
     idx = np.flatnonzero(on_dem)
@@ -777,6 +782,8 @@ def read_track_window(
         if window is not None and new == window:
             break
         window = new
+        if before_full_read is not None:  # the window only grows: refuse at once one that is already too big
+            before_full_read(window)
         shape = (min(window.height, _PREVIEW_CELLS), min(window.width, _PREVIEW_CELLS))
         preview = src.read(window, out_shape=shape).elevation_m
         if np.isnan(preview).all():

@@ -57,7 +57,7 @@ from pathlib import Path
 import numpy as np
 
 from .config import SimulationConfig, default_config
-from .dem import DemSource
+from .dem import DemSource, crs_linear_unit_m
 from .errors import (
     ClutterSimError,
     ConfigError,
@@ -906,6 +906,8 @@ class SurveyGrid:
         res = 1e3 * grid_km
         if src.is_geographic:
             res = math.degrees(res / src.body.mean_radius_m)
+        else:
+            res /= crs_linear_unit_m(src.crs)  # the grid is in the CRS's unit (feet, US survey feet...)
         width = max(1, int(math.ceil((x1 - x0) / res - 1e-9)))
         height = max(1, int(math.ceil((y1 - y0) / res - 1e-9)))
         if width * height > 25_000_000:

@@ -86,3 +86,31 @@ def check_trace_steps(lat_deg, lon_deg, source: str) -> None:
             f"{source}: rows {i + 1} and {i + 2} are at the same position ({lat[i]:g}, {lon[i]:g}): expected the "
             "antenna to move between traces (left and right need a direction of travel; drop repeated rows)"
         )
+
+
+def check_run_arguments(*, first_return_db: float, nadir_strip_m) -> None:
+    """The numeric arguments of :func:`cluttersim.simulate.simulate` (ConfigError)."""
+    from .errors import ConfigError
+
+    if not is_finite_number(first_return_db):
+        raise ConfigError(f"first_return_db = {first_return_db!r}: expected a finite number of dB")
+    if nadir_strip_m is not None and np.ndim(nadir_strip_m) == 0:
+        if not (is_finite_number(float(nadir_strip_m)) and nadir_strip_m >= 0):
+            raise ConfigError(f"nadir_strip_m = {nadir_strip_m!r}: expected a finite half-width >= 0 m")
+
+
+def check_far_field(track, h_nadir_m, config) -> None:
+    """Refuse antennas less than one wavelength (of any band) above the terrain below them: the
+    radar equation holds in the far field only (range much larger than the wavelength; nearer,
+    it would return more power than was sent)."""
+    from .errors import GeometryError
+
+    lam = max(cfg.radar.wavelength_m for _, cfg in config.per_band())
+    height = np.asarray(track.alt_m) - np.asarray(h_nadir_m)
+    near = np.flatnonzero(np.isfinite(height) & (height < lam))
+    if near.size:
+        i = near[0]
+        raise GeometryError(
+            f"{track.source}: row {i + 1}: the antenna is {height[i]:.6g} m above the terrain, less than one wavelength "
+            f"({lam:.6g} m); expected the radar in the far field (a higher antenna or a higher center_frequency_hz)"
+        )
