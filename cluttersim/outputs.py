@@ -199,6 +199,9 @@ def output_error(exc: OSError, temps=(), finals=()) -> OutputError:
         path = next((f for t, f in names.items() if Path(t).name in text), None)
         if path is None and len(finals) == 1:
             path = finals[0]
+        elif path is None and finals:  # a write() error does not say which file: name their directory
+            parents = {Path(f).parent for f in finals}
+            path = f"the products in {parents.pop()}" if len(parents) == 1 else ", ".join(map(str, finals))
     return OutputError(describe_os_error(exc, path))
 
 

@@ -252,10 +252,15 @@ def write_file_image(image: io.BytesIO, path) -> None:
     OSError from ``write`` is an ordinary exception (see
     :func:`cluttersim.outputs.atomic_paths`).
     """
-    with open(path, "wb") as fh:
-        fh.write(image.getbuffer())
-        fh.flush()
-        os.fsync(fh.fileno())
+    try:
+        with open(path, "wb") as fh:
+            fh.write(image.getbuffer())
+            fh.flush()
+            os.fsync(fh.fileno())
+    except OSError as exc:
+        if exc.filename is None:  # write() and fsync() errors do not name the file
+            raise OSError(exc.errno, exc.strerror, str(path)) from None
+        raise
 
 
 def _zlib_compressor():
