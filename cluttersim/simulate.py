@@ -40,7 +40,7 @@ from .radar import compressed_pulse_amplitude, pulse_half_width_samples, pulse_l
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track
-from .validate import check_far_field, check_run_arguments
+from .validate import check_far_field, check_power_finite, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
@@ -205,6 +205,7 @@ def simulate(
         attrs["nadir_strip"] = "pulse-limited footprint radius" if nadir_strip_m is None else f"{nadir_strip_m} m"
     datasets = [run.dataset(attrs, first_return_db) for run in runs]
     ds = datasets[0] if len(datasets) == 1 else stack_bands(datasets, config)
+    check_power_finite(ds["power"].values)
     stats.seconds_total = time.perf_counter() - t_start
     return ds
 

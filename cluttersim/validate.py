@@ -114,3 +114,17 @@ def check_far_field(track, h_nadir_m, config) -> None:
             f"{track.source}: row {i + 1}: the antenna is {height[i]:.6g} m above the terrain, less than one wavelength "
             f"({lam:.6g} m); expected the radar in the far field (a higher antenna or a higher center_frequency_hz)"
         )
+
+
+def check_power_finite(power_w) -> None:
+    """Refuse a radargram whose power overflowed (float32 holds up to 3.4e38 W): values that large
+    come from radar, surface or noise numbers far outside any instrument's (ConfigError)."""
+    from .errors import ConfigError
+
+    with np.errstate(invalid="ignore"):
+        overflow = np.isinf(power_w)
+    if overflow.any():
+        raise ConfigError(
+            f"{int(overflow.sum())} simulated samples overflow (power beyond 3.4e38 W): expected radar numbers of a real "
+            "instrument; check transmit_power_w, antenna_gain_dbi, the [surface] law's parameters and [noise]"
+        )
