@@ -40,7 +40,7 @@ from .radar import compressed_pulse_amplitude, pulse_half_width_samples, pulse_l
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track
-from .validate import check_far_field, check_power_finite, check_run_arguments
+from .validate import check_far_field, check_noise_power, check_power_finite, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
@@ -73,6 +73,22 @@ class RunStats:
     seconds_total: float = 0.0
 
 
+def _refuse_overflow(fn):
+    """Run without NumPy's overflow warnings and refuse a radargram whose power overflowed, in one
+    line (:func:`~cluttersim.validate.check_power_finite`)."""
+    import functools
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        with np.errstate(over="ignore"):
+            ds = fn(*args, **kwargs)
+        check_power_finite(ds["power"].values)
+        return ds
+
+    return wrapper
+
+
+@_refuse_overflow
 def simulate(
     dem,
     track,
@@ -129,6 +145,7 @@ def simulate(
     check_run_arguments(first_return_db=first_return_db, nadir_strip_m=nadir_strip_m)
     stats = stats if stats is not None else RunStats()
     config = config if config is not None else default_config()
+    check_noise_power(config)
     radar = config.radar  # the window (samples, sample interval, start) is shared by every band
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
@@ -205,7 +222,6 @@ def simulate(
         attrs["nadir_strip"] = "pulse-limited footprint radius" if nadir_strip_m is None else f"{nadir_strip_m} m"
     datasets = [run.dataset(attrs, first_return_db) for run in runs]
     ds = datasets[0] if len(datasets) == 1 else stack_bands(datasets, config)
-    check_power_finite(ds["power"].values)
     stats.seconds_total = time.perf_counter() - t_start
     return ds
 

@@ -128,3 +128,20 @@ def check_power_finite(power_w) -> None:
             f"{int(overflow.sum())} simulated samples overflow (power beyond 3.4e38 W): expected radar numbers of a real "
             "instrument; check transmit_power_w, antenna_gain_dbi, the [surface] law's parameters and [noise]"
         )
+
+
+def check_noise_power(config) -> None:
+    """Refuse a [noise] table whose mean noise power k T B F exceeds the largest transmitter
+    (:data:`MAX_TRANSMIT_POWER_W`): a receiver's noise is some 1e-13 W (ConfigError, before any work)."""
+    from .errors import ConfigError
+
+    for name, cfg in config.per_band():
+        if cfg.noise is None:
+            continue
+        p = cfg.noise.noise_power_w(cfg.radar.bandwidth_hz)
+        if not (math.isfinite(p) and p <= MAX_TRANSMIT_POWER_W):
+            where = f" (band {name})" if name else ""
+            raise ConfigError(
+                f"[noise] gives a noise power of {p:.3g} W{where}: expected at most {MAX_TRANSMIT_POWER_W:g} W "
+                "(k T B F: check noise_temperature_k and the noise figure)"
+            )

@@ -126,6 +126,12 @@ CASES = {
                                                                         "bandwidth_hz = 1e-3\nsample_interval_s = 1.0\n")], o), 1,
                       "{d}/t.csv: row 1: the antenna is 99986.8 m above the terrain, less than one wavelength (2.99792e+11 m); "
                       "expected the radar in the far field (a higher antenna or a higher center_frequency_hz)"),
+    "noise temperature 1e300 K": (lambda d, o: _simulate_args(d, ["--radar", _file(d, "n.toml", "[noise]\nnoise_temperature_k = 1e300\n")], o), 1,
+                                  "[noise] gives a noise power of 1.38e+284 W: expected at most 1e+09 W (k T B F: check "
+                                  "noise_temperature_k and the noise figure)"),
+    "sigma0 1e300": (lambda d, o: _simulate_args(d, ["--radar", _file(d, "s.toml", "[surface]\nlaw = 'constant'\nsigma0 = 1e300\n")], o), 1,
+                     "4096 simulated samples overflow (power beyond 3.4e38 W): expected radar numbers of a real "
+                     "instrument; check transmit_power_w, antenna_gain_dbi, the [surface] law's parameters and [noise]"),
     # item 10 and issue 17 item 7: tracks
     "decimal commas": (lambda d, o: _simulate_args(d, ["--track", _file(d, "comma.csv", "lat,lon,alt\n11,8,41.0,300000\n")], o), 1,
                        "{d}/comma.csv: row 1 has 4 fields, the header 3: expected one value per column ('.' as the decimal "
