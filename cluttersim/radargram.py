@@ -230,7 +230,8 @@ def write_netcdf_to(ds: xr.Dataset, path) -> None:
         encoding[name] = enc
     placeholder = ds.assign({n: ds[n].copy(data=np.zeros(ds[n].shape, dtype=np.float32)) for n in parallel})
     image = io.BytesIO()
-    placeholder.to_netcdf(image, engine="h5netcdf", encoding=encoding, format="NETCDF4")
+    with _local_write_lock():
+        placeholder.to_netcdf(image, engine="h5netcdf", encoding=encoding, format="NETCDF4")
     if parallel:
         image.seek(0)
         _write_deflated_chunks(image, {n: np.ascontiguousarray(ds[n].values) for n in parallel})
@@ -240,8 +241,22 @@ def write_netcdf_to(ds: xr.Dataset, path) -> None:
 def save_netcdf(ds: xr.Dataset, path, **to_netcdf_kwargs) -> None:
     """``ds.to_netcdf(path, engine="h5netcdf")`` built in memory, then written by :func:`write_file_image`."""
     image = io.BytesIO()
-    ds.to_netcdf(image, engine="h5netcdf", **{"format": "NETCDF4", **to_netcdf_kwargs})
+    with _local_write_lock():
+        ds.to_netcdf(image, engine="h5netcdf", **{"format": "NETCDF4", **to_netcdf_kwargs})
     write_file_image(image, path)
+
+
+def _local_write_lock():
+    """With a Dask distributed client in the process, xarray takes a cluster-wide lock named after
+    the target, which an in-memory file has not: the image is written with a local lock instead."""
+    import contextlib
+    import sys
+
+    if "dask" not in sys.modules:
+        return contextlib.nullcontext()
+    import dask
+
+    return dask.config.set(scheduler="synchronous")
 
 
 def write_file_image(image: io.BytesIO, path) -> None:

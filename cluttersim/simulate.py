@@ -436,11 +436,10 @@ def prepare_scene(
         )  # fmt: skip
         memory.check_memory(est, limit, given=given)
 
-    check(Window(0, 0, 1, 1))  # the radargram and the kernel's rows alone, before anything is allocated
+    # the memory check comes before any preview of the DEM and before the pulse response is computed
+    window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
     band_pulses = [pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window) for r in band_radars]
     kernel_weights = band_pulses[0][1]
-
-    window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
     warn_holes(window)
     t0 = time.perf_counter()
     facets = build_facets(window)

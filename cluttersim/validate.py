@@ -64,8 +64,9 @@ def central_angle_deg(lat1, lon1, lat2, lon2):
 
 
 def check_trace_steps(lat_deg, lon_deg, source: str) -> None:
-    """Refuse consecutive traces more than :data:`MAX_TRACE_STEP_DEG` apart or at the same position
-    (a trace without a direction of travel has no left and right)."""
+    """Refuse consecutive traces more than :data:`MAX_TRACE_STEP_DEG` apart (TrackError). Traces at
+    the same position are allowed (a hovering platform); :func:`cluttersim.attribution.right_unit_vectors`
+    gives them the direction of travel of the nearest moving trace, with a warning."""
     lat = np.asarray(lat_deg, dtype=np.float64)
     lon = np.asarray(lon_deg, dtype=np.float64)
     if lat.size < 2:
@@ -78,13 +79,6 @@ def check_trace_steps(lat_deg, lon_deg, source: str) -> None:
             f"{source}: rows {i + 1} and {i + 2} are {step[i]:.1f}° of arc apart (lat/lon {lat[i]:g}, {lon[i]:g} then "
             f"{lat[i + 1]:g}, {lon[i + 1]:g}): expected consecutive traces within {MAX_TRACE_STEP_DEG:g}° (a wrong sign or "
             "longitude convention in one row?)"
-        )
-    same = np.flatnonzero((lat[1:] == lat[:-1]) & (lon[1:] == lon[:-1]))
-    if same.size:
-        i = same[0]
-        raise TrackError(
-            f"{source}: rows {i + 1} and {i + 2} are at the same position ({lat[i]:g}, {lon[i]:g}): expected the "
-            "antenna to move between traces (left and right need a direction of travel; drop repeated rows)"
         )
 
 

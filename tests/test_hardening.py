@@ -136,9 +136,6 @@ CASES = {
     "decimal commas": (lambda d, o: _simulate_args(d, ["--track", _file(d, "comma.csv", "lat,lon,alt\n11,8,41.0,300000\n")], o), 1,
                        "{d}/comma.csv: row 1 has 4 fields, the header 3: expected one value per column ('.' as the decimal "
                        "mark: a decimal comma splits numbers)"),
-    "repeated position": (lambda d, o: _simulate_args(d, ["--track", _file(d, "dup.csv", TRACK + "0.1,0,100000\n")], o), 1,
-                          "{d}/dup.csv: rows 2 and 3 are at the same position (0.1, 0): expected the antenna to move between "
-                          "traces (left and right need a direction of travel; drop repeated rows)"),
     "longitude -484": (lambda d, o: _simulate_args(d, ["--track", _file(d, "lon.csv", "lat,lon,alt\n0,-484,1e5\n0.1,0,1e5\n")], o), 1,
                        "{d}/lon.csv: column 'lon' row 1 = -484: expected -360..360 degrees (east-positive, -180..180 or 0..360)"),
     "jump of 120 degrees": (lambda d, o: _simulate_args(d, ["--track", _file(d, "jump.csv", "lat,lon,alt\n0,0,1e5\n0,120,1e5\n")], o), 1,
@@ -667,6 +664,22 @@ def test_a_byte_order_mark_is_not_part_of_the_header(d, tmp_path):
     track = _file(tmp_path, "bom.csv", "\ufefflat,lon,alt\n0,0,100000\n0.1,0,100000\n".encode("utf-8"))
     res = CliRunner().invoke(cli, _simulate_args(d, ["--track", track], tmp_path / "o"))
     assert res.exit_code == 0, res.output
+
+
+def test_repeated_positions_take_the_nearest_direction_of_travel_and_say_so(d, tmp_path):
+    """A repeated last row had no direction of travel (central differences give 0 at the end), so
+    left = right = 0 everywhere in it: now it flies on like its neighbour, with a warning."""
+    import xarray as xr
+
+    track = _file(tmp_path, "dup.csv", "lat,lon,alt\n0,0,100000\n0.05,0,100000\n0.1,0.05,100000\n0.1,0.05,100000\n")
+    res = CliRunner().invoke(cli, _simulate_args(d, ["--track", track], tmp_path / "o"))
+    assert res.exit_code == 0, res.output
+    assert (f"cluttersim: warning: {track}: 1 trace(s) without a horizontal direction of travel of their own (repeated "
+            "positions; the first at row 4); left and right use the nearest moving trace's direction") in res.output  # fmt: skip
+    with xr.open_dataset(tmp_path / "o" / "radargram.nc", engine="h5netcdf") as ds:
+        for t in (3,):
+            sides = np.nansum(ds["left_fraction"].values[t] + ds["right_fraction"].values[t])
+            assert sides > 0  # echoes from beside the track are attributed to a side again
 
 
 def test_overwrite_without_sources_removes_the_old_side_figure_and_says_so(d, tmp_path):
