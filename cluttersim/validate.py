@@ -132,7 +132,7 @@ def check_noise_power(config) -> None:
     for name, cfg in config.per_band():
         if cfg.noise is None:
             continue
-        p = cfg.noise.noise_power_w(cfg.radar.bandwidth_hz)
+        p = cfg.noise.noise_power_w(cfg.radar.bandwidth_hz, cfg.radar.center_frequency_hz)
         if not (math.isfinite(p) and p <= MAX_TRANSMIT_POWER_W):
             where = f" (band {name})" if name else ""
             raise ConfigError(
