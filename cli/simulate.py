@@ -67,7 +67,10 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
 
         dem_path = DemSource.open(dem_path, body_radius_m)
         if dem_height_unit is not None:
-            dem_path = dataclasses.replace(dem_path, height_unit_m=HEIGHT_UNITS_M[dem_height_unit])
+            if dem_path.height_scale_m != 1.0 or dem_path.height_offset_m != 0.0:
+                raise click.UsageError(f"--dem-height-unit: {dem_path.path} already gives its heights' scale or unit "
+                                       "(band metadata or a vertical CRS); the option is for DEMs that give none")  # fmt: skip
+            dem_path = dataclasses.replace(dem_path, height_scale_m=HEIGHT_UNITS_M[dem_height_unit])
         track_path = track_for_dem(Track.from_csv(track_path), dem_path, track_height_datum, dem_height_datum, quiet)
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,

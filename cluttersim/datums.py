@@ -155,8 +155,9 @@ def split_compound(crs: pyproj.CRS) -> tuple[pyproj.CRS, HeightDatum | None, flo
     """A DEM CRS → (horizontal CRS, vertical datum or None, metres per height unit).
 
     A compound CRS (horizontal + vertical) gives its vertical CRS as the DEM's
-    height datum, and that CRS's axis unit (e.g. the foot, 0.3048 m) as the scale
-    of the DEM's values. Ellipsoidal 3-D CRSs give the ellipsoid.
+    height datum, and that CRS's axis unit (e.g. the foot, 0.3048 m; applied to the
+    heights by :func:`cluttersim.dem.vertical_scaling`). Ellipsoidal 3-D CRSs give
+    the ellipsoid.
     """
     if crs.is_compound:
         horizontal, vertical = crs.sub_crs_list[0], crs.sub_crs_list[-1]
@@ -200,7 +201,7 @@ def track_in_dem_datum(track, dem, track_datum: HeightDatum | None, dem_datum: H
     return replace(track, alt_m=track.alt_m + shift), note
 
 
-#: radargram attribute recording a height unit declared for the run's DEM (metres per unit)
+#: radargram attribute recording the metres per stored DEM value the run used (a declared unit included)
 HEIGHT_UNIT_ATTR = "dem_height_unit_m"
 
 
@@ -210,4 +211,4 @@ def with_recorded_height_unit(src, attrs):
     from dataclasses import replace
 
     unit = attrs.get(HEIGHT_UNIT_ATTR)
-    return src if unit is None else replace(src, height_unit_m=float(unit))
+    return src if unit is None else replace(src, height_scale_m=float(unit))

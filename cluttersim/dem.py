@@ -24,6 +24,7 @@ from .body import Body
 from .datums import HeightDatum, split_compound
 from .demcrs import as_geographic, check_not_radii, vsi_path
 from .errors import DemError
+from .validate import height_limit_m
 
 
 @dataclass(frozen=True)
@@ -50,8 +51,10 @@ class DemSource:
     nodata: float | None
     #: the heights' vertical reference from a compound CRS (None: above the ellipsoid, or as declared)
     vertical_datum: HeightDatum | None = None
-    #: metres per stored height unit (0.3048 for a vertical CRS in feet)
-    height_unit_m: float = 1.0
+    #: metres per stored value (the band's scale × its vertical unit) and the offset in metres:
+    #: height_m = stored × height_scale_m + height_offset_m (:func:`vertical_scaling`)
+    height_scale_m: float = 1.0
+    height_offset_m: float = 0.0
 
     @property
     def is_geographic(self) -> bool:
@@ -82,6 +85,9 @@ class DemSource:
             with rasterio.open(path) as ds:
                 count, width, height = ds.count, ds.width, ds.height
                 transform, nodata, rcrs = ds.transform, ds.nodata, ds.crs
+                band_scale = ds.scales[0] if ds.scales else 1.0
+                band_offset = ds.offsets[0] if ds.offsets else 0.0
+                band_unit = ds.units[0] if ds.units else None
         except rasterio.errors.RasterioIOError as exc:
             raise DemError(f"{path}: not a raster GDAL can read ({str(exc).splitlines()[0]})") from None
         if count != 1:
@@ -90,7 +96,7 @@ class DemSource:
             raise DemError(f"{path}: rotated rasters are not supported, expected a north-up grid")
         if transform == Affine.identity():
             raise DemError(f"{path}: has no georeferencing (no geotransform)")
-        vertical_datum, height_unit_m = None, 1.0
+        vertical_datum, full_crs = None, None
         if rcrs is None:
             if body_radius_m is None:
                 raise DemError(f"{path}: DEM has no CRS; give --body-radius-m to read it as lon/lat degrees on a sphere")
@@ -101,21 +107,24 @@ class DemSource:
                 crs = pyproj.CRS.from_wkt(rcrs.to_wkt())
             except pyproj.exceptions.CRSError as exc:
                 raise DemError(f"{path}: CRS not understood by pyproj ({exc})") from None
-            crs, vertical_datum, height_unit_m = split_compound(crs)  # heights' datum and unit
+            full_crs = crs  # with its vertical part, whose unit vertical_scaling reads
+            crs, vertical_datum, _ = split_compound(crs)  # the horizontal CRS and the heights' datum
             if crs.is_geographic and [a.direction for a in crs.axis_info[:2]] not in (["north", "east"], ["east", "north"]):
                 axes = ", ".join(f"{a.name} ({a.direction})" for a in crs.axis_info[:2])
                 raise DemError(
                     f"{path}: geographic CRS {crs.name!r} has axes {axes}; expected latitude north and longitude east "
                     "(re-grid the DEM to east-positive longitudes)"
                 )
+            check_angular_units(crs, path)
             geographic = as_geographic(crs, transform)  # equirectangular on a sphere: a lon/lat grid
             if geographic is not None:
                 crs, transform = geographic
             body = Body.from_crs(crs)
             if body_radius_m is not None:
                 body = Body.sphere(body_radius_m, name=f"sphere overriding {body.name}")
+        scale_m, offset_m = vertical_scaling(path, band_scale, band_offset, band_unit, full_crs)
         return cls(path=path, crs=crs, body=body, transform=transform, width=width, height=height, nodata=nodata,
-                   vertical_datum=vertical_datum, height_unit_m=height_unit_m)  # fmt: skip
+                   vertical_datum=vertical_datum, height_scale_m=scale_m, height_offset_m=offset_m)  # fmt: skip
 
     # ----------------------------------------------------------------- coordinates
 
@@ -226,14 +235,15 @@ class DemSource:
             cause = str(exc.__cause__ or exc).strip().splitlines()[0] if str(exc.__cause__ or exc).strip() else type(exc).__name__
             raise DemError(f"{self.path}: cannot read elevations, the file may be truncated or corrupt ({cause})") from None
         elev = np.ma.filled(data.astype(np.float64), np.nan)
+        if self.height_scale_m != 1.0 or self.height_offset_m != 0.0:
+            elev = elev * self.height_scale_m + self.height_offset_m
         elev[~np.isfinite(elev)] = np.nan
-        if self.height_unit_m != 1.0:
-            elev *= self.height_unit_m
-        check_not_radii(elev, self.body.mean_radius_m, self.path)
+        check_not_radii(elev, self.body.mean_radius_m, self.path)  # before the plausibility mask: says why
+        implausible = mask_implausible_heights(elev, self.body, self.path)
         wt = rasterio.windows.transform(window, self.transform)
         if out_shape is not None:
             wt = wt @ Affine.scale(window.width / out_shape[1], window.height / out_shape[0])
-        return DemWindow(source=self, window=window, transform=wt, elevation_m=elev)
+        return DemWindow(source=self, window=window, transform=wt, elevation_m=elev, implausible=implausible)
 
 
 @dataclass(frozen=True)
@@ -244,6 +254,8 @@ class DemWindow:
     window: Window
     transform: Affine
     elevation_m: np.ndarray
+    #: (count, most extreme value in metres) of cells beyond the plausible height (now holes)
+    implausible: tuple[int, float] = (0, 0.0)
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -330,7 +342,16 @@ class DemWindow:
 
 
 def warn_holes(window: DemWindow) -> None:
-    """Warn (once) with the fraction of nodata cells in the window read for a track."""
+    """Warn (once) with the fraction of nodata cells in the window read for a track, and separately
+    with the cells whose heights were beyond :func:`~cluttersim.validate.height_limit_m`."""
+    count, extreme = window.implausible
+    if count:
+        warnings.warn(
+            f"{window.source.path.name}: {count} DEM cell(s) around the track have heights beyond "
+            f"±{height_limit_m(window.source.body.mean_radius_m) / 1e3:g} km (the most extreme {extreme:.6g} m: a nodata "
+            "value without its nodata tag?); they are treated as nodata",
+            stacklevel=3,
+        )
     frac = window.hole_fraction()
     if 0 < frac < 1:  # all nodata is an error (build_facets), not a warning
         warnings.warn(
@@ -338,3 +359,107 @@ def warn_holes(window: DemWindow) -> None:
             "they are skipped (no echo from holes)",
             stacklevel=3,
         )
+
+
+# --------------------------------------------------------------------------- units and plausibility
+
+#: Band unit names (lower case) → metres, for heights. GDAL writes what the file says; these are
+#: the spellings in use for metres and feet (international foot 0.3048 m exactly; US survey foot
+#: 1200/3937 m: NIST Handbook 44, Appendix C).
+_HEIGHT_UNITS_M = {
+    **dict.fromkeys(["", "m", "metre", "metres", "meter", "meters", "metre(s)"], 1.0),
+    **dict.fromkeys(["km", "kilometre", "kilometres", "kilometer", "kilometers"], 1000.0),
+    **dict.fromkeys(["ft", "foot", "feet", "international foot", "international feet", "foot (international)",
+                     "ft (international)", "intl foot"], 0.3048),
+    **dict.fromkeys(["us survey foot", "us survey feet", "us-ft", "ftus", "ft_us", "us_survey_foot", "foot_us",
+                     "us foot", "us feet", "survey foot", "foot (us survey)"], 1200.0 / 3937.0),
+}
+
+
+def vertical_scaling(path, scale, offset, unit, crs) -> tuple[float, float]:
+    """Metres per stored value and offset in metres: the band's scale and offset (GDAL's, as in
+    int16 DEMs stored as value × scale + offset) and its vertical unit, from the band's unit
+    name or else from the vertical axis of a compound CRS. An unknown unit, or a band unit that
+    disagrees with the CRS's, is refused (DemError): heights are never used in a unit guessed."""
+    scale = 1.0 if scale is None else float(scale)
+    offset = 0.0 if offset is None else float(offset)
+    if not (math.isfinite(scale) and scale != 0 and math.isfinite(offset)):
+        raise DemError(f"{path}: band scale {scale!r} and offset {offset!r}: expected finite numbers, scale not 0")
+    name = (unit or "").strip().lower()
+    if name not in _HEIGHT_UNITS_M:
+        raise DemError(
+            f"{path}: band unit {unit!r} not understood: expected metres (m) or feet (ft, US survey foot); set the "
+            "band's unit if its heights are in one of these"
+        )
+    band_m = _HEIGHT_UNITS_M[name]
+    crs_m = _vertical_crs_unit_m(crs)
+    if name and crs_m is not None and not math.isclose(band_m, crs_m, rel_tol=1e-9):
+        raise DemError(
+            f"{path}: band unit {unit!r} ({band_m:g} m) disagrees with the CRS's vertical unit ({crs_m:g} m); expected "
+            "one unit for the heights"
+        )
+    unit_m = band_m if name else (crs_m if crs_m is not None else 1.0)
+    return scale * unit_m, offset * unit_m
+
+
+def _vertical_crs_unit_m(crs) -> float | None:
+    """Metres per unit of the vertical axis of a compound (or vertical) CRS; None if it has none."""
+    if crs is None:
+        return None
+    for sub in ([crs] if crs.is_vertical else list(getattr(crs, "sub_crs_list", None) or [])):
+        if sub.is_vertical and sub.axis_info:
+            factor = sub.axis_info[0].unit_conversion_factor
+            if factor and math.isfinite(factor):
+                return float(factor)
+    return None
+
+
+def check_angular_units(crs, path) -> None:
+    """Refuse a geographic CRS whose angles are not degrees counted from the body's reference
+    meridian (grads from Paris, EPSG:4807, would be read as degrees from Greenwich)."""
+    if crs is None or not crs.is_geographic:
+        return
+    factor = crs.axis_info[0].unit_conversion_factor if crs.axis_info else math.radians(1.0)
+    unit = crs.axis_info[0].unit_name if crs.axis_info else "degree"
+    pm = crs.prime_meridian
+    if not math.isclose(factor, math.radians(1.0), rel_tol=1e-9):
+        raise DemError(
+            f"{path}: geographic CRS {crs.name!r} counts angles in {unit}: expected degrees; reproject the DEM to a "
+            "CRS in degrees"
+        )
+    if pm is not None and pm.longitude != 0:
+        raise DemError(
+            f"{path}: geographic CRS {crs.name!r} counts longitudes from the {pm.name} meridian "
+            f"({pm.longitude:g} {pm.unit_name} east): expected the body's reference meridian (Greenwich on Earth); "
+            "reproject the DEM"
+        )
+
+
+def mask_implausible_heights(elevation_m: np.ndarray, body: Body, path) -> tuple[int, float]:
+    """Turn heights beyond ±:func:`~cluttersim.validate.height_limit_m` into holes (NaN), in place;
+    returns (their count, the most extreme). If every cell with a value is beyond it, the heights
+    are not metres on this body at all: DemError."""
+    limit = height_limit_m(body.mean_radius_m)
+    with np.errstate(invalid="ignore"):
+        bad = np.abs(elevation_m) > limit
+    count = int(np.count_nonzero(bad))
+    if not count:
+        return 0, 0.0
+    values = elevation_m[bad]
+    extreme = float(values[np.argmax(np.abs(values))])
+    if count == np.count_nonzero(np.isfinite(elevation_m)):
+        raise DemError(
+            f"{path}: every DEM cell read ({count}) is beyond ±{limit / 1e3:g} km of the reference surface (e.g. "
+            f"{extreme:.6g} m): expected heights in metres (a nodata value without its tag, or another unit?)"
+        )
+    elevation_m[bad] = np.nan
+    return count, extreme
+
+
+def crs_linear_unit_m(crs) -> float:
+    """Metres per unit of a projected CRS's x axis (1 for metres; 0.3048 for international feet);
+    1 for a geographic CRS or none (their grids are in degrees)."""
+    if crs is None or crs.is_geographic or not crs.axis_info:
+        return 1.0
+    factor = crs.axis_info[0].unit_conversion_factor
+    return float(factor) if factor and math.isfinite(factor) else 1.0

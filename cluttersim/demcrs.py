@@ -14,7 +14,6 @@
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import numpy as np
 import pyproj
@@ -116,9 +115,3 @@ def vsi_path(path) -> str | None:
                 return f"/{prefix}/{{{rest[:end]}}}{rest[end:]}"
     return s
 
-
-def dem_size_bytes(path) -> int:
-    """The DEM file's size for cache keys; −1 for a GDAL virtual path (no local file to stat)."""
-    if vsi_path(path) is not None:
-        return -1
-    return Path(path).stat().st_size

@@ -132,7 +132,7 @@ def test_heights_in_us_feet_from_a_compound_crs(tmp_path):
     """NAVD88 height (ftUS), EPSG:6360: the DEM's values are US survey feet (1200/3937 m)."""
     dem = write_geotiff(tmp_path / "ft.tif", np.full((200, 200), 1000.0), 14.8, 45.2, 0.002, crs="EPSG:4326+6360")
     src = DemSource.open(dem)
-    assert src.height_unit_m == pytest.approx(1200 / 3937, rel=1e-12)
+    assert src.height_scale_m == pytest.approx(1200 / 3937, rel=1e-12)
     delay, _ = simulate_cli(tmp_path, dem)
     np.testing.assert_allclose(delay, 2 * (H_TRACK - 1000.0 * 1200 / 3937) / C, rtol=0, atol=2e-11)
 
