@@ -406,7 +406,8 @@ def _vertical_crs_unit_m(crs) -> float | None:
     """Metres per unit of the vertical axis of a compound (or vertical) CRS; None if it has none."""
     if crs is None:
         return None
-    for sub in ([crs] if crs.is_vertical else list(getattr(crs, "sub_crs_list", None) or [])):
+    # a compound CRS first (pyproj calls a compound CRS vertical too, but its first axis is horizontal)
+    for sub in (list(crs.sub_crs_list) if crs.is_compound else [crs]):
         if sub.is_vertical and sub.axis_info:
             factor = sub.axis_info[0].unit_conversion_factor
             if factor and math.isfinite(factor):

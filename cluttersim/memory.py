@@ -144,6 +144,8 @@ def observed_shape(path, file_format: str | None, raw_shape=None, variable: str 
 
     import numpy as np
 
+    if hasattr(path, "power"):  # an ObservedRadargram already read (archive products): its own array
+        return (*path.power.shape, path.power.itemsize)
     path = _P(path)
     suffix = path.suffix.lower()
     kind = file_format or {".npy": "npy", ".tif": "image", ".tiff": "image", ".png": "image", ".bin": "raw",
