@@ -98,7 +98,14 @@ def test_the_line_of_sight_follows_the_body_curvature():
 
 
 def test_grazing_geometry_without_shadowing_warns(tmp_path):
-    """The rule: shadowing off and the window reaching ground below 15° elevation (range at its
-    end > h / sin 15°): 200 m up with a 10 µs window (1.5 km of range) warns."""
+    """The rule: shadowing off, the window reaching ground below 15° elevation (range at its end
+    > h / sin 15°) and relief over 5 % of h: 200 m up with a 10 µs window (1.5 km of range) over the
+    400 m wall warns; over the plain without the wall it does not (nothing to hide behind)."""
+    import warnings
+
     with pytest.warns(UserWarning, match="shadowing off"):
         run(tmp_path, False, plateau=False)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        run(tmp_path, False, plateau=False, wall=False)
+    assert not [w for w in caught if "shadowing off" in str(w.message)]
