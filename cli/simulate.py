@@ -44,10 +44,13 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
     axis for --permittivity), OUT/radargram_sides.png (which side of the track each echo
     comes from) and OUT/track_map.png (track and first returns over shaded relief).
-    Optional [noise] and [subsurface] tables in the radar TOML add receiver noise and the
-    predicted echo of a hypothesised interface; [[band]] tables simulate several frequency
-    bands in one run (a band dimension in radargram.nc, one figure per band); [processing]
-    presum = N sums N pulses of the track into each trace (see the README).
+    Optional [noise] and [subsurface] tables in the radar TOML add receiver and sky noise and
+    the predicted echo of a hypothesised interface; [ionosphere] delays and disperses the
+    echoes through a layer of given TEC; [[band]] tables simulate several frequency bands in
+    one run (a band dimension in radargram.nc, one figure per band); [processing] presum = N
+    sums N pulses of the track into each trace, pulse_length_s and prf_hz state the processing
+    gains (see the README). power is the compressed receiver output referred to its input: a
+    point target reads its radar-equation power at its peak sample, whatever the sample interval.
 
     \b
     Example:
