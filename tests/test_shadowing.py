@@ -109,3 +109,19 @@ def test_grazing_geometry_without_shadowing_warns(tmp_path):
         warnings.simplefilter("always")
         run(tmp_path, False, plateau=False, wall=False)
     assert not [w for w in caught if "shadowing off" in str(w.message)]
+
+
+def test_the_coherent_mode_is_shadowed_too(tmp_path):
+    """The coherent kernel calls the same march (with the flat line of sight there): the plateau
+    behind the wall is hidden in its echoes as well."""
+    def coherent(plateau, shadowing=True):
+        cfg = SimulationConfig(
+            radar=RadarConfig(center_frequency_hz=60e6, bandwidth_hz=20e6, sample_interval_s=10e-9, samples=1024),
+            surface=SurfaceConfig("cosine", {"k": 0.05, "n": 1.0}),
+            processing=ProcessingConfig(shadowing=shadowing, mode="coherent", random_phase=False),
+        )
+        track = utm_track(np.full(3, UTM_X0_M), UTM_Y0_M + np.array([-20.0, 0.0, 20.0]), ALT_M)
+        return simulate(scene(tmp_path, True, plateau), track, cfg, sources=False)["power"].values.astype(float)
+
+    assert np.allclose(coherent(True), coherent(False), rtol=1e-6, atol=0)
+    assert not np.allclose(coherent(True, False), coherent(False, False), rtol=1e-3, atol=0)  # it echoes unshadowed
