@@ -1057,10 +1057,11 @@ def compare_to_dir(
     too, as ``out_dir/radargram.nc`` (usable by ``cluttersim sources``).
     ``band`` names the band of a multi-band radar (default: the first);
     ``max_memory_bytes`` bounds the on-the-fly simulation
-    (:func:`~cluttersim.simulate.simulate`). ``tec_el_m2`` puts an ionospheric layer of
-    that total electron content between the simulation and the observation: the on-the-fly
-    simulation runs through it (``[ionosphere]``), a given ``sim`` is dispersed by
-    :func:`cluttersim.ionosphere.disperse_radargram`.
+    (:func:`~cluttersim.simulate.simulate`).
+
+    ``tec_el_m2`` puts an ionospheric layer of that total electron content between the
+    simulation and the observation: the simulation is dispersed by
+    :func:`cluttersim.ionosphere.disperse_radargram` before comparing.
 
     Products (:data:`COMPARE_FILES`): ``comparison.nc``, ``candidates.csv``,
     ``side_by_side.png``, ``overlay.png``, ``difference.png``. Existing ones
@@ -1086,11 +1087,6 @@ def compare_to_dir(
     if sim is not None:
         sim_ds = open_radargram(sim, band=band)
         sim_source = str(sim)
-        if tec_el_m2:
-            from .ionosphere import disperse_radargram
-
-            sim_ds = disperse_radargram(sim_ds, tec_el_m2)
-            sim_source += f" through TEC {tec_el_m2:.3g} el/m²"
     else:
         from .config import default_config
         from .simulate import simulate
@@ -1102,13 +1098,14 @@ def compare_to_dir(
             raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
         config = replace(config, radar=replace(config.radar, sample_interval_s=observed.sample_interval_s,
                                                samples=max(observed.n_samples, 2)))  # fmt: skip
-        if tec_el_m2:
-            from .ionosphere import IonosphereConfig
-
-            config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
         sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
                           max_memory_bytes=max_memory_bytes)  # fmt: skip
         sim_source = f"simulated on the fly from {Path(dem).name}"
+    if tec_el_m2:  # the observed echoes came through an ionosphere: so must the simulated ones
+        from .ionosphere import disperse_radargram
+
+        sim_ds = disperse_radargram(sim_ds, tec_el_m2)
+        sim_source += f" through TEC {tec_el_m2:.3g} el/m²"
     result = compare(observed, sim_ds, settings, progress=progress, sim_source=sim_source)
     write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None)
     return result, paths
