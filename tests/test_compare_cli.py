@@ -323,4 +323,3 @@ def test_observed_and_simulated_grids_may_differ_in_sample_interval(files, tmp_p
         assert ds.attrs["delay_offset_samples"] == pytest.approx(7.3, abs=0.25)
         assert ds.attrs["gain_db"] == pytest.approx(23.0, abs=0.3)
     assert not math.isnan(float(res.output.split("delay offset:")[1].split()[0]))
-
