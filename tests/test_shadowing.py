@@ -118,7 +118,7 @@ def test_the_coherent_mode_is_shadowed_too(tmp_path):
         cfg = SimulationConfig(
             radar=RadarConfig(center_frequency_hz=60e6, bandwidth_hz=20e6, sample_interval_s=10e-9, samples=1024),
             surface=SurfaceConfig("cosine", {"k": 0.05, "n": 1.0}),
-            processing=ProcessingConfig(shadowing=shadowing, mode="coherent", random_phase=False),
+            processing=ProcessingConfig(shadowing=shadowing, mode="coherent", seed=4),
         )
         track = utm_track(np.full(3, UTM_X0_M), UTM_Y0_M + np.array([-20.0, 0.0, 20.0]), ALT_M)
         return simulate(scene(tmp_path, True, plateau), track, cfg, sources=False)["power"].values.astype(float)
