@@ -368,9 +368,12 @@ class Scene:
 
 def prepare_scene(
     src: DemSource, track: Track, config: SimulationConfig, stats: RunStats | None = None, *,
-    max_memory_bytes: int | str | None = "auto", sources: bool = True,
+    max_memory_bytes: int | str | None = "auto", sources: bool = True, range_margin_m: float = 0.0,
 ) -> Scene:  # fmt: skip
     """Read the DEM window a track needs, build its facets and each trace's recording window.
+
+    ``range_margin_m`` widens the DEM window as if every window reached that much farther
+    (the DEM-error Monte Carlo, :mod:`cluttersim.dem_error`, raises terrain by up to it).
 
     Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
     below the terrain, or windows that cannot hold any surface echo, and
@@ -419,7 +422,8 @@ def prepare_scene(
         )  # fmt: skip
         memory.check_memory(est, limit, given=given)
 
-    window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
+    margin_samples = int(math.ceil(2.0 * range_margin_m / SPEED_OF_LIGHT_M_S / radar.sample_interval_s))
+    window = read_track_window(src, track, on_dem, config, pad_samples=pad + margin_samples, before_full_read=check)
     warn_holes(window)
     t0 = time.perf_counter()
     facets = build_facets(window)
