@@ -529,3 +529,27 @@ def explained_probability(observed_w, realisations_w, noise_power_w, **rule) -> 
         detected = d.detected
     p = np.where(detected, count / n, np.nan)
     return p, np.sqrt(p * (1.0 - p) / n)
+
+
+# --------------------------------------------------------------------------- products
+
+#: File names the DEM-error products add to a run directory.
+DEM_ERROR_FILES = {"dem_error": "dem_error.nc", "dem_error_png": "dem_error.png"}
+
+
+def dem_error_paths(out_dir) -> dict:
+    from pathlib import Path
+
+    return {k: Path(out_dir) / v for k, v in DEM_ERROR_FILES.items()}
+
+
+def write_dem_error(ds: xr.Dataset, paths: dict) -> None:
+    """Write ``dem_error.nc`` (the Dataset of :func:`simulate_dem_error`) and ``dem_error.png``
+    (:func:`cluttersim.planning_plots.plot_dem_error`) atomically."""
+    from .outputs import atomic_paths
+    from .planning_plots import plot_dem_error
+    from .radargram import write_netcdf_to
+
+    with atomic_paths([paths["dem_error"], paths["dem_error_png"]]) as (nc, png):
+        write_netcdf_to(ds, nc)
+        plot_dem_error(ds, png)

@@ -231,3 +231,27 @@ def test_rms_map_on_another_grid_is_refused(flat, tmp_path):
     with pytest.raises(DemError, match="expected the DEM's grid"):
         simulate_dem_error(src, track, small_radar(128), DemErrorConfig(1.0, 100.0, realisations=2,
                                                                       rms_map=str(tmp_path / "rms.tif")))  # fmt: skip
+
+
+def test_simulate_command_writes_dem_error_products(flat, tmp_path):
+    from click.testing import CliRunner
+
+    from cli.main import cli
+
+    src, track = flat
+    track.to_csv(tmp_path / "track.csv")
+    (tmp_path / "radar.toml").write_text("[radar]\nsamples = 128\n[dem_error]\nrms_m = 5.0\ncorrelation_m = 3000.0\n")
+    args = ["simulate", "--dem", str(src.path), "--track", str(tmp_path / "track.csv"), "--radar",
+            str(tmp_path / "radar.toml"), "--out", str(tmp_path / "run"), "--realisations", "3", "-q"]  # fmt: skip
+    result = CliRunner().invoke(cli, args)
+    assert result.exit_code == 0, result.output
+    import xarray as xr
+
+    with xr.open_dataset(tmp_path / "run" / "dem_error.nc") as ds:
+        assert ds.attrs["dem_error_realisations"] == 3 and ds.attrs["dem_error_rms_m"] == 5.0
+        assert {"power_q05", "power_q50", "power_q95", "power_nominal"} <= set(ds.data_vars)
+    assert (tmp_path / "run" / "dem_error.png").stat().st_size > 0
+    again = CliRunner().invoke(cli, args)  # products exist: refused, one line, exit 2
+    assert again.exit_code == 2 and "already exists" in again.output
+    bad = CliRunner().invoke(cli, args[:-3] + ["--out", str(tmp_path / "run2"), "--dem-error", "5"])
+    assert bad.exit_code == 1 and "RMS_M,CORR_M" in bad.output and not (tmp_path / "run2").exists()
