@@ -67,6 +67,10 @@ def _register():
 
     cli.add_command(survey.survey_cmd)
 
+    from . import plan
+
+    cli.add_command(plan.plan_cmd)
+
 
 _register()
 

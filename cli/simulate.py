@@ -81,6 +81,7 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     )  # fmt: skip
     if error is not None:
         ds = simulate_dem_error(dem_path, track_path, config, error, body_radius_m=body_radius_m, progress=not quiet,
+                                keep_realisations=True,
                                 max_memory_bytes=max_memory)  # fmt: skip
         write_dem_error(ds, error_paths)
         paths.update(error_paths)

@@ -909,6 +909,12 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
         explained_within_db=settings.explained_within_db, tolerance_samples=tol_samples, peak_half_width_samples=peak_half,
     )  # fmt: skip
     cont = continuity_fraction(det.candidate, settings.continuity_traces, peak_half)
+    from .dem_error import comparison_probability  # None unless sim_ds holds DEM realisations (dem_error.nc)
+
+    prob = comparison_probability(
+        sim_ds, rows_sim, gain.gain_db, aligned, noise.power, threshold_db=settings.threshold_db,
+        explained_within_db=settings.explained_within_db, tolerance_samples=tol_samples, peak_half_width_samples=peak_half,
+    )  # fmt: skip
 
     nadir = sim_ds["nadir_delay"].values[rows_sim]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -934,6 +940,8 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
             "sim_trace": int(rows_sim[ti[c]]), "sim_delay_us": (abs_delay[c] - sim_ws[ti[c]]) * 1e6,
             "grid_sample": int(ki[c]),
         })  # fmt: skip
+        if prob is not None:
+            candidates[-1]["explained_probability"] = float(prob[ti[c], ki[c]])
 
     finite_obs = np.isfinite(observed.power[rows_obs]).sum()
     covered = np.isfinite(aligned).sum()
@@ -951,6 +959,11 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
         observed, sim_ds, match, rows_obs, rows_sim, aligned, sim_matched, det, noise, offset, gain, settings,
         tol_s=tol_samples * dt, sim_source=sim_source,
     )  # fmt: skip
+    if prob is not None:
+        full = np.full((ds.sizes["trace"], ns), np.nan, dtype=np.float32)
+        full[rows_obs] = prob
+        ds["explained_probability"] = (("trace", "sample"), full, {"units": "1", "long_name":
+            "share of DEM realisations under which the sample is explained by surface clutter (NaN: not detected)"})
     return Comparison(
         dataset=ds, match=match, offset=offset, gain=gain, noise=noise, candidates=candidates, settings=settings,
         observed_source=observed.source, sim_source=sim_source, coverage=coverage, notes=notes,
@@ -1135,9 +1148,11 @@ def write_candidates_csv(candidates: list[dict], path) -> None:
     }  # fmt: skip
     with open(path, "w", newline="", encoding="utf-8") as fh:
         writer = csv.writer(fh)
-        writer.writerow(CANDIDATE_COLUMNS)
+        extra = ["explained_probability"] if candidates and "explained_probability" in candidates[0] else []
+        writer.writerow(CANDIDATE_COLUMNS + extra)
         for c in candidates:
-            writer.writerow([formats.get(k, "{}").format(c[k]) for k in CANDIDATE_COLUMNS])
+            writer.writerow([formats.get(k, "{}").format(c[k]) for k in CANDIDATE_COLUMNS]
+                            + [f"{c[k]:.3f}" for k in extra])
 
 
 def format_summary(result: Comparison, top: int = 5) -> str:

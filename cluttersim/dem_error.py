@@ -531,6 +531,16 @@ def explained_probability(observed_w, realisations_w, noise_power_w, **rule) -> 
     return p, np.sqrt(p * (1.0 - p) / n)
 
 
+def comparison_probability(sim_ds, rows_sim, gain_db: float, aligned_w, noise_power_w, **rule):
+    """The comparison's hook: :func:`explained_probability` of the aligned observed samples against
+    the matched traces of every realisation in ``sim_ds`` (``power_realisations``, as written to
+    dem_error.nc), gain ``gain_db`` applied; None when ``sim_ds`` has no realisations."""
+    if "power_realisations" not in sim_ds:
+        return None
+    real = np.asarray(sim_ds["power_realisations"].values[:, rows_sim], dtype=np.float64) * 10.0 ** (gain_db / 10.0)
+    return explained_probability(aligned_w, real, noise_power_w, **rule)[0]
+
+
 # --------------------------------------------------------------------------- products
 
 #: File names the DEM-error products add to a run directory.

@@ -255,3 +255,38 @@ def test_simulate_command_writes_dem_error_products(flat, tmp_path):
     assert again.exit_code == 2 and "already exists" in again.output
     bad = CliRunner().invoke(cli, args[:-3] + ["--out", str(tmp_path / "run2"), "--dem-error", "5"])
     assert bad.exit_code == 1 and "RMS_M,CORR_M" in bad.output and not (tmp_path / "run2").exists()
+
+
+def test_compare_gives_candidates_a_probability(flat):
+    """Observed = an independent DEM realisation (another seed) + noise, plus an invented echo 20 dB below
+    the peak 25 samples before the surface, where no realisation has any: the comparison against the
+    realisations explains most detected samples with a high probability and gives that echo ~0."""
+    from cluttersim.compare import compare
+    from cluttersim.observed import ObservedRadargram
+
+    src, track = flat
+    cfg = small_radar()
+    sim = simulate_dem_error(src, track, cfg, DemErrorConfig(3.0, 5000.0, realisations=16, seed=1),
+                             keep_realisations=True)  # fmt: skip
+    truth = simulate_dem_error(src, track, cfg, DemErrorConfig(3.0, 5000.0, realisations=2, seed=99),
+                               keep_realisations=True)  # fmt: skip
+    rng = np.random.default_rng(0)
+    obs = truth["power_realisations"].values[0].astype(np.float64)
+    peak = np.nanmax(obs)
+    k_nadir = np.rint((sim["nadir_delay"].values - sim["window_start"].values) / DT_S).astype(int)
+    k_ref = k_nadir - 25
+    rows = np.arange(obs.shape[0])
+    obs[rows, k_ref] += 0.01 * peak
+    obs = obs + rng.exponential(peak * 1e-6, obs.shape)  # noise 60 dB below the peak
+    observed = ObservedRadargram(power=obs, sample_interval_s=DT_S, window_start_s=sim["window_start"].values,
+                                 track=track, source="invented")  # fmt: skip
+    result = compare(observed, sim)
+    p = result.dataset["explained_probability"].values
+    assert np.nanmin(p) >= 0 and np.nanmax(p) <= 1
+    assert np.all(p[rows, k_ref] <= 0.1)
+    detected = np.isfinite(p)
+    others = detected.copy()
+    others[rows, k_ref] = False
+    assert np.mean(p[others] >= 0.5) > 0.9
+    at_ref = [c for c in result.candidates if abs(c["grid_sample"] - k_ref[c["trace"]]) <= 1]
+    assert at_ref and all(c["explained_probability"] <= 0.1 for c in at_ref)
