@@ -109,9 +109,12 @@ def plot_best_worst(best_ds, worst_ds, path, *, best_title: str, worst_title: st
             ax.plot(np.arange(ntr), lay.nadir_us, color="white", lw=0.7, ls="--", label="nadir surface")
             if depth_window_s is not None and mask is not None and np.any(mask):
                 t = np.flatnonzero(mask)
-                for d_s in depth_window_s:
-                    ax.plot(t, lay.nadir_us[t] + d_s * 1e6, color=TARGET_COLOUR, lw=1.6)
-                ax.plot([], [], color=TARGET_COLOUR, lw=1.6, label="target depth window")
+                top = lay.nadir_us[t] + depth_window_s[0] * 1e6
+                bottom = lay.nadir_us[t] + depth_window_s[1] * 1e6
+                x = np.concatenate([[t[0] - 0.5], t, [t[-1] + 0.5]])
+                ax.plot(np.concatenate([x, x[::-1], x[:1]]),
+                        np.concatenate([top[[0]], top, top[[-1]], bottom[[-1]], bottom[::-1], bottom[[0]], top[[0]]]),
+                        color=TARGET_COLOUR, lw=1.8, label="target's traces and depth window")  # fmt: skip
         ax.set_title(title)
         ax.set_xlabel("trace")
         ax.set_ylabel(lay.delay_label)
