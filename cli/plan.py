@@ -35,6 +35,15 @@ from .options import band_option, load_config, max_memory_option, out_dir_option
 @click.option("--track-length-km", type=float, default=40.0, show_default=True, help="Length of each candidate track.")
 @click.option("--trace-spacing-m", type=float, default=500.0, show_default=True, help="Distance between traces.")
 @permittivity_option
+@click.option("--dem-error", "dem_error", default=None, metavar="RMS_M,CORR_M",
+              help="Rank by the probability under DEM error (RMS and correlation length, m) that the clutter index "
+                   "at the target reaches --threshold-db (a Monte Carlo on the target's traces per candidate).")
+@click.option("--realisations", type=click.IntRange(min=2), default=32, show_default=True,
+              help="DEM realisations per candidate with --dem-error.")
+@click.option("--dem-error-seed", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Seed of the DEM error fields (the same fields for every candidate).")
+@click.option("--threshold-db", type=float, default=0.0, show_default=True,
+              help="With --dem-error: the clutter index level whose probability is ranked, dB.")
 @click.option("--body-radius-m", type=float, default=None, help="Sphere radius (m) for a DEM without CRS.")
 @click.option("--workers", type=click.IntRange(min=1), default=None,
               help="Local worker processes (or LocalCluster workers) [default: one per core].")
@@ -46,8 +55,8 @@ from .options import band_option, load_config, max_memory_option, out_dir_option
 @overwrite_option
 @quiet_option
 def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_path, platform, alt_m, offset_m,
-             headings_deg, coarse_step_deg, fine_step_deg, track_length_km, trace_spacing_m, permittivity,
-             body_radius_m, workers, scheduler, band, max_memory, out_dir, overwrite, quiet):  # fmt: skip
+             headings_deg, coarse_step_deg, fine_step_deg, track_length_km, trace_spacing_m, permittivity, dem_error,
+             realisations, dem_error_seed, threshold_db, body_radius_m, workers, scheduler, band, max_memory, out_dir, overwrite, quiet):  # fmt: skip
     """Find the track over a target whose radargram has the least clutter in the target's depth window.
 
     Candidate tracks through the target (headings, altitudes and, for airborne lines,
@@ -62,7 +71,12 @@ def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_p
       cluttersim plan --dem site.tif --target 11.95 41.0 --depth-m 50 300 \\
           --alt-m 300000 --radar radar.toml --out plan1
     """
+    from cluttersim.dem_error import DemErrorConfig
     from cluttersim.errors import ConfigError
+
+    error = None
+    if dem_error is not None:
+        error = DemErrorConfig.parse_option(dem_error, realisations=realisations, seed=dem_error_seed)
 
     if (target is None) == (target_polygon is None):
         raise click.UsageError("give either --target LON LAT or --target-polygon CSV")
@@ -73,7 +87,7 @@ def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_p
                           headings_deg=tuple(headings_deg), offsets_m=tuple(offset_m) or (0.0,),
                           coarse_step_deg=coarse_step_deg, fine_step_deg=fine_step_deg,
                           track_length_m=track_length_km * 1e3, trace_spacing_m=trace_spacing_m,
-                          permittivity=permittivity)  # fmt: skip
+                          permittivity=permittivity, threshold_db=threshold_db, dem_error=error)  # fmt: skip
     except ConfigError as exc:
         raise ConfigError(f"plan: {exc}") from None
     config = load_config(radar_path)
@@ -88,5 +102,8 @@ def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_p
         click.echo(f"best: heading {b.candidate.heading_deg:.1f}°, alt {b.candidate.alt_m:g} m, offset "
                    f"{b.candidate.offset_m:g} m: clutter index {b.objective_db:.1f} dB; worst: heading "
                    f"{w.candidate.heading_deg:.1f}° ({w.objective_db:.1f} dB)")  # fmt: skip
+        if error is not None:
+            click.echo(f"probability that the index reaches {threshold_db:g} dB under DEM error: best "
+                       f"{b.probability:.2f} ± {b.probability_se:.2f}, worst {w.probability:.2f} ± {w.probability_se:.2f}")
         for p in result.paths.values():
             click.echo(f"wrote {p}")

@@ -339,7 +339,7 @@ def _tile_cells(facets) -> int:
 def simulate_dem_error(
     dem, track, config: SimulationConfig | None, error: DemErrorConfig, *, body_radius_m: float | None = None,
     band: str | None = None, progress: bool = False, keep_realisations: bool = False, stats: ErrorStats | None = None,
-    max_memory_bytes: int | str | None = "auto",
+    max_memory_bytes: int | str | None = "auto", sides: bool = False,
 ) -> xr.Dataset:  # fmt: skip
     """Simulate a track over N realisations of the DEM plus its error; per (trace, sample) statistics.
 
@@ -351,7 +351,11 @@ def simulate_dem_error(
     error : DemErrorConfig
     keep_realisations : bool
         Also return every realisation's power as ``power_realisations``
-        (realisation, trace, sample).
+        (realisation, trace, sample) and nadir delay as ``nadir_delay_realisations``.
+    sides : bool
+        With ``keep_realisations``, also each realisation's source-record side shares
+        ``left_fraction_realisations`` and ``right_fraction_realisations`` (the kernel then runs
+        with the source record, nadir strip = the pulse-limited footprint; no presumming).
 
     Returns
     -------
@@ -415,21 +419,42 @@ def simulate_dem_error(
     frames = trace_frames(right_unit, body.up_unit(track.lat_deg, track.lon_deg)[idx])
     ntr = len(track)
     chunk = 256
+    sides = sides and keep_realisations
+    if sides and config.processing.presum > 1:
+        raise ConfigError("[dem_error] side shares per realisation need [processing] presum = 1")
+    strip = None
+    if sides:
+        from .radar import pulse_limited_radius_m
 
-    def run(scene_k) -> np.ndarray:
+        alt = np.nan_to_num(track.alt_m - scene.h_nadir_m)[idx]
+        strip = pulse_limited_radius_m(alt, radar.bandwidth_hz, body.mean_radius_m) * np.ones(idx.size)
+    side_out = {}
+
+    def run(scene_k, k=None) -> np.ndarray:
         power = np.full((ntr, radar.samples), np.nan)
         t1 = time.perf_counter()
         for a in range(0, idx.size, chunk):
             b = min(a + chunk, idx.size)
-            binned, _, n_eval = binned_power(scene_k, ant_on[a:b], bin0[a:b], nbins, None, None, False, frames[a:b],
-                                             idx[a:b])  # fmt: skip
+            binned, _, n_eval = binned_power(scene_k, ant_on[a:b], bin0[a:b], nbins, right_unit[a:b] if sides else None,
+                                             strip[a:b] if sides else None, sides, frames[a:b], idx[a:b])  # fmt: skip
             stats.facet_evaluations += n_eval
-            power[idx[a:b]] = _compress(binned[:, 0], scene.pulse_weights, pad, radar.samples)
+            total = _compress(binned[:, 0], scene.pulse_weights, pad, radar.samples)
+            power[idx[a:b]] = total
+            if sides and k is not None:
+                from .attribution import side_fractions
+                from .kernels import SIDE_LEFT, SIDE_RIGHT
+
+                left = _compress(binned[:, SIDE_LEFT], scene.pulse_weights, pad, radar.samples)
+                right = _compress(binned[:, SIDE_RIGHT], scene.pulse_weights, pad, radar.samples)
+                side_out["left"][k, idx[a:b]], side_out["right"][k, idx[a:b]] = side_fractions(left, right, total)
         stats.seconds_kernel += time.perf_counter() - t1
         return presum.group_mean(power, config.processing.presum).astype(np.float32)
 
-    nominal = run(scene)
     n = error.realisations
+    if sides:
+        side_out["left"] = np.full((n, ntr, radar.samples), np.nan, dtype=np.float32)
+        side_out["right"] = np.full((n, ntr, radar.samples), np.nan, dtype=np.float32)
+    nominal = run(scene)
     stack = np.empty((n, n_out, radar.samples), dtype=np.float32)
     nadir = np.empty((n, ntr))
     with tqdm(total=n, unit="realisation", delay=1.0, disable=not progress, desc="DEM realisations") as bar:
@@ -442,7 +467,7 @@ def simulate_dem_error(
             stats.seconds_facets += time.perf_counter() - t1
             h = scene_k.window.bilinear_m(track.lon_deg, track.lat_deg)
             nadir[k] = 2.0 * (track.alt_m - h) / SPEED_OF_LIGHT_M_S
-            stack[k] = run(scene_k)
+            stack[k] = run(scene_k, k)
             bar.update(1)
 
     mean, std, quant = power_statistics(stack)
@@ -466,6 +491,11 @@ def simulate_dem_error(
                                                   f"{round(100 * q)} % quantile of the power over DEM realisations")  # fmt: skip
     if keep_realisations:
         extra["power_realisations"] = (("realisation", "trace", "sample"), stack, "W", "power of each DEM realisation")
+        extra["nadir_delay_realisations"] = (("realisation", "trace"), nadir_out.T, "s",
+                                             "nadir delay of each DEM realisation")  # fmt: skip
+        for side, values in side_out.items():
+            extra[f"{side}_fraction_realisations"] = (("realisation", "trace", "sample"), values, "1",
+                                                      f"share of the power from the {side} of the track, per realisation")  # fmt: skip
     attrs = {
         **flatten_config_attrs(config),
         "dem_file": src.path.name,

@@ -18,7 +18,10 @@ apparent depth ``depth_min`` are left out (outside the nadir echo's main lobe), 
 ends at ``depth_max`` (apparent depths for the real permittivity ε′). The candidate's
 objective is the largest index over the target's traces (those whose nadir lies within
 ``target_radius_m`` of the target point, or inside the target polygon): the worst case at
-the target, lower is better. A candidate that has no trace on the target scores +inf.
+the target, lower is better. A candidate that has no trace on the target scores +inf. With ``PlanConfig.dem_error`` the
+candidates are ranked instead by the probability, over DEM realisations
+(:mod:`cluttersim.dem_error`, simulated on the target's traces only), that the objective reaches
+``threshold_db`` (ties broken by the error-free objective).
 
 What makes headings differ. A trace's ranges to the terrain do not depend on the direction
 of travel, so with an isotropic antenna and raw (unprocessed) echoes the clutter at a single
@@ -114,7 +117,7 @@ class PlanTarget:
             return MplPath(verts).contains_points(np.column_stack([dlon, lat_deg]))
         _, _, dist = body.geod().inv(np.full(lon_deg.shape, self.lon_deg), np.full(lat_deg.shape, self.lat_deg),
                                      lon_deg, lat_deg)  # fmt: skip
-        return np.asarray(dist) <= self.radius_m
+        return np.asarray(dist) <= self.radius_m + 1e-3  # 1 mm: traces exactly at the radius count on every heading
 
 
 @dataclass(frozen=True)
@@ -133,6 +136,7 @@ class PlanConfig:
     trace_spacing_m: float = 500.0
     permittivity: float = 3.15
     threshold_db: float = 0.0
+    dem_error: object | None = None  # a DemErrorConfig: rank by P(objective ≥ threshold_db) under DEM error
 
     def __post_init__(self):
         d0, d1 = self.depth_m
@@ -232,6 +236,7 @@ class PlanJob:
     max_memory_bytes: int | str | None = "auto"
     numba_threads: int | None = None
     key: str = ""
+    dem_error: object | None = None  # DemErrorConfig: also the probability under DEM error
 
 
 @dataclass
@@ -244,18 +249,30 @@ class CandidateResult:
     objective_db: float
     warnings: list[str] = field(default_factory=list)
     seconds: float = 0.0
+    probability: float = math.nan
+    probability_se: float = math.nan
 
 
 def depth_window_index_db(ds, depth_m, permittivity: float, threshold_db: float = 0.0) -> np.ndarray:
     """Per trace, :func:`cluttersim.survey.clutter_index` over the apparent depths ``depth_m`` =
     (min, max) only: power between the nadir echo's main lobe and the minimum depth is left out."""
+    return index_in_depth_window_db(
+        ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
+        ds["nadir_delay"].values, float(ds.attrs["radar_sample_interval_s"]), float(ds.attrs["radar_bandwidth_hz"]),
+        depth_m, permittivity, threshold_db,
+    )  # fmt: skip
+
+
+def index_in_depth_window_db(power_w, left_fraction, right_fraction, window_start_s, nadir_delay_s, dt_s: float,
+                             bandwidth_hz: float, depth_m, permittivity: float, threshold_db: float = 0.0):  # fmt: skip
+    """:func:`depth_window_index_db` on arrays (trace, sample)."""
     from .survey import clutter_index
 
-    dt = float(ds.attrs["radar_sample_interval_s"])
-    mainlobe = max(1, int(math.ceil(1.0 / (float(ds.attrs["radar_bandwidth_hz"]) * dt))))
-    p = np.array(ds["power"].values, dtype=np.float64)
-    start = ds["window_start"].values.astype(np.float64)
-    nadir = ds["nadir_delay"].values.astype(np.float64)
+    dt = dt_s
+    mainlobe = max(1, int(math.ceil(1.0 / (bandwidth_hz * dt))))
+    p = np.array(power_w, dtype=np.float64)
+    start = np.asarray(window_start_s, dtype=np.float64)
+    nadir = np.asarray(nadir_delay_s, dtype=np.float64)
     k = np.arange(p.shape[1])
     t = start[:, None] + k * dt
     k_nadir = np.rint((nadir - start) / dt)[:, None]
@@ -264,9 +281,35 @@ def depth_window_index_db(ds, depth_m, permittivity: float, threshold_db: float 
         shallow = (t < nadir[:, None] + skip_s - 0.5 * dt) & (np.abs(k - k_nadir) > mainlobe)
     p[shallow] = 0.0
     window_s = float(delay_after_surface_s(depth_m[1], permittivity))
-    index_db, *_ = clutter_index(p, ds["left_fraction"].values, ds["right_fraction"].values, start, nadir, dt,
-                                 window_s, mainlobe, threshold_db, permittivity)  # fmt: skip
+    index_db, *_ = clutter_index(p, left_fraction, right_fraction, start, nadir, dt, window_s, mainlobe, threshold_db,
+                                 permittivity)  # fmt: skip
     return index_db
+
+
+def clutter_probability(dem, track: Track, on_target, sim_config, error, depth_m, permittivity: float,
+                        threshold_db: float, body_radius_m=None, max_memory_bytes="auto") -> tuple[float, float]:
+    """The probability under DEM error that the objective reaches ``threshold_db``, and its binomial
+    standard error: the share of realisations (:func:`cluttersim.dem_error.simulate_dem_error`, on the
+    target's traces only) whose largest depth-window index over those traces is ≥ the threshold."""
+    from .dem_error import simulate_dem_error
+
+    on_target = np.asarray(on_target, bool)
+    sub = Track(track.lat_deg[on_target], track.lon_deg[on_target], track.alt_m[on_target], source=track.source)
+    ds = simulate_dem_error(dem, sub, sim_config, error, body_radius_m=body_radius_m, keep_realisations=True,
+                            sides=True, max_memory_bytes=max_memory_bytes)  # fmt: skip
+    dt = float(ds.attrs["radar_sample_interval_s"])
+    bw = float(ds.attrs["radar_bandwidth_hz"])
+    hits = []
+    for k in range(error.realisations):
+        index = index_in_depth_window_db(
+            ds["power_realisations"].values[k], ds["left_fraction_realisations"].values[k],
+            ds["right_fraction_realisations"].values[k], ds["window_start"].values,
+            ds["nadir_delay_realisations"].values[k], dt, bw, depth_m, permittivity, threshold_db,
+        )  # fmt: skip
+        obj = objective_db(index, np.ones(index.size, bool))
+        hits.append(obj >= threshold_db)
+    p = float(np.mean(hits))
+    return p, math.sqrt(p * (1.0 - p) / len(hits))
 
 
 def objective_db(index_db, on_target) -> float:
@@ -292,10 +335,17 @@ def plan_candidate(job: PlanJob) -> CandidateResult:
         ds = simulate(src, track, job.sim_config, body_radius_m=job.body_radius_m, sources=True,
                       max_memory_bytes=job.max_memory_bytes)  # fmt: skip
     index = depth_window_index_db(ds, job.depth_m, job.permittivity, job.threshold_db)
+    prob = (math.nan, math.nan)
+    if job.dem_error is not None and np.any(job.on_target & np.isfinite(index)):
+        with warnings.catch_warnings(record=True) as caught_mc:
+            warnings.simplefilter("always")
+            prob = clutter_probability(src, track, job.on_target, job.sim_config, job.dem_error, job.depth_m,
+                                       job.permittivity, job.threshold_db, job.body_radius_m, job.max_memory_bytes)  # fmt: skip
+        caught = list(caught) + list(caught_mc)
     return CandidateResult(
         track_id=job.track_id, index_db=index, on_target=job.on_target, objective_db=objective_db(index, job.on_target),
         warnings=list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, UserWarning))),
-        seconds=time.perf_counter() - t0,
+        seconds=time.perf_counter() - t0, probability=prob[0], probability_se=prob[1],
     )  # fmt: skip
 
 
@@ -311,6 +361,8 @@ class PlanRow:
     mean_index_db: float
     target_traces: int
     step_deg: float
+    probability: float = math.nan  # P(objective ≥ threshold) under DEM error (with PlanConfig.dem_error)
+    probability_se: float = math.nan
 
 
 @dataclass
@@ -334,7 +386,8 @@ class PlanResult:
 
 def _rank_key(row: PlanRow):
     c = row.candidate
-    return (row.objective_db, c.heading_deg, c.alt_m, c.offset_m)
+    prob = row.probability if math.isfinite(row.probability) else (math.inf if not math.isfinite(row.objective_db) else 0.0)
+    return (prob, row.objective_db, c.heading_deg, c.alt_m, c.offset_m)
 
 
 def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *, engine=None,
@@ -367,7 +420,7 @@ def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *,
             key = hashlib.sha256(json.dumps([c.id, str(src.path.resolve())]).encode()).hexdigest()
             jobs.append(PlanJob(c.id, str(src.path.resolve()), body_radius_m, tr.lat_deg, tr.lon_deg, tr.alt_m, mask,
                                 sim_config, tuple(plan.depth_m), plan.permittivity, plan.threshold_db,
-                                max_memory_bytes, None, key))  # fmt: skip
+                                max_memory_bytes, None, key, plan.dem_error))  # fmt: skip
         by_id = {c.id: c for c in cands}
         bar.total = (bar.total or 0) + len(jobs)
         bar.refresh()
@@ -376,7 +429,7 @@ def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *,
             c = by_id[res.track_id]
             vals = res.index_db[res.on_target & np.isfinite(res.index_db)]
             scored[c] = PlanRow(c, res.objective_db, float(vals.mean()) if vals.size else math.nan,
-                                int(res.on_target.sum()), step)  # fmt: skip
+                                int(res.on_target.sum()), step, res.probability, res.probability_se)  # fmt: skip
             for w in res.warnings:
                 if w not in warned:
                     warned.append(w)
@@ -451,13 +504,15 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
         tmp = dict(zip(keys, temps))
         with open(tmp["table"], "w", newline="", encoding="utf-8") as fh:
             w = csv.writer(fh)
+            prob = plan.dem_error is not None
             w.writerow(["rank", "track_id", "heading_deg", "alt_m", "offset_m", "objective_db", "mean_index_db",
-                        "target_traces", "search_step_deg"])  # fmt: skip
+                        "target_traces", "search_step_deg"]
+                       + (["clutter_probability", "clutter_probability_se"] if prob else []))  # fmt: skip
             for i, r in enumerate(result.rows, start=1):
                 c = r.candidate
                 w.writerow([i, c.id, f"{c.heading_deg:.3f}", f"{c.alt_m:.1f}", f"{c.offset_m:.1f}",
-                            f"{r.objective_db:.3f}", f"{r.mean_index_db:.3f}", r.target_traces,
-                            f"{r.step_deg:g}"])  # fmt: skip
+                            f"{r.objective_db:.3f}", f"{r.mean_index_db:.3f}", r.target_traces, f"{r.step_deg:g}"]
+                           + ([f"{r.probability:.4f}", f"{r.probability_se:.4f}"] if prob else []))  # fmt: skip
         tracks["best"].to_csv(tmp["best_track"])
         combos = sorted({(r.candidate.alt_m, r.candidate.offset_m) for r in result.rows})
         hs, vs, labels = [], [], []
@@ -465,19 +520,24 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
             rows = [r for r in result.rows if (r.candidate.alt_m, r.candidate.offset_m) == (a, o)
                     and math.isfinite(r.objective_db)]  # fmt: skip
             hs.append(np.array([r.candidate.heading_deg for r in rows]))
-            vs.append(np.array([r.objective_db for r in rows]))
+            vs.append(np.array([r.probability if plan.dem_error is not None else r.objective_db for r in rows]))
             label = f"{a / 1e3:g} km" + (" above ground" if plan.platform == "airborne" else "")
             labels.append(label + (f", offset {o:+g} m" if plan.platform == "airborne" else ""))
         b, wst = result.best, result.worst
-        plot_objective_polar(hs, vs, labels, tmp["polar"], objective_label="clutter index at the target (dB)",
-                             best=(b.candidate.heading_deg, b.objective_db),
-                             worst=(wst.candidate.heading_deg, wst.objective_db))  # fmt: skip
+        if plan.dem_error is None:
+            label, value = "clutter index at the target (dB)", (lambda r: r.objective_db)
+        else:
+            label, value = f"P(index ≥ {plan.threshold_db:g} dB) under DEM error", (lambda r: r.probability)
+        plot_objective_polar(hs, vs, labels, tmp["polar"], objective_label=label,
+                             best=(b.candidate.heading_deg, value(b)),
+                             worst=(wst.candidate.heading_deg, value(wst)))  # fmt: skip
         masks = [plan.target.on_target(src.body, tracks[n].lon_deg, tracks[n].lat_deg) for n in ("best", "worst")]
         window = tuple(float(delay_after_surface_s(d, plan.permittivity)) for d in plan.depth_m)
 
         def title(name, row):
             c = row.candidate
-            return f"{name}: heading {c.heading_deg:.1f}°, {c.alt_m / 1e3:g} km — index {row.objective_db:.1f} dB"
+            extra = f", P = {row.probability:.2f}" if math.isfinite(row.probability) else ""
+            return f"{name}: heading {c.heading_deg:.1f}°, {c.alt_m / 1e3:g} km — index {row.objective_db:.1f} dB{extra}"
 
         plot_best_worst(datasets["best"], datasets["worst"], tmp["best_worst"], best_title=title("best", b),
                         worst_title=title("worst", wst), target_traces=masks, depth_window_s=window)  # fmt: skip

@@ -170,3 +170,26 @@ def test_airborne_offsets_and_bad_geometry(massif):
     assert dist == pytest.approx(400.0, abs=0.01)
     az, _, _ = body.geod().inv(plan.target.lon_deg, plan.target.lat_deg, tr.lon_deg[2], tr.lat_deg[2])
     assert az == pytest.approx(90.0, abs=0.1)
+
+
+def test_probability_under_dem_error(massif):
+    """Known truths of the probability objective: with a negligible error (1 cm) it is 1 exactly when the
+    error-free objective reaches the threshold and 0 otherwise; with a real error it lies in [0, 1] and
+    its quoted error is the binomial one."""
+    from cluttersim.dem_error import DemErrorConfig
+
+    path, cfg, plan, *_ = massif
+    tiny = DemErrorConfig(0.01, 2000.0, realisations=2, seed=0)
+    small = dataclasses.replace(plan, headings_deg=(0.0, 90.0), coarse_step_deg=90.0, fine_step_deg=90.0)
+    rows = search(path, small, cfg, engine=Engine(workers=1))
+    by_heading = {r.candidate.heading_deg: r.objective_db for r in rows}
+    mid = 0.5 * (by_heading[0.0] + by_heading[90.0])  # between the two candidates' objectives
+    prows = search(path, dataclasses.replace(small, dem_error=tiny, threshold_db=mid), cfg, engine=Engine(workers=1))
+    for r in prows:
+        assert r.probability == (1.0 if by_heading[r.candidate.heading_deg] >= mid else 0.0)
+    assert prows[0].probability == 0.0  # ranked by probability: the one below the threshold first
+    real = DemErrorConfig(30.0, 1000.0, realisations=4, seed=1)
+    prows = search(path, dataclasses.replace(small, dem_error=real, threshold_db=mid), cfg, engine=Engine(workers=1))
+    for r in prows:
+        assert 0.0 <= r.probability <= 1.0
+        assert r.probability_se == pytest.approx(math.sqrt(r.probability * (1 - r.probability) / 4))
