@@ -530,7 +530,8 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
             label, value = f"P(index ≥ {plan.threshold_db:g} dB) under DEM error", (lambda r: r.probability)
         plot_objective_polar(hs, vs, labels, tmp["polar"], objective_label=label,
                              best=(b.candidate.heading_deg, value(b)),
-                             worst=(wst.candidate.heading_deg, value(wst)))  # fmt: skip
+                             worst=(wst.candidate.heading_deg, value(wst)),
+                             mirror=plan.headings_deg[1] - plan.headings_deg[0] <= 180.0)  # fmt: skip
         masks = [plan.target.on_target(src.body, tracks[n].lon_deg, tracks[n].lat_deg) for n in ("best", "worst")]
         window = tuple(float(delay_after_surface_s(d, plan.permittivity)) for d in plan.depth_m)
 

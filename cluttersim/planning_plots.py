@@ -58,11 +58,13 @@ def plot_dem_error(ds, path, *, dynamic_range_db: float = 60.0, band_max_db: flo
     return _save_atomic(fig, path)
 
 
-def plot_objective_polar(headings_deg, objective, labels, path, *, objective_label: str, best=None, worst=None):
+def plot_objective_polar(headings_deg, objective, labels, path, *, objective_label: str, best=None, worst=None,
+                         mirror: bool = True):  # fmt: skip
     """Objective against heading on a polar plot (clockwise from north), one curve per label.
 
     ``headings_deg`` and ``objective``: lists (per curve) of arrays. ``best``/``worst``:
-    (heading, value) marked.
+    (heading, value) marked. ``mirror``: also draw each value at the reverse heading (h + 180°,
+    the same ground track flown the other way), so the rose closes on itself.
     """
     fig = _new_figure((7.0, 6.5))
     ax = fig.add_subplot(projection="polar")
@@ -73,9 +75,14 @@ def plot_objective_polar(headings_deg, objective, labels, path, *, objective_lab
     span = max(hi - lo, 1e-6)
     r0 = lo - 0.15 * span  # radial axis: objective, offset so the lowest value is not at the centre
     for h, v, label in zip(headings_deg, objective, labels):
-        order = np.argsort(np.asarray(h) % 360.0)
-        hh = np.radians(np.asarray(h, float)[order])
-        vv = np.asarray(v, float)[order]
+        h, v = np.asarray(h, float) % 360.0, np.asarray(v, float)
+        if mirror:
+            h, v = np.concatenate([h, (h + 180.0) % 360.0]), np.concatenate([v, v])
+            h, keep = np.unique(np.round(h, 6), return_index=True)
+            v = v[keep]
+        order = np.argsort(h)
+        hh = np.radians(h[order])
+        vv = v[order]
         ax.plot(np.append(hh, hh[:1] + 2 * math.pi), np.append(vv, vv[:1]) - r0, marker="o", ms=3, lw=1.2,
                 label=label)  # fmt: skip
     for mark, colour, name in ((best, "#1a9850", "best"), (worst, "#d73027", "worst")):
@@ -84,9 +91,11 @@ def plot_objective_polar(headings_deg, objective, labels, path, *, objective_lab
                     label=f"{name}: {mark[0]:.1f}°, {mark[1]:.1f}")  # fmt: skip
     ticks = np.linspace(lo, hi, 4)
     ax.set_rticks(ticks - r0)
-    ax.set_yticklabels([f"{t:.1f}" for t in ticks], fontsize="small")
+    ax.set_yticklabels([f"{t:.2g}" for t in ticks], fontsize="small")
+    ax.set_rlabel_position(247.5)
     ax.set_rlim(0, hi - r0 + 0.05 * span)
-    ax.set_title(f"{objective_label} vs heading (lower is better)")
+    ax.set_title(f"{objective_label} vs heading\n(lower is better, nearer the centre"
+                 + ("; a heading and its reverse are one track)" if mirror else ")"))
     ax.legend(loc="lower left", bbox_to_anchor=(-0.12, -0.12), fontsize="small", framealpha=0.85)
     return _save_atomic(fig, path)
 

@@ -193,3 +193,33 @@ def test_probability_under_dem_error(massif):
     for r in prows:
         assert 0.0 <= r.probability <= 1.0
         assert r.probability_se == pytest.approx(math.sqrt(r.probability * (1 - r.probability) / 4))
+
+
+def test_plan_command_and_bad_input(massif, tmp_path):
+    from click.testing import CliRunner
+
+    from cli.main import cli
+
+    path, _, plan, *_ = massif
+    radar = tmp_path / "radar.toml"
+    radar.write_text('[radar]\nsamples = 256\n[antenna]\npattern = "gaussian"\nbeamwidth_along_deg = 8.0\n'
+                     'beamwidth_across_deg = 80.0\n')  # fmt: skip
+    poly = tmp_path / "target.csv"
+    t = plan.target
+    d = 0.005  # a small square around the target (~0.5 km)
+    poly.write_text("lon,lat\n" + "".join(f"{t.lon_deg + a * d},{t.lat_deg + b * d}\n"
+                                          for a, b in ((-1, -1), (1, -1), (1, 1), (-1, 1))))  # fmt: skip
+    base = ["plan", "--dem", str(path), "--depth-m", "50", "300", "--alt-m", "25000", "--radar", str(radar),
+            "--coarse-step-deg", "90", "--fine-step-deg", "90", "--track-length-km", "2", "--workers", "1", "-q"]  # fmt: skip
+    ok = CliRunner().invoke(cli, base + ["--target-polygon", str(poly), "--out", str(tmp_path / "p")])
+    assert ok.exit_code == 0, ok.output
+    assert {p.name for p in (tmp_path / "p").iterdir()} == {"plan.csv", "best_track.csv", "objective_polar.png",
+                                                            "best_worst.png"}  # fmt: skip
+    both = CliRunner().invoke(cli, base + ["--target-polygon", str(poly), "--target", "1", "2", "--out", str(tmp_path / "q")])
+    assert both.exit_code == 2 and "either --target" in both.output
+    bad = CliRunner().invoke(cli, [*base[:4], "300", "50", *base[6:], "--target", str(t.lon_deg), str(t.lat_deg),
+                                   "--out", str(tmp_path / "r")])  # fmt: skip
+    assert bad.exit_code == 1 and "depth 300.0 50.0" in bad.output and len(bad.output.strip().splitlines()) == 1
+    off = CliRunner().invoke(cli, base + ["--target", "0", "0", "--out", str(tmp_path / "s")])
+    assert off.exit_code == 1 and "not on the DEM" in off.output
+    assert not (tmp_path / "q").exists() and not (tmp_path / "r").exists() and not (tmp_path / "s").exists()
