@@ -1149,7 +1149,7 @@ def write_candidates_csv(candidates: list[dict], path) -> None:
     with open(path, "w", newline="", encoding="utf-8") as fh:
         writer = csv.writer(fh)
         extra = ["explained_probability"] if candidates and "explained_probability" in candidates[0] else []
-        writer.writerow(CANDIDATE_COLUMNS + extra)
+        writer.writerow(list(CANDIDATE_COLUMNS) + extra)
         for c in candidates:
             writer.writerow([formats.get(k, "{}").format(c[k]) for k in CANDIDATE_COLUMNS]
                             + [f"{c[k]:.3f}" for k in extra])
