@@ -370,6 +370,7 @@ def simulate_dem_error(
 
     from .antenna import trace_frames
     from .attribution import right_unit_vectors
+    from .radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
     from .radargram import build_dataset, flatten_config_attrs
     from .simulate import _compress, binned_power, prepare_scene
 
@@ -502,6 +503,8 @@ def simulate_dem_error(
         "dem_path": str(src.path.resolve()),
         **body.to_attrs(),
         "title": "cluttersim DEM-error Monte Carlo (power: mean over realisations)",
+        "power_convention": POWER_CONVENTION,  # the scale of simulate()'s power (cluttersim.radargram)
+        "power_convention_text": POWER_CONVENTION_TEXT,
         **{f"dem_error_{k}": v for k, v in error.to_dict().items()},
         "dem_error_covariance": "rms_m^2 exp(-(r/correlation_m)^2)",
     }

@@ -290,3 +290,17 @@ def test_compare_gives_candidates_a_probability(flat):
     assert np.mean(p[others] >= 0.5) > 0.9
     at_ref = [c for c in result.candidates if abs(c["grid_sample"] - k_ref[c["trace"]]) <= 1]
     assert at_ref and all(c["explained_probability"] <= 0.1 for c in at_ref)
+
+
+def test_nominal_power_is_the_ordinary_run(flat):
+    """The Monte Carlo's error-free pass is the ordinary simulation (same scene path, same kernel):
+    a simulation compared with itself gives zero difference (to float32 rounding)."""
+    from cluttersim.simulate import simulate
+
+    src, track = flat
+    cfg = small_radar(128)
+    ds = simulate_dem_error(src, track, cfg, DemErrorConfig(5.0, 3000.0, realisations=2))
+    ref = simulate(src, track, cfg, sources=False)
+    np.testing.assert_allclose(ds["power_nominal"].values, ref["power"].values, rtol=1e-5, atol=0)
+    np.testing.assert_array_equal(ds["window_start"].values, ref["window_start"].values)
+    assert ds.attrs["power_convention"] == ref.attrs["power_convention"]  # read back on the same scale
