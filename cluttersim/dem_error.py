@@ -409,6 +409,16 @@ def simulate_dem_error(
                               range_margin_m=MARGIN_RMS * realiser.max_rms_m)  # fmt: skip
         realiser = _Realiser(scene, error, body_radius_m)
     stats.seconds_scene = time.perf_counter() - t0
+    lead_m = 0.5 * SPEED_OF_LIGHT_M_S * float(np.nanmin(scene.earliest_delay_s - scene.start_s, initial=np.inf))
+    if 3.0 * realiser.max_rms_m > lead_m:
+        import warnings
+
+        warnings.warn(
+            f"[dem_error] 3 x RMS ({3 * realiser.max_rms_m:.0f} m) exceeds the {lead_m:.0f} m of range the recording "
+            "window keeps before the earliest echo: raised terrain in some realisations echoes before the window "
+            "and is lost (set [radar] window_start_s earlier)",
+            stacklevel=2,
+        )
 
     body = src.body
     idx, pad = scene.idx, scene.pad
