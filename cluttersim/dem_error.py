@@ -363,7 +363,7 @@ def simulate_dem_error(
         The radargram layout (:func:`cluttersim.radargram.build_dataset`, on the error-free
         run's recording windows) with ``power`` the mean over realisations and
         ``power_q05``, ``power_q50``, ``power_q95``, ``power_std`` (W), ``power_nominal`` (the
-        error-free DEM), per trace ``nadir_delay_mean`` and ``nadir_delay_std`` over the
+        error-free DEM, with the sub-cell roughness if any), per trace ``nadir_delay_mean`` and ``nadir_delay_std`` over the
         realisations (s), and the error settings as attributes (``dem_error_*``).
     """
     from tqdm.auto import tqdm
