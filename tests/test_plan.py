@@ -223,3 +223,20 @@ def test_plan_command_and_bad_input(massif, tmp_path):
     off = CliRunner().invoke(cli, base + ["--target", "0", "0", "--out", str(tmp_path / "s")])
     assert off.exit_code == 1 and "not on the DEM" in off.output
     assert not (tmp_path / "q").exists() and not (tmp_path / "r").exists() and not (tmp_path / "s").exists()
+
+
+def test_airborne_search_scores_every_altitude_and_offset(massif, tmp_path):
+    """Airborne lines 3 km above the ground at the target, offsets ±300 m (within the 900 m target radius):
+    every (altitude, offset) gets its headings scored, the lines cross the target, and the polar plot has
+    one curve each."""
+    path, cfg, plan, *_ = massif
+    air = dataclasses.replace(plan, platform="airborne", altitudes_m=(3000.0,), offsets_m=(-300.0, 300.0),
+                              headings_deg=(0.0, 90.0), coarse_step_deg=90.0, fine_step_deg=90.0)  # fmt: skip
+    result = run_plan(path, air, cfg, tmp_path / "air", engine=Engine(workers=1))
+    combos = {(r.candidate.heading_deg, r.candidate.offset_m) for r in result.rows}
+    assert combos == {(0.0, -300.0), (0.0, 300.0), (90.0, -300.0), (90.0, 300.0)}
+    assert all(r.target_traces >= 3 and math.isfinite(r.objective_db) for r in result.rows)
+    from cluttersim.track import Track
+
+    best = Track.from_csv(result.paths["best_track"])
+    np.testing.assert_allclose(best.alt_m, 3000.0, atol=1e-6)  # the plain under the target is at 0 m
