@@ -33,7 +33,7 @@ populations: variances add, common practice): Hagfors' C = 1/s² becomes
 
 The probability that an observed sample is explained by surface clutter
 (:func:`explained_probability`) is the share of realisations under which the
-comparison's rule (:func:`cluttersim.compare.detect_unexplained`) calls it explained.
+comparison's test (:func:`cluttersim.compare.compare`) calls it explained.
 """
 
 from __future__ import annotations
@@ -544,44 +544,24 @@ def power_statistics(stack: np.ndarray, block: int = 64):
 # --------------------------------------------------------------------------- comparison
 
 
-def explained_probability(observed_w, realisations_w, noise_power_w, **rule) -> tuple[np.ndarray, np.ndarray]:
+def explained_probability(explained_by, realisations_w, detected) -> tuple[np.ndarray, np.ndarray]:
     """Per observed sample, the share p of DEM realisations that explain it, and its standard error.
 
-    For each realisation k, :func:`cluttersim.compare.detect_unexplained` (``rule``: its
-    keyword arguments) classifies the observed samples against that realisation's
-    (gain-matched, aligned) simulated power; p is the fraction of realisations under which
-    a detected sample is explained, NaN where the sample is not detected. Its Monte Carlo
-    standard error is the binomial √(p(1 − p)/N).
-
-    Parameters
-    ----------
-    observed_w : (trace, sample)
-    realisations_w : (N, trace, sample)
-        Simulated power of each realisation on the observed grid, gain applied.
-    noise_power_w : (trace,)
+    ``explained_by(power_w)`` is the comparison's rule applied with one realisation's simulated
+    power (``realisations_w[k]``, (trace, sample) on the simulation's grid) in place of the
+    simulation: a boolean array over the observed samples (the comparison,
+    :func:`cluttersim.compare.compare`, aligns, scales and tests exactly as it does for the mean).
+    p is the fraction of the N realisations under which a sample is explained, NaN where the
+    sample is not ``detected`` (no echo above the noise). Its Monte Carlo standard error is the
+    binomial √(p(1 − p)/N).
     """
-    from .compare import detect_unexplained
-
-    realisations_w = np.asarray(realisations_w)
-    n = realisations_w.shape[0]
-    count = np.zeros(np.shape(observed_w))
-    detected = None
+    n = len(realisations_w)
+    count = None
     for k in range(n):
-        d = detect_unexplained(observed_w, realisations_w[k], noise_power_w, **rule)
-        count += d.explained
-        detected = d.detected
-    p = np.where(detected, count / n, np.nan)
+        e = np.asarray(explained_by(realisations_w[k]), dtype=np.float64)
+        count = e if count is None else count + e
+    p = np.where(np.asarray(detected, bool), count / n, np.nan)
     return p, np.sqrt(p * (1.0 - p) / n)
-
-
-def comparison_probability(sim_ds, rows_sim, gain_db: float, aligned_w, noise_power_w, **rule):
-    """The comparison's hook: :func:`explained_probability` of the aligned observed samples against
-    the matched traces of every realisation in ``sim_ds`` (``power_realisations``, as written to
-    dem_error.nc), gain ``gain_db`` applied; None when ``sim_ds`` has no realisations."""
-    if "power_realisations" not in sim_ds:
-        return None
-    real = np.asarray(sim_ds["power_realisations"].values[:, rows_sim], dtype=np.float64) * 10.0 ** (gain_db / 10.0)
-    return explained_probability(aligned_w, real, noise_power_w, **rule)[0]
 
 
 # --------------------------------------------------------------------------- products

@@ -176,22 +176,23 @@ def test_independent_cells_when_correlation_is_zero():
 
 
 def test_explained_probability_known_truth():
-    """Realisations S_k = P 10^(U/10), U ~ N(μ, s), observed P just above the detection threshold:
-    the comparison's rule (explained when S ≥ P 10^(-X/10), or S itself detectable, which here is
-    the stricter S ≥ ~P) holds with probability Φ((μ + X)/s) (normal CDF, SciPy); the estimate is
-    unbiased within its uncertainty over many seeds and its quoted binomial error is right."""
+    """Realisations S_k = P 10^(U/10), U ~ N(μ, s), and a rule "explained when S ≥ P 10^(-X/10)": the rule
+    holds with probability Φ((μ + X)/s) (normal CDF, SciPy); the estimated share is unbiased within its
+    uncertainty over many seeds, its quoted binomial error is right, and undetected samples get NaN."""
     from scipy.stats import norm
 
     mu, s, x, n = -4.0, 3.0, 3.0, 32
     truth = norm.cdf((mu + x) / s)
     means, singles, quoted = [], [], []
+    obs = np.full((3, 50), 10.5)
+    detected = np.ones(obs.shape, bool)
+    detected[:, -1] = False
     for seed in range(40):
         rng = np.random.default_rng(seed)
-        obs = np.full((3, 50), 10.5)
-        noise = np.ones(3)  # threshold 10 dB: every observed sample is detected
         sims = obs[None] * 10 ** (rng.normal(mu, s, size=(n, 3, 50)) / 10)
-        p, se = explained_probability(obs, sims, noise, threshold_db=10.0, explained_within_db=x,
-                                      tolerance_samples=0, peak_half_width_samples=1)  # fmt: skip
+        p, se = explained_probability(lambda sim: sim >= obs * 10 ** (-x / 10), sims, detected)
+        assert np.all(np.isnan(p[:, -1]))
+        p, se = p[:, :-1], se[:, :-1]
         means.append(np.mean(p))
         singles.append(p[0, 0])
         quoted.append(np.mean(se))
