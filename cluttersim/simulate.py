@@ -453,9 +453,12 @@ class Scene:
 
 def prepare_scene(
     src: DemSource, track: Track, config: SimulationConfig, stats: RunStats | None = None, *,
-    max_memory_bytes: int | str | None = "auto", sources: bool = True,
+    max_memory_bytes: int | str | None = "auto", sources: bool = True, range_margin_m: float = 0.0,
 ) -> Scene:  # fmt: skip
     """Read the DEM window a track needs, build its facets and each trace's recording window.
+
+    ``range_margin_m`` widens the DEM window as if every window reached that much farther
+    (the DEM-error Monte Carlo, :mod:`cluttersim.dem_error`, raises terrain by up to it).
 
     Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
     below the terrain, or windows that cannot hold any surface echo, and
@@ -505,7 +508,8 @@ def prepare_scene(
         memory.check_memory(est, limit, given=given)
 
     # the memory check comes before any preview of the DEM and before the pulse response is computed
-    window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
+    margin_samples = int(math.ceil(2.0 * range_margin_m / SPEED_OF_LIGHT_M_S / radar.sample_interval_s))
+    window = read_track_window(src, track, on_dem, config, pad_samples=pad + margin_samples, before_full_read=check)
     band_pulses = [cfg.pulse_kernel() for cfg in band_configs]
     kernel_weights = band_pulses[0][1]
     warn_holes(window)
