@@ -94,6 +94,10 @@ def _register():
     cli.add_command(survey.survey_cmd)
     require_finite_floats(cli)
 
+    from . import plan
+
+    cli.add_command(plan.plan_cmd)
+
 
 _register()
 
