@@ -67,6 +67,10 @@ def _register():
 
     cli.add_command(survey.survey_cmd)
 
+    from . import template
+
+    cli.add_command(template.template_cmd)
+
 
 _register()
 

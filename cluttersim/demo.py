@@ -20,6 +20,7 @@ from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
 from .report import REPORT_FILE, write_report
 from .outputs import atomic_paths, check_new
+from .radargram import open_radargram
 from .simulate import RunStats, simulate
 from .track import great_circle_track
 
@@ -81,10 +82,13 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     focused = simulate(src, track, focused_cfg, sources=False)
     # the same pass seen by two bands: the wide band resolves the clutter finely, the narrow one smears it
     bands = simulate(src, track, dataclasses.replace(default_config(), bands=DEMO_BANDS), sources=False)
+    # the focused view on the raw view's colour scale: the same echo has the same colour in both
+    limits = plots.db_limits(open_radargram(paths["radargram"]))
     with atomic_paths([track_csv, focused_png, bands_png]) as (tmp_csv, tmp_png, tmp_bands):
         track.to_csv(tmp_csv)
-        plots.plot_radargram(focused, tmp_png, permittivity=3.15,
-                             title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind suppressed")  # fmt: skip
+        plots.plot_radargram(focused, tmp_png, permittivity=3.15, db_limits=limits,
+                             title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind "
+                                   "suppressed\n(same colour scale as radargram.png)")  # fmt: skip
         plots.plot_band_radargrams(bands.isel(sample=slice(0, DEMO_BANDS_SAMPLES)), tmp_bands, permittivity=3.15,
                                    title="the same pass in two frequency bands (first 15 µs of the window)")  # fmt: skip
     # the page to point at echoes and see where they come from

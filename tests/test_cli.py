@@ -39,11 +39,12 @@ def run(args):
     return CliRunner().invoke(cli, [str(a) for a in args])
 
 
-def test_simulate_writes_the_three_products(scene):
+def test_simulate_writes_the_products(scene):
     d, dem, track, radar = scene
     res = run(["simulate", "--dem", dem, "--track", track, "--radar", radar, "--out", d / "run", "-q"])
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in (d / "run").iterdir()) == ["radargram.nc", "radargram.png", "radargram_sides.png", "track_map.png"]
+    assert sorted(p.name for p in (d / "run").iterdir()) == [
+        "radargram.nc", "radargram.png", "radargram_elevation.png", "radargram_sides.png", "track_map.png"]
     with xr.open_dataset(d / "run" / "radargram.nc", engine="h5netcdf") as ds:
         assert ds["power"].dims == ("trace", "sample") and ds["power"].shape == (9, 256)
         assert ds["power"].dtype == np.float32 and ds["power"].attrs["units"] == "W"
