@@ -139,20 +139,23 @@ class RadargramLayers:
 
 #: Bounds of the data-driven dynamic range (dB) chosen by :func:`auto_db_range`.
 AUTO_DB_RANGE_BOUNDS = (20.0, 80.0)
-#: Percentile of the echoing samples' power (dB) that :func:`auto_db_range` puts at the bottom of the scale.
+#: Percentile of the echoing samples' power (dB) that :func:`auto_db_range` puts near the bottom of the scale ...
 AUTO_DB_RANGE_PERCENTILE = 10.0
+#: ... this far above it (dB), so that the bulk of the samples shows as a dim texture, not black.
+AUTO_DB_RANGE_MARGIN_DB = 10.0
 
 
 def auto_db_range(power_or_db, *, is_db: bool = False) -> float:
     """A dynamic range (dB) chosen from the data so that the clutter shows.
 
-    The scale runs from the strongest sample down to the
-    :data:`AUTO_DB_RANGE_PERCENTILE`-th percentile of the samples that hold any
-    echo (power > 0: before the first surface echo a simulation holds exact
-    zeros, which are left out), rounded up to 5 dB and kept within
-    :data:`AUTO_DB_RANGE_BOUNDS`. With receiver noise that percentile sits near
-    the noise floor, so noise shows as a dim texture; without it, it reaches
-    down into the faint tails of the clutter hyperbolas.
+    The scale runs from the strongest sample down to
+    :data:`AUTO_DB_RANGE_MARGIN_DB` below the :data:`AUTO_DB_RANGE_PERCENTILE`-th
+    percentile of the samples that hold any echo (power > 0: before the first
+    surface echo a simulation holds exact zeros, which are left out), rounded
+    up to 5 dB and kept within :data:`AUTO_DB_RANGE_BOUNDS`. The bulk of the
+    samples (with receiver noise: the noise floor) then shows as a dim
+    texture under the brighter clutter hyperbolas, instead of a fixed 60 dB
+    that washes the hyperbolas out when the clutter spans less.
 
     Parameters
     ----------
@@ -169,7 +172,7 @@ def auto_db_range(power_or_db, *, is_db: bool = False) -> float:
     lo, hi = AUTO_DB_RANGE_BOUNDS
     if finite.size == 0:
         return 60.0
-    span = float(finite.max() - np.percentile(finite, AUTO_DB_RANGE_PERCENTILE))
+    span = float(finite.max() - np.percentile(finite, AUTO_DB_RANGE_PERCENTILE)) + AUTO_DB_RANGE_MARGIN_DB
     return float(np.clip(5.0 * np.ceil(span / 5.0), lo, hi))
 
 
@@ -473,16 +476,14 @@ def elevation_layers(ds, permittivity: float = 3.15, height_step_m: float | None
     nrow = int(min(4096, max(2, np.ceil((top - bottom) / step) + 1)))
     step = (top - bottom) / (nrow - 1) if nrow > 1 else step
     rows_h = top - np.arange(nrow) * step
-    db = power_db(power)
     image = np.full((nrow, ntrace), np.nan)
     for t in range(ntrace):
         h = height[t]
         if not np.isfinite(h).all():
             continue
-        # h decreases with sample index: interpolate on the reversed (increasing) arrays
-        vals = np.interp(rows_h, h[::-1], db[t, ::-1], left=np.nan, right=np.nan)
-        image[:, t] = vals
-    return image, top, step, surface
+        # h decreases with sample index: interpolate power (linear, W) on the reversed (increasing) arrays
+        image[:, t] = np.interp(rows_h, h[::-1], power[t, ::-1], left=np.nan, right=np.nan)
+    return power_db(image), top, step, surface
 
 
 def plot_elevation_radargram(ds, path=None, *, ax=None, permittivity: float = 3.15, dynamic_range_db=None,
@@ -1449,8 +1450,6 @@ def plot_echo_sources(
     ax.plot(antenna_x, antenna[1], ls="none", marker="*", ms=15, mfc="white", mec="black", mew=1.2, zorder=7,
             label="antenna nadir at this echo")  # fmt: skip
     _frame_map(ax, extent if view is None else view, axis_labels, geographic)
-    place_labels(ax, cell_x[ok], cell_y[ok], [str(r + 1) for r in np.flatnonzero(ok)],
-                 marker_radius_pt=np.sqrt(area_pt2[ok] / np.pi))  # fmt: skip
     features = ax.legend(loc="upper right", **_LEGEND_STYLE)
     ranked = np.flatnonzero(ok)
     if ranked.size:
@@ -1472,6 +1471,9 @@ def plot_echo_sources(
                   **_LEGEND_STYLE)  # fmt: skip
     if title:
         ax.set_title(title)
+    # labels last: the legends and title above settle the layout that their positions depend on
+    place_labels(ax, cell_x[ok], cell_y[ok], [str(r + 1) for r in np.flatnonzero(ok)],
+                 marker_radius_pt=np.sqrt(area_pt2[ok] / np.pi))  # fmt: skip
     return _finish(fig, ax, given, path, dpi, fmt)
 
 
@@ -1501,10 +1503,11 @@ def place_labels(ax, x, y, texts, *, marker_radius_pt=0.0, fontsize="small") -> 
 
     for i, text in enumerate(texts):
         px, py = xy[i]
-        probe = ax.annotate(text, (0, 0), fontsize=fontsize, fontweight="bold", bbox=_LABEL_BOX)
+        probe = ax.text(0.5, 0.5, text, transform=ax.transAxes, fontsize=fontsize, fontweight="bold")
         box = probe.get_window_extent(renderer)
+        pad = 2 * 0.2 * probe.get_fontsize() * scale  # the label box's padding (_LABEL_BOX: pad=0.2 em)
         probe.remove()
-        w, h = box.width, box.height
+        w, h = box.width + pad, box.height + pad
         gap = radius[i] + 2.0 * scale
         for dx, dy in _LABEL_OFFSETS_PT:
             cx, cy = px + dx * (gap + 0.5 * w), py + dy * (gap + 0.5 * h)
@@ -1517,6 +1520,7 @@ def place_labels(ax, x, y, texts, *, marker_radius_pt=0.0, fontsize="small") -> 
             drawn.append(ax.annotate(text, (x[i], y[i]), xytext=((cx - px) / scale, (cy - py) / scale),
                                      textcoords="offset points", ha="center", va="center", fontsize=fontsize,
                                      fontweight="bold", bbox=_LABEL_BOX, zorder=6))  # fmt: skip
+            drawn[-1].set_in_layout(False)  # the layout must not move the points after the labels are placed
             break
     return drawn
 

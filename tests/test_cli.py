@@ -73,7 +73,7 @@ def test_existing_output_is_not_overwritten_without_flag(scene):
 def test_track_command_writes_a_planned_track(scene):
     d, dem, _, _ = scene
     out = d / "planned.csv"
-    res = run(["track", "--start", -0.5, 0.0, "--end", 0.5, 0.0, "--alt-m", 300000, "--spacing-m", 1000, "--dem", dem, "--out", out])
+    res = run(["track", "--start-lat", -0.5, "--start-lon", 0.0, "--end-lat", 0.5, "--end-lon", 0.0, "--alt-m", 300000, "--spacing-m", 1000, "--dem", dem, "--out", out])
     assert res.exit_code == 0, res.output
     lines = out.read_text().splitlines()
     assert lines[0] == "lat,lon,alt"

@@ -97,6 +97,12 @@ def survey_run(massif, tmp_path_factory):
     return out, summary
 
 
+
+def region_args(region):
+    """The named region options (--lat-min ...) of a (lon_min, lat_min, lon_max, lat_max) box, as strings."""
+    lon0, lat0, lon1, lat1 = region
+    return [str(v) for v in ("--lat-min", lat0, "--lat-max", lat1, "--lon-min", lon0, "--lon-max", lon1)]
+
 # --------------------------------------------------------------------------- the clutter index
 
 
@@ -298,7 +304,7 @@ def test_interrupted_survey_resumes_without_recomputing(massif, tmp_path):
     # other arguments: the finished tracks are refused, not silently mixed in
     for p in out.glob("*.*"):
         p.unlink()
-    res = CliRunner().invoke(cli, ["survey", "--dem", str(massif), "--region", *map(str, _small().region),
+    res = CliRunner().invoke(cli, ["survey", "--dem", str(massif), *region_args(_small().region),
                                    "--spacing-km", "6", "--alt-m", str(ALT_M), "--trace-spacing-m", "1400",
                                    "--max-depth-m", "250", "--out", str(out), "-q"])  # fmt: skip
     assert res.exit_code == 2, res.output
@@ -309,7 +315,7 @@ def test_sigint_stops_the_survey_and_a_restart_resumes(massif, tmp_path):
     """SIGINT to `cluttersim survey` with two worker processes once a track is written: exit 130, one
     line, no temporary file and no map; the same command again finishes only the other tracks."""
     out = tmp_path / "out"
-    args = [str(CLUTTERSIM), "survey", "--dem", str(massif), "--region", *map(str, region_km(-27, -20, 27, 20)),
+    args = [str(CLUTTERSIM), "survey", "--dem", str(massif), *region_args(region_km(-27, -20, 27, 20)),
             "--spacing-km", "3", "--alt-m", str(ALT_M), "--trace-spacing-m", "700", "--max-depth-m", "300",
             "--workers", "2", "--out", str(out)]  # fmt: skip
     err_path = tmp_path / "stderr.txt"
@@ -353,17 +359,17 @@ def _survey(args):
 @pytest.mark.parametrize(
     "extra, code, words",
     [
-        (["--region", 20, 40, 21, 41, "--spacing-km", 5, "--alt-m", 1e5], 1, "is not inside the DEM"),
-        (["--region", *region_km(-5, -5, 5, 5), "--spacing-km", 5, "--alt-m", 1e5, "--scheduler", "foo:8786"], 1,
+        ([*region_args((20, 40, 21, 41)), "--spacing-km", 5, "--alt-m", 1e5], 1, "is not inside the DEM"),
+        ([*region_args(region_km(-5, -5, 5, 5)), "--spacing-km", 5, "--alt-m", 1e5, "--scheduler", "foo:8786"], 1,
          "expected 'local' or an address such as tcp://HOST:PORT"),
-        (["--region", *region_km(-5, -5, 5, 5)], 1, "give either --spacing-km"),
-        (["--region", *region_km(-5, -5, 5, 5), "--spacing-km", 5], 1, "need alt-m"),
-        (["--region", *region_km(5, -5, -5, 5), "--spacing-km", 5, "--alt-m", 1e5], 1, "expected LON_MIN < LON_MAX"),
-        (["--region", *region_km(-5, -5, 5, 5), "--spacing-km", 5, "--alt-m", 1e5, "--max-depth-m", 20000], 1,
+        ([*region_args(region_km(-5, -5, 5, 5))], 1, "give either --spacing-km"),
+        ([*region_args(region_km(-5, -5, 5, 5)), "--spacing-km", 5], 1, "need alt-m"),
+        ([*region_args(region_km(5, -5, -5, 5)), "--spacing-km", 5, "--alt-m", 1e5], 1, "expected LON_MIN < LON_MAX"),
+        ([*region_args(region_km(-5, -5, 5, 5)), "--spacing-km", 5, "--alt-m", 1e5, "--max-depth-m", 20000], 1,
          "--max-depth-m 20000"),
-        (["--region", *region_km(-5, -5, 5, 5), "--spacing-km", 5, "--alt-m", 1e5, "--scheduler", "tcp://h:1",
+        ([*region_args(region_km(-5, -5, 5, 5)), "--spacing-km", 5, "--alt-m", 1e5, "--scheduler", "tcp://h:1",
           "--workers", 2], 1, "give --workers only"),
-        (["--region", *region_km(-5, -5, 5, 5), "--spacing-km", 0, "--alt-m", 1e5], 1, "spacing_km = 0.0"),
+        ([*region_args(region_km(-5, -5, 5, 5)), "--spacing-km", 0, "--alt-m", 1e5], 1, "spacing_km = 0.0"),
     ],
 )
 def test_bad_input_is_one_line_with_its_exit_code(massif, tmp_path, extra, code, words):
@@ -377,14 +383,16 @@ def test_bad_input_is_one_line_with_its_exit_code(massif, tmp_path, extra, code,
 def test_tracks_csv_without_track_id_is_refused(massif, tmp_path):
     p = tmp_path / "t.csv"
     p.write_text("lat,lon,alt\n0,15,100000\n")
-    res = _survey(["--dem", massif, "--region", *region_km(-5, -5, 5, 5), "--tracks", p, "--out", tmp_path / "o"])
+    res = _survey(["--dem", massif, *region_args(region_km(-5, -5, 5, 5)), "--tracks", p, "--out", tmp_path / "o"])
     assert res.exit_code == 1
-    assert res.output == f"cluttersim: error: {p}: missing column(s) track_id; expected lat, lon, alt, track_id (and optional time)\n"
+    assert res.output == (f"cluttersim: error: {p}: missing column(s) track_id; read 3 column(s) with ',' as separator: "
+                          "'lat', 'lon', 'alt'; expected a comma-separated header with lat, lon, alt, track_id "
+                          "(and optional time)\n")
 
 
 def test_scheduler_without_dask_says_how_to_install_it(massif, tmp_path, monkeypatch):
     monkeypatch.setitem(sys.modules, "distributed", None)  # import fails as if Dask were absent
-    res = _survey(["--dem", massif, "--region", *region_km(-5, -5, 5, 5), "--spacing-km", 5, "--alt-m", 1e5,
+    res = _survey(["--dem", massif, *region_args(region_km(-5, -5, 5, 5)), "--spacing-km", 5, "--alt-m", 1e5,
                    "--scheduler", "local", "--out", tmp_path / "o", "-q"])  # fmt: skip
     assert res.exit_code == 1, res.output
     assert "pip install 'cluttersim[dask]'" in res.output
@@ -394,7 +402,7 @@ def test_scheduler_without_dask_says_how_to_install_it(massif, tmp_path, monkeyp
 def test_finished_survey_is_not_overwritten_without_the_flag(survey_run, massif):
     out, _ = survey_run
     before = (out / "survey.csv").stat().st_mtime_ns
-    res = _survey(["--dem", massif, "--region", *region_km(-27, -27, 27, 27), "--spacing-km", 6, "--alt-m", ALT_M,
+    res = _survey(["--dem", massif, *region_args(region_km(-27, -27, 27, 27)), "--spacing-km", 6, "--alt-m", ALT_M,
                    "--out", out, "-q"])  # fmt: skip
     assert res.exit_code == 2
     assert "already exists; pass --overwrite" in res.output
