@@ -31,7 +31,7 @@ def demo_cmd(out_dir, overwrite, quiet):
         f"                 colours as in report.html\n"
         f"  radargram_elevation.png  the same radargram in elevation: height above the datum, the terrain\n"
         f"                 below the track drawn as a line; clutter hangs below it like false layers\n"
-        f"  radargram_focused.png  the same pass as focused data would show it, on the same colour scale:\n"
+        f"  radargram_focused.png  the same pass as focused data would show it, with the same dB range:\n"
         f"                 the long tails of the hyperbolas (clutter ahead of and behind the spacecraft) are gone\n"
         f"  radargram_bands.png  the pass in a low band (9 MHz, 3 MHz wide: 50 m resolution) and a high band\n"
         f"                 (25 MHz, 20 MHz wide: 7.5 m): the wide band separates echoes the narrow one smears\n"

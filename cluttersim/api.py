@@ -128,9 +128,13 @@ def compare_observed(observed, track, sample_interval_s: float, out_dir, **optio
     >>> dem, track = cluttersim.example_scene("example")
     >>> paths = cluttersim.simulate_to_dir(dem, track, "example/run4")
     >>> ds = cluttersim.open_radargram(paths["radargram"])
-    >>> np.save("example/observed.npy", ds.power.values)
-    >>> result, _ = cluttersim.compare_observed("example/observed.npy", track, float(ds.delay[1]),
-    ...     "example/cmp", sim=paths["radargram"], window_start_s=ds.window_start.values)  # doctest: +SKIP
+    >>> np.save("example/observed.npy", ds.power.values)      # stands for your data: (trace, sample)
+    >>> rows = np.column_stack([ds.lat, ds.lon, ds.alt, ds.window_start])
+    >>> np.savetxt("example/observed_track.csv", rows, delimiter=",", header="lat,lon,alt,window_start", comments="")
+    >>> result, written = cluttersim.compare_observed("example/observed.npy", "example/observed_track.csv",
+    ...     float(ds.delay[1]), "example/cmp", sim=paths["radargram"], window_start_column="window_start")
+    >>> written["comparison"].name
+    'comparison.nc'
     """
     from .compare import compare_to_dir
 
@@ -152,8 +156,10 @@ def survey_region(dem, region, out_dir, *, sim_config=None, engine=None, progres
     --------
     >>> import cluttersim
     >>> dem, _ = cluttersim.example_scene("example")
-    >>> summary = cluttersim.survey_region(dem, (-0.3, -0.3, 0.3, 0.3), "example/survey", spacing_km=4.0,
-    ...                                    alt_m=5000.0, trace_spacing_m=400.0, workers=1)  # doctest: +SKIP
+    >>> summary = cluttersim.survey_region(dem, (-0.3, -0.2, 0.3, 0.2), "example/survey", spacing_km=5.0,
+    ...                                    alt_m=5000.0, trace_spacing_m=500.0, workers=1)
+    >>> summary.tracks, sorted(p.name for p in summary.paths.values())
+    (3, ['clutter_map.png', 'clutter_map.tif', 'survey.csv'])
     """
     from .survey import Engine, SurveyConfig, run_survey
 

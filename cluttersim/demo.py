@@ -94,17 +94,20 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     focused = simulate(src, track, focused_cfg, sources=False)
     # the same pass seen by two bands: the wide band resolves the clutter finely, the narrow one smears it
     bands = simulate(src, track, dataclasses.replace(default_config(), bands=DEMO_BANDS), sources=False)
-    # the focused view on the raw view's colour scale: the same echo has the same colour in both
-    limits = plots.db_limits(open_radargram(paths["radargram"]))
+    # the focused view on the raw view's dynamic range: colours are dB below each one's strongest (nadir)
+    # echo, so an echo as far below the surface echo has the same colour in both (focusing's weights lower
+    # every echo, the nadir one too: one absolute scale would show the focused view almost black)
+    raw_lo, raw_hi = plots.db_limits(open_radargram(paths["radargram"]))
     # the same pass as the instrument records it: galactic noise floor, compression gain, ionosphere
     sky_cfg = dataclasses.replace(default_config(), noise=DEMO_SKY, processing=DEMO_INSTRUMENT,
                                   ionosphere=IonosphereConfig(tec_el_m2=DEMO_TEC_EL_M2))  # fmt: skip
     sky = simulate(src, track, sky_cfg, sources=False)
     with atomic_paths([track_csv, focused_png, bands_png, sky_png]) as (tmp_csv, tmp_png, tmp_bands, tmp_sky):
         track.to_csv(tmp_csv)
-        plots.plot_radargram(focused, tmp_png, permittivity=3.15, db_limits=limits,
+        plots.plot_radargram(focused, tmp_png, permittivity=3.15, dynamic_range_db=raw_hi - raw_lo,
                              title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind "
-                                   "suppressed\n(same colour scale as radargram.png)")  # fmt: skip
+                                   f"suppressed\n(the {raw_hi - raw_lo:g} dB below the strongest echo shown in "
+                                   "radargram.png)")  # fmt: skip
         plots.plot_band_radargrams(bands.isel(sample=slice(0, DEMO_BANDS_SAMPLES)), tmp_bands, permittivity=3.15,
                                    title="the same pass in two frequency bands (first 15 µs of the window)")  # fmt: skip
         plots.plot_radargram(sky.isel(sample=slice(0, DEMO_SKY_SAMPLES)), tmp_sky, permittivity=3.15,
