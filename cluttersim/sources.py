@@ -366,17 +366,21 @@ def _band_tag(run: Run) -> str:
     return f"_{run.ds.attrs['band']}" if "band" in run.ds.attrs else ""
 
 
-def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> dict[str, Path]:
+def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False, figures=None) -> dict[str, Path]:
     """Write the depth-window map as ``sources_<A>-<B>m_eps<ε>.tif`` (GeoTIFF, W per cell,
-    the run's DEM-window grid and CRS) and a ``.png`` beside it in the run directory."""
+    the run's DEM-window grid and CRS) and a ``.png`` beside it in the run directory
+    (``figures``: :class:`cluttersim.products.FigureOptions` — dpi, png/pdf/svg, dB range)."""
     import rasterio
     from rasterio.crs import CRS as RioCRS
 
     from . import plots
     from .outputs import atomic_paths, check_new
 
+    from .products import FigureOptions
+
+    figures = figures or FigureOptions()
     stem = f"sources_{_depth_tag(smap.depth_min_m, smap.depth_max_m, smap.permittivity)}{_band_tag(run)}"
-    paths = {"tif": run.run_dir / f"{stem}.tif", "png": run.run_dir / f"{stem}.png"}
+    paths = {"tif": run.run_dir / f"{stem}.tif", "png": run.run_dir / f"{stem}.{figures.fmt}"}
     check_new(paths.values(), overwrite)
     ny, nx = smap.power_w.shape
     profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32", transform=smap.transform,
@@ -396,16 +400,20 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> d
             smap.power_w, smap.elevation_m, frame.extent, tx, ty, png, axis_labels=frame.axis_labels,
             geographic=run.scene.src.is_geographic,
             title=f"ground echoing at apparent depths {smap.depth_min_m:g}–{smap.depth_max_m:g} m (ε′ = {smap.permittivity:g})",
+            dpi=figures.dpi, fmt=figures.fmt, **({"dynamic_range_db": figures.db_range} if figures.db_range else {}),
         )  # fmt: skip
     return paths
 
 
-def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) -> Path:
-    """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory."""
+def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False, figures=None) -> Path:
+    """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory
+    (``figures``: dpi and format, :class:`cluttersim.products.FigureOptions`)."""
     from . import plots
     from .outputs import atomic_paths, check_new
+    from .products import FigureOptions
 
-    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us{_band_tag(run)}.png"
+    figures = figures or FigureOptions()
+    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us{_band_tag(run)}.{figures.fmt}"
     check_new([path], overwrite)
     src = run.scene.src
     window = run.scene.window
@@ -421,7 +429,8 @@ def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) 
         plots.plot_echo_sources(
             window.elevation_m, frame.extent, tx, ty, (float(ax), float(ay)), cells_xy.reshape(-1, 2),
             [c.share for c in answer.cells], tmp, axis_labels=frame.axis_labels, geographic=src.is_geographic, view=view,
-            title=f"trace {answer.trace}, {answer.delay_s * 1e6:.3f} µs after window start",
+            title=f"trace {answer.trace}, {answer.delay_s * 1e6:.3f} µs after window start", dpi=figures.dpi,
+            fmt=figures.fmt,
         )  # fmt: skip
     return path
 

@@ -211,7 +211,7 @@ def test_massif_flags_only_tracks_near_it_within_the_flat_plane_reach(survey_run
             # strip, is weaker than the nadir echo (a few dB: measured here −2.6 to −1.7 dB) — the level-ground
             # reference the survey computes for this geometry, so these traces read about 0 dB
             assert -6.0 < res.level_db < 0.0
-            assert abs(np.nanmedian(res.index_db)) < 1.0, (res.track_id, np.nanmedian(res.index_db))
+            assert abs(np.nanmedian(res.index_db)) < 0.5, (res.track_id, np.nanmedian(res.index_db))
     assert over == 3 and beyond == 2 and beside >= 2
 
 
