@@ -2,7 +2,7 @@
 
 Every key the radar file accepts is listed with its unit, default and meaning:
 the ``[radar]`` and ``[surface]`` tables active, the optional tables
-(``[noise]``, ``[subsurface]``, ``[antenna]``, ``[processing]``, ``[[band]]``)
+(``[noise]``, ``[subsurface]``, ``[ionosphere]``, ``[antenna]``, ``[processing]``, ``[[band]]``)
 commented out. Two starting points: an orbital sounder (the built-in radar's
 values) and an airborne one (higher frequency and bandwidth, a shorter window).
 The tests check that the template parses and names every key of every table,
@@ -40,6 +40,13 @@ _NOISE = [
     ("noise_temperature_k", None, "K", "system noise temperature T (F = 1) instead of noise_figure_db",
      500.0),
     ("seed", 0, "1", "integer ≥ 0: the same seed gives the same noise"),
+    ("sky_temperature_k", None, "K or \"galactic\"", "optional external (sky) noise temperature added to the "
+     "receiver's; \"galactic\" for the galactic background (ITU-R P.372)", "galactic"),
+]
+_IONOSPHERE = [
+    ("tec_el_m2", 0.0, "el/m²", "vertical total electron content of a thin layer (1 TECU = 1e16): delays and "
+     "disperses every echo"),
+    ("collision_frequency_hz", 0.0, "1/s", "electron collision frequency ν for absorption (0: none)"),
 ]
 _SUBSURFACE = [
     ("depth_m", None, "m", "depth of a flat interface parallel to the surface (required)", 200.0),
@@ -58,6 +65,9 @@ _PROCESSING = [
     ("aperture_length_m", 0.0, "m", "focused: the processed synthetic aperture length L"),
     ("doppler_bandwidth_hz", 0.0, "Hz", "focused, instead of L: the processed Doppler bandwidth B_D"),
     ("platform_speed_m_s", 0.0, "m/s", "v for B_D (0: from the track's time column)"),
+    ("footprint_speed_m_s", 0.0, "m/s", "the footprint's ground speed (0: v Rp/(Rp + h) from the platform speed)"),
+    ("pulse_length_s", 0.0, "s", "the chirp's length τ: range-compression gain τB on signal-to-noise (0: none)"),
+    ("prf_hz", 0.0, "Hz", "pulse rate: the aperture's integration gain N = PRF · L / v (0: none)"),
     ("shadowing", False, "-", "line-of-sight shadowing by the terrain (slower)"),
     ("mode", "incoherent", "-", "\"incoherent\" (power) or \"coherent\" (complex echoes: speckle, no source record)"),
     ("random_phase", True, "-", "coherent: a random phase per facet for sub-facet roughness"),
@@ -161,6 +171,8 @@ def radar_template(kind: str = "orbital") -> str:
     lines += _table("[subsurface]", _SUBSURFACE, optional=True,
                     intro="Optional: the predicted echo of a flat interface below the nadir surface (a line on the "
                           "radargram).")  # fmt: skip
+    lines += _table("[ionosphere]", _IONOSPHERE, optional=True,
+                    intro="Optional: a thin ionospheric layer between the antenna and the ground.")  # fmt: skip
     lines += _table("[antenna]", _ANTENNA, optional=True, intro="Optional: the antenna's gain pattern.")
     lines += _table("[processing]", _PROCESSING, optional=True,
                     intro="Optional: along-track processing, shadowing, coherent mode and presumming.")  # fmt: skip
@@ -178,5 +190,6 @@ def template_keys() -> dict[str, set[str]]:
         "radar": {r[0] for r in _RADAR},
         "surface": {"law"} | {p for spec in LAWS.values() for p in spec.params},
         "noise": {r[0] for r in _NOISE}, "subsurface": {r[0] for r in _SUBSURFACE},
+        "ionosphere": {r[0] for r in _IONOSPHERE},
         "antenna": {r[0] for r in _ANTENNA}, "processing": {r[0] for r in _PROCESSING}, "band": {r[0] for r in _BAND},
     }  # fmt: skip
