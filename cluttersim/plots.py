@@ -73,6 +73,9 @@ SIDE_RIGHT_COLOUR = palette.SIDE_RIGHT
 SIDE_NADIR_COLOUR = palette.SIDE_NADIR
 #: Colour of samples without data (or with power but an unknown side).
 SIDE_NO_DATA_COLOUR = palette.SIDE_NO_DATA
+#: Exponent of the side view's brightness over its dB scale (< 1 lifts the weak echoes that a strong
+#: mirror-like nadir echo would otherwise leave near black; 1 = linear in dB).
+SIDE_BRIGHTNESS_GAMMA = 0.6
 #: Hatching over traces without data, so they cannot be read as an echo colour.
 SIDE_NO_DATA_HATCH_COLOUR = "#8c8c8c"
 #: Colour of the nadir line on the side radargram (contrasts with all three sides).
@@ -545,7 +548,8 @@ def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float
     nadir·C_nadir`` of the palette's side colours (:mod:`cluttersim.palette`:
     :data:`SIDE_LEFT_COLOUR`, :data:`SIDE_RIGHT_COLOUR`,
     :data:`SIDE_NADIR_COLOUR`) with ``nadir = 1 − left − right``, multiplied by
-    the brightness ``(P_dB − vmin) / (vmax − vmin)`` clipped to [0, 1], where
+    the brightness ``((P_dB − vmin) / (vmax − vmin))^γ`` clipped to [0, 1]
+    (γ = :data:`SIDE_BRIGHTNESS_GAMMA`: weak echoes lifted, the key shows the mapping), where
     (vmin, vmax) is ``db_limits`` or (max − ``dynamic_range_db``, max) over
     the whole image (default range: :func:`auto_db_range`). The report's side
     view is made by this same function.
@@ -587,7 +591,8 @@ def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float
     else:
         vmin_db, vmax_db = _db_limits(db, dynamic_range_db)
     with np.errstate(invalid="ignore"):
-        brightness = np.clip((db - vmin_db) / (vmax_db - vmin_db), 0.0, 1.0)  # -inf → 0, NaN stays
+        level = np.clip((db - vmin_db) / (vmax_db - vmin_db), 0.0, 1.0)  # -inf → 0, NaN stays
+        brightness = level**SIDE_BRIGHTNESS_GAMMA
     known = np.isfinite(left) & np.isfinite(right)
     left = np.where(known, np.clip(left, 0.0, 1.0), 0.0)
     right = np.where(known, np.clip(right, 0.0, 1.0), 0.0)
@@ -712,7 +717,7 @@ def _side_palette() -> np.ndarray:
 
 def _side_key(key, vmin_db: float, vmax_db: float) -> None:
     """Fill ``key`` with three brightness ramps (left, nadir, right) against echo power in dBW."""
-    brightness = np.linspace(0.0, 1.0, 256)
+    brightness = np.linspace(0.0, 1.0, 256) ** SIDE_BRIGHTNESS_GAMMA
     left, right, nadir = _side_palette()
     ramps = brightness[:, None, None] * np.stack([left, nadir, right])[None, :, :]
     key.imshow(ramps, origin="lower", aspect="auto", interpolation="nearest", extent=(-0.5, 2.5, vmin_db, vmax_db))

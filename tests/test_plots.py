@@ -32,6 +32,7 @@ from cluttersim.plots import (
     power_db,
     radargram_layers,
     side_colours,
+    SIDE_BRIGHTNESS_GAMMA,
 )
 from cluttersim.radar import apparent_depth_m
 
@@ -298,9 +299,10 @@ def test_side_colours_pure_sides_and_brightness():
     assert rgb.shape == (4, 2, 3)  # (sample, trace, RGB)
     c_left, c_right = np.array(to_rgb(SIDE_LEFT_COLOUR)), np.array(to_rgb(SIDE_RIGHT_COLOUR))
     np.testing.assert_allclose(rgb[0, 0], c_left)
-    np.testing.assert_allclose(rgb[1, 0], 0.5 * c_left)
+    g = SIDE_BRIGHTNESS_GAMMA  # brightness = (level in the dB scale)^γ
+    np.testing.assert_allclose(rgb[1, 0], 0.5**g * c_left)
     np.testing.assert_allclose(rgb[0, 1], c_right)
-    np.testing.assert_allclose(rgb[1, 1], 0.5 * c_right)
+    np.testing.assert_allclose(rgb[1, 1], 0.5**g * c_right)
     np.testing.assert_allclose(rgb[2:], 0.0)  # at the floor and zero power: black
     assert rgb.min() >= 0.0 and rgb.max() <= 1.0
 
