@@ -53,7 +53,7 @@ from .compare_io import (
 )  # fmt: skip
 from .errors import ConfigError, ObservedDataError
 from .observed import ObservedRadargram
-from .outputs import check_new
+from .outputs import check_new, locked_output
 from .radar import apparent_depth_m
 
 __all__ = [
@@ -424,6 +424,7 @@ def input_warnings(offset: DelayOffset, noise: NoiseFloor, obs_power, max_off_s:
     return out
 
 
+@locked_output("out_dir")
 def compare_to_dir(
     observed_path, observed_track, sample_interval_s: float, out_dir, *, sim=None, dem=None, config=None,
     body_radius_m=None, window_start_s=None, window_start_column=None, fmt=None, settings=None,
@@ -465,6 +466,10 @@ def compare_to_dir(
     if dem is not None:
         paths["simulation"] = out_dir / "radargram.nc"
     check_new(paths.values(), overwrite)
+    from .memory import check_observed_memory
+
+    check_observed_memory(observed_path, max_memory_bytes, file_format=fmt.file_format if fmt else None,
+                          raw_shape=fmt.raw_shape if fmt else None, variable=fmt.variable if fmt else None)  # fmt: skip
     observed = load_observed(observed_path, observed_track, sample_interval_s, window_start_s=window_start_s,
                              window_start_column=window_start_column, fmt=fmt)  # fmt: skip
     if sim is not None:

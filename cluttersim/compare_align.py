@@ -61,6 +61,7 @@ References
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -206,12 +207,9 @@ def coarse_lag_cost(obs_ext, pad_left: int, sim_power, lo, hi, max_lag: int, edg
         cols = pad_left + lo[rows, None] - max_lag + np.arange(seg_len)[None, :]
         valid_col = (cols >= 0) & (cols < obs.shape[1])
         seg = np.where(valid_col, np.take_along_axis(obs[rows], np.clip(cols, 0, obs.shape[1] - 1), axis=1), np.nan)
-        with np.errstate(all="ignore"):
-            import warnings
-
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)
-                med = np.nanmedian(obs[rows], axis=1)
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN traces
+            med = np.nanmedian(obs[rows], axis=1)
         med = np.where(np.isfinite(med), med, 0.0)
         has = np.isfinite(seg).any(axis=1)
         observed_here = np.isfinite(seg).astype(np.float64)
@@ -356,8 +354,8 @@ def parabolic_minimum(cost, grid) -> tuple[np.ndarray, np.ndarray]:
     y0 = np.take_along_axis(filled, (ic - 1)[..., None], axis=-1)[..., 0]
     y1 = np.take_along_axis(filled, ic[..., None], axis=-1)[..., 0]
     y2 = np.take_along_axis(filled, (ic + 1)[..., None], axis=-1)[..., 0]
-    denom = y0 - 2 * y1 + y2
     with np.errstate(divide="ignore", invalid="ignore"):
+        denom = y0 - 2 * y1 + y2
         delta = np.where(denom > 0, np.clip(0.5 * (y0 - y2) / denom, -0.5, 0.5), 0.0)
     delta = np.where(at_edge | ~np.isfinite(delta), 0.0, delta)
     return grid[i] + np.where(at_edge, 0.0, (ic - i) + delta) * step, at_edge

@@ -160,13 +160,13 @@ def _nan_safe(value: float) -> float:
 def write_comparison(result, paths: dict[str, Path], sim_ds=None) -> None:
     """Write a comparison's products atomically to ``paths`` (keys of :data:`COMPARE_FILES`, and ``simulation``)."""
     from . import plots
-    from .radargram import write_netcdf_to
+    from .radargram import save_netcdf, write_netcdf_to
 
     keys = list(paths)
     with atomic_paths([paths[k] for k in keys]) as temps:
         tmp = dict(zip(keys, temps))
-        result.dataset.to_netcdf(
-            tmp["comparison"], engine="h5netcdf", format="NETCDF4",
+        save_netcdf(
+            result.dataset, tmp["comparison"],
             encoding={v: {"zlib": True, "complevel": 4, "shuffle": True}
                       for v in ("observed_power", "simulated_power", "detected", "explained", "unexplained", "p_value")},
         )  # fmt: skip

@@ -197,6 +197,8 @@ class SimulationConfig:
             data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             raise ConfigError(f"{path}: not valid TOML ({exc})") from None
+        if not data:
+            raise ConfigError(f"{path}: no tables: expected at least [radar] (omit --radar for the built-in radar)")
         try:
             return cls.from_dict(data)
         except ConfigError as exc:

@@ -21,7 +21,7 @@ from .dem import DemSource
 from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
 from .report import REPORT_FILE, write_report
-from .outputs import atomic_paths, check_new
+from .outputs import atomic_paths, check_new, locked_output
 from .radargram import open_radargram
 from .simulate import RunStats, simulate
 from .track import great_circle_track
@@ -82,6 +82,7 @@ def demo_config():
     return dataclasses.replace(base, surface=surface)
 
 
+@locked_output("out_dir")
 def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool = True) -> tuple[dict[str, Path], RunStats]:
     """Run the demo scenario end to end; returns the product paths and run counters."""
     out_dir = Path(out_dir)

@@ -402,9 +402,35 @@ def load_inputs(run_dir, *, sim=None, band=None) -> RunInputs:
             f"{sim_path}: has {sim_ds.sizes['trace']} traces but {cmp_path} matches trace {int(st.max())}; "
             "expected the simulated radargram of that comparison"
         )
+    check_same_simulation(comparison, sim_ds, cmp_path, sim_path)
     cand_path = run_dir / COMPARE_FILES["candidates"]
     candidates = _read_candidates(cand_path) if cand_path.exists() else []
     return RunInputs(run_dir, kind, sim_ds, sim_path, comparison, candidates)
+
+
+def check_same_simulation(comparison, sim_ds, cmp_path, sim_path) -> None:
+    """Refuse a simulated radargram other than the one a comparison was made with: each matched
+    trace's window start and nadir delay, copied into comparison.nc, must be those of its
+    simulated trace (to a thousandth of a sample)."""
+    st = comparison["sim_trace"].values
+    matched = np.flatnonzero(st >= 0)
+    if not matched.size:
+        return
+    dt = float(sim_ds["delay"].values[1] - sim_ds["delay"].values[0]) if sim_ds.sizes["sample"] > 1 else 1e-9
+    rows = st[matched].astype(np.int64)
+    for name in ("window_start", "nadir_delay"):
+        if name not in comparison or name not in sim_ds:
+            continue
+        a = comparison[name].values[matched]
+        b = sim_ds[name].values[rows]
+        both = np.isfinite(a) & np.isfinite(b)
+        off = np.flatnonzero(both & (np.abs(a - b) > 1e-3 * dt))
+        if off.size:
+            i = off[0]
+            raise ClutterSimError(
+                f"{sim_path}: trace {rows[i]} has {name} {b[i] * 1e6:.6f} µs but {cmp_path} recorded {a[i] * 1e6:.6f} µs "
+                "for it; expected the simulated radargram of that comparison"
+            )
 
 
 def _read_candidates(path) -> list[dict]:

@@ -41,12 +41,14 @@ from .radar import (
     POWER_CONVENTION_TEXT,
     noise_bandwidth_factor,
     pulse_amplitude_response,
+    pulse_half_width_samples,
     pulse_limited_radius_m,
     pulse_power_kernel,
 )
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track, wrap_lon_like
+from .validate import check_far_field, check_noise_power, check_power_finite, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
@@ -80,6 +82,22 @@ class RunStats:
     seconds_total: float = 0.0
 
 
+def _refuse_overflow(fn):
+    """Run without NumPy's overflow warnings and refuse a radargram whose power overflowed, in one
+    line (:func:`~cluttersim.validate.check_power_finite`)."""
+    import functools
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        with np.errstate(over="ignore"):
+            ds = fn(*args, **kwargs)
+        check_power_finite(ds["power"].values)
+        return ds
+
+    return wrapper
+
+
+@_refuse_overflow
 def simulate(
     dem,
     track,
@@ -133,8 +151,10 @@ def simulate(
         the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).
     """
     t_start = time.perf_counter()
+    check_run_arguments(first_return_db=first_return_db, nadir_strip_m=nadir_strip_m)
     stats = stats if stats is not None else RunStats()
     config = config if config is not None else default_config()
+    check_noise_power(config)
     radar = config.radar  # the window (samples, sample interval, start) is shared by every band
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
@@ -461,9 +481,10 @@ def prepare_scene(
         )
 
     # the widest compressed pulse (lowest bandwidth) sets the padding of every band
-    band_pulses = [cfg.pulse_kernel() for _, cfg in config.per_band()]
-    pad = max(int(offsets[-1]) for offsets, _ in band_pulses)
-    kernel_weights = band_pulses[0][1]
+    band_configs = [cfg for _, cfg in config.per_band()]
+    band_radars = [cfg.radar for cfg in band_configs]
+    pad = max(pulse_half_width_samples(r.bandwidth_hz, r.sample_interval_s, r.range_window, r.center_frequency_hz,
+                                       cfg.ionosphere) for r, cfg in zip(band_radars, band_configs))  # fmt: skip
 
     given = max_memory_bytes != "auto"
     limit = max_memory_bytes
@@ -474,13 +495,16 @@ def prepare_scene(
 
     def check(win):
         est = memory.estimate_memory_bytes(
-            win.width * win.height, len(track) * len(band_pulses), radar.samples, sources=sources,
+            win.width * win.height, len(track) * len(band_radars), radar.samples, sources=sources,
             threads=numba.get_num_threads(),
             pad_samples=pad, oversample=OVERSAMPLE, traces_per_block=TRACES_PER_BLOCK,
         )  # fmt: skip
         memory.check_memory(est, limit, given=given)
 
+    # the memory check comes before any preview of the DEM and before the pulse response is computed
     window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
+    band_pulses = [cfg.pulse_kernel() for cfg in band_configs]
+    kernel_weights = band_pulses[0][1]
     warn_holes(window)
     t0 = time.perf_counter()
     facets = build_facets(window)
@@ -497,6 +521,7 @@ def prepare_scene(
             f"{track.source}: row {i + 1} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
             f"({h_nadir[i]:.1f} m); expected the antenna above the surface{altitude_unit_hint(track.alt_m, h_nadir)}"
         )
+    check_far_field(track, h_nadir, config)
     nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S
 
     idx = np.flatnonzero(on_dem)
@@ -976,6 +1001,8 @@ def read_track_window(
         if window is not None and new == window:
             break
         window = new
+        if before_full_read is not None:  # the window only grows: refuse at once one that is already too big
+            before_full_read(window)
         shape = (min(window.height, _PREVIEW_CELLS), min(window.width, _PREVIEW_CELLS))
         preview = src.read(window, out_shape=shape).elevation_m
         if np.isnan(preview).all():
