@@ -94,7 +94,11 @@ def _register():
     cli.add_command(survey.survey_cmd)
     require_finite_floats(cli)
 
-    from . import template
+    from . import plan
+
+    cli.add_command(plan.plan_cmd)
+
+    from . import template  # no float options
 
     cli.add_command(template.template_cmd)
 

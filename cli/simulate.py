@@ -6,6 +6,9 @@ import dataclasses
 
 import click
 
+from cluttersim.dem_error import DemErrorConfig, dem_error_paths, simulate_dem_error, write_dem_error
+from cluttersim.errors import ConfigError
+from cluttersim.outputs import check_new
 from cluttersim.products import simulate_to_dir
 
 from .options import (
@@ -31,6 +34,13 @@ from .options import (
               help="Override the Gaussian beam's 3 dB beamwidths, degrees.")
 @click.option("--shadowing/--no-shadowing", default=None,
               help="Line-of-sight shadowing by the terrain (overrides [processing] shadowing).")
+@click.option("--dem-error", "dem_error", default=None, metavar="RMS_M,CORR_M",
+              help="DEM-error Monte Carlo: RMS height error and its correlation length, m (overrides the radar "
+                   "TOML's [dem_error] rms_m and correlation_m); adds dem_error.nc and dem_error.png.")
+@click.option("--realisations", type=click.IntRange(min=2), default=None,
+              help="DEM realisations of the Monte Carlo [default: [dem_error] realisations, else 32].")
+@click.option("--dem-error-seed", type=click.IntRange(min=0), default=None,
+              help="Seed of the DEM error fields [default: [dem_error] seed, else 0].")
 @permittivity_option
 @max_memory_option
 @figure_options
@@ -38,8 +48,8 @@ from .options import (
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, permittivity, max_memory, dpi, figure_format,
-                 db_range, out_dir, overwrite, quiet):  # fmt: skip
+                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, dem_error, realisations, dem_error_seed,
+                 permittivity, max_memory, dpi, figure_format, db_range, out_dir, overwrite, quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
     Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
@@ -47,10 +57,18 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     comes from), OUT/radargram_elevation.png (height above the datum, the terrain drawn)
     and OUT/track_map.png (track and first returns over shaded relief); --figure-format
     pdf or svg for vector figures.
-    Optional [noise] and [subsurface] tables in the radar TOML add receiver noise and the
-    predicted echo of a hypothesised interface; [[band]] tables simulate several frequency
-    bands in one run (a band dimension in radargram.nc, one figure per band); [processing]
-    presum = N sums N pulses of the track into each trace (see the README).
+    Optional [noise] and [subsurface] tables in the radar TOML add receiver and sky noise and
+    the predicted echo of a hypothesised interface; [ionosphere] delays and disperses the
+    echoes through a layer of given TEC; [[band]] tables simulate several frequency bands in
+    one run (a band dimension in radargram.nc, one figure per band); [processing] presum = N
+    sums N pulses of the track into each trace, pulse_length_s and prf_hz state the processing
+    gains (see the README). power is the compressed receiver output referred to its input: a
+    point target reads its radar-equation power at its peak sample, whatever the sample interval.
+
+    With --dem-error (or a [dem_error] table) the track is also simulated over N
+    realisations of the DEM plus a correlated Gaussian error field: OUT/dem_error.nc holds
+    the mean and the 5/50/95 % quantiles of the power per sample, OUT/dem_error.png the
+    median and the width of the 5–95 % band.
 
     \b
     Example:
@@ -59,11 +77,33 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     config = with_antenna(load_config(radar_path), antenna_pattern, antenna_axis, beamwidth_deg)
     if shadowing is not None:
         config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, shadowing=shadowing))
+    error = _dem_error_config(radar_path, dem_error, realisations, dem_error_seed)
+    error_paths = dem_error_paths(out_dir) if error is not None else {}
+    check_new(error_paths.values(), overwrite)  # before any work
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
         sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,
         max_memory_bytes=max_memory, figures=make_figure_options(dpi, figure_format, db_range),
     )  # fmt: skip
+    if error is not None:
+        ds = simulate_dem_error(dem_path, track_path, config, error, body_radius_m=body_radius_m, progress=not quiet,
+                                keep_realisations=True,
+                                max_memory_bytes=max_memory)  # fmt: skip
+        write_dem_error(ds, error_paths)
+        paths.update(error_paths)
     if not quiet:
         for p in paths.values():
             click.echo(f"wrote {p}")
+
+
+def _dem_error_config(radar_path, option, realisations, seed):
+    """The DEM-error settings: the radar TOML's [dem_error] table, overridden by the options."""
+    table = DemErrorConfig.from_toml(radar_path) if radar_path else None
+    if option is None and table is None:
+        if realisations is not None or seed is not None:
+            raise ConfigError("--realisations and --dem-error-seed need --dem-error RMS_M,CORR_M or a [dem_error] table")
+        return None
+    error = table if option is None else DemErrorConfig.parse_option(option, **({} if table is None else {
+        k: v for k, v in table.to_dict().items() if k not in ("rms_m", "correlation_m")}))  # fmt: skip
+    changes = {k: v for k, v in (("realisations", realisations), ("seed", seed)) if v is not None}
+    return dataclasses.replace(error, **changes) if changes else error

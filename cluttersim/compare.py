@@ -318,6 +318,22 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
             "grid_sample": int(grid_sample[c]),
         })  # fmt: skip
     _add_echo_sources(candidates, sim_ds)
+    prob = None
+    if "power_realisations" in sim_ds:  # a dem_error.nc: the share of DEM realisations explaining each sample
+        from .dem_error import explained_probability
+
+        def explained_by(real_power):
+            s_at = np.clip(cubic_convolution(np.nan_to_num(np.asarray(real_power, dtype=np.float64)[rows_sim], nan=0.0),
+                                             x, before=0.0 if zero_before else np.nan), 0.0, None)  # fmt: skip
+            return detect_unexplained(
+                obs_power, clutter_within_tolerance(g * s_at, tol_obs), noise, pfa=settings.pfa, looks=settings.looks,
+                model_tolerance_db=settings.model_tolerance_db, integration_traces=settings.integration_traces,
+                shifts_fn=shifts, peak_half_width_samples=peak_half,
+            ).explained  # fmt: skip
+
+        prob, _ = explained_probability(explained_by, sim_ds["power_realisations"].values, det.detected)
+        for c, (t, k) in zip(candidates, zip(ti[order], ki[order])):
+            c["explained_probability"] = float(prob[t, k])
 
     finite_obs = np.isfinite(obs_power).sum()
     tested = np.isfinite(det.p_value).sum()
@@ -327,6 +343,15 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
         observed, sim_ds, match, rows_obs, rows_sim, aligned, sim_power * g, on_grid, noise, offset, gain, settings,
         tol_s=float(np.median(tol_s)), sim_source=sim_source, warnings=warnings,
     )  # fmt: skip
+    if prob is not None:  # on the simulated grid: the smallest share among the observed samples rounding there
+        gi = np.rint(x).astype(np.int64)
+        ok = (gi >= 0) & (gi < ns) & np.isfinite(prob)
+        grid = np.full((rows_obs.size, ns), np.inf)
+        np.minimum.at(grid, (np.broadcast_to(np.arange(rows_obs.size)[:, None], x.shape)[ok], gi[ok]), prob[ok])
+        full = np.full((observed.n_traces, ns), np.nan, dtype=np.float32)
+        full[rows_obs] = np.where(np.isfinite(grid), grid, np.nan)
+        ds["explained_probability"] = (("trace", "sample"), full, {"units": "1", "long_name":
+            "share of DEM realisations under which the observed power here is explained by surface clutter"})
     return Comparison(
         dataset=ds, match=match, offset=offset, gain=gain, noise=noise, candidates=candidates, settings=settings,
         observed_source=observed.source, sim_source=sim_source, coverage=coverage, warnings=warnings,

@@ -42,6 +42,7 @@ _FORMATS = {
     "delay_us": "{:.4f}", "two_way_delay_us": "{:.4f}", "lat": "{:.6f}", "lon": "{:.6f}", "depth_m": "{:.2f}",
     "snr_db": "{:.2f}", "excess_db": "{:.2f}", "p_value": "{:.3e}", "unexplained_share": "{:.3f}",
     "continuity": "{:.2f}", "score": "{:.3f}", "sim_delay_us": "{:.4f}", "source_lat": "{:.6f}", "source_lon": "{:.6f}",
+    "explained_probability": "{:.3f}",
 }  # fmt: skip
 #: Columns of the track list of :func:`compare_many` (required, then optional).
 LIST_REQUIRED = ("observed", "observed_track", "sample_interval_s")
@@ -186,6 +187,8 @@ def write_comparison(result, paths: dict[str, Path], sim_ds=None) -> None:
 def write_candidates_csv(candidates: list[dict], path, *, extra_columns=()) -> None:
     """Write the ranked candidates (columns ``extra_columns`` + :data:`CANDIDATE_COLUMNS`) to a CSV file."""
     columns = tuple(extra_columns) + CANDIDATE_COLUMNS
+    if candidates and "explained_probability" in candidates[0]:  # compared with DEM realisations (dem_error.nc)
+        columns += ("explained_probability",)
     with open(path, "w", newline="", encoding="utf-8") as fh:
         writer = csv.writer(fh)
         writer.writerow(columns)

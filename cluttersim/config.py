@@ -211,11 +211,15 @@ class SimulationConfig:
             raise ConfigError("expected a table with [radar] and [surface]")
         for table in data:
             if table not in ("radar", "surface", "antenna", "processing", "noise", "subsurface", "ionosphere",
-                             "band"):
+                             "band", "dem_error"):
                 raise ConfigError(
                     f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise], "
-                    "[subsurface], [ionosphere] and [[band]]"
+                    "[subsurface], [ionosphere], [dem_error] and [[band]]"
                 )
+        if "dem_error" in data:  # read by cluttersim.dem_error.DemErrorConfig.from_toml; checked here
+            from .dem_error import DemErrorConfig
+
+            DemErrorConfig.from_dict(data["dem_error"])
         radar_data = data.get("radar", {})
         surface_data = data.get("surface", {})
         if not isinstance(radar_data, dict) or not isinstance(surface_data, dict):

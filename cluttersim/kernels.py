@@ -1055,7 +1055,8 @@ def accumulate_complex(ant, bin0_s, dt_s, oversample, tile_centre, tile_radius, 
                     rr = cell // grid_nx
                     cc = cell - rr * grid_nx
                     if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
-                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max):  # fmt: skip
+                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max,
+                                           nadir_rc[t, 2], nadir_rc[t, 3]):  # fmt: skip
                         continue
                 if p <= 0.0:
                     continue

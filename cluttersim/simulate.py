@@ -245,19 +245,23 @@ def simulate(
 
 #: Shadowing matters when the recording window reaches ground seen this low above the horizontal
 #: (deg): the range at the window's end exceeds h / sin(angle), h the median height above the nadir
-#: terrain (airborne and low passes over relief; an orbiter's window rarely reaches that far out).
+#: terrain (airborne and low passes over relief; an orbiter's window rarely reaches that far out)...
 GRAZING_ELEVATION_DEG = 15.0
+#: ...and the terrain read spans more than this fraction of h in height (relief that can hide ground).
+GRAZING_RELIEF_FRACTION = 0.05
 
 
 def warn_grazing_without_shadowing(scene: "Scene") -> None:
-    """Warn when ``[processing] shadowing`` is off and the geometry is grazing (see
-    :data:`GRAZING_ELEVATION_DEG`): there terrain hidden behind ridges would still echo (about 20 %
-    too much energy 20 km off-track at 5 km up in the test scene of the issue)."""
+    """Warn when ``[processing] shadowing`` is off and the geometry is grazing over relief (see
+    :data:`GRAZING_ELEVATION_DEG`, :data:`GRAZING_RELIEF_FRACTION`): there terrain hidden behind
+    ridges would still echo (about 20 % too much energy 20 km off-track at 5 km up)."""
     if scene.config.processing.shadowing or scene.idx.size == 0:
         return
     h = float(np.nanmedian((scene.track.alt_m - scene.h_nadir_m)[scene.idx]))
     end_m = 0.5 * SPEED_OF_LIGHT_M_S * float(np.nanmedian(scene.start_s + scene.config.radar.window_length_s))
-    if h > 0 and end_m > h / math.sin(math.radians(GRAZING_ELEVATION_DEG)):
+    elev = scene.window.elevation_m
+    relief = float(np.nanmax(elev) - np.nanmin(elev)) if np.isfinite(elev).any() else 0.0
+    if h > 0 and end_m > h / math.sin(math.radians(GRAZING_ELEVATION_DEG)) and relief > GRAZING_RELIEF_FRACTION * h:
         warnings.warn(
             f"{scene.track.source}: the window reaches ground {end_m / 1e3:.1f} km away from {h / 1e3:.2f} km up "
             f"(below {GRAZING_ELEVATION_DEG:g}° elevation) with [processing] shadowing off: terrain hidden behind "
@@ -450,9 +454,12 @@ class Scene:
 
 def prepare_scene(
     src: DemSource, track: Track, config: SimulationConfig, stats: RunStats | None = None, *,
-    max_memory_bytes: int | str | None = "auto", sources: bool = True,
+    max_memory_bytes: int | str | None = "auto", sources: bool = True, range_margin_m: float = 0.0,
 ) -> Scene:  # fmt: skip
     """Read the DEM window a track needs, build its facets and each trace's recording window.
+
+    ``range_margin_m`` widens the DEM window as if every window reached that much farther
+    (the DEM-error Monte Carlo, :mod:`cluttersim.dem_error`, raises terrain by up to it).
 
     Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
     below the terrain, or windows that cannot hold any surface echo, and
@@ -502,7 +509,8 @@ def prepare_scene(
         memory.check_memory(est, limit, given=given)
 
     # the memory check comes before any preview of the DEM and before the pulse response is computed
-    window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
+    margin_samples = int(math.ceil(2.0 * range_margin_m / SPEED_OF_LIGHT_M_S / radar.sample_interval_s))
+    window = read_track_window(src, track, on_dem, config, pad_samples=pad + margin_samples, before_full_read=check)
     band_pulses = [cfg.pulse_kernel() for cfg in band_configs]
     kernel_weights = band_pulses[0][1]
     warn_holes(window)

@@ -763,11 +763,22 @@ def _init_local_worker(threads: int, parent_pid: int | None = None) -> None:
     numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
 
 
-def _run_local(jobs, workers: int, on_result) -> None:
+def run_jobs(jobs, engine: Engine, on_result, task=None) -> None:
+    """Run ``task(job)`` (a picklable module-level function; default :func:`survey_track`) for
+    every job on the engine, calling ``on_result`` with each result as it completes. Jobs need
+    ``track_id``, ``key`` and ``numba_threads`` fields (as :class:`TrackJob`)."""
+    if engine.scheduler is None:
+        _run_local(jobs, engine.n_workers, on_result, task)
+    else:
+        _run_dask(jobs, engine, on_result, task)
+
+
+def _run_local(jobs, workers: int, on_result, task=None) -> None:
     """Run jobs in ``workers`` spawned processes (in this process when ``workers`` is 1)."""
+    task = task or survey_track
     if workers == 1 or len(jobs) == 1:
         for job in jobs:
-            on_result(survey_track(job))
+            on_result(task(job))
         return
     import multiprocessing
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -777,7 +788,7 @@ def _run_local(jobs, workers: int, on_result) -> None:
     pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
                                initializer=_init_local_worker, initargs=(threads, os.getpid()))  # fmt: skip
     try:
-        pending = {pool.submit(survey_track, job) for job in jobs}
+        pending = {pool.submit(task, job) for job in jobs}
         while pending:
             done, pending = wait(pending, return_when=FIRST_COMPLETED)
             for fut in done:
@@ -804,8 +815,8 @@ def _stop_pool(pool) -> None:
         pool.shutdown(wait=True)  # let the pool's manager thread release its queues and locks
 
 
-def _dask_survey_track(job: TrackJob) -> TrackResult:
-    """The Dask task: :func:`survey_track` with Numba's threads shared among the worker's threads."""
+def _dask_survey_track(job: TrackJob, task=None) -> TrackResult:
+    """The Dask task: :func:`survey_track` (or ``task``) with Numba's threads shared among the worker's threads."""
     _worker_tqdm_lock()
     if job.numba_threads is None:
         try:
@@ -815,7 +826,7 @@ def _dask_survey_track(job: TrackJob) -> TrackResult:
         except (ImportError, ValueError, AttributeError):
             nthreads = 1
         job = dataclasses.replace(job, numba_threads=max(1, (os.cpu_count() or 1) // max(1, nthreads)))
-    return survey_track(job)
+    return (task or survey_track)(job)
 
 
 def _dask(engine: Engine):
@@ -829,7 +840,7 @@ def _dask(engine: Engine):
     return distributed
 
 
-def _run_dask(jobs, engine: Engine, on_result) -> None:
+def _run_dask(jobs, engine: Engine, on_result, task=None) -> None:
     """Run jobs as Dask tasks on a LocalCluster or the cluster behind ``engine.scheduler``."""
     distributed = _dask(engine)
     Client, LocalCluster, as_completed = distributed.Client, distributed.LocalCluster, distributed.as_completed
@@ -850,7 +861,7 @@ def _run_dask(jobs, engine: Engine, on_result) -> None:
         raise ClutterSimError(f"--scheduler {engine.scheduler}: cannot reach the Dask scheduler ({exc})") from None
     futures = []
     try:
-        futures = [client.submit(_dask_survey_track, job, key=f"cluttersim-survey-{job.key[:16]}-{job.track_id}",
+        futures = [client.submit(_dask_survey_track, job, task, key=f"cluttersim-survey-{job.key[:16]}-{job.track_id}",
                                  pure=False) for job in jobs]  # fmt: skip
         for fut in as_completed(futures):
             on_result(fut.result())

@@ -253,3 +253,26 @@ def test_a_near_mirror_reads_its_predicted_surface_power(tmp_path, pattern):
     assert 10 * math.log10(peak / expected) == pytest.approx(0.0, abs=0.3)
     below_db = 10 * math.log10(peak / ds["predicted_surface_power"].values[mid])
     assert -2.5 < below_db < -0.5, below_db
+
+
+def test_a_survey_track_file_without_the_convention_is_rescaled(tmp_path):
+    """survey's per-track files: the clutter index (a ratio) is read as it is, the nadir echo's
+    surface_power is rescaled by τ_eff/Δt = 4 for the default radar (1.5/(10 MHz × 37.5 ns))."""
+    import xarray as xr
+
+    from cluttersim.survey import TrackResult, read_track_result, write_track_result
+
+    res = TrackResult(track_id="a", lat_deg=np.zeros(3), lon_deg=np.zeros(3), index_db=np.array([-3.0, 0.0, 2.0]),
+                      fraction=np.zeros(3), depth_m=np.zeros(3), surface_power_w=np.full(3, 2e-13), truncated=0,
+                      key="k")  # fmt: skip
+    path = write_track_result(res, tmp_path / "a.nc")
+    radar = RadarConfig()
+    assert read_track_result(path, radar).surface_power_w[0] == pytest.approx(2e-13)
+    with xr.open_dataset(path, engine="h5netcdf") as ds:
+        old = ds.load()
+    del old.attrs["power_convention"]
+    old["surface_power"] = old["surface_power"] / 4.0
+    old.to_netcdf(tmp_path / "old.nc", engine="h5netcdf")
+    back = read_track_result(tmp_path / "old.nc", radar)
+    assert back.surface_power_w[0] == pytest.approx(2e-13, rel=1e-9)
+    np.testing.assert_array_equal(back.index_db, res.index_db)

@@ -98,7 +98,30 @@ def test_the_line_of_sight_follows_the_body_curvature():
 
 
 def test_grazing_geometry_without_shadowing_warns(tmp_path):
-    """The rule: shadowing off and the window reaching ground below 15° elevation (range at its
-    end > h / sin 15°): 200 m up with a 10 µs window (1.5 km of range) warns."""
+    """The rule: shadowing off, the window reaching ground below 15° elevation (range at its end
+    > h / sin 15°) and relief over 5 % of h: 200 m up with a 10 µs window (1.5 km of range) over the
+    400 m wall warns; over the plain without the wall it does not (nothing to hide behind)."""
+    import warnings
+
     with pytest.warns(UserWarning, match="shadowing off"):
         run(tmp_path, False, plateau=False)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        run(tmp_path, False, plateau=False, wall=False)
+    assert not [w for w in caught if "shadowing off" in str(w.message)]
+
+
+def test_the_coherent_mode_is_shadowed_too(tmp_path):
+    """The coherent kernel calls the same march (with the flat line of sight there): the plateau
+    behind the wall is hidden in its echoes as well."""
+    def coherent(plateau, shadowing=True):
+        cfg = SimulationConfig(
+            radar=RadarConfig(center_frequency_hz=60e6, bandwidth_hz=20e6, sample_interval_s=10e-9, samples=1024),
+            surface=SurfaceConfig("cosine", {"k": 0.05, "n": 1.0}),
+            processing=ProcessingConfig(shadowing=shadowing, mode="coherent", seed=4),
+        )
+        track = utm_track(np.full(3, UTM_X0_M), UTM_Y0_M + np.array([-20.0, 0.0, 20.0]), ALT_M)
+        return simulate(scene(tmp_path, True, plateau), track, cfg, sources=False)["power"].values.astype(float)
+
+    assert np.allclose(coherent(True), coherent(False), rtol=1e-6, atol=0)
+    assert not np.allclose(coherent(True, False), coherent(False, False), rtol=1e-3, atol=0)  # it echoes unshadowed

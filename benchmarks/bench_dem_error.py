@@ -1,0 +1,99 @@
+"""Benchmark of the DEM-error Monte Carlo: N realisations on one prepared scene against N runs.
+
+The case is bench_simulate's "small" case (800² fractal DEM, 200 traces, 1024 samples, 300 km)
+unless ``--case`` says otherwise. Measured in one process after a warm-up run (numba compiled):
+
+* one ordinary run, ``simulate()`` with its default source record, and one without it
+  (wall and CPU time; the median of ``--repeat``);
+* ``simulate_dem_error`` with ``--realisations`` N (one error-free pass included), wall and CPU
+  time, split into scene preparation, error fields, facet rebuilding and kernel;
+* the saving: N × (one run) / (the Monte Carlo), in wall and in CPU time.
+
+Results go to ``benchmarks/results/dem_error-<time>.json`` with the CPU model, its vector
+features and the load average (the machine may be shared: compare CPU-time ratios).
+Timings are never asserted in tests.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import statistics
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+
+def cpu_flags() -> list[str]:
+    """The CPU's vector extensions (from /proc/cpuinfo)."""
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("flags"):
+                flags = line.split(":", 1)[1].split()
+                return sorted(f for f in flags if f.startswith(("avx", "sse4", "fma")))
+    except OSError:
+        pass
+    return []
+
+
+def timed(fn):
+    w0, c0 = time.perf_counter(), time.process_time()
+    out = fn()
+    return out, time.perf_counter() - w0, time.process_time() - c0
+
+
+def main(argv=None) -> int:
+    from bench_simulate import case_inputs, cpu_model
+
+    from cluttersim.dem_error import DemErrorConfig, ErrorStats, simulate_dem_error
+    from cluttersim.simulate import simulate
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--case", default="small")
+    ap.add_argument("--realisations", type=int, default=16)
+    ap.add_argument("--repeat", type=int, default=3)
+    args = ap.parse_args(argv)
+    dem, track, cfg = case_inputs(args.case)
+    error = DemErrorConfig(rms_m=20.0, correlation_m=2000.0, realisations=args.realisations)
+    load0 = os.getloadavg()[0]
+    simulate(dem, track, cfg, sources=False, max_memory_bytes=None)  # warm-up: compile or load the kernels
+    simulate_dem_error(dem, track, cfg, DemErrorConfig(20.0, 2000.0, realisations=2), max_memory_bytes=None)
+    runs = {"sources": [], "no_sources": []}
+    for _ in range(args.repeat):
+        for key, sources in (("sources", True), ("no_sources", False)):
+            _, wall, cpu = timed(lambda s=sources: simulate(dem, track, cfg, sources=s, max_memory_bytes=None))
+            runs[key].append((wall, cpu))
+    stats = ErrorStats()
+    _, mc_wall, mc_cpu = timed(lambda: simulate_dem_error(dem, track, cfg, error, max_memory_bytes=None, stats=stats))
+    load1 = os.getloadavg()[0]
+    n = args.realisations
+    run_wall = statistics.median(w for w, _ in runs["sources"])
+    run_cpu = statistics.median(c for _, c in runs["sources"])
+    result = {
+        "case": args.case, "realisations": n, "cpu": cpu_model(), "cpu_vector_features": cpu_flags(),
+        "cores": os.cpu_count(), "load_average": [load0, load1],
+        "run_wall_s": runs["sources"], "run_no_sources_wall_s": runs["no_sources"],
+        "run_median_wall_s": run_wall, "run_median_cpu_s": run_cpu,
+        "run_no_sources_median_wall_s": statistics.median(w for w, _ in runs["no_sources"]),
+        "monte_carlo_wall_s": mc_wall, "monte_carlo_cpu_s": mc_cpu,
+        "monte_carlo_parts_s": {"scene": stats.seconds_scene, "fields": stats.seconds_fields,
+                                "facets": stats.seconds_facets, "kernel": stats.seconds_kernel},
+        "per_realisation_wall_s": mc_wall / (n + 1),
+        "saving_wall": n * run_wall / mc_wall, "saving_cpu": n * run_cpu / mc_cpu,
+    }  # fmt: skip
+    out = HERE / "results" / f"dem_error-{time.strftime('%Y%m%dT%H%M%S')}.json"
+    out.parent.mkdir(exist_ok=True)
+    out.write_text(json.dumps(result, indent=1))
+    print(json.dumps(result, indent=1))
+    print(f"{n} realisations: {mc_wall:.1f} s wall ({mc_cpu:.1f} s CPU); one run {run_wall:.2f} s "
+          f"({run_cpu:.2f} s CPU): N runs / Monte Carlo = {result['saving_wall']:.2f} (wall), "
+          f"{result['saving_cpu']:.2f} (CPU); wrote {out}")  # fmt: skip
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
