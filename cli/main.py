@@ -98,6 +98,10 @@ def _register():
 
     cli.add_command(plan.plan_cmd)
 
+    from . import template  # no float options
+
+    cli.add_command(template.template_cmd)
+
 
 _register()
 

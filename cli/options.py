@@ -120,6 +120,51 @@ def track_for_dem(track, dem_source, track_height_datum, dem_height_datum, quiet
     return track
 
 
+def figure_options(fn):
+    """--dpi, --figure-format and --db-range: how the figures are drawn and saved."""
+    fn = click.option("--db-range", "db_range", type=click.FloatRange(min=0.0, min_open=True), default=None,
+                      metavar="DB", help="Dynamic range of the radargram figures, dB below the strongest echo "
+                      "[default: chosen from the data so that the clutter shows].")(fn)  # fmt: skip
+    fn = click.option("--figure-format", "figure_format", type=click.Choice(["png", "pdf", "svg"]), default="png",
+                      show_default=True, help="Format of the figures (pdf and svg are vector graphics).")(fn)  # fmt: skip
+    fn = click.option("--dpi", type=click.FloatRange(min=10, max=2400), default=None,
+                      help="Resolution of the figures, dots per inch [default: 120].")(fn)  # fmt: skip
+    return fn
+
+
+def make_figure_options(dpi, figure_format, db_range):
+    from cluttersim.products import FigureOptions
+
+    return FigureOptions(dpi=dpi, fmt=figure_format, db_range=db_range)
+
+
+def deprecated_pair(old: str, new: tuple[str, ...], order: str):
+    """A callback for an old coordinate option (e.g. ``--start LAT LON``): still accepted, with a
+    deprecation message naming the new options."""
+
+    def callback(ctx, param, value):
+        if value is not None and value != ():
+            click.echo(f"cluttersim: warning: {old} {order} is deprecated and will be removed in the next release; "
+                       f"use {' '.join(new)}", err=True)  # fmt: skip
+        return value
+
+    return callback
+
+
+def pick_coordinates(old_value, named: dict, old_name: str, order: tuple[str, ...]):
+    """The coordinates from the named options (``--start-lat`` ...) or the deprecated combined one;
+    a usage error when both or neither are given, or when only some of the named ones are."""
+    given = {k: v for k, v in named.items() if v is not None}
+    if old_value and given:
+        raise click.UsageError(f"give either {old_name} or {', '.join('--' + k.replace('_', '-') for k in named)}, not both")
+    if old_value:
+        return dict(zip(order, old_value))
+    missing = [k for k, v in named.items() if v is None]
+    if missing:
+        raise click.UsageError(f"missing {', '.join('--' + k.replace('_', '-') for k in missing)}")
+    return named
+
+
 # --------------------------------------------------------------------------- finite numbers
 
 

@@ -17,10 +17,12 @@ from .options import band_option, overwrite_option, permittivity_option, quiet_o
 @click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="The run's DEM, if it has moved (for the map).")
 @click.option("--sim", "sim_path", type=click.Path(dir_okay=False),
               help="The simulated radargram.nc of a comparison, if it has moved.")
+@click.option("--no-centroids", is_flag=True,
+              help="Do not mark each side's power-weighted source centre on the map (saves three kernel runs).")
 @band_option
 @overwrite_option
 @quiet_option
-def report_cmd(run_dir, out_path, permittivity, dem_path, sim_path, band, overwrite, quiet):
+def report_cmd(run_dir, out_path, permittivity, dem_path, sim_path, no_centroids, band, overwrite, quiet):
     """Write a run's report: one HTML file that opens from disk without a network.
 
     \b
@@ -32,6 +34,6 @@ def report_cmd(run_dir, out_path, permittivity, dem_path, sim_path, band, overwr
       cluttersim report cmp1 --out cmp1.html --permittivity 3.15
     """
     path = write_report(run_dir, out_path, permittivity=permittivity, overwrite=overwrite, dem=dem_path, sim=sim_path,
-                        band=band)  # fmt: skip
+                        band=band, centroids=not no_centroids, progress=not quiet)  # fmt: skip
     if not quiet:
         click.echo(f"wrote {path}")

@@ -12,7 +12,8 @@ from cluttersim.outputs import check_new
 from cluttersim.products import simulate_to_dir
 
 from .options import (
-    height_datum_options, load_config, max_memory_option, track_for_dem, with_antenna, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
+    figure_options, height_datum_options, load_config, make_figure_options, max_memory_option, track_for_dem, with_antenna,
+    out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
 )  # fmt: skip
 
 
@@ -47,17 +48,21 @@ from .options import (
               help="Seed of the DEM error fields [default: [dem_error] seed, else 0].")
 @permittivity_option
 @max_memory_option
+@figure_options
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
-                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, track_height_datum, dem_height_datum, dem_height_unit, dem_error, realisations, dem_error_seed,
-                 permittivity, max_memory, out_dir, overwrite, quiet):  # fmt: skip
+                 antenna_pattern, antenna_axis, beamwidth_deg, shadowing, track_height_datum, dem_height_datum, dem_height_unit,
+                 dem_error, realisations, dem_error_seed, permittivity, max_memory, dpi, figure_format, db_range, out_dir,
+                 overwrite, quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
     Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
     axis for --permittivity), OUT/radargram_sides.png (which side of the track each echo
-    comes from) and OUT/track_map.png (track and first returns over shaded relief).
+    comes from), OUT/radargram_elevation.png (height above the datum, the terrain drawn)
+    and OUT/track_map.png (track and first returns over shaded relief); --figure-format
+    pdf or svg for vector figures.
     Optional [noise] and [subsurface] tables in the radar TOML add receiver and sky noise and
     the predicted echo of a hypothesised interface; [ionosphere] delays and disperses the
     echoes through a layer of given TEC; [[band]] tables simulate several frequency bands in
@@ -96,7 +101,7 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     paths = simulate_to_dir(
         dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
         sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,
-        max_memory_bytes=max_memory,
+        max_memory_bytes=max_memory, figures=make_figure_options(dpi, figure_format, db_range),
     )  # fmt: skip
     if error is not None:
         ds = simulate_dem_error(dem_path, track_path, config, error, body_radius_m=body_radius_m, progress=not quiet,

@@ -13,7 +13,7 @@ from cluttersim.sources import (
     write_source_map,
 )
 
-from .options import band_option, overwrite_option, permittivity_option, quiet_option
+from .options import band_option, figure_options, make_figure_options, overwrite_option, permittivity_option, quiet_option
 
 
 @click.command("sources")
@@ -26,9 +26,11 @@ from .options import band_option, overwrite_option, permittivity_option, quiet_o
 @permittivity_option
 @click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="The run's DEM, if it has moved.")
 @band_option
+@figure_options
 @overwrite_option
 @quiet_option
-def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivity, dem_path, band, overwrite, quiet):
+def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivity, dem_path, band, dpi, figure_format,
+                db_range, overwrite, quiet):  # fmt: skip
     """Find the ground behind a run's echoes.
 
     \b
@@ -45,10 +47,11 @@ def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivi
         raise click.UsageError("give either --depth-window A B, or --trace N with --delay-us or --depth-m")
     if trace is not None and (delay_us is None) == (depth_m is None):
         raise click.UsageError("with --trace, give exactly one of --delay-us or --depth-m")
+    figures = make_figure_options(dpi, figure_format, db_range)
     run = load_run(run_dir, dem=dem_path, band=band)
     if depth_window is not None:
         smap = depth_window_map(run, depth_window[0], depth_window[1], permittivity, progress=not quiet)
-        paths = write_source_map(run, smap, overwrite=overwrite)
+        paths = write_source_map(run, smap, overwrite=overwrite, figures=figures)
         if not quiet:
             for p in paths.values():
                 click.echo(f"wrote {p}")
@@ -56,7 +59,7 @@ def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivi
     answer = ask_echo(
         run, trace, delay_s=None if delay_us is None else delay_us * 1e-6, depth_m=depth_m, permittivity=permittivity, top=top
     )
-    path = write_echo_answer(run, answer, overwrite=overwrite)
+    path = write_echo_answer(run, answer, overwrite=overwrite, figures=figures)
     click.echo(format_echo_answer(answer))
     if not quiet:
         click.echo(f"wrote {path}")

@@ -10,6 +10,8 @@ from cluttersim.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
 
 from .options import (
     band_option,
+    deprecated_pair,
+    pick_coordinates,
     load_config,
     max_memory_option,
     out_dir_option,
@@ -22,8 +24,13 @@ from .options import (
 
 @click.command("survey")
 @click.option("--dem", "dem_path", required=True, type=click.Path(dir_okay=False), help="Elevation raster (GeoTIFF...).")
-@click.option("--region", nargs=4, type=float, required=True, metavar="LON_MIN LAT_MIN LON_MAX LAT_MAX",
-              help="The region to survey, degrees (east longitudes); it must lie on the DEM.")
+@click.option("--lat-min", type=float, default=None, help="The region to survey: southern edge, degrees north.")
+@click.option("--lat-max", type=float, default=None, help="The region: northern edge, degrees north.")
+@click.option("--lon-min", type=float, default=None, help="The region: western edge, degrees east.")
+@click.option("--lon-max", type=float, default=None, help="The region: eastern edge, degrees east (it must lie on the DEM).")
+@click.option("--region", nargs=4, type=float, default=None, metavar="LON_MIN LAT_MIN LON_MAX LAT_MAX", hidden=True,
+              callback=deprecated_pair("--region", ("--lat-min", "--lat-max", "--lon-min", "--lon-max"),
+                                       "LON_MIN LAT_MIN LON_MAX LAT_MAX"))
 @click.option("--spacing-km", type=float, default=None, help="Generated tracks: distance between neighbouring tracks, km.")
 @click.option("--heading-deg", type=float, default=0.0, show_default=True,
               help="Generated tracks: heading at the region's centre, degrees clockwise from north.")
@@ -36,8 +43,12 @@ from .options import (
 @click.option("--max-depth-m", type=float, default=500.0, show_default=True,
               help="The subsurface window reaches from the nadir surface echo to this apparent depth, m.")
 @permittivity_option
-@click.option("--threshold-db", type=float, default=0.0, show_default=True,
-              help="Clutter at or above this level relative to the nadir surface echo makes a trace clutter-prone, dB.")
+@click.option("--threshold-db", type=float, default=3.0, show_default=True,
+              help="Clutter at least this far above what level ground gives makes a trace clutter-prone, dB "
+                   "(the index is relative to level ground in the same geometry: level ground reads 0 dB).")
+@click.option("--swath-km", type=click.FloatRange(min=0.0), default=None,
+              help="Cross-track half-width each trace covers on the map, km [default: the ground its subsurface "
+                   "window reaches over level ground; 0: nadir paths only].")
 @click.option("--grid-km", type=float, default=None,
               help="Map cell size, km [default: half the track spacing; with --tracks, 1/100 of the region].")
 @click.option("--body-radius-m", type=float, default=None, help="Sphere radius (m) for a DEM without CRS.")
@@ -52,8 +63,8 @@ from .options import (
 @overwrite_option
 @quiet_option
 @click.pass_context
-def survey_cmd(ctx, dem_path, region, spacing_km, heading_deg, alt_m, trace_spacing_m, tracks_path, radar_path,
-               max_depth_m, permittivity, threshold_db, grid_km, body_radius_m, workers, scheduler, band, max_memory,
+def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacing_km, heading_deg, alt_m, trace_spacing_m, tracks_path, radar_path,
+               max_depth_m, permittivity, threshold_db, swath_km, grid_km, body_radius_m, workers, scheduler, band, max_memory,
                out_dir, overwrite, quiet):  # fmt: skip
     """Survey a region: where will off-nadir clutter swamp the subsurface?
 
@@ -67,13 +78,16 @@ def survey_cmd(ctx, dem_path, region, spacing_km, heading_deg, alt_m, trace_spac
 
     \b
     Example:
-      cluttersim survey --dem site.tif --region 10.5 40 13.5 42 \\
+      cluttersim survey --dem site.tif --lat-min 10.5 --lat-max 13.5 --lon-min 40 --lon-max 42 \\
           --spacing-km 5 --heading-deg 10 --alt-m 300000 --out survey1
+    (--region LON_MIN LAT_MIN LON_MAX LAT_MAX still works but is deprecated.)
     """
+    box = pick_coordinates(region, {"lat_min": lat_min, "lat_max": lat_max, "lon_min": lon_min, "lon_max": lon_max},
+                           "--region", ("lon_min", "lat_min", "lon_max", "lat_max"))  # fmt: skip
     config = SurveyConfig(
-        region=tuple(region), spacing_km=spacing_km, heading_deg=heading_deg, alt_m=alt_m,
+        region=(box["lon_min"], box["lat_min"], box["lon_max"], box["lat_max"]), spacing_km=spacing_km, heading_deg=heading_deg, alt_m=alt_m,
         trace_spacing_m=trace_spacing_m, tracks_path=tracks_path, max_depth_m=max_depth_m, permittivity=permittivity,
-        threshold_db=threshold_db, grid_km=grid_km,
+        threshold_db=threshold_db, grid_km=grid_km, swath_km=swath_km,
     )  # fmt: skip
     engine = Engine(workers=workers, scheduler=scheduler)
     sim_config = load_config(radar_path)

@@ -22,6 +22,7 @@ from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
 from .report import REPORT_FILE, write_report
 from .outputs import atomic_paths, check_new, locked_output
+from .radargram import open_radargram
 from .simulate import RunStats, simulate
 from .track import great_circle_track
 
@@ -108,6 +109,10 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     bands_cfg = dataclasses.replace(demo_config(), bands=DEMO_BANDS)  # only the samples shown are simulated
     bands_cfg = dataclasses.replace(bands_cfg, radar=dataclasses.replace(bands_cfg.radar, samples=DEMO_BANDS_SAMPLES))
     bands = simulate(src, track, bands_cfg, sources=False)
+    # the focused view on the raw view's dynamic range: colours are dB below each one's strongest (nadir)
+    # echo, so an echo as far below the surface echo has the same colour in both (focusing's weights lower
+    # every echo, the nadir one too: one absolute scale would show the focused view almost black)
+    raw_lo, raw_hi = plots.db_limits(open_radargram(paths["radargram"]))
     # the same pass as the instrument records it: galactic noise floor, compression gain, ionosphere
     sky_cfg = dataclasses.replace(demo_config(), noise=DEMO_SKY, processing=DEMO_INSTRUMENT,
                                   ionosphere=IonosphereConfig(tec_el_m2=DEMO_TEC_EL_M2))  # fmt: skip
@@ -115,8 +120,10 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     sky = simulate(src, track, sky_cfg, sources=False)
     with atomic_paths([track_csv, focused_png, bands_png, sky_png]) as (tmp_csv, tmp_png, tmp_bands, tmp_sky):
         track.to_csv(tmp_csv)
-        plots.plot_radargram(focused, tmp_png, permittivity=3.15,
-                             title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind suppressed")  # fmt: skip
+        plots.plot_radargram(focused, tmp_png, permittivity=3.15, dynamic_range_db=raw_hi - raw_lo,
+                             title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind "
+                                   f"suppressed\n(the {raw_hi - raw_lo:g} dB below the strongest echo shown in "
+                                   "radargram.png)")  # fmt: skip
         plots.plot_band_radargrams(bands.isel(sample=slice(0, DEMO_BANDS_SAMPLES)), tmp_bands, permittivity=3.15,
                                    title="the same pass in two frequency bands (first 15 µs of the window)")  # fmt: skip
         plots.plot_radargram(sky.isel(sample=slice(0, DEMO_SKY_SAMPLES)), tmp_sky, permittivity=3.15,

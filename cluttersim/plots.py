@@ -1,11 +1,14 @@
 """Figures: radargrams (power, side of the track), comparisons with observed data and maps (track, echo sources).
 
-Figures are built on :class:`matplotlib.figure.Figure` with an explicit Agg
-canvas; pyplot is never imported, so using this module changes no global
-matplotlib state (backend, current figure) of the calling program.
-
-Every function writes its PNG atomically: to ``<name>.tmp`` next to the target,
-then :func:`os.replace` onto it, so a reader never sees a half-written file.
+Every ``plot_*`` function draws into the ``ax=`` you give it (e.g. from
+``plt.subplots()`` in a notebook) and returns those axes, or makes its own
+:class:`matplotlib.figure.Figure` with an explicit Agg canvas and returns it;
+pyplot is never imported here, so this module changes no global matplotlib
+state (backend, current figure). Saving is the caller's choice:
+:func:`save_figure` (or the ``path`` argument) writes png, pdf or svg
+atomically — to ``<name>.tmp`` next to the target, then :func:`os.replace`
+onto it, so a reader never sees a half-written file. Colours come from
+:mod:`cluttersim.palette`.
 """
 
 from __future__ import annotations
@@ -26,6 +29,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.patheffects import withStroke
 
+from . import palette
 from .overlays import draw_noise_floor, draw_predicted_subsurface
 from .radar import apparent_depth_m, delay_after_surface_s
 
@@ -38,40 +42,40 @@ TRACK_MAP_FIGSIZE_IN = (8.0, 7.0)
 #: Size of the map of one echo's ground sources, in inches (width, height).
 ECHO_SOURCES_FIGSIZE_IN = (7.0, 6.0)
 
-#: Colormap of the radargram (perceptually uniform, dark = weak echo).
-RADARGRAM_CMAP = "magma"
+#: Colormap of the radargram (perceptually uniform, dark = weak echo): :data:`cluttersim.palette.POWER_CMAP`.
+RADARGRAM_CMAP = palette.POWER_CMAP
 #: Colour of traces with no data (NaN power, e.g. nadir off the DEM).
-NO_DATA_COLOUR = "#b8c4cc"
+NO_DATA_COLOUR = palette.NO_DATA
 #: Colour of overlaid lines on the radargram (contrasts with magma).
-OVERLAY_COLOUR = "#3fd0ff"
+OVERLAY_COLOUR = palette.OVERLAY_LINE
 
 #: Terrain colours without the blue "sea" part of matplotlib's ``terrain``.
 TERRAIN_CMAP = ListedColormap(colormaps["terrain"](np.linspace(0.25, 0.95, 256)), name="terrain_land")
 #: Colour of the track line on every map.
-TRACK_COLOUR = "#c0142c"
+TRACK_COLOUR = palette.TRACK
 #: Colour of the first-return markers on the track map.
 FIRST_RETURN_COLOUR = "#1d1d6b"
 #: Colormap of the power overlaid on the source map.
-SOURCE_MAP_CMAP = "viridis"
+SOURCE_MAP_CMAP = palette.GROUND_POWER_CMAP
 #: Colour of the ranked ground cells on the echo-sources map.
 ECHO_CELL_COLOUR = "#f0e442"
 #: At most this many ranked cells are listed in the echo-sources legend.
 _MAX_RANKS_LISTED = 10
 
-# Side-of-track radargram. Orange / sky blue / grey stay distinct under the
-# common colour-vision deficiencies (they separate along the blue-yellow and
-# the lightness-neutral directions, not along red-green), and all three have
-# the same relative luminance (~0.41), so brightness shows echo power alone,
-# whatever the side. No colour mixed from them is lighter than that, which
-# keeps the light no-data colour unambiguous.
+# Side-of-track radargram: the palette's orange / sky blue / grey (cluttersim.palette, also the
+# report's). No colour mixed from them is lighter than ~0.41 luminance, which keeps the light
+# no-data colour unambiguous.
 #: Colour of power from left of the direction of travel (at full brightness).
-SIDE_LEFT_COLOUR = "#e69f00"
+SIDE_LEFT_COLOUR = palette.SIDE_LEFT
 #: Colour of power from right of the direction of travel (at full brightness).
-SIDE_RIGHT_COLOUR = "#56b4e9"
+SIDE_RIGHT_COLOUR = palette.SIDE_RIGHT
 #: Colour of power from the nadir strip (at full brightness).
-SIDE_NADIR_COLOUR = "#ababab"
+SIDE_NADIR_COLOUR = palette.SIDE_NADIR
 #: Colour of samples without data (or with power but an unknown side).
-SIDE_NO_DATA_COLOUR = "#e4e4e4"
+SIDE_NO_DATA_COLOUR = palette.SIDE_NO_DATA
+#: Exponent of the side view's brightness over its dB scale (< 1 lifts the weak echoes that a strong
+#: mirror-like nadir echo would otherwise leave near black; 1 = linear in dB).
+SIDE_BRIGHTNESS_GAMMA = 0.6
 #: Hatching over traces without data, so they cannot be read as an echo colour.
 SIDE_NO_DATA_HATCH_COLOUR = "#8c8c8c"
 #: Colour of the nadir line on the side radargram (contrasts with all three sides).
@@ -136,27 +140,94 @@ class RadargramLayers:
     nadir_us: np.ndarray | None
 
 
-def _db_limits(db: np.ndarray, dynamic_range_db: float) -> tuple[float, float]:
-    """Display range (max − dynamic_range_db, max) of finite dB values; max is 0 if there are none."""
+#: Bounds of the data-driven dynamic range (dB) chosen by :func:`auto_db_range`.
+AUTO_DB_RANGE_BOUNDS = (20.0, 80.0)
+#: Percentile of the echoing samples' power (dB) that :func:`auto_db_range` puts near the bottom of the scale ...
+AUTO_DB_RANGE_PERCENTILE = 10.0
+#: ... this far above it (dB), so that the bulk of the samples shows as a dim texture, not black.
+AUTO_DB_RANGE_MARGIN_DB = 10.0
+
+
+def auto_db_range(power_or_db, *, is_db: bool = False) -> float:
+    """A dynamic range (dB) chosen from the data so that the clutter shows.
+
+    The scale runs from the strongest sample down to
+    :data:`AUTO_DB_RANGE_MARGIN_DB` below the :data:`AUTO_DB_RANGE_PERCENTILE`-th
+    percentile of the samples that hold any echo (power > 0: before the first
+    surface echo a simulation holds exact zeros, which are left out), rounded
+    up to 5 dB and kept within :data:`AUTO_DB_RANGE_BOUNDS`. The bulk of the
+    samples (with receiver noise: the noise floor) then shows as a dim
+    texture under the brighter clutter hyperbolas, instead of a fixed 60 dB
+    that washes the hyperbolas out when the clutter spans less.
+
+    Parameters
+    ----------
+    power_or_db : array_like
+        Power in W (or in dB with ``is_db``); NaN ignored.
+
+    Returns
+    -------
+    float
+        The dynamic range in dB.
+    """
+    db = np.asarray(power_or_db, dtype=np.float64) if is_db else power_db(power_or_db)
+    finite = db[np.isfinite(db)]
+    lo, hi = AUTO_DB_RANGE_BOUNDS
+    if finite.size == 0:
+        return 60.0
+    span = float(finite.max() - np.percentile(finite, AUTO_DB_RANGE_PERCENTILE)) + AUTO_DB_RANGE_MARGIN_DB
+    return float(np.clip(5.0 * np.ceil(span / 5.0), lo, hi))
+
+
+def db_limits(*datasets, dynamic_range_db: float | None = None, variable: str = "power") -> tuple[float, float]:
+    """One colour scale ``(vmin_db, vmax_db)`` for radargrams that are meant to be compared.
+
+    ``vmax_db`` is the strongest sample of all of them; the range is
+    ``dynamic_range_db`` or, by default, :func:`auto_db_range` of all their samples together.
+    Pass the result as ``db_limits=`` to :func:`plot_radargram`, :func:`plot_side_radargram`...
+    """
+    dbs = [power_db(np.asarray(ds[variable].values, dtype=np.float64)).ravel() for ds in datasets]
+    allv = np.concatenate(dbs) if dbs else np.array([])
+    finite = allv[np.isfinite(allv)]
+    vmax = float(finite.max()) if finite.size else 0.0
+    rng = float(dynamic_range_db) if dynamic_range_db is not None else auto_db_range(allv, is_db=True)
+    if not rng > 0:
+        raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
+    return vmax - rng, vmax
+
+
+def _db_limits(db: np.ndarray, dynamic_range_db: float | None) -> tuple[float, float]:
+    """Display range (max − range, max) of finite dB values; max is 0 if there are none; the range
+    is :func:`auto_db_range` of the values when ``dynamic_range_db`` is None."""
     finite = np.isfinite(db)
     vmax_db = float(db[finite].max()) if finite.any() else 0.0
+    if dynamic_range_db is None:
+        dynamic_range_db = auto_db_range(db, is_db=True)
     return vmax_db - float(dynamic_range_db), vmax_db
 
 
-def radargram_layers(ds, dynamic_range_db: float = 60.0) -> RadargramLayers:
+def _check_range(dynamic_range_db, limits) -> None:
+    if dynamic_range_db is not None and not dynamic_range_db > 0:
+        raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
+    if limits is not None and not (len(limits) == 2 and float(limits[1]) > float(limits[0])):
+        raise ValueError(f"db_limits must be (vmin_db, vmax_db) with vmin_db < vmax_db, got {limits!r}")
+
+
+def radargram_layers(ds, dynamic_range_db: float | None = None, *, db_limits=None) -> RadargramLayers:
     """Convert a radargram Dataset into the arrays :func:`plot_radargram` draws.
 
     If ``window_start`` varies along the track the image is shown as recorded:
     delay after each trace's window start. If it is constant (or absent) the
     y axis is the absolute two-way delay (window start + relative delay).
-    The nadir surface line is given in the same frame.
+    The nadir surface line is given in the same frame. The colour scale is
+    ``db_limits`` if given, else [max − ``dynamic_range_db``, max] (default
+    range: :func:`auto_db_range`).
     """
     if "power" not in ds or tuple(ds["power"].dims) != ("trace", "sample"):
         raise ValueError("radargram dataset needs a 'power' variable with dims (trace, sample)")
     if "delay" not in ds.coords:
         raise ValueError("radargram dataset needs a 'delay' (sample) coordinate in seconds")
-    if not dynamic_range_db > 0:
-        raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
+    _check_range(dynamic_range_db, db_limits)
     power_w = np.asarray(ds["power"].values, dtype=np.float64)
     nsample = power_w.shape[1]
     delay_s = np.asarray(ds["delay"].values, dtype=np.float64)
@@ -179,8 +250,11 @@ def radargram_layers(ds, dynamic_range_db: float = 60.0) -> RadargramLayers:
         if not np.isfinite(nadir_us).any():
             nadir_us = None
 
-    vmin_db, vmax_db = _db_limits(power_db(power_w), dynamic_range_db)
-    image_db = power_db(power_w, floor_db=vmin_db).T
+    if db_limits is not None:
+        vmin_db, vmax_db = float(db_limits[0]), float(db_limits[1])
+    else:
+        vmin_db, vmax_db = _db_limits(power_db(power_w), dynamic_range_db)
+    image_db = np.minimum(power_db(power_w, floor_db=vmin_db), vmax_db).T
     return RadargramLayers(
         image_db=image_db,
         vmin_db=vmin_db,
@@ -194,13 +268,18 @@ def radargram_layers(ds, dynamic_range_db: float = 60.0) -> RadargramLayers:
 
 def plot_radargram(
     ds,
-    path,
+    path=None,
     *,
-    dynamic_range_db: float = 60.0,
+    ax=None,
+    dynamic_range_db: float | None = None,
+    db_limits=None,
     title: str | None = None,
     permittivity: float | None = None,
-) -> Path:
-    """Draw a radargram (echo power in dB, trace vs delay) to a PNG file.
+    distance_axis: bool = True,
+    dpi: float | None = None,
+    fmt: str | None = None,
+):
+    """Draw a radargram (echo power in dB, trace vs delay).
 
     Parameters
     ----------
@@ -209,17 +288,30 @@ def plot_radargram(
         data; coordinate ``delay`` (sample) in s after the window start;
         ``window_start`` and ``nadir_delay`` (trace) absolute two-way delays
         in s (NaN allowed). See :mod:`cluttersim.radargram`.
-    path : str or Path
-        Output PNG; its directory must exist.
-    dynamic_range_db : float
-        Colour scale spans [max − dynamic_range_db, max] dBW; weaker echoes
-        and zero power are drawn at the bottom of the scale.
+    path : str or Path, optional
+        Save the figure there (atomically; format from ``fmt`` or the suffix)
+        and return the path. Without it nothing is written.
+    ax : matplotlib.axes.Axes, optional
+        Draw into these axes (e.g. from ``plt.subplots()``); by default a new
+        :class:`~matplotlib.figure.Figure` (no pyplot) is made.
+    dynamic_range_db : float, optional
+        Colour scale spans [max − dynamic_range_db, max] dBW; default chosen
+        from the data (:func:`auto_db_range`). Weaker echoes and zero power
+        are drawn at the bottom of the scale.
+    db_limits : (float, float), optional
+        Fixed colour scale (vmin_db, vmax_db), e.g. from :func:`db_limits`, to
+        draw figures meant to be compared on one scale.
     title : str, optional
     permittivity : float, optional
         Real relative permittivity ε′ ≥ 1. If given, a second y axis on the
         right shows the apparent depth below the nadir surface,
         :func:`cluttersim.radar.apparent_depth_m` of the delay after the
         median nadir delay (see :func:`plot_side_radargram`).
+    distance_axis : bool
+        With a ``distance`` coordinate (or lat/lon), an along-track distance
+        axis (km) on top, beside the trace index below.
+    dpi, fmt
+        For ``path``: resolution (default :data:`DPI`) and format (png, pdf, svg).
 
     If ``ds`` has ``noise_power`` its level is marked on the colour bar, and if
     it has ``predicted_subsurface_delay`` that delay is drawn as a line
@@ -227,39 +319,61 @@ def plot_radargram(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure; the given ``ax``; or ``path`` if one was given.
+
+    Examples
+    --------
+    >>> import cluttersim, cluttersim.plots as plots
+    >>> ds = cluttersim.examples.tiny_radargram()
+    >>> fig = plots.plot_radargram(ds, permittivity=3.15)
+    >>> fig.axes[0].get_xlabel()
+    'trace'
     """
     _check_permittivity(permittivity)
-    fig = _new_figure(RADARGRAM_FIGSIZE_IN)
-    _draw_radargram_panel(fig, fig.add_subplot(), ds, dynamic_range_db, title, permittivity)
-    return _save_atomic(fig, path)
+    fig, ax, given = _figure_for(ax, RADARGRAM_FIGSIZE_IN)
+    _draw_radargram_panel(fig, ax, ds, dynamic_range_db, title, permittivity, db_limits, distance_axis)
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
-def plot_band_radargrams(ds, path, *, dynamic_range_db: float = 60.0, title: str | None = None,
-                         permittivity: float | None = None) -> Path:  # fmt: skip
+def plot_band_radargrams(ds, path=None, *, ax=None, dynamic_range_db: float | None = None, title: str | None = None,
+                         permittivity: float | None = None, distance_axis: bool = True, dpi=None, fmt=None):  # fmt: skip
     """Draw each band of a multi-band radargram (``band`` dimension, :mod:`cluttersim.radargram`)
     as one panel of a column, each with its own colour scale (the bands' power levels differ by
-    their radar constants), titled with its centre frequency and bandwidth."""
+    their radar constants), titled with its centre frequency and bandwidth.
+
+    ``ax``: a sequence of one Axes per band (default: a new Figure). Returns the Figure, the
+    given axes, or ``path`` (as :func:`plot_radargram`)."""
     from .radargram import band_names, select_band
 
     _check_permittivity(permittivity)
     names = band_names(ds)
     if not names:
         raise ValueError("plot_band_radargrams: the radargram has no band dimension")
-    fig = _new_figure((RADARGRAM_FIGSIZE_IN[0], 0.8 * RADARGRAM_FIGSIZE_IN[1] * len(names)))
+    if ax is None:
+        fig = _new_figure((RADARGRAM_FIGSIZE_IN[0], 0.8 * RADARGRAM_FIGSIZE_IN[1] * len(names)))
+        axes, given = [fig.add_subplot(len(names), 1, i + 1) for i in range(len(names))], False
+    else:
+        axes, given = list(np.ravel(ax)), True
+        if len(axes) != len(names):
+            raise ValueError(f"plot_band_radargrams: ax needs one Axes per band ({len(names)}), got {len(axes)}")
+        fig = axes[0].figure
     for i, name in enumerate(names):
         one = select_band(ds, name)
         f_mhz, b_mhz = one.attrs["radar_center_frequency_hz"] / 1e6, one.attrs["radar_bandwidth_hz"] / 1e6
         label = f"band {name}: {f_mhz:g} MHz, bandwidth {b_mhz:g} MHz (resolution {150 / b_mhz:g} m)"
-        _draw_radargram_panel(fig, fig.add_subplot(len(names), 1, i + 1), one, dynamic_range_db,
-                              label if title is None else f"{title}\n{label}" if i == 0 else label, permittivity)  # fmt: skip
-    return _save_atomic(fig, path)
+        _draw_radargram_panel(fig, axes[i], one, dynamic_range_db,
+                              label if title is None else f"{title}\n{label}" if i == 0 else label, permittivity,
+                              None, distance_axis and i == 0)  # fmt: skip
+    if path is not None:
+        return save_figure(fig, path, dpi=dpi, fmt=fmt)
+    return ax if given else fig
 
 
-def _draw_radargram_panel(fig, ax, ds, dynamic_range_db, title, permittivity) -> None:
+def _draw_radargram_panel(fig, ax, ds, dynamic_range_db, title, permittivity, db_limits=None,
+                          distance_axis=True) -> None:  # fmt: skip
     """One radargram with its colour bar, nadir line, overlays and axes (see :func:`plot_radargram`)."""
-    layers = radargram_layers(ds, dynamic_range_db)
+    layers = radargram_layers(ds, dynamic_range_db, db_limits=db_limits)
     cmap = colormaps[RADARGRAM_CMAP].with_extremes(bad=NO_DATA_COLOUR)
     image = ax.imshow(
         layers.image_db,
@@ -279,25 +393,166 @@ def _draw_radargram_panel(fig, ax, ds, dynamic_range_db, title, permittivity) ->
     handles += [h for h in (draw_predicted_subsurface(ax, ds, layers),) if h is not None]
     if np.isnan(layers.image_db).all(axis=0).any():
         handles.append(Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data"))
-    colorbar = fig.colorbar(image, ax=ax, label="echo power (dBW)", pad=0.01)
+    colorbar = fig.colorbar(image, ax=ax, label=f"echo power (dBW; {layers.vmax_db - layers.vmin_db:g} dB shown)",
+                            pad=0.01)  # fmt: skip
     handles += [h for h in (draw_noise_floor(colorbar, ds, layers.vmin_db, layers.vmax_db),) if h is not None]
     if handles:
         ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     _label_radargram(ax, layers, title)
     _add_depth_axis(ax, layers, permittivity)
+    if distance_axis:
+        add_distance_axis(ax, ds)
+
+
+def along_track_km(ds) -> np.ndarray | None:
+    """Along-track distance of each trace in km: the ``distance`` coordinate (m), or None."""
+    if "distance" in ds.variables:
+        d = np.asarray(ds["distance"].values, dtype=np.float64)
+        return d / 1e3 if d.size and np.isfinite(d).all() else None
+    return None
+
+
+def add_distance_axis(ax, ds):
+    """An along-track distance axis (km) on top of a trace axis (traces centred on integers);
+    returns it, or None when ``ds`` has no ``distance`` or it does not increase along the track."""
+    km = along_track_km(ds)
+    if km is None or km.size < 2 or not np.all(np.diff(km) > 0):
+        return None
+    trace = np.arange(km.size, dtype=np.float64)
+
+    def forward(t):
+        t = np.asarray(t, dtype=np.float64)
+        slope0, slope1 = km[1] - km[0], km[-1] - km[-2]
+        return np.where(t < 0, km[0] + t * slope0, np.where(t > trace[-1], km[-1] + (t - trace[-1]) * slope1,
+                                                           np.interp(t, trace, km)))  # fmt: skip
+
+    def inverse(d):
+        d = np.asarray(d, dtype=np.float64)
+        slope0, slope1 = km[1] - km[0], km[-1] - km[-2]
+        return np.where(d < km[0], (d - km[0]) / slope0, np.where(d > km[-1], trace[-1] + (d - km[-1]) / slope1,
+                                                                  np.interp(d, km, trace)))  # fmt: skip
+
+    top = ax.secondary_xaxis("top", functions=(forward, inverse))
+    top.set_xlabel("along-track distance (km)")
+    return top
+
+
+# --------------------------------------------------------------------- elevation view
+
+#: Colour of the nadir terrain profile on the elevation radargram.
+TERRAIN_LINE_COLOUR = "#7a5a2f"
+
+
+def elevation_layers(ds, permittivity: float = 3.15, height_step_m: float | None = None):
+    """Resample a radargram onto height above the datum: ``(image_db (height, trace), top_m, step_m,
+    surface_m (trace,))``.
+
+    Each sample's height assumes the echo came from straight below the antenna:
+    above the nadir surface h = alt − c τ / 2 (free space), below it
+    h = h_s − c (τ − τ_n) / (2 √ε′) (the apparent depth of
+    :func:`cluttersim.radar.apparent_depth_m`), with τ the absolute two-way
+    delay, τ_n the nadir delay and h_s = alt − c τ_n / 2 the nadir surface
+    height. Off-nadir clutter therefore appears at the height it would have
+    if it were below the antenna — the way an analyst reads such a view.
+    """
+    from .constants import SPEED_OF_LIGHT_M_S as C
+
+    eps = float(permittivity)
+    apparent_depth_m(0.0, eps)
+    power = np.asarray(_trace_by_sample(ds["power"]), dtype=np.float64)
+    ntrace, nsample = power.shape
+    delay = np.asarray(ds["delay"].values, dtype=np.float64)
+    ws = np.asarray(ds["window_start"].values, dtype=np.float64)
+    alt = np.asarray(ds["alt"].values, dtype=np.float64)
+    nadir = np.asarray(ds["nadir_delay"].values, dtype=np.float64)
+    tau = ws[:, None] + delay[None, :]
+    surface = alt - 0.5 * C * nadir
+    above = alt[:, None] - 0.5 * C * tau
+    below = surface[:, None] - C * (tau - nadir[:, None]) / (2.0 * np.sqrt(eps))
+    height = np.where(tau <= nadir[:, None], above, below)  # (trace, sample), decreasing along sample
+    dt = float(delay[1] - delay[0]) if nsample > 1 else 1e-8
+    step = float(height_step_m) if height_step_m else C * dt / (2.0 * np.sqrt(eps))
+    finite = np.isfinite(height)
+    if not finite.any():
+        raise ValueError("elevation view: no trace has a nadir delay (all traces off the DEM?)")
+    top, bottom = float(np.nanmax(height)), float(np.nanmin(height))
+    nrow = int(min(4096, max(2, np.ceil((top - bottom) / step) + 1)))
+    step = (top - bottom) / (nrow - 1) if nrow > 1 else step
+    rows_h = top - np.arange(nrow) * step
+    image = np.full((nrow, ntrace), np.nan)
+    for t in range(ntrace):
+        h = height[t]
+        if not np.isfinite(h).all():
+            continue
+        # h decreases with sample index: interpolate power (linear, W) on the reversed (increasing) arrays
+        image[:, t] = np.interp(rows_h, h[::-1], power[t, ::-1], left=np.nan, right=np.nan)
+    return power_db(image), top, step, surface
+
+
+def plot_elevation_radargram(ds, path=None, *, ax=None, permittivity: float = 3.15, dynamic_range_db=None,
+                             db_limits=None, title: str | None = None, distance_axis: bool = True, dpi=None,
+                             fmt=None):  # fmt: skip
+    """Draw a radargram in elevation: height above the datum (m) against trace, the nadir surface
+    drawn as terrain.
+
+    The airborne-style view of the same data as :func:`plot_radargram`: each
+    sample is placed at the height it would have if it came from straight below
+    the antenna (free-space range above the surface, apparent depth with ε′ =
+    ``permittivity`` below it; :func:`elevation_layers`), so the surface echo
+    follows the terrain profile and a real subsurface interface would sit at
+    its depth below it, while off-nadir clutter shows as echoes hanging below
+    (or, on steep slopes, above) the terrain line.
+
+    Parameters and returns as for :func:`plot_radargram` (``ds`` also needs
+    ``alt``, ``window_start`` and ``nadir_delay``).
+    """
+    _check_range(dynamic_range_db, db_limits)
+    image, top, step, surface = elevation_layers(ds, permittivity)
+    finite = np.isfinite(image)
+    if db_limits is not None:
+        vmin, vmax = float(db_limits[0]), float(db_limits[1])
+    else:
+        vmin, vmax = _db_limits(power_db(np.asarray(ds["power"].values, dtype=np.float64)), dynamic_range_db)
+    shown = np.where(finite, np.clip(image, vmin, vmax), np.nan)
+    ntrace = image.shape[1]
+    bottom = top - step * (image.shape[0] - 1)
+    fig, ax, given = _figure_for(ax, RADARGRAM_FIGSIZE_IN)
+    im = ax.imshow(shown, cmap=colormaps[RADARGRAM_CMAP].with_extremes(bad="white"), vmin=vmin, vmax=vmax,
+                   aspect="auto", interpolation="antialiased", interpolation_stage="rgba", origin="upper",
+                   extent=(-0.5, ntrace - 0.5, bottom - 0.5 * step, top + 0.5 * step))  # fmt: skip
+    x = np.arange(ntrace)
+    (terrain,) = ax.plot(x, surface, color=TERRAIN_LINE_COLOUR, lw=1.6, label="nadir terrain (DEM)",
+                         path_effects=[withStroke(linewidth=3.0, foreground="white")])  # fmt: skip
+    ax.set_ylim(bottom - 0.5 * step, top + 0.5 * step)
+    ax.set_xlabel("trace")
+    ax.set_ylabel("height above the datum (m)")
+    ax.legend(handles=[terrain], loc="lower right", **_LEGEND_STYLE)
+    fig.colorbar(im, ax=ax, label=f"echo power (dBW; {vmax - vmin:g} dB shown)", pad=0.01)
+    _note_below(ax, f"each echo placed below the antenna: free space above the terrain, ε′ = {float(permittivity):g} "
+                    "below it; white: outside the recording window")  # fmt: skip
+    if title:
+        ax.set_title(title)
+    if distance_axis:
+        add_distance_axis(ax, ds)
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 # --------------------------------------------------------------------- side radargram
 
 
-def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float = 60.0) -> np.ndarray:
+def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float | None = None, *,
+                 db_limits=None) -> np.ndarray:  # fmt: skip
     """RGB image of a radargram coloured by the side of the track each echo comes from.
 
     Each sample's colour is the mix ``left·C_left + right·C_right +
-    nadir·C_nadir`` of :data:`SIDE_LEFT_COLOUR`, :data:`SIDE_RIGHT_COLOUR` and
-    :data:`SIDE_NADIR_COLOUR` with ``nadir = 1 − left − right``, multiplied by
-    the brightness ``(P_dB − (max − dynamic_range_db)) / dynamic_range_db``
-    clipped to [0, 1] (max: the strongest sample of the whole image).
+    nadir·C_nadir`` of the palette's side colours (:mod:`cluttersim.palette`:
+    :data:`SIDE_LEFT_COLOUR`, :data:`SIDE_RIGHT_COLOUR`,
+    :data:`SIDE_NADIR_COLOUR`) with ``nadir = 1 − left − right``, multiplied by
+    the brightness ``((P_dB − vmin) / (vmax − vmin))^γ`` clipped to [0, 1]
+    (γ = :data:`SIDE_BRIGHTNESS_GAMMA`: weak echoes lifted, the key shows the mapping), where
+    (vmin, vmax) is ``db_limits`` or (max − ``dynamic_range_db``, max) over
+    the whole image (default range: :func:`auto_db_range`). The report's side
+    view is made by this same function.
 
     Parameters
     ----------
@@ -307,14 +562,16 @@ def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float
         Shares of each sample's power from left and right of the direction of
         travel, in [0, 1]; NaN where unknown. Values are clipped to [0, 1] and,
         if their sum exceeds 1, scaled down to sum to 1.
-    dynamic_range_db : float
+    dynamic_range_db : float, optional
         Power range mapped to brightness 0 … 1, in dB below the maximum.
+    db_limits : (float, float), optional
+        Fixed (vmin_db, vmax_db) instead.
 
     Returns
     -------
     ndarray of float64, shape (sample, trace, 3)
         RGB in [0, 1], ready for ``imshow`` (delay down, trace across). Power
-        at or below ``max − dynamic_range_db`` (and zero power) is black
+        at or below the bottom of the scale (and zero power) is black
         whatever its side; NaN power, and power above that floor whose side
         is unknown, get :data:`SIDE_NO_DATA_COLOUR`.
     """
@@ -327,12 +584,15 @@ def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float
         raise ValueError(
             f"left_fraction {left.shape} and right_fraction {right.shape} must have the shape of power_w {p.shape}"
         )
-    if not dynamic_range_db > 0:
-        raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
+    _check_range(dynamic_range_db, db_limits)
     db = power_db(p)
-    vmin_db, _ = _db_limits(db, dynamic_range_db)
+    if db_limits is not None:
+        vmin_db, vmax_db = float(db_limits[0]), float(db_limits[1])
+    else:
+        vmin_db, vmax_db = _db_limits(db, dynamic_range_db)
     with np.errstate(invalid="ignore"):
-        brightness = np.clip((db - vmin_db) / float(dynamic_range_db), 0.0, 1.0)  # -inf → 0, NaN stays
+        level = np.clip((db - vmin_db) / (vmax_db - vmin_db), 0.0, 1.0)  # -inf → 0, NaN stays
+        brightness = level**SIDE_BRIGHTNESS_GAMMA
     known = np.isfinite(left) & np.isfinite(right)
     left = np.where(known, np.clip(left, 0.0, 1.0), 0.0)
     right = np.where(known, np.clip(right, 0.0, 1.0), 0.0)
@@ -349,30 +609,32 @@ def side_colours(power_w, left_fraction, right_fraction, dynamic_range_db: float
 
 def plot_side_radargram(
     ds,
-    path,
+    path=None,
     *,
-    dynamic_range_db: float = 60.0,
+    ax=None,
+    dynamic_range_db: float | None = None,
+    db_limits=None,
     permittivity: float | None = 3.15,
     title: str | None = None,
-) -> Path:
-    """Draw a radargram coloured by the side of the track each echo comes from, to a PNG.
+    distance_axis: bool = True,
+    dpi: float | None = None,
+    fmt: str | None = None,
+):
+    """Draw a radargram coloured by the side of the track each echo comes from.
 
     Hue tells the side (see :func:`side_colours`): orange left of the direction
     of travel, sky blue right of it, grey the nadir strip, mixtures in
-    proportion. Brightness tells the echo power over the top
-    ``dynamic_range_db``; a key on the right maps brightness to dBW. Axes,
-    frames (relative or absolute delay) and the nadir line are those of
-    :func:`plot_radargram`.
+    proportion. Brightness tells the echo power over the scale shown; a key on
+    the right maps brightness to dBW. Axes, frames (relative or absolute delay)
+    and the nadir line are those of :func:`plot_radargram`.
 
     Parameters
     ----------
     ds : xarray.Dataset
         As for :func:`plot_radargram`, plus ``left_fraction`` and
         ``right_fraction`` (trace, sample) from the source record.
-    path : str or Path
-        Output PNG; its directory must exist.
-    dynamic_range_db : float
-        Power range shown, in dB below the strongest sample.
+    path, ax, dynamic_range_db, db_limits, distance_axis, dpi, fmt
+        As for :func:`plot_radargram`.
     permittivity : float or None
         Real relative permittivity ε′ ≥ 1 of the apparent-depth axis on the
         right (default 3.15, water ice); None for no depth axis. Depth zero is
@@ -382,8 +644,8 @@ def plot_side_radargram(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        As for :func:`plot_radargram`.
 
     Raises
     ------
@@ -398,13 +660,18 @@ def plot_side_radargram(
                 "the per-sample source record; this dataset has none"
             )
     _check_permittivity(permittivity)
-    layers = radargram_layers(ds, dynamic_range_db)
+    layers = radargram_layers(ds, dynamic_range_db, db_limits=db_limits)
     power_w = ds["power"].values
     left, right = (_trace_by_sample(ds[name]) for name in ("left_fraction", "right_fraction"))
-    rgb = side_colours(power_w, left, right, dynamic_range_db)
+    rgb = side_colours(power_w, left, right, db_limits=(layers.vmin_db, layers.vmax_db))
 
-    fig = _new_figure(RADARGRAM_FIGSIZE_IN)
-    ax, key = fig.subplots(1, 2, width_ratios=(1.0, 0.045))
+    if ax is None:
+        fig = _new_figure(RADARGRAM_FIGSIZE_IN)
+        ax, key = fig.subplots(1, 2, width_ratios=(1.0, 0.045))
+        given = False
+    else:
+        fig, given = ax.figure, True
+        key = ax.inset_axes((1.16 if permittivity is not None else 1.02, 0.0, 0.035, 1.0))
     ax.imshow(
         rgb,
         aspect="auto",
@@ -430,29 +697,27 @@ def plot_side_radargram(
         handles.append(Patch(facecolor=SIDE_NO_DATA_COLOUR, linewidth=0.5, label="no data", **hatch))
     _label_radargram(ax, layers, title)
     _add_depth_axis(ax, layers, permittivity)
+    if distance_axis:
+        add_distance_axis(ax, ds)
     _side_key(key, layers.vmin_db, layers.vmax_db)
-    fig.legend(
-        handles=handles,
-        loc="outside lower center",
-        ncols=len(handles),
-        title=(
-            f"brightness: echo power, top {dynamic_range_db:g} dB      "
-            "left/right relative to the direction of travel (trace 0 → last)"
-        ),
-        title_fontsize="small",
-        **_LEGEND_STYLE,
-    )
-    return _save_atomic(fig, path)
+    legend_title = (f"brightness: echo power, top {layers.vmax_db - layers.vmin_db:g} dB      "
+                    "left/right relative to the direction of travel (trace 0 → last)")  # fmt: skip
+    if given:
+        ax.legend(handles=handles, loc="lower right", title=legend_title, title_fontsize="x-small", **_LEGEND_STYLE)
+    else:
+        fig.legend(handles=handles, loc="outside lower center", ncols=len(handles), title=legend_title,
+                   title_fontsize="small", **_LEGEND_STYLE)  # fmt: skip
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 def _side_palette() -> np.ndarray:
-    """RGB rows (3, 3) of the left, right and nadir-strip colours."""
-    return np.array([to_rgb(c) for c in (SIDE_LEFT_COLOUR, SIDE_RIGHT_COLOUR, SIDE_NADIR_COLOUR)])
+    """RGB rows (3, 3) of the left, right and nadir-strip colours (:func:`cluttersim.palette.side_rgb`)."""
+    return palette.side_rgb()
 
 
 def _side_key(key, vmin_db: float, vmax_db: float) -> None:
     """Fill ``key`` with three brightness ramps (left, nadir, right) against echo power in dBW."""
-    brightness = np.linspace(0.0, 1.0, 256)
+    brightness = np.linspace(0.0, 1.0, 256) ** SIDE_BRIGHTNESS_GAMMA
     left, right, nadir = _side_palette()
     ramps = brightness[:, None, None] * np.stack([left, nadir, right])[None, :, :]
     key.imshow(ramps, origin="lower", aspect="auto", interpolation="nearest", extent=(-0.5, 2.5, vmin_db, vmax_db))
@@ -487,7 +752,7 @@ CONTOUR_COLOURS = ("#56b4e9", "#f0e442", "#d55e00")
 #: Fill colour of candidate markers (Okabe & Ito's reddish purple).
 CANDIDATE_COLOUR = "#cc79a7"
 #: Diverging colormap of observed − predicted power (red: observed stronger).
-DIFFERENCE_CMAP = "RdBu_r"
+DIFFERENCE_CMAP = palette.DIFFERENCE_CMAP
 #: Half range of the difference colour scale, dB.
 DIFFERENCE_RANGE_DB = 20.0
 
@@ -565,7 +830,8 @@ def _draw_candidates(ax, layers: RadargramLayers, candidates, *, colour: str = C
 
 
 def plot_comparison_side_by_side(
-    ds, path, *, dynamic_range_db: float = 60.0, permittivity: float | None = 3.15, title: str | None = None
+    ds, path=None, *, ax=None, dpi=None, fmt=None, dynamic_range_db: float = 60.0, permittivity: float | None = 3.15,
+    title: str | None = None,
 ) -> Path:
     """Observed (aligned) and gain-matched simulated radargrams side by side, same delay axis and colour scale.
 
@@ -575,7 +841,9 @@ def plot_comparison_side_by_side(
         A comparison Dataset (see :func:`comparison_layers`); attributes
         ``delay_offset_samples`` and ``gain_db`` go into the panel titles.
     path : str or Path
-        Output PNG; its directory must exist.
+        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
+        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
+        :func:`plot_radargram`.
     dynamic_range_db : float
         Largest range of the shared colour scale, dB.
     permittivity : float or None
@@ -584,13 +852,18 @@ def plot_comparison_side_by_side(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
     """
     _check_permittivity(permittivity)
     obs, sim = comparison_layers(ds, dynamic_range_db)
-    fig = _new_figure(COMPARISON_FIGSIZE_IN)
-    left, right = fig.subplots(1, 2, sharex=True, sharey=True)
+    if ax is None:
+        fig = _new_figure(COMPARISON_FIGSIZE_IN)
+        left, right = fig.subplots(1, 2, sharex=True, sharey=True)
+        given = False
+    else:
+        left, right = np.ravel(ax)
+        fig, given = left.figure, True
     cmap = colormaps[RADARGRAM_CMAP].with_extremes(bad=NO_DATA_COLOUR)
     offset = ds.attrs.get("delay_offset_samples")
     gain = ds.attrs.get("gain_db")
@@ -616,11 +889,14 @@ def plot_comparison_side_by_side(
     fig.colorbar(image, ax=[left, right], label="echo power (dB, observed units)", pad=0.01)
     if title:
         fig.suptitle(title)
-    return _save_atomic(fig, path)
+    if path is not None:
+        return save_figure(fig, path, dpi=dpi, fmt=fmt)
+    return ax if given else fig
 
 
 def plot_comparison_overlay(
-    ds, path, *, candidates=(), threshold_db: float | None = None, dynamic_range_db: float = 60.0,
+    ds, path=None, *, ax=None, dpi=None, fmt=None, candidates=(), threshold_db: float | None = None,
+    dynamic_range_db: float = 60.0,
     permittivity: float | None = 3.15, title: str | None = None,
 ) -> Path:  # fmt: skip
     """Contours of the gain-matched simulated clutter over the observed radargram (grey), with candidates.
@@ -636,7 +912,9 @@ def plot_comparison_overlay(
     ds : xarray.Dataset
         A comparison Dataset (see :func:`comparison_layers`).
     path : str or Path
-        Output PNG; its directory must exist.
+        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
+        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
+        :func:`plot_radargram`.
     candidates : sequence of dict
         Ranked candidates from :func:`cluttersim.compare.compare` (keys
         ``trace``, ``grid_sample``, ``score``), drawn as open circles.
@@ -645,8 +923,8 @@ def plot_comparison_overlay(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
     """
     _check_permittivity(permittivity)
     obs, sim = comparison_layers(ds, dynamic_range_db)
@@ -655,8 +933,7 @@ def plot_comparison_overlay(
     noise_db = power_db(ds["noise_floor"].values) if "noise_floor" in ds else np.array([obs.vmin_db])
     noise_db = noise_db[np.isfinite(noise_db)]
     noise_ref = float(np.median(noise_db)) if noise_db.size else obs.vmin_db
-    fig = _new_figure(RADARGRAM_FIGSIZE_IN)
-    ax = fig.add_subplot()
+    fig, ax, given = _figure_for(ax, RADARGRAM_FIGSIZE_IN)
     image = ax.imshow(obs.image_db, cmap=colormaps[OVERLAY_BACKGROUND_CMAP].with_extremes(bad=NO_DATA_COLOUR),
                       vmin=obs.vmin_db, vmax=obs.vmax_db, aspect="auto", interpolation="antialiased",
                       interpolation_stage="rgba", origin="upper", extent=_radargram_extent(obs))  # fmt: skip
@@ -682,7 +959,7 @@ def plot_comparison_overlay(
     _add_depth_axis(ax, obs, permittivity)
     ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     fig.colorbar(image, ax=ax, label="observed echo power (dB, observed units)", pad=0.01)
-    return _save_atomic(fig, path)
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 def comparison_difference_db(ds) -> np.ndarray:
@@ -702,7 +979,8 @@ def comparison_difference_db(ds) -> np.ndarray:
 
 
 def plot_comparison_difference(
-    ds, path, *, candidates=(), range_db: float = DIFFERENCE_RANGE_DB, permittivity: float | None = 3.15,
+    ds, path=None, *, ax=None, dpi=None, fmt=None, candidates=(), range_db: float = DIFFERENCE_RANGE_DB,
+    permittivity: float | None = 3.15,
     title: str | None = None,
 ) -> Path:  # fmt: skip
     """Map of observed minus predicted power (:func:`comparison_difference_db`), with candidates.
@@ -712,7 +990,9 @@ def plot_comparison_difference(
     ds : xarray.Dataset
         A comparison Dataset (needs ``noise_floor``).
     path : str or Path
-        Output PNG; its directory must exist.
+        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
+        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
+        :func:`plot_radargram`.
     candidates : sequence of dict
         As for :func:`plot_comparison_overlay`.
     range_db : float
@@ -722,16 +1002,15 @@ def plot_comparison_difference(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
     """
     _check_permittivity(permittivity)
     if not range_db > 0:
         raise ValueError(f"range_db must be positive, got {range_db!r}")
     layers = radargram_layers(_comparison_view(ds, "observed_power"))
     diff = comparison_difference_db(ds)
-    fig = _new_figure(RADARGRAM_FIGSIZE_IN)
-    ax = fig.add_subplot()
+    fig, ax, given = _figure_for(ax, RADARGRAM_FIGSIZE_IN)
     image = ax.imshow(diff, cmap=colormaps[DIFFERENCE_CMAP].with_extremes(bad=NO_DATA_COLOUR), vmin=-range_db,
                       vmax=range_db, aspect="auto", interpolation="antialiased", interpolation_stage="rgba",
                       origin="upper", extent=_radargram_extent(layers))  # fmt: skip
@@ -751,7 +1030,7 @@ def plot_comparison_difference(
         ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     fig.colorbar(image, ax=ax, label="observed − predicted (dB): red = more observed than predicted", pad=0.01,
                  extend="both")  # fmt: skip
-    return _save_atomic(fig, path)
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 # --------------------------------------------------------------------- radargram parts
@@ -881,12 +1160,16 @@ def plot_track_map(
     extent,
     lon_deg,
     lat_deg,
-    path,
+    path=None,
     *,
+    ax=None,
+    dpi: float | None = None,
+    fmt: str | None = None,
     title: str | None = None,
     axis_labels: tuple[str, str] | None = None,
     geographic: bool | None = None,
     first_return=None,
+    view=None,
 ) -> Path:
     """Draw a shaded-relief map of a DEM with the track on top, to a PNG file.
 
@@ -902,7 +1185,9 @@ def plot_track_map(
         Track positions in the same coordinates (NaN breaks the line). In
         degrees, longitudes are wrapped to within 180° of the map centre.
     path : str or Path
-        Output PNG; its directory must exist.
+        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
+        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
+        :func:`plot_radargram`.
     title : str, optional
     axis_labels : (str, str), optional
         x and y axis labels; default "longitude (°E)", "latitude (°N)".
@@ -919,10 +1204,14 @@ def plot_track_map(
         off-nadir first returns stand out. Points with a NaN (in the first
         return or its track point) are skipped.
 
+    view : (float, float, float, float), optional
+        (west, east, south, north) of the area shown; default the track and its
+        first returns with a margin (:func:`track_view`), within ``extent``.
+
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
 
     Notes
     -----
@@ -943,19 +1232,40 @@ def plot_track_map(
                 f"first_return needs one (x, y) per track point ({lon.size}), got {fr_x.size} x and {fr_y.size} y"
             )
 
+    if view is None:
+        pts_x, pts_y = (lon, lat) if first_return is None else (np.r_[lon, fr_x], np.r_[lat, fr_y])
+        view = track_view(extent, pts_x, pts_y, geographic)
     rgb, norm = _shaded_relief_rgba(elev)
-    fig = _new_figure(TRACK_MAP_FIGSIZE_IN)
-    ax = fig.add_subplot()
+    fig, ax, given = _figure_for(ax, _map_figsize(extent if view is None else view, geographic))
     _draw_relief(ax, rgb, extent)
     _draw_track(ax, lon, lat)
     if first_return is not None:
         _draw_first_returns(ax, lon, lat, fr_x, fr_y)
-    _frame_map(ax, extent, axis_labels, geographic)
-    ax.legend(loc="upper right", **_LEGEND_STYLE)
+    _frame_map(ax, view, axis_labels, geographic)
+    ax.legend(loc="best", **_LEGEND_STYLE)
     if title:
         ax.set_title(title)
     fig.colorbar(ScalarMappable(norm=norm, cmap=TERRAIN_CMAP), ax=ax, label="elevation (m)", shrink=0.8)
-    return _save_atomic(fig, path)
+    return _finish(fig, ax, given, path, dpi, fmt)
+
+
+def track_view(extent, x, y, geographic: bool = True, margin: float = 0.15):
+    """The map area to show around a track: the box of its points with ``margin`` of its size on
+    each side (the box at least as wide and tall as the extent's smaller side, so a straight track
+    keeps the terrain beside it),
+    clipped to ``extent``; ``extent`` itself if no point is finite."""
+    west, east, south, north = _image_extent(extent)
+    x, y = np.asarray(x, float), np.asarray(y, float)
+    ok = np.isfinite(x) & np.isfinite(y)
+    if not ok.any():
+        return (west, east, south, north)
+    x0, x1, y0, y1 = x[ok].min(), x[ok].max(), y[ok].min(), y[ok].max()
+    stretch = 1.0 / max(np.cos(np.deg2rad(0.5 * (south + north))), 1e-3) if geographic else 1.0
+    least = min(abs(east - west) / stretch, abs(north - south))
+    px = max(margin * (x1 - x0), 0.5 * (least * stretch - (x1 - x0)))
+    py = max(margin * (y1 - y0), 0.5 * (least - (y1 - y0)))
+    lo_x, hi_x = min(west, east), max(west, east)
+    return (max(lo_x, x0 - px), min(hi_x, x1 + px), max(south, y0 - py), min(north, y1 + py))
 
 
 def _draw_first_returns(ax, track_x, track_y, x, y) -> None:
@@ -979,8 +1289,11 @@ def plot_source_map(
     extent,
     track_x,
     track_y,
-    path,
+    path=None,
     *,
+    ax=None,
+    dpi: float | None = None,
+    fmt: str | None = None,
     title: str | None = None,
     axis_labels: tuple[str, str] = ("longitude (°E)", "latitude (°N)"),
     geographic: bool = True,
@@ -1002,7 +1315,9 @@ def plot_source_map(
     track_x, track_y : array_like
         Track positions in the same coordinates (NaN breaks the line).
     path : str or Path
-        Output PNG; its directory must exist.
+        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
+        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
+        :func:`plot_radargram`.
     title : str, optional
     axis_labels : (str, str)
         x and y axis labels.
@@ -1017,8 +1332,8 @@ def plot_source_map(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
     """
     power = _grid(power_w, "power_w")
     elev = _grid(elevation_m, "elevation_m")
@@ -1033,8 +1348,7 @@ def plot_source_map(
     with np.errstate(invalid="ignore"):
         shown = np.ma.masked_where(~(db >= vmin_db), db)  # NaN, −inf and weak cells transparent
 
-    fig = _new_figure(TRACK_MAP_FIGSIZE_IN)
-    ax = fig.add_subplot()
+    fig, ax, given = _figure_for(ax, _map_figsize(extent, geographic))
     _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
     image = ax.imshow(
         shown,
@@ -1055,7 +1369,7 @@ def plot_source_map(
     if title:
         ax.set_title(title)
     fig.colorbar(image, ax=ax, label=label, shrink=0.8)
-    return _save_atomic(fig, path)
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 def plot_echo_sources(
@@ -1066,8 +1380,11 @@ def plot_echo_sources(
     antenna_xy,
     cells_xy,
     shares,
-    path,
+    path=None,
     *,
+    ax=None,
+    dpi: float | None = None,
+    fmt: str | None = None,
     title: str | None = None,
     axis_labels: tuple[str, str] = ("longitude (°E)", "latitude (°N)"),
     geographic: bool = True,
@@ -1092,7 +1409,9 @@ def plot_echo_sources(
         proportional to it (with a minimum, so that small shares stay visible).
         The legend lists the first ten ranks with their shares.
     path : str or Path
-        Output PNG; its directory must exist.
+        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
+        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
+        :func:`plot_radargram`.
     title : str, optional
     axis_labels : (str, str)
         x and y axis labels.
@@ -1104,8 +1423,8 @@ def plot_echo_sources(
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
     """
     elev = _grid(elevation_m, "elevation_m")
     cells = np.asarray(cells_xy, dtype=np.float64)
@@ -1125,8 +1444,7 @@ def plot_echo_sources(
     cell_y = cells[:, 1]
     antenna_x = _map_x(antenna[:1], extent, geographic)[0]
 
-    fig = _new_figure(ECHO_SOURCES_FIGSIZE_IN)
-    ax = fig.add_subplot()
+    fig, ax, given = _figure_for(ax, ECHO_SOURCES_FIGSIZE_IN)
     _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
     _draw_track(ax, tx, ty, halo=True)
     ok = np.isfinite(cell_x) & np.isfinite(cell_y) & np.isfinite(share)
@@ -1134,8 +1452,6 @@ def plot_echo_sources(
     for rank in np.flatnonzero(ok)[::-1]:  # rank 1 drawn last, on top
         ax.scatter(cell_x[rank], cell_y[rank], s=area_pt2[rank], c=ECHO_CELL_COLOUR, edgecolors="black",
                    linewidths=0.8, zorder=5 + 1.0 / (rank + 1))  # fmt: skip
-        ax.annotate(str(rank + 1), (cell_x[rank], cell_y[rank]), xytext=(5, 5), textcoords="offset points",
-                    fontsize="small", fontweight="bold", bbox=_LABEL_BOX, zorder=6)  # fmt: skip
     ax.plot(antenna_x, antenna[1], ls="none", marker="*", ms=15, mfc="white", mec="black", mew=1.2, zorder=7,
             label="antenna nadir at this echo")  # fmt: skip
     _frame_map(ax, extent if view is None else view, axis_labels, geographic)
@@ -1160,7 +1476,58 @@ def plot_echo_sources(
                   **_LEGEND_STYLE)  # fmt: skip
     if title:
         ax.set_title(title)
-    return _save_atomic(fig, path)
+    # labels last: the legends and title above settle the layout that their positions depend on
+    place_labels(ax, cell_x[ok], cell_y[ok], [str(r + 1) for r in np.flatnonzero(ok)],
+                 marker_radius_pt=np.sqrt(area_pt2[ok] / np.pi))  # fmt: skip
+    return _finish(fig, ax, given, path, dpi, fmt)
+
+
+#: Offsets (points) tried, in order, for a label beside its marker.
+_LABEL_OFFSETS_PT = ((1, 1), (1, -1), (-1, 1), (-1, -1), (1, 0), (-1, 0), (0, 1), (0, -1))
+
+
+def place_labels(ax, x, y, texts, *, marker_radius_pt=0.0, fontsize="small") -> list:
+    """Label points without overlaps: each label (in order: the first is the most important) goes
+    to the first of eight places around its point whose box overlaps no label placed before it
+    and no other marker's centre; a label that fits nowhere is left out (the legend still lists it).
+
+    Returns the annotation artists drawn (one per placed label)."""
+    fig = ax.figure
+    renderer = fig.canvas.get_renderer() if hasattr(fig.canvas, "get_renderer") else None
+    if renderer is None:
+        FigureCanvasAgg(fig)
+        renderer = fig.canvas.get_renderer()
+    fig.canvas.draw()  # fix the layout so that data → pixel positions are final
+    xy = ax.transData.transform(np.column_stack([np.asarray(x, float), np.asarray(y, float)]))
+    scale = fig.dpi / 72.0
+    radius = np.broadcast_to(np.asarray(marker_radius_pt, dtype=float), (len(xy),)) * scale
+    taken, drawn = [], []
+
+    def overlaps(a, b):
+        return a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3]
+
+    for i, text in enumerate(texts):
+        px, py = xy[i]
+        probe = ax.text(0.5, 0.5, text, transform=ax.transAxes, fontsize=fontsize, fontweight="bold")
+        box = probe.get_window_extent(renderer)
+        pad = 2 * 0.2 * probe.get_fontsize() * scale  # the label box's padding (_LABEL_BOX: pad=0.2 em)
+        probe.remove()
+        w, h = box.width + pad, box.height + pad
+        gap = radius[i] + 2.0 * scale
+        for dx, dy in _LABEL_OFFSETS_PT:
+            cx, cy = px + dx * (gap + 0.5 * w), py + dy * (gap + 0.5 * h)
+            rect = (cx - 0.5 * w, cy - 0.5 * h, cx + 0.5 * w, cy + 0.5 * h)
+            if any(overlaps(rect, t) for t in taken):
+                continue
+            if any(overlaps(rect, (qx - 2, qy - 2, qx + 2, qy + 2)) for j, (qx, qy) in enumerate(xy) if j != i):
+                continue  # no label over another cell's centre
+            taken.append(rect)
+            drawn.append(ax.annotate(text, (x[i], y[i]), xytext=((cx - px) / scale, (cy - py) / scale),
+                                     textcoords="offset points", ha="center", va="center", fontsize=fontsize,
+                                     fontweight="bold", bbox=_LABEL_BOX, zorder=6))  # fmt: skip
+            drawn[-1].set_in_layout(False)  # the layout must not move the points after the labels are placed
+            break
+    return drawn
 
 
 def _share_marker_area_pt2(share: np.ndarray) -> np.ndarray:
@@ -1172,7 +1539,7 @@ def _share_marker_area_pt2(share: np.ndarray) -> np.ndarray:
 
 #: Diverging colour map of the survey map, centred on the clutter-prone threshold
 #: (colour-blind safe: purple readable, orange clutter-prone).
-SURVEY_MAP_CMAP = "PuOr_r"
+SURVEY_MAP_CMAP = palette.SURVEY_CMAP
 SURVEY_TRACK_COLOUR = "#333333"
 
 
@@ -1182,8 +1549,11 @@ def plot_survey_map(
     elevation_m,
     relief_extent,
     tracks_xy,
-    path,
+    path=None,
     *,
+    ax=None,
+    dpi: float | None = None,
+    fmt: str | None = None,
     threshold_db: float = 0.0,
     title: str | None = None,
     axis_labels: tuple[str, str] = ("longitude (°E)", "latitude (°N)"),
@@ -1191,6 +1561,7 @@ def plot_survey_map(
     label: str = "strongest off-nadir clutter in the subsurface window relative to the nadir surface echo (dB)",
     below_db: float = 6.0,
     above_db: float = 18.0,
+    swaths: bool | None = None,
 ) -> Path:
     """Map a gridded clutter index over a grey hillshade, to a PNG.
 
@@ -1210,11 +1581,13 @@ def plot_survey_map(
     below_db, above_db : float
         The colour scale spans [threshold − below_db, threshold + above_db] (fixed, so that
         maps of different surveys compare); values beyond take the end colours.
+    swaths : bool, optional
+        Say under the map that cells hold the nearest trace's value within its swath.
 
     Returns
     -------
-    Path
-        ``path``.
+    Figure, Axes or Path
+        The new Figure, the given ``ax``, or ``path`` if one was given.
     """
     from matplotlib.colors import TwoSlopeNorm
 
@@ -1223,13 +1596,7 @@ def plot_survey_map(
     if not (below_db > 0 and above_db > 0):
         raise ValueError(f"below_db and above_db must be positive, got {below_db!r}, {above_db!r}")
     vmin, vmax = threshold_db - below_db, threshold_db + above_db
-    # the map's true shape (as _frame_map draws it) sets the figure's width: no empty margins
-    west, east, south, north = _image_extent(extent)
-    stretch = 1.0 / max(np.cos(np.deg2rad(0.5 * (south + north))), 1e-3) if geographic else 1.0
-    shape = abs(east - west) / max(abs(north - south) * stretch, 1e-12)
-    height_in = TRACK_MAP_FIGSIZE_IN[1]
-    fig = _new_figure((float(np.clip(0.8 * height_in * shape + 2.8, 6.5, 14.0)), height_in))
-    ax = fig.add_subplot()
+    fig, ax, given = _figure_for(ax, _map_figsize(extent, geographic, min_width_in=6.5))
     _draw_relief(ax, _grey_hillshade_rgba(elev), relief_extent)
     image = ax.imshow(
         np.ma.masked_invalid(index),
@@ -1243,9 +1610,11 @@ def plot_survey_map(
     for i, (x, y) in enumerate(tracks_xy):
         ax.plot(_map_x(x, extent, geographic), np.asarray(y, dtype=np.float64).ravel(), color=SURVEY_TRACK_COLOUR,
                 lw=0.5, alpha=0.6, label="tracks (nadir)" if i == 0 else None)  # fmt: skip
+    if swaths:
+        _note_below(ax, "each cell: the nearest trace's value, within the swath its subsurface window reaches")
     _frame_map(ax, extent, axis_labels, geographic)
     handles, _ = ax.get_legend_handles_labels()
-    handles.append(Patch(facecolor=_HILLSHADE_MID_GREY, edgecolor="0.4", linewidth=0.5, label="grey only: no track passed"))
+    handles.append(Patch(facecolor=_HILLSHADE_MID_GREY, edgecolor="0.4", linewidth=0.5, label="grey only: no track (swath) reaches"))
     ax.legend(handles=handles, loc="upper right", **_LEGEND_STYLE)
     if title:
         ax.set_title(title)
@@ -1253,10 +1622,24 @@ def plot_survey_map(
     bar.ax.axhline(threshold_db, color="black", lw=1.0)
     bar.ax.text(0.5, 1.06, "clutter-prone", transform=bar.ax.transAxes, ha="center", va="bottom", fontsize="small")
     bar.ax.text(0.5, -0.06, "subsurface\nreadable", transform=bar.ax.transAxes, ha="center", va="top", fontsize="small")
-    return _save_atomic(fig, path)
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 # --------------------------------------------------------------------- map parts
+
+
+def _map_figsize(extent, geographic: bool, height_in: float = TRACK_MAP_FIGSIZE_IN[1], extra_in: float = 2.8,
+                 min_width_in: float = 4.5) -> tuple[float, float]:  # fmt: skip
+    """A figure size whose width follows the map's true shape (as :func:`_frame_map` draws it), plus
+    ``extra_in`` for the colour bar and labels: a tall, narrow map (an airborne track's) gets a narrow
+    figure instead of blank margins."""
+    west, east, south, north = _image_extent(extent)
+    stretch = 1.0 / max(np.cos(np.deg2rad(0.5 * (south + north))), 1e-3) if geographic else 1.0
+    shape = abs(east - west) / max(abs(north - south) * stretch, 1e-12)
+    if shape > 1.6:  # wide map: keep the width, lower the height
+        width = TRACK_MAP_FIGSIZE_IN[0] + 2.0
+        return width, float(np.clip((width - extra_in) / (0.8 * shape), 3.0, height_in))
+    return float(np.clip(0.8 * height_in * shape + extra_in, min_width_in, 14.0)), height_in
 
 
 def _grid(values, name: str) -> np.ndarray:
@@ -1384,14 +1767,59 @@ def _new_figure(figsize_in: tuple[float, float]) -> Figure:
     return fig
 
 
-def _save_atomic(fig: Figure, path) -> Path:
-    """Save ``fig`` as PNG at :data:`DPI` to ``path`` via a ``.tmp`` sibling and rename."""
+#: Figure formats :func:`save_figure` writes (matplotlib's names).
+FIGURE_FORMATS = ("png", "pdf", "svg")
+
+
+def save_figure(fig: Figure, path, *, dpi: float | None = None, fmt: str | None = None) -> Path:
+    """Save ``fig`` atomically (a ``.tmp`` sibling renamed onto ``path``) and return ``path``.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+    path : str or Path
+    dpi : float, optional
+        Dots per inch (default :data:`DPI`); for pdf/svg it sets the resolution of the raster
+        images inside them.
+    fmt : {"png", "pdf", "svg"}, optional
+        Default: the suffix of ``path`` if it is one of these, else png.
+    """
     path = Path(path)
+    if fmt is None:
+        suffix = path.suffix.lower().lstrip(".")
+        fmt = suffix if suffix in FIGURE_FORMATS else "png"
+    if fmt not in FIGURE_FORMATS:
+        raise ValueError(f"figure format {fmt!r}: expected one of {', '.join(FIGURE_FORMATS)}")
+    dpi = DPI if dpi is None else float(dpi)
+    if not dpi > 0:
+        raise ValueError(f"dpi {dpi!r}: expected a positive number")
+    if fig.canvas is None or not isinstance(fig.canvas, FigureCanvasAgg):
+        FigureCanvasAgg(fig)
     tmp = path.with_name(path.name + ".tmp")
     try:
-        fig.savefig(tmp, format="png", dpi=DPI)
+        fig.savefig(tmp, format=fmt, dpi=dpi)
         os.replace(tmp, path)
     finally:
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
     return path
+
+
+def _save_atomic(fig: Figure, path) -> Path:
+    """Save as PNG at :data:`DPI` (see :func:`save_figure`)."""
+    return save_figure(fig, path, fmt="png")
+
+
+def _figure_for(ax, figsize_in):
+    """``(figure, axes, given)``: the caller's axes, or a new Figure's single axes."""
+    if ax is None:
+        fig = _new_figure(figsize_in)
+        return fig, fig.add_subplot(), False
+    return ax.figure, ax, True
+
+
+def _finish(fig, ax, given: bool, path, dpi=None, fmt=None):
+    """Save to ``path`` if given (returns the Path), else return the caller's axes or the new Figure."""
+    if path is not None:
+        return save_figure(fig, path, dpi=dpi, fmt=fmt)
+    return ax if given else fig

@@ -24,25 +24,51 @@ RUN_FILES = {
     "radargram": "radargram.nc",
     "radargram_png": "radargram.png",
     "sides_png": "radargram_sides.png",
+    "elevation_png": "radargram_elevation.png",
     "track_map": "track_map.png",
 }
 
 
 
-def run_files(band_names=(), sources: bool = True) -> dict[str, str]:
+def run_files(band_names=(), sources: bool = True, fmt: str = "png") -> dict[str, str]:
     """File names of a run directory: :data:`RUN_FILES`, or with several frequency bands one
-    radargram figure and one side figure per band (``radargram_<band>.png``...) beside the
-    one netCDF file and the track map (first returns of the first band)."""
+    radargram figure, one side figure and one elevation figure per band (``radargram_<band>.png``...)
+    beside the one netCDF file and the track map (first returns of the first band). ``fmt``
+    (png, pdf, svg) sets the figures' suffix."""
     files = dict(RUN_FILES)
     if not sources:
         files.pop("sides_png")
     if band_names:
-        for key in ("radargram_png", "sides_png"):
+        for key in ("radargram_png", "sides_png", "elevation_png"):
             stem = files.pop(key, None)
             if stem is not None:
                 for name in band_names:
                     files[f"{key}:{name}"] = stem.replace(".png", f"_{name}.png")
+    if fmt != "png":
+        files = {k: v[: -len(".png")] + f".{fmt}" if v.endswith(".png") else v for k, v in files.items()}
     return files
+
+
+@dataclass(frozen=True)
+class FigureOptions:
+    """How a run's figures are drawn and saved: resolution (dots per inch), format (png, pdf,
+    svg) and the radargrams' dynamic range in dB (None: chosen from the data,
+    :func:`cluttersim.plots.auto_db_range`; the power, side and elevation radargrams share it)."""
+
+    dpi: float | None = None
+    fmt: str = "png"
+    db_range: float | None = None
+
+    def __post_init__(self):
+        from .errors import ConfigError
+        from .plots import FIGURE_FORMATS
+
+        if self.fmt not in FIGURE_FORMATS:
+            raise ConfigError(f"figure format {self.fmt!r}: expected one of {', '.join(FIGURE_FORMATS)}")
+        if self.dpi is not None and not (self.dpi > 0 and self.dpi <= 2400):
+            raise ConfigError(f"dpi {self.dpi!r}: expected a resolution between 1 and 2400 dots per inch")
+        if self.db_range is not None and not (self.db_range > 0):
+            raise ConfigError(f"dB range {self.db_range!r}: expected a positive number of dB")
 
 
 #: Largest side (pixels) of the relief image in the track map.
@@ -53,6 +79,7 @@ _MAP_CELLS = 900
 def simulate_to_dir(
     dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None,
     sources=True, nadir_strip_m=None, first_return_db=-20.0, permittivity=3.15, max_memory_bytes="auto",
+    figures: "FigureOptions | None" = None,
 ) -> dict[str, Path]:  # fmt: skip
     """Simulate and write the run's products (:data:`RUN_FILES`) into ``out_dir``.
 
@@ -67,7 +94,8 @@ def simulate_to_dir(
     out_dir = Path(out_dir)
     coherent = config is not None and config.processing.mode == "coherent"
     band_names = config.band_names if config is not None else []
-    paths = {k: out_dir / v for k, v in run_files(band_names, sources and not coherent).items()}
+    figures = figures or FigureOptions()
+    paths = {k: out_dir / v for k, v in run_files(band_names, sources and not coherent, figures.fmt).items()}
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
@@ -79,7 +107,7 @@ def simulate_to_dir(
 
         ds.attrs[HEIGHT_UNIT_ATTR] = src.height_scale_m
     stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
-    write_run(ds, src, paths, permittivity=permittivity)
+    write_run(ds, src, paths, permittivity=permittivity, figures=figures)
     remove_stale_products(out_dir, stale)
     return paths
 
@@ -99,7 +127,8 @@ def previous_run_files(out_dir) -> set[str]:
                 bands = [b.decode() if isinstance(b, bytes) else str(b) for b in f["band"][()]]
     except (OSError, ValueError, KeyError):
         pass
-    return set(run_files(bands, sources=True).values()) | set(RUN_FILES.values())
+    return {name for fmt in ("png", "pdf", "svg") for name in run_files(bands, sources=True, fmt=fmt).values()} | set(
+        RUN_FILES.values())
 
 
 def remove_stale_products(out_dir, names) -> None:
@@ -116,10 +145,16 @@ def remove_stale_products(out_dir, names) -> None:
         warnings.warn(f"{out_dir}: removed {', '.join(removed)} of the previous run (not made by this one)", stacklevel=3)
 
 
-def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15) -> None:
-    """Write a radargram and its figures atomically to ``paths`` (keys of :func:`run_files`)."""
+def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15,
+              figures: "FigureOptions | None" = None) -> None:  # fmt: skip
+    """Write a radargram and its figures atomically to ``paths`` (keys of :func:`run_files`).
+
+    The power, side and elevation radargrams of a band share one colour scale
+    (:func:`cluttersim.plots.db_limits`)."""
     from . import plots
 
+    figures = figures or FigureOptions()
+    save = {"dpi": figures.dpi, "fmt": figures.fmt}
     keys = list(paths)
     names = band_names(ds)
     with atomic_paths([paths[k] for k in keys]) as temps:
@@ -127,13 +162,19 @@ def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 
         write_netcdf_to(ds, tmp["radargram"])
         for name in names or [None]:
             one = select_band(ds, name)
+            limits = plots.db_limits(one, dynamic_range_db=figures.db_range)
             suffix = "" if name is None else f":{name}"
             label = "" if name is None else f" — band {name} ({one.attrs['radar_center_frequency_hz'] / 1e6:g} MHz)"
             plots.plot_radargram(one, tmp["radargram_png" + suffix], title=f"simulated clutter — {src.path.name}{label}",
-                                 permittivity=permittivity)  # fmt: skip
+                                 permittivity=permittivity, db_limits=limits, **save)  # fmt: skip
             if "sides_png" + suffix in tmp:
-                plots.plot_side_radargram(one, tmp["sides_png" + suffix], permittivity=permittivity,
-                                          title=f"which side of the track each echo comes from — {src.path.name}{label}")  # fmt: skip
+                plots.plot_side_radargram(one, tmp["sides_png" + suffix], permittivity=permittivity, db_limits=limits,
+                                          title=f"which side of the track each echo comes from — {src.path.name}{label}",
+                                          **save)  # fmt: skip
+            if "elevation_png" + suffix in tmp:
+                plots.plot_elevation_radargram(one, tmp["elevation_png" + suffix], permittivity=permittivity,
+                                               db_limits=limits, title=f"in elevation — {src.path.name}{label}",
+                                               **save)  # fmt: skip
         ds = select_band(ds)
         elevation, frame = track_map_data(src, ds)
         tx, ty = frame.xy(ds["lon"].values, ds["lat"].values)
@@ -142,7 +183,7 @@ def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 
             first = frame.xy(ds["first_return_lon"].values, ds["first_return_lat"].values)
         plots.plot_track_map(
             elevation, frame.extent, tx, ty, tmp["track_map"], first_return=first,
-            title=f"track over {src.path.name}", axis_labels=frame.axis_labels, geographic=src.is_geographic,
+            title=f"track over {src.path.name}", axis_labels=frame.axis_labels, geographic=src.is_geographic, **save,
         )  # fmt: skip
 
 

@@ -85,8 +85,10 @@ def build_dataset(
     on_dem,
     attrs: dict,
     extra: dict | None = None,
+    body=None,
 ) -> xr.Dataset:
-    """Assemble the radargram Dataset (see module docstring for the contract)."""
+    """Assemble the radargram Dataset (see module docstring for the contract); ``body`` (a
+    :class:`~cluttersim.body.Body`) gives the along-track ``distance`` coordinate."""
     ntrace, nsample = power_w.shape
     trace_vars = {
         "window_start": (window_start_s, "s", "absolute two-way delay of sample 0"),
@@ -119,6 +121,61 @@ def build_dataset(
         ),
     }
     ds = xr.Dataset(data_vars, coords=coords, attrs={"Conventions": "CF-1.10", **attrs})
+    return with_trace_coordinates(ds, body)
+
+
+#: Per-trace variables that are coordinates of ``trace``, with their CF standard names.
+TRACE_COORDINATES = {
+    "lat": "latitude",
+    "lon": "longitude",
+    "alt": "height_above_reference_ellipsoid",
+    "time": "time",
+    "distance": None,
+}
+
+
+def along_track_distance_m(body, lat_deg, lon_deg) -> np.ndarray:
+    """Cumulative geodesic distance (m) along a track from its first trace, on ``body``'s
+    ellipsoid (``pyproj.Geod.inv`` between consecutive traces)."""
+    lat = np.asarray(lat_deg, dtype=np.float64)
+    lon = np.asarray(lon_deg, dtype=np.float64)
+    if lat.size < 2:
+        return np.zeros(lat.size)
+    _, _, step = body.geod().inv(lon[:-1], lat[:-1], lon[1:], lat[1:])
+    return np.concatenate([[0.0], np.cumsum(step)])
+
+
+def with_trace_coordinates(ds: xr.Dataset, body=None) -> xr.Dataset:
+    """The radargram with the coordinates a scientist expects (idempotent; older files too).
+
+    ``lat``, ``lon``, ``alt``, ``time`` and the along-track ``distance`` (m, geodesic from the
+    first trace, on ``body`` or on the ellipsoid in the ``body_semi_*`` attributes) become
+    coordinates of ``trace`` with CF ``standard_name``s, and ``delay`` (s) on ``sample`` gets a
+    copy in µs, ``delay_us``, so that ``ds.power.plot(x="distance", y="delay_us", yincrease=False)``
+    draws the radargram.
+    """
+    if body is None and "body_semi_major_m" in ds.attrs:
+        from .body import Body
+
+        body = Body(str(ds.attrs.get("body_name", "body")), float(ds.attrs["body_semi_major_m"]),
+                    float(ds.attrs.get("body_semi_minor_m", ds.attrs["body_semi_major_m"])))  # fmt: skip
+    if "distance" not in ds.variables and body is not None and "lat" in ds.variables and "lon" in ds.variables:
+        ds = ds.assign_coords(distance=("trace", along_track_distance_m(body, ds["lat"].values, ds["lon"].values),
+                                        {"units": "m", "long_name": "along-track distance (geodesic, from the first trace)"}))  # fmt: skip
+    names = [n for n in TRACE_COORDINATES if n in ds.variables]
+    ds = ds.set_coords(names)
+    for name in names:
+        standard = TRACE_COORDINATES[name]
+        if standard:
+            ds[name].attrs["standard_name"] = standard
+        ds[name].attrs.setdefault("axis", {"lat": "Y", "lon": "X", "alt": "Z", "time": "T"}.get(name, ""))
+        if not ds[name].attrs["axis"]:
+            del ds[name].attrs["axis"]
+    if "delay" in ds.variables:
+        ds["delay"].attrs.setdefault("standard_name", "time")  # a duration; CF has no better name
+        if "delay_us" not in ds.variables:
+            ds = ds.assign_coords(delay_us=("sample", ds["delay"].values * 1e6,
+                                            {"units": "us", "long_name": "delay after the trace's window start (µs)"}))  # fmt: skip
     return ds
 
 
@@ -356,7 +413,7 @@ def open_radargram(path, band: str | None = None) -> xr.Dataset:
         raise ClutterSimError(f"{path}: not a readable netCDF radargram ({exc})") from None
     if "power" not in ds or ds["power"].dims not in (("trace", "sample"), ("band", "trace", "sample")):
         raise ClutterSimError(f"{path}: expected a variable 'power' with dimensions (trace, sample)")
-    return to_current_convention(select_band(ds, band, source=str(path)), source=str(path))
+    return with_trace_coordinates(to_current_convention(select_band(ds, band, source=str(path)), source=str(path)))
 
 
 def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:

@@ -64,6 +64,7 @@ import numpy as np
 from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ClutterSimError, ConfigError, DemError
 from .outputs import atomic_paths, check_new
+from . import palette
 from .plots import hillshade_intensity, power_db
 
 #: Default file name of the report (in the run directory).
@@ -73,8 +74,9 @@ REPORT_FILE = "report.html"
 MAX_COLUMNS = 1500
 #: Largest number of samples embedded one per row; longer windows are shown in blocks of samples.
 MAX_ROWS = 1024
-#: Displayed dynamic range of the radargram images, dB below their maximum.
-DYNAMIC_RANGE_DB = 60.0
+#: Displayed dynamic range of the radargram images, dB below their maximum, when not chosen from the
+#: data (:func:`cluttersim.plots.auto_db_range`, the figures' default: the page and the PNGs agree).
+DYNAMIC_RANGE_DB = None
 #: Step of the embedded power values, dB.
 POWER_STEP_DB = 0.01
 #: Power more than this far below a grid's maximum is embedded as "below" (dB).
@@ -84,15 +86,13 @@ MAP_SUBPIXELS = 8
 #: Source positions and distances are embedded to this fraction of a DEM cell (or finer).
 CELL_FRACTION = 1.0 / 8.0
 
-# Colours of the page's images (RGB 0-255). Radargram power: a dusk ramp, dark = weak.
-_POWER_RAMP = ((0.0, (12, 16, 38)), (0.3, (36, 56, 98)), (0.55, (40, 128, 134)), (0.8, (160, 200, 150)),
-               (1.0, (246, 240, 214)))  # fmt: skip
-#: Side of the track: left violet, right amber, nadir strip stone grey (full brightness).
-SIDE_RGB = {"left": (167, 123, 214), "right": (230, 162, 60), "nadir": (168, 164, 152)}
+# Colours of the page's images: those of every figure (cluttersim.palette), never a copy.
+#: Side of the track, RGB 0-255: left orange, right sky blue, nadir strip grey (full brightness).
+SIDE_RGB = {k: palette.rgb255(v) for k, v in palette.SIDES.items()}
 #: Overlay of a comparison: observed echoes copper, simulated cyan; both together add up to near white.
-OVERLAY_RGB = {"observed": (235, 125, 60), "simulated": (40, 170, 235)}
+OVERLAY_RGB = {"observed": palette.rgb255(palette.OVERLAY_OBSERVED), "simulated": palette.rgb255(palette.OVERLAY_SIMULATED)}
 #: Colour of samples without data (NaN power).
-NO_DATA_RGB = (205, 200, 190)
+NO_DATA_RGB = palette.rgb255(palette.NO_DATA)
 
 _PAGE_FILES = ("page.html", "page.css", "page.js")
 
@@ -239,7 +239,7 @@ def _ramp(x, stops) -> np.ndarray:
     return np.stack([np.interp(x, pos, cols[:, i]) for i in range(3)], axis=-1)
 
 
-def _level(db, vmax_db: float, range_db: float = DYNAMIC_RANGE_DB) -> np.ndarray:
+def _level(db, vmax_db: float, range_db: float) -> np.ndarray:
     """0..1 brightness of dB values over [vmax − range, vmax] (−inf → 0, NaN stays NaN)."""
     return np.clip((np.asarray(db, dtype=np.float64) - (vmax_db - range_db)) / range_db, 0.0, 1.0)
 
@@ -249,31 +249,38 @@ def _finite_max(db) -> float:
     return float(finite.max()) if finite.size else 0.0
 
 
-def power_image(db, vmax_db: float) -> np.ndarray:
-    """uint8 RGB (rows = samples, columns = traces) of a (column, row) dB grid."""
-    level = _level(db, vmax_db)
-    rgb = _ramp(np.nan_to_num(level), _POWER_RAMP)
-    rgb[np.isnan(level)] = NO_DATA_RGB
+def power_image(db, vmax_db: float, range_db: float) -> np.ndarray:
+    """uint8 RGB (rows = samples, columns = traces) of a (column, row) dB grid: the figures' power
+    colour map (:data:`cluttersim.palette.POWER_CMAP`) over [vmax − range, vmax], as
+    :func:`cluttersim.plots.plot_radargram` maps it."""
+    from matplotlib import colormaps
+    from matplotlib.colors import Normalize
+
+    db = np.asarray(db, dtype=np.float64)
+    cmap = colormaps[palette.POWER_CMAP]
+    with np.errstate(invalid="ignore"):
+        rgba = cmap(Normalize(vmin=vmax_db - range_db, vmax=vmax_db, clip=True)(np.nan_to_num(db, nan=-np.inf)))
+    rgb = rgba[..., :3] * 255.0
+    rgb[np.isnan(db)] = NO_DATA_RGB
     return np.rint(rgb).astype(np.uint8).transpose(1, 0, 2)
 
 
-def side_image(db, left, right, vmax_db: float) -> np.ndarray:
-    """uint8 RGB of the side view: the sides' colours mixed by their shares, times brightness."""
-    level = _level(db, vmax_db)
-    left = np.nan_to_num(np.asarray(left, dtype=np.float64))
-    right = np.nan_to_num(np.asarray(right, dtype=np.float64))
-    nadir = np.clip(1.0 - left - right, 0.0, 1.0)
-    mix = sum(w[..., None] * np.array(SIDE_RGB[k], dtype=np.float64)
-              for w, k in ((left, "left"), (right, "right"), (nadir, "nadir")))  # fmt: skip
-    rgb = mix * (0.06 + 0.94 * np.nan_to_num(level))[..., None] ** 0.9
-    rgb[np.isnan(level)] = NO_DATA_RGB
-    return np.rint(np.clip(rgb, 0, 255)).astype(np.uint8).transpose(1, 0, 2)
+def side_image(db, left, right, vmax_db: float, range_db: float) -> np.ndarray:
+    """uint8 RGB of the side view: :func:`cluttersim.plots.side_colours` (the side PNG's colours)
+    of the (column, row) grid."""
+    from .plots import side_colours
+
+    db = np.asarray(db, dtype=np.float64)
+    with np.errstate(over="ignore"):
+        power = np.where(np.isnan(db), np.nan, 10.0 ** (db / 10.0))
+    rgb = side_colours(power, left, right, db_limits=(vmax_db - range_db, vmax_db)) * 255.0
+    return np.rint(np.clip(rgb, 0, 255)).astype(np.uint8)
 
 
-def overlay_image(observed_db, simulated_db, vmax_db: float) -> np.ndarray:
+def overlay_image(observed_db, simulated_db, vmax_db: float, range_db: float = 60.0) -> np.ndarray:
     """uint8 RGB of observed (copper) and simulated (cyan) power added: where both echo, near white."""
-    a = np.nan_to_num(_level(observed_db, vmax_db))
-    b = np.nan_to_num(_level(simulated_db, vmax_db))
+    a = np.nan_to_num(_level(observed_db, vmax_db, range_db))
+    b = np.nan_to_num(_level(simulated_db, vmax_db, range_db))
     rgb = a[..., None] * np.array(OVERLAY_RGB["observed"]) + b[..., None] * np.array(OVERLAY_RGB["simulated"])
     rgb = rgb + 14.0
     rgb[np.isnan(np.asarray(observed_db, dtype=np.float64))] = NO_DATA_RGB
@@ -480,26 +487,34 @@ def _delay_frame(window_start_s, dt_s):
     return 0.0, "delay after window start (µs)", False
 
 
-def _sim_grid(ds, shape: GridShape, frame, src, blobs: _Blobs, prefix: str) -> dict:
-    """Embed a simulated radargram's pointing grid; returns its JSON description (and images)."""
+def _sim_grid(ds, shape: GridShape, frame, src, blobs: _Blobs, prefix: str, centroids=None) -> dict:
+    """Embed a simulated radargram's pointing grid; returns its JSON description (and images).
+
+    The images use the colour scale of the run's figures (:func:`cluttersim.plots.db_limits`
+    of the whole radargram); ``centroids`` (:class:`cluttersim.sources.SideCentroids`) adds
+    each side's power-weighted source centre per cell."""
+    from .plots import db_limits
+
     power = np.asarray(ds["power"].values, dtype=np.float64)
     ti, si, pick = strongest_in_blocks(power, shape)
     db = power_db(power[ti, si])
-    vmax = _finite_max(db)
+    vmin_full, vmax = db_limits(ds, dynamic_range_db=DYNAMIC_RANGE_DB)
+    range_db = vmax - vmin_full
     q_power = Quantiser.spanning(db, "<u2", step=POWER_STEP_DB, top=vmax)
     floor = vmax - POWER_FLOOR_BELOW_MAX_DB
     blobs.add(f"{prefix}power_db", q_power.encode(np.where(db < floor, -np.inf, db)), q_power)
     if shape.blocked:
         blobs.add(f"{prefix}pick", pick)
-    grid = {"shape": shape.to_json(), "vmax_db": vmax, "power_floor_db": floor, "sources": False}
-    images = {"power": png_data_uri(power_image(db, vmax))}
+    grid = {"shape": shape.to_json(), "vmax_db": vmax, "range_db": range_db, "power_floor_db": floor,
+            "sources": False, "centroids": False}  # fmt: skip
+    images = {"power": png_data_uri(power_image(db, vmax, range_db))}
     if "left_fraction" in ds and "right_fraction" in ds:
         left = np.asarray(ds["left_fraction"].values, dtype=np.float64)[ti, si]
         right = np.asarray(ds["right_fraction"].values, dtype=np.float64)[ti, si]
         q_share = Quantiser("<u1", 0.0, 1.0 / 250.0, 0, 250, 255)
         blobs.add(f"{prefix}left", q_share.encode(left), q_share)
         blobs.add(f"{prefix}right", q_share.encode(right), q_share)
-        images["sides"] = png_data_uri(side_image(db, left, right, vmax))
+        images["sides"] = png_data_uri(side_image(db, left, right, vmax, range_db))
         grid["sides"] = True
     if "source_lat" in ds and "source_lon" in ds:
         src_lat = np.asarray(ds["source_lat"].values, dtype=np.float64)[ti, si]
@@ -531,6 +546,24 @@ def _sim_grid(ds, shape: GridShape, frame, src, blobs: _Blobs, prefix: str) -> d
             blobs.add(f"{prefix}src_map_y", q_map.encode(my), q_map)
         grid["sources"] = True
         grid["map_xy"] = not src.is_geographic
+    if centroids is not None:
+        ant_lat = np.asarray(ds["lat"].values, dtype=np.float64)[ti]
+        ant_lon = np.asarray(ds["lon"].values, dtype=np.float64)[ti]
+        cell_m, _ = _cell_size(src)
+        q_map = Quantiser("<i2", 0.0, 1.0 / MAP_SUBPIXELS, -32767, 32767, -32768)
+        for side in ("left", "right"):
+            lat = np.asarray(centroids.lat[side], dtype=np.float64)[ti, si]
+            lon = np.asarray(centroids.lon[side], dtype=np.float64)[ti, si]
+            ok = np.isfinite(lat) & np.isfinite(lon) & np.isfinite(ant_lat) & np.isfinite(ant_lon)
+            mx, my, dist = (np.full(lat.shape, np.nan) for _ in range(3))
+            if ok.any():
+                mx[ok], my[ok] = frame.pixel(lon[ok], lat[ok])
+                _, _, dist[ok] = src.body.geod().inv(ant_lon[ok], ant_lat[ok], lon[ok], lat[ok])
+            blobs.add(f"{prefix}c_{side}_x", q_map.encode(mx), q_map)
+            blobs.add(f"{prefix}c_{side}_y", q_map.encode(my), q_map)
+            q_dist = Quantiser.spanning(np.append(dist, 0.0), "<u2", min_step=CELL_FRACTION * cell_m)
+            blobs.add(f"{prefix}c_{side}_m", q_dist.encode(dist), q_dist)
+        grid["centroids"] = True
     return grid, images, db, vmax
 
 
@@ -711,8 +744,9 @@ def _page_file(name: str) -> str:
 
 
 def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max_columns: int = MAX_COLUMNS,
-                      max_rows: int = MAX_ROWS) -> str:  # fmt: skip
-    """The report page of a run as one HTML string (see the module docstring)."""
+                      max_rows: int = MAX_ROWS, centroids=None) -> str:  # fmt: skip
+    """The report page of a run as one HTML string (see the module docstring); ``centroids``
+    (:func:`cluttersim.sources.side_centroids` of the simulated run) marks each side's centre."""
     from .products import track_map_data
     from .radar import apparent_depth_m
 
@@ -725,7 +759,7 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
     blobs = _Blobs()
 
     sim_shape = GridShape.of(ds.sizes["trace"], ds.sizes["sample"], max_columns, max_rows)
-    sim_grid, sim_images, _, _ = _sim_grid(ds, sim_shape, pixels, src, blobs, "sim.")
+    sim_grid, sim_images, _, _ = _sim_grid(ds, sim_shape, pixels, src, blobs, "sim.", centroids)
     offset_us, delay_label, absolute = _delay_frame(ds["window_start"].values, dt_s)
     sim_grid.update({"traces": _traces_json(ds, pixels, absolute), "axis_offset_us": offset_us,
                      "delay_label": delay_label})  # fmt: skip
@@ -743,7 +777,11 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
                                  sample_step=sim_shape.sample_step)  # fmt: skip
         ti, si, pick = strongest_in_blocks(obs, obs_shape)
         obs_db, simx_db = power_db(obs[ti, si]), power_db(simx[ti, si])
+        from .plots import comparison_layers
+
+        obs_layers, _ = comparison_layers(cmp)  # the comparison figures' colour scale
         vmax = max(_finite_max(obs_db), _finite_max(simx_db))
+        obs_range = vmax - obs_layers.vmin_db
         q = Quantiser.spanning(obs_db, "<u2", step=POWER_STEP_DB, top=vmax)
         floor = vmax - POWER_FLOOR_BELOW_MAX_DB
         blobs.add("obs.power_db", q.encode(np.where(obs_db < floor, -np.inf, obs_db)), q)
@@ -758,12 +796,13 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
         obs_offset_us, obs_label, obs_absolute = _delay_frame(cmp["window_start"].values, dt_s)
         obs_traces = _traces_json(cmp, pixels, obs_absolute)
         obs_traces["sim_trace"] = [int(v) for v in np.asarray(cmp["sim_trace"].values)]
-        grids["obs"] = {"shape": obs_shape.to_json(), "vmax_db": vmax, "power_floor_db": floor, "sources": False,
+        grids["obs"] = {"shape": obs_shape.to_json(), "vmax_db": vmax, "range_db": obs_range, "power_floor_db": floor,
+                        "sources": False,
                         "traces": obs_traces, "axis_offset_us": obs_offset_us, "delay_label": obs_label}  # fmt: skip
         views = [
-            {"id": "observed", "grid": "obs", "label": "observed", "image": png_data_uri(power_image(obs_db, vmax)),
+            {"id": "observed", "grid": "obs", "label": "observed", "image": png_data_uri(power_image(obs_db, vmax, obs_range)),
              "legend": "power"},
-            {"id": "overlay", "grid": "obs", "label": "overlay", "image": png_data_uri(overlay_image(obs_db, simx_db, vmax)),
+            {"id": "overlay", "grid": "obs", "label": "overlay", "image": png_data_uri(overlay_image(obs_db, simx_db, vmax, obs_range)),
              "legend": "overlay"},
         ] + views  # fmt: skip
         ws = np.asarray(cmp["window_start"].values, dtype=np.float64)
@@ -788,7 +827,6 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
         "permittivity": float(permittivity),
         "c_m_s": SPEED_OF_LIGHT_M_S,
         "dt_us": dt_s * 1e6,
-        "dynamic_range_db": DYNAMIC_RANGE_DB,
         "power_unit": "dBW",
         "grids": grids,
         "views": views,
@@ -799,7 +837,7 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
             "aspect": float(math.cos(math.radians(mid_lat))) if src.is_geographic else 1.0,
             "elevation_m": [float(np.nanmin(elevation)), float(np.nanmax(elevation))] if np.isfinite(elevation).any() else None,
         },
-        "colours": {"side": SIDE_RGB, "overlay": OVERLAY_RGB, "power_ramp": _POWER_RAMP},
+        "colours": palette.report_colours(),
         "params": parameter_sections(inputs, src),
         "candidates": candidates,
         "cautions": cautions(inputs, sim_shape, permittivity, notes),
@@ -810,7 +848,7 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
     title = f"cluttersim report — {html.escape(meta['title'])}"
     replacements = {
         "<!--CS:TITLE-->": title,
-        "/*CS:STYLE*/": _page_file("page.css"),
+        "/*CS:STYLE*/": palette.css_variables() + _page_file("page.css"),
         "/*CS:SCRIPT*/": _page_file("page.js").replace("</script", "<\\/script"),
         "<!--CS:META-->": meta_json,
         "<!--CS:BLOBS-->": blob_json,
@@ -823,7 +861,8 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
 
 
 def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrite: bool = False, dem=None, sim=None,
-                 band=None, max_columns: int = MAX_COLUMNS, max_rows: int = MAX_ROWS) -> Path:  # fmt: skip
+                 band=None, max_columns: int = MAX_COLUMNS, max_rows: int = MAX_ROWS, centroids: bool = True,
+                 progress: bool = False) -> Path:  # fmt: skip
     """Write the report page of a run directory; returns its path.
 
     Parameters
@@ -845,6 +884,12 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
         Passed to :func:`cluttersim.radargram.open_radargram` when given.
     max_columns, max_rows : int
         Size of the embedded pointing grid before samples are grouped in blocks.
+    centroids : bool
+        Mark each side's power-weighted source centre on the map
+        (:func:`cluttersim.sources.side_centroids`: rebuilds the run's scene from
+        its DEM and runs the kernel three more times).
+    progress : bool
+        Show a progress bar while the centroids are computed.
     """
     from .datums import with_recorded_height_unit
     from .dem import DemSource
@@ -866,7 +911,18 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
     except DemError as exc:
         hint = "" if dem else " (the DEM recorded in the run; give its new place with --dem)"
         raise DemError(f"{exc}{hint}") from None
-    page = build_report_html(inputs, src, permittivity=float(permittivity), max_columns=max_columns, max_rows=max_rows)
+    cents = None
+    if centroids and "left_fraction" in ds and "nadir_strip_half_width" in ds:
+        from .sources import load_run, side_centroids
+
+        try:
+            cents = side_centroids(load_run(inputs.sim_path.parent, dem=dem_path, band=band), progress=progress)
+        except ClutterSimError as exc:
+            import warnings
+
+            warnings.warn(f"{inputs.sim_path}: side centroids left out of the report ({exc})", stacklevel=2)
+    page = build_report_html(inputs, src, permittivity=float(permittivity), max_columns=max_columns, max_rows=max_rows,
+                             centroids=cents)  # fmt: skip
     with atomic_paths([out_path]) as (tmp,):
         tmp.write_text(page, encoding="utf-8")
     return out_path

@@ -47,7 +47,7 @@ from .radar import (
 )
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
-from .track import Track
+from .track import Track, wrap_lon_like
 from .validate import check_far_field, check_noise_power, check_power_finite, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
@@ -410,7 +410,8 @@ class _BandRun:
                                               cfg.antenna.nadir_pattern_gain()))  # fmt: skip
         attrs = {**attrs, "power_convention": POWER_CONVENTION, "power_convention_text": POWER_CONVENTION_TEXT}
         band_attrs = {**flatten_config_attrs(cfg), **attrs}
-        return build_dataset(power, window_start, dt, track_out, nadir_delay, earliest, on_dem, band_attrs, extra)
+        return build_dataset(power, window_start, dt, track_out, nadir_delay, earliest, on_dem, band_attrs, extra,
+                             body=scene.src.body)
 
 
 # --------------------------------------------------------------------------- DEM window
@@ -479,7 +480,7 @@ def prepare_scene(
     rows, cols = src.lonlat_to_rowcol(track.lon_deg, track.lat_deg)
     on_dem = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
     if not on_dem.any():
-        raise TrackError(f"{track.source}: no trace lies over the DEM {src.path.name}; check lat/lon and the DEM's extent")
+        raise TrackError(f"{track.source}: no trace lies over the DEM {src.path.name}; {extents_text(src, track)}")
     if not on_dem.all():
         warnings.warn(
             f"{track.source}: {int((~on_dem).sum())} of {len(track)} traces are not over the DEM; they are filled with NaN",
@@ -526,7 +527,7 @@ def prepare_scene(
         i = below[0]
         raise TrackError(
             f"{track.source}: row {i + 1} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
-            f"({h_nadir[i]:.1f} m); expected the antenna above the surface"
+            f"({h_nadir[i]:.1f} m); expected the antenna above the surface{altitude_unit_hint(track.alt_m, h_nadir)}"
         )
     check_far_field(track, h_nadir, config)
     nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S
@@ -559,6 +560,40 @@ def prepare_scene(
         h_nadir_m=h_nadir, nadir_delay_s=nadir_delay, earliest_delay_s=earliest_delay, start_s=start,
         pad=pad, pulse_weights=kernel_weights,
     )  # fmt: skip
+
+
+def extents_text(src: DemSource, track: Track) -> str:
+    """The DEM's and the track's extents in degrees, for a message when they do not meet."""
+    t = src.transform
+    x0, y1 = t.c, t.f
+    x1, y0 = t.c + t.a * src.width, t.f + t.e * src.height
+    if src.is_geographic:
+        dem_text = f"DEM lon {min(x0, x1):.4f}..{max(x0, x1):.4f}, lat {min(y0, y1):.4f}..{max(y0, y1):.4f}"
+    else:
+        xs = np.array([x0, x1, x0, x1])
+        ys = np.array([y0, y0, y1, y1])
+        lon, lat = src.xy_to_lonlat(xs, ys)
+        dem_text = (f"DEM x {min(x0, x1):.0f}..{max(x0, x1):.0f}, y {min(y0, y1):.0f}..{max(y0, y1):.0f} "
+                    f"(about lon {np.nanmin(lon):.4f}..{np.nanmax(lon):.4f}, lat {np.nanmin(lat):.4f}..{np.nanmax(lat):.4f})")  # fmt: skip
+    lat, lon = track.lat_deg, track.lon_deg
+    hint = ""
+    if src.is_geographic and np.nanmin(lat) >= min(x0, x1) - 1 and np.nanmax(lat) <= max(x0, x1) + 1 \
+            and np.nanmin(lon) >= min(y0, y1) - 1 and np.nanmax(lon) <= max(y0, y1) + 1:  # fmt: skip
+        hint = "; lat and lon look swapped"
+    return (f"{dem_text}; track lon {np.nanmin(lon):.4f}..{np.nanmax(lon):.4f}, "
+            f"lat {np.nanmin(lat):.4f}..{np.nanmax(lat):.4f}{hint}")  # fmt: skip
+
+
+def altitude_unit_hint(alt_m, h_nadir_m) -> str:
+    """"; the altitudes look like kilometres" when every altitude × 1000 would clear the terrain
+    while the altitudes themselves are below it (a track written in km), else ""."""
+    alt = np.asarray(alt_m, dtype=np.float64)
+    h = np.asarray(h_nadir_m, dtype=np.float64)
+    ok = np.isfinite(alt) & np.isfinite(h)
+    if ok.any() and np.all(alt[ok] * 1000.0 > h[ok]) and np.nanmax(np.abs(alt[ok])) < 5000.0:
+        return (f"; the altitudes ({np.nanmin(alt[ok]):g}..{np.nanmax(alt[ok]):g}) look like kilometres: "
+                "the alt column is in metres")  # fmt: skip
+    return ""
 
 
 def scene_for_band(scene: Scene, band_config: SimulationConfig) -> Scene:
@@ -820,13 +855,13 @@ class SourceRecord:
         src_lon = np.empty(self.facet.shape, dtype=np.float32)
         if window.source.is_geographic:
             lon_of_col, lat_of_row = window.lonlat_axes()
-            lon_of_col = (lon_of_col + 180.0) % 360.0 - 180.0  # windows across ±180° run past it
+            lon_of_col = wrap_lon_like(lon_of_col, track.lon_deg)  # the track's convention (windows run past ±180°)
             kernels.cell_lonlat_of_facets(self.facet, facets.cell, window.shape[1], lon_of_col, lat_of_row, src_lon, src_lat)
         else:
             lon, lat = window.lonlat_of_cells(facets.cell[np.maximum(self.facet, 0)])
             none = self.facet < 0
             src_lat[...] = np.where(none, np.nan, lat)
-            src_lon[...] = np.where(none, np.nan, (lon + 180.0) % 360.0 - 180.0)
+            src_lon[...] = np.where(none, np.nan, wrap_lon_like(lon, track.lon_deg))
         fr_delay, fr_sample = first_return(power, window_start, nadir_delay, dt, threshold_db, mainlobe)
         has = fr_sample >= 0
         rows = np.flatnonzero(has)

@@ -105,6 +105,94 @@ def _kernel_power(scene: Scene, traces, lo_s, hi_s) -> np.ndarray:
     return out
 
 
+# --------------------------------------------------------------------------- side centroids
+
+
+@dataclass
+class SideCentroids:
+    """Power-weighted centroid of the ground each side of the track sends into each sample.
+
+    ``lat[side]``, ``lon[side]`` (trace, sample), degrees, for ``side`` in
+    ("left", "right"): Σ P_f φ_f / Σ P_f over the facets f of that side, with
+    P_f the facet's power after the pulse compression (the same side split
+    and pulse response as the source record); NaN where the side sends no
+    power. Longitudes are in the convention of the track's.
+    """
+
+    lat: dict
+    lon: dict
+
+
+def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
+    """Where each side's echo comes from, on average: :class:`SideCentroids` of a finished run.
+
+    The strongest single facet (``source_lat``/``source_lon`` of the run) can
+    sit far from where most of a side's power comes from; the centroid says
+    where that is. It is computed exactly, without approximation, by running
+    the simulation's kernel three times over the run's scene — with each
+    facet's power weighted by 1, by its latitude and by its longitude (offset
+    to stay positive): power is linear in the facet area the kernel is given,
+    and so are the delay spreading and the pulse compression, so the ratio of
+    the weighted to the unweighted side rows is the centroid per sample.
+
+    Costs about three runs of ``simulate`` with the source record; not for
+    coherent-mode runs (no sides).
+    """
+    from .simulate import _compress, binned_power
+
+    scene = run.scene
+    cfg = scene.config
+    if cfg.processing.mode == "coherent":
+        raise ClutterSimError(f"{run.run_dir}: a coherent-mode run has no source record; no side centroids")
+    ds = run.ds
+    radar = cfg.radar
+    f = scene.facets
+    lon_f, lat_f = scene.window.lonlat_of_cells(f.cell)
+    lat0 = float(np.min(lat_f))
+    lon_ref = float(np.median(lon_f))
+    lon_off = (np.asarray(lon_f) - lon_ref + 180.0) % 360.0 - 180.0
+    lon0 = float(lon_off.min())
+    weights = {"one": None, "lat": np.asarray(lat_f) - lat0 + 1.0, "lon": lon_off - lon0 + 1.0}
+    scenes = {k: scene if w is None else replace(scene, facets=replace(f, area_m2=(f.area_m2 * w).astype(f.area_m2.dtype)))
+              for k, w in weights.items()}  # fmt: skip
+    idx, pad = scene.idx, scene.pad
+    dt = radar.sample_interval_s
+    samples = radar.samples
+    nbins = samples + 2 * pad
+    bin0 = scene.start_s - (pad + 0.5) * dt
+    track, body = scene.track, scene.src.body
+    right_unit = right_unit_vectors(body, track)[idx]
+    frames = trace_frames(right_unit, body.up_unit(track.lat_deg, track.lon_deg)[idx])
+    strip = np.asarray(ds["nadir_strip_half_width"].values, dtype=np.float64)[idx]
+    ntr = len(track)
+    out_lat = {s: np.full((ntr, samples), np.nan, dtype=np.float32) for s in ("left", "right")}
+    out_lon = {s: np.full((ntr, samples), np.nan, dtype=np.float32) for s in ("left", "right")}
+    ant = np.ascontiguousarray(scene.ant_m[idx])
+    sides = {"left": kernels.SIDE_LEFT, "right": kernels.SIDE_RIGHT}
+    east_positive = bool(np.any(np.asarray(track.lon_deg) > 180.0))
+    chunk = 64
+    with tqdm(total=idx.size, unit="trace", delay=1.0, disable=not progress, desc="side centroids") as bar:
+        for a in range(0, idx.size, chunk):
+            b = min(a + chunk, idx.size)
+            rows = idx[a:b]
+            comp = {}
+            for k, sc in scenes.items():
+                binned, _, _ = binned_power(sc, ant[a:b], bin0[a:b], nbins, right_unit[a:b], strip[a:b], True,
+                                            frames[a:b], rows)  # fmt: skip
+                comp[k] = {s: _compress(binned[:, row], scene.pulse_weights, pad, samples) for s, row in sides.items()}
+            for s in sides:
+                p = comp["one"][s]
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    ok = p > 1e-30 * max(float(np.max(p, initial=0.0)), 1e-300)
+                    lat = np.where(ok, comp["lat"][s] / np.where(ok, p, 1.0) - 1.0 + lat0, np.nan)
+                    lon = np.where(ok, comp["lon"][s] / np.where(ok, p, 1.0) - 1.0 + lon0 + lon_ref, np.nan)
+                lon = lon % 360.0 if east_positive else (lon + 180.0) % 360.0 - 180.0
+                out_lat[s][rows] = lat
+                out_lon[s][rows] = lon
+            bar.update(b - a)
+    return SideCentroids(lat=out_lat, lon=out_lon)
+
+
 # --------------------------------------------------------------------------- depth-window map
 
 
@@ -280,17 +368,21 @@ def _band_tag(run: Run) -> str:
     return f"_{run.ds.attrs['band']}" if "band" in run.ds.attrs else ""
 
 
-def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> dict[str, Path]:
+def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False, figures=None) -> dict[str, Path]:
     """Write the depth-window map as ``sources_<A>-<B>m_eps<ε>.tif`` (GeoTIFF, W per cell,
-    the run's DEM-window grid and CRS) and a ``.png`` beside it in the run directory."""
+    the run's DEM-window grid and CRS) and a ``.png`` beside it in the run directory
+    (``figures``: :class:`cluttersim.products.FigureOptions` — dpi, png/pdf/svg, dB range)."""
     import rasterio
     from rasterio.crs import CRS as RioCRS
 
     from . import plots
     from .outputs import atomic_paths, check_new
 
+    from .products import FigureOptions
+
+    figures = figures or FigureOptions()
     stem = f"sources_{_depth_tag(smap.depth_min_m, smap.depth_max_m, smap.permittivity)}{_band_tag(run)}"
-    paths = {"tif": run.run_dir / f"{stem}.tif", "png": run.run_dir / f"{stem}.png"}
+    paths = {"tif": run.run_dir / f"{stem}.tif", "png": run.run_dir / f"{stem}.{figures.fmt}"}
     check_new(paths.values(), overwrite)
     ny, nx = smap.power_w.shape
     profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32", transform=smap.transform,
@@ -310,16 +402,20 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False) -> d
             smap.power_w, smap.elevation_m, frame.extent, tx, ty, png, axis_labels=frame.axis_labels,
             geographic=run.scene.src.is_geographic,
             title=f"ground echoing at apparent depths {smap.depth_min_m:g}–{smap.depth_max_m:g} m (ε′ = {smap.permittivity:g})",
+            dpi=figures.dpi, fmt=figures.fmt, **({"dynamic_range_db": figures.db_range} if figures.db_range else {}),
         )  # fmt: skip
     return paths
 
 
-def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) -> Path:
-    """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory."""
+def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False, figures=None) -> Path:
+    """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory
+    (``figures``: dpi and format, :class:`cluttersim.products.FigureOptions`)."""
     from . import plots
     from .outputs import atomic_paths, check_new
+    from .products import FigureOptions
 
-    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us{_band_tag(run)}.png"
+    figures = figures or FigureOptions()
+    path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us{_band_tag(run)}.{figures.fmt}"
     check_new([path], overwrite)
     src = run.scene.src
     window = run.scene.window
@@ -335,7 +431,8 @@ def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False) 
         plots.plot_echo_sources(
             window.elevation_m, frame.extent, tx, ty, (float(ax), float(ay)), cells_xy.reshape(-1, 2),
             [c.share for c in answer.cells], tmp, axis_labels=frame.axis_labels, geographic=src.is_geographic, view=view,
-            title=f"trace {answer.trace}, {answer.delay_s * 1e6:.3f} µs after window start",
+            title=f"trace {answer.trace}, {answer.delay_s * 1e6:.3f} µs after window start", dpi=figures.dpi,
+            fmt=figures.fmt,
         )  # fmt: skip
     return path
 

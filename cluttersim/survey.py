@@ -101,8 +101,12 @@ class SurveyConfig:
     max_depth_m, permittivity :
         The subsurface window: apparent depths 0..max_depth_m for ε′.
     threshold_db :
-        T: clutter ≥ T dB relative to the nadir surface echo counts (fraction
-        F), and a trace with I ≥ T is clutter-prone.
+        T: clutter ≥ T dB above what level ground gives (fraction F), and a
+        trace with I ≥ T is clutter-prone (default 3 dB: twice level ground's).
+    swath_km :
+        Cross-track half-width (km) each trace's value covers on the map;
+        default the ground its subsurface window reaches over level ground
+        (:func:`swath_half_width_m`); 0: the nadir path only.
     grid_km :
         Map cell size (km; for geographic DEMs converted to degrees of latitude
         on the body's mean radius, longitude cells having the same size in
@@ -117,8 +121,9 @@ class SurveyConfig:
     tracks_path: str | None = None
     max_depth_m: float = 500.0
     permittivity: float = 3.15
-    threshold_db: float = 0.0
+    threshold_db: float = 3.0
     grid_km: float | None = None
+    swath_km: float | None = None
 
     def __post_init__(self):
         if len(self.region) != 4 or not all(math.isfinite(v) for v in self.region):
@@ -150,6 +155,8 @@ class SurveyConfig:
             raise ConfigError(f"threshold_db {self.threshold_db}: expected a number of dB")
         if self.grid_km is not None:
             _positive("grid_km", self.grid_km)
+        if self.swath_km is not None and not (math.isfinite(self.swath_km) and self.swath_km >= 0):
+            raise ConfigError(f"swath_km {self.swath_km}: expected a cross-track half-width >= 0 km (0: nadir paths only)")
 
     @property
     def generated(self) -> bool:
@@ -161,7 +168,8 @@ class SurveyConfig:
 
     def reduction(self) -> dict:
         """The settings that shape a track's result (part of its resume key)."""
-        return {"max_depth_m": self.max_depth_m, "permittivity": self.permittivity, "threshold_db": self.threshold_db}
+        return {"max_depth_m": self.max_depth_m, "permittivity": self.permittivity, "threshold_db": self.threshold_db,
+                "relative_to_level": True}
 
 
 def _positive(name, value):
@@ -397,6 +405,8 @@ class TrackResult:
     key: str
     warnings: list[str] = field(default_factory=list)
     seconds: float = 0.0  # the worker's time on this track (simulation and reduction)
+    level_db: float = 0.0  # the level-ground index of this track's geometry, subtracted from index_db
+    swath_m: float = 0.0  # cross-track half-width of the ground the subsurface window reaches (level ground)
 
 
 def clutter_index(power_w, left_fraction, right_fraction, window_start_s, nadir_delay_s, sample_interval_s: float,
@@ -440,6 +450,98 @@ def clutter_index(power_w, left_fraction, right_fraction, window_start_s, nadir_
     return index_db, fraction, depth, np.where(ok, surface, np.nan), truncated
 
 
+def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: SimulationConfig, survey: dict) -> float:
+    """The clutter index (raw, dB) that level ground gives in a track's geometry: computed, not tuned.
+
+    The trace with the median height above its nadir terrain and its two
+    neighbours (for the direction of travel) are simulated over a level DEM —
+    a constant height equal to that trace's nadir terrain, on the DEM's own
+    CRS and cell size (so facets are those of the real DEM) — with the same
+    radar, and :func:`clutter_index` is taken at the middle trace. Level ground
+    just outside the nadir strip (the pulse-limited footprint) echoes right
+    after the nadir echo, so this floor is a few dB below 0 for most sounders
+    (about −2.5 dB for the built-in radar 100 km up); the survey reports every
+    index relative to it, so level ground reads 0 dB. Returns NaN if no trace
+    has a nadir echo.
+    """
+    import tempfile
+
+    import rasterio
+    from rasterio.transform import from_origin
+
+    from .constants import SPEED_OF_LIGHT_M_S
+    from .simulate import ground_radius_m, simulate
+
+    clearance = np.asarray(track.alt_m, dtype=np.float64) - np.asarray(h_nadir_m, dtype=np.float64)
+    ok = np.flatnonzero(np.isfinite(clearance) & (clearance > 0))
+    if ok.size == 0:
+        return float("nan")
+    i = int(ok[np.argsort(clearance[ok])[ok.size // 2]])
+    rows = [max(0, i - 1), i, min(len(track) - 1, i + 1)]
+    rows = sorted(set(rows))
+    h0 = float(h_nadir_m[i])
+    radar = config.radar
+    window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
+    if radar.window_start_s == "auto":  # only the subsurface window matters: a shorter recording is enough
+        need = radar.auto_margin_samples + int(math.ceil(window_s / radar.sample_interval_s)) + 4 * radar.mainlobe_samples + 8
+        samples = int(min(radar.samples, max(need, 64)))
+        config = dataclasses.replace(config, radar=dataclasses.replace(radar, samples=samples))
+        radar = config.radar
+    max_range = clearance[i] + 0.5 * SPEED_OF_LIGHT_M_S * (radar.samples * radar.sample_interval_s + 2e-6)
+    if radar.window_start_s != "auto":
+        max_range = 0.5 * SPEED_OF_LIGHT_M_S * (float(radar.window_start_s) + radar.window_length_s)
+    radius = float(ground_radius_m(src.body, np.array([track.alt_m[i]]), np.array([max_range]), h0, h0)[0])
+    cell_x, cell_y = abs(src.transform.a), abs(src.transform.e)
+    x, y = src.lonlat_to_xy(np.array([track.lon_deg[i]]), np.array([track.lat_deg[i]]))
+    x, y = float(np.asarray(x)[0]), float(np.asarray(y)[0])
+    if src.is_geographic:
+        deg = math.degrees(1.0 / src.body.mean_radius_m)
+        half_x = radius * deg / max(math.cos(math.radians(track.lat_deg[i])), 0.05) + 3 * cell_x
+        half_y = radius * deg + 3 * cell_y
+    else:
+        half_x, half_y = radius + 3 * cell_x, radius + 3 * cell_y
+    nx = int(min(6000, 2 * math.ceil(half_x / cell_x) + 1))
+    ny = int(min(6000, 2 * math.ceil(half_y / cell_y) + 1))
+    # on the DEM's own grid lines, so the facets fall across the nadir strip's edge as the real ones do
+    t = src.transform
+    west = t.c + math.floor((x - 0.5 * nx * cell_x - t.c) / cell_x) * cell_x
+    north = t.f - math.floor((t.f - (y + 0.5 * ny * cell_y)) / cell_y) * cell_y
+    sub = Track(track.lat_deg[rows], track.lon_deg[rows], track.alt_m[rows],
+                None if track.time_s is None else track.time_s[rows], source=f"{track.source} (level-ground reference)")  # fmt: skip
+    with tempfile.TemporaryDirectory(prefix="cluttersim-level-") as tmp:
+        path = Path(tmp) / "level.tif"
+        profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32",
+                       transform=from_origin(west, north, cell_x, cell_y))  # fmt: skip
+        if src.crs is not None:
+            from rasterio.crs import CRS as RioCRS
+
+            profile["crs"] = RioCRS.from_wkt(src.crs.to_wkt())
+        with rasterio.open(path, "w", **profile) as out:
+            out.write(np.full((ny, nx), h0, dtype=np.float32), 1)
+        radius_given = None if src.crs is not None else src.body.mean_radius_m
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ds = simulate(DemSource.open(path, radius_given), sub, config, body_radius_m=radius_given, sources=True,
+                          max_memory_bytes=None)  # fmt: skip
+    index_db, *_ = clutter_index(
+        ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
+        ds["nadir_delay"].values, radar.sample_interval_s, window_s, radar.mainlobe_samples, 0.0, survey["permittivity"],
+    )  # fmt: skip
+    return float(index_db[rows.index(i)])
+
+
+def swath_half_width_m(body, clearance_m, max_depth_m: float, permittivity: float) -> float:
+    """Cross-track distance from nadir of the level ground whose echo arrives at the bottom of the
+    subsurface window: the ground the window reaches, ρ = √(2 h Δr / (1 + h/R)) with
+    Δr = d_max √ε′ the extra range (flat-ground approximation of the law of cosines on a sphere of
+    radius R, valid for Δr ≪ h), for the median clearance h of the track."""
+    h = float(np.nanmedian(np.asarray(clearance_m, dtype=np.float64)))
+    if not (math.isfinite(h) and h > 0):
+        return 0.0
+    dr = max_depth_m * math.sqrt(permittivity)
+    return math.sqrt(2.0 * h * dr / (1.0 + h / body.mean_radius_m))
+
+
 def survey_track(job: TrackJob) -> TrackResult:
     """Simulate one track (:func:`cluttersim.simulate.simulate`) and reduce it to its clutter index.
 
@@ -464,16 +566,26 @@ def survey_track(job: TrackJob) -> TrackResult:
     survey = job.survey
     window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
     mainlobe = radar.mainlobe_samples
+    from .constants import SPEED_OF_LIGHT_M_S
+
+    h_nadir = np.asarray(ds["alt"].values, dtype=np.float64) - 0.5 * SPEED_OF_LIGHT_M_S * ds["nadir_delay"].values
+    level_db = 0.0
+    if survey.get("relative_to_level", True):
+        level_db = level_ground_index_db(src, job.track(), h_nadir, cfg, survey)
+        level_db = level_db if math.isfinite(level_db) else 0.0
+    # the threshold applies to the index relative to level ground: T + level on the raw scale
     index_db, fraction, depth, surface, truncated = clutter_index(
         ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
-        ds["nadir_delay"].values, dt, window_s, mainlobe, survey["threshold_db"], survey["permittivity"],
+        ds["nadir_delay"].values, dt, window_s, mainlobe, survey["threshold_db"] + level_db, survey["permittivity"],
     )  # fmt: skip
+    clearance = np.asarray(ds["alt"].values, dtype=np.float64) - h_nadir
     return TrackResult(
         track_id=job.track_id, lat_deg=np.asarray(ds["lat"].values, dtype=np.float64),
-        lon_deg=np.asarray(ds["lon"].values, dtype=np.float64), index_db=index_db, fraction=fraction, depth_m=depth,
-        surface_power_w=surface, truncated=truncated, key=job.key,
+        lon_deg=np.asarray(ds["lon"].values, dtype=np.float64), index_db=index_db - level_db, fraction=fraction,
+        depth_m=depth, surface_power_w=surface, truncated=truncated, key=job.key,
         warnings=list(dict.fromkeys(str(w.message) for w in caught if issubclass(w.category, UserWarning))),
-        seconds=time.perf_counter() - t0,
+        seconds=time.perf_counter() - t0, level_db=float(level_db),
+        swath_m=swath_half_width_m(src.body, clearance, survey["max_depth_m"], survey["permittivity"]),
     )  # fmt: skip
 
 
@@ -489,6 +601,15 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
         config = config.for_band(band or config.band_names[0])
     elif band is not None:
         raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
+    ignored = [t for t in ("noise", "subsurface", "ionosphere") if getattr(config, t, None) is not None]
+    if ignored:
+        warnings.warn(
+            f"survey: the radar's {' and '.join(f'[{t}]' for t in ignored)} table(s) are ignored: the clutter index "
+            "compares surface clutter with the nadir surface echo, both noise-free ([noise] would only add a floor "
+            "independent of the terrain; [ionosphere] delays and smears both alike), and a predicted interface echo "
+            "([subsurface]) is not clutter; compare its power with the clutter of one track with `cluttersim simulate`",
+            stacklevel=3,
+        )
     return dataclasses.replace(config, noise=None, subsurface=None, ionosphere=None)
 
 
@@ -539,7 +660,8 @@ def write_track_result(result: TrackResult, path) -> Path:
     variables = {
         "lat": (result.lat_deg, "degrees_north", "nadir latitude"),
         "lon": (result.lon_deg, "degrees_east", "nadir longitude"),
-        "clutter_index": (result.index_db, "dB", "strongest off-nadir clutter in the subsurface window / nadir echo"),
+        "clutter_index": (result.index_db, "dB", "strongest off-nadir clutter in the subsurface window / nadir echo, "
+                                                 "relative to level ground in the same geometry"),
         "clutter_fraction": (result.fraction, "1", "power-weighted share of the window with clutter above the threshold"),
         "clutter_depth": (result.depth_m, "m", "apparent depth of the strongest clutter in the window"),
         "surface_power": (result.surface_power_w, "W", "nadir surface echo power"),
@@ -547,7 +669,8 @@ def write_track_result(result: TrackResult, path) -> Path:
     ds = xr.Dataset(
         {k: ("trace", np.asarray(v), {"units": u, "long_name": n}) for k, (v, u, n) in variables.items()},
         attrs={"Conventions": "CF-1.10", "track_id": result.track_id, "survey_key": result.key,
-               "truncated_windows": result.truncated, "power_convention": POWER_CONVENTION},
+               "truncated_windows": result.truncated, "power_convention": POWER_CONVENTION,
+               "level_ground_index_db": result.level_db, "swath_half_width_m": result.swath_m},
     )  # fmt: skip
     from .radargram import save_netcdf
 
@@ -578,6 +701,7 @@ def read_track_result(path, radar=None) -> TrackResult:
             index_db=ds["clutter_index"].values, fraction=ds["clutter_fraction"].values,
             depth_m=ds["clutter_depth"].values, surface_power_w=ds["surface_power"].values * _legacy_factor(ds, radar),
             truncated=int(ds.attrs.get("truncated_windows", 0)), key=str(ds.attrs["survey_key"]),
+            level_db=float(ds.attrs.get("level_ground_index_db", 0.0)), swath_m=float(ds.attrs.get("swath_half_width_m", 0.0)),
         )  # fmt: skip
     except KeyError as exc:
         raise ClutterSimError(f"{path}: {exc} missing; expected a survey track file (delete it to recompute)") from None
@@ -942,9 +1066,67 @@ class SurveyGrid:
 
 
 
-def grid_results(src: DemSource, grid: SurveyGrid, results) -> tuple[np.ndarray, np.ndarray]:
+def grid_results(src: DemSource, grid: SurveyGrid, results, swath_km: float | None = None):
     """Grid per-trace index and fraction onto the map: (index_db, fraction), each (height, width), NaN
-    where no track passed.
+    where no track's swath reaches.
+
+    Each map cell takes the values of the nearest trace (geodesic distance on the
+    body's mean sphere, from the cell's centre to the trace's nadir) if it lies
+    within that trace's swath: ``swath_km`` or, by default, each track's
+    :attr:`TrackResult.swath_m` (the ground its subsurface window reaches), so the
+    map shows the footprint of every track, not a hairline. The nearest trace does
+    not depend on the order of the tracks. With ``swath_km = 0`` the nadir paths
+    alone are drawn (:func:`grid_paths`).
+    """
+    if swath_km == 0 or not results:
+        return grid_paths(src, grid, results)
+    from scipy.spatial import cKDTree
+
+    radius = src.body.mean_radius_m
+
+    def unit(lon, lat):
+        lon, lat = np.radians(lon), np.radians(lat)
+        return np.stack([np.cos(lat) * np.cos(lon), np.cos(lat) * np.sin(lon), np.sin(lat)], axis=-1)
+
+    pts, idx_v, frac_v, reach = [], [], [], []
+    for res in results:
+        ok = np.isfinite(res.index_db) & np.isfinite(res.lat_deg) & np.isfinite(res.lon_deg)
+        if not ok.any():
+            continue
+        pts.append(unit(res.lon_deg[ok], res.lat_deg[ok]))
+        idx_v.append(res.index_db[ok])
+        frac_v.append(np.nan_to_num(res.fraction[ok]))
+        half = 1e3 * swath_km if swath_km is not None else (res.swath_m or 0.0)
+        reach.append(np.full(int(ok.sum()), max(half, 0.0)))
+    if not pts:
+        return grid_paths(src, grid, results)
+    pts, idx_v, frac_v, reach = (np.concatenate(a) for a in (pts, idx_v, frac_v, reach))
+    cols, rows = np.meshgrid(np.arange(grid.width) + 0.5, np.arange(grid.height) + 0.5)
+    x, y = grid.transform * (cols.ravel(), rows.ravel())
+    lon, lat = src.xy_to_lonlat(np.asarray(x), np.asarray(y)) if not src.is_geographic else (np.asarray(x), np.asarray(y))
+    dist, near = cKDTree(pts).query(unit(np.asarray(lon), np.asarray(lat)), k=1)
+    ground = 2.0 * radius * np.arcsin(np.clip(dist / 2.0, 0.0, 1.0))  # chord → arc on the mean sphere
+    inside = np.isfinite(dist) & (ground <= np.maximum(reach[np.minimum(near, reach.size - 1)], 0.5 * _cell_m(src, grid)))
+    index = np.full(grid.height * grid.width, np.nan)
+    frac = np.full(grid.height * grid.width, np.nan)
+    index[inside] = idx_v[near[inside]]
+    frac[inside] = frac_v[near[inside]]
+    paths_i, paths_f = grid_paths(src, grid, results)  # the nadir path itself always shows
+    index, frac = index.reshape(grid.height, grid.width), frac.reshape(grid.height, grid.width)
+    on_path = np.isfinite(paths_i) & ~np.isfinite(index)
+    index[on_path], frac[on_path] = paths_i[on_path], paths_f[on_path]
+    return index, frac
+
+
+def _cell_m(src: DemSource, grid: SurveyGrid) -> float:
+    """A map cell's side in metres."""
+    res = abs(grid.transform.a)
+    return math.radians(res) * src.body.mean_radius_m if src.is_geographic else res
+
+
+def grid_paths(src: DemSource, grid: SurveyGrid, results) -> tuple[np.ndarray, np.ndarray]:
+    """Grid per-trace index and fraction along the tracks' nadir paths only: (index_db, fraction),
+    NaN where no track passed.
 
     Each track's nadir path is drawn cell by cell (consecutive traces joined by a
     straight line in the grid, each half taking its nearer trace's values; a
@@ -1011,6 +1193,8 @@ def track_rows(body, results, threshold_db: float) -> list[dict]:
             "median_index_db": round(float(np.median(idx)), 2) if idx.size else "",
             "max_index_db": round(float(np.max(idx)), 2) if idx.size else "",
             "median_clutter_fraction": round(float(np.nanmedian(r.fraction[valid])), 4) if idx.size else "",
+            "level_ground_db": round(float(r.level_db), 2),
+            "swath_half_width_km": round(float(r.swath_m) / 1e3, 3),
         })  # fmt: skip
     return rows
 
@@ -1024,7 +1208,7 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
     from . import plots
     from .products import MapFrame
 
-    index, frac = grid_results(src, grid, results)
+    index, frac = grid_results(src, grid, results, config.swath_km)
     rows = track_rows(src.body, results, config.threshold_db)
     profile = dict(driver="GTiff", width=grid.width, height=grid.height, count=2, dtype="float32",
                    transform=grid.transform, nodata=np.nan, compress="deflate")  # fmt: skip
@@ -1047,8 +1231,9 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
             dst.set_band_description(1, "clutter_index_db")
             dst.set_band_description(2, "clutter_fraction")
             dst.update_tags(
-                quantity="clutter index: strongest off-nadir clutter in the subsurface window over the nadir echo (dB); "
-                "band 2: power-weighted share of the window with clutter above the threshold",
+                quantity="clutter index: strongest off-nadir clutter in the subsurface window over the nadir echo, "
+                "relative to level ground in the same geometry (dB; level ground reads 0); band 2: power-weighted "
+                "share of the window with clutter above the threshold",
                 max_depth_m=config.max_depth_m, permittivity=config.permittivity, threshold_db=config.threshold_db,
                 tracks=len(results),
             )  # fmt: skip
@@ -1056,7 +1241,9 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
             index, frame.extent, elevation, relief.extent, lines, tmp_png, threshold_db=config.threshold_db,
             axis_labels=frame.axis_labels, geographic=src.is_geographic,
             title=f"clutter over the subsurface window {depth}\n{src.path.name}",
-            label=f"strongest off-nadir clutter at apparent depths {depth}\nrelative to the nadir surface echo (dB)",
+            label=f"strongest off-nadir clutter at apparent depths {depth}\nrelative to level ground (dB; level "
+                  "ground: 0)",
+            swaths=None if config.swath_km == 0 else True,
         )  # fmt: skip
 
 

@@ -128,10 +128,8 @@ def read_track_table(path, extra_columns: tuple[str, ...] = ()) -> tuple[list[st
     names = [h.strip().lower() for h in header]
     missing = [c for c in REQUIRED_COLUMNS + tuple(extra_columns) if c not in names]
     if missing:
-        hint = ""
-        if len(names) == 1 and (";" in names[0] or "\t" in names[0]):
-            hint = " (columns separated by ';' or tabs? expected commas)"
-        raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; expected {expected} (and optional time){hint}")
+        raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; {describe_header(path, header)}; "
+                         f"expected a comma-separated header with {expected} (and optional time)")  # fmt: skip
     for number, row in enumerate(rows, start=1):
         if len(row) > len(names) and any(cell.strip() for cell in row[len(names):]):
             raise TrackError(
@@ -139,6 +137,48 @@ def read_track_table(path, extra_columns: tuple[str, ...] = ()) -> tuple[list[st
                 "('.' as the decimal mark: a decimal comma splits numbers)"
             )
     return names, rows
+
+
+def describe_header(path, header: list[str]) -> str:
+    """What was found where a track header was expected, for messages: the columns read, the
+    separator the file seems to use, and whether the first row looks like data (no header)."""
+    import re
+
+    shown = ", ".join(repr(h) for h in header[:8]) + (", ..." if len(header) > 8 else "")
+    parts = [f"read {len(header)} column(s) with ',' as separator: {shown}"]
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            first = fh.readline()
+    except (OSError, UnicodeDecodeError):
+        first = ""
+    counts = {sep: first.count(sep) for sep in (";", "\t", "|", " ")}
+    if len(header) == 1:
+        best = max(counts, key=counts.get)
+        if counts[best] > 0:
+            name = {"\t": "tab", " ": "space"}.get(best, repr(best))
+            parts.append(f"the first line looks separated by {name} ({counts[best]} of them): save the file "
+                         "with commas")  # fmt: skip
+    numeric = [h for h in header if re.fullmatch(r"\s*[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?\s*", h)]
+    if header and len(numeric) == len(header):
+        parts.append("the first row holds only numbers: the file seems to have no header row (add 'lat,lon,alt')")
+    return "; ".join(parts)
+
+
+def lon_convention(lon_deg) -> str:
+    """The longitude convention of some longitudes: "0..360" if any lies past 180° east, else
+    "-180..180" (so 236 °E stays 236, and −124 stays −124)."""
+    lon = np.asarray(lon_deg, dtype=np.float64)
+    return "0..360" if np.any(lon[np.isfinite(lon)] > 180.0) else "-180..180"
+
+
+def wrap_lon_like(lon_deg, reference_lon_deg) -> np.ndarray:
+    """Longitudes in the convention of ``reference_lon_deg`` (:func:`lon_convention`): in
+    [0, 360) for "0..360", in [−180, 180) otherwise; NaN stays NaN. Outputs derived from a track
+    (source positions, first returns, planned tracks) come back in the convention it went in."""
+    lon = np.asarray(lon_deg, dtype=np.float64)
+    if lon_convention(reference_lon_deg) == "0..360":
+        return lon % 360.0
+    return (lon + 180.0) % 360.0 - 180.0
 
 
 def great_circle_track(
@@ -156,7 +196,8 @@ def great_circle_track(
     Traces are ``spacing_m`` apart along the geodesic of the body's ellipsoid,
     starting at the first point; the last trace is the last one that fits
     before the end point. With ``speed_m_s``, a ``time`` column (s from the
-    first trace) is added at that ground speed.
+    first trace) is added at that ground speed. Longitudes are returned in the
+    convention of the points given (:func:`wrap_lon_like`).
     """
     for name, lat in (("start latitude", start_lat_deg), ("end latitude", end_lat_deg)):
         if not -90 <= lat <= 90:  # false for nan
@@ -177,6 +218,7 @@ def great_circle_track(
         raise TrackError(f"trace spacing {spacing_m} m gives {n} traces: expected at most 10,000,000")
     dist = np.arange(n) * spacing_m
     lon, lat, _ = geod.fwd(np.full(n, start_lon_deg), np.full(n, start_lat_deg), np.full(n, az), dist)
+    lon = wrap_lon_like(lon, [start_lon_deg, end_lon_deg])  # in the convention the points were given in
     time = dist / speed_m_s if speed_m_s else None
     return Track(
         lat_deg=np.asarray(lat), lon_deg=np.asarray(lon), alt_m=np.full(n, float(alt_m)), time_s=time, source="planned track"

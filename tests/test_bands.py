@@ -162,8 +162,8 @@ def test_cli_writes_one_figure_per_band_and_sources_picks_a_band(flat_bands, tmp
                                  "--out", str(out), "-q"])  # fmt: skip
     assert r.exit_code == 0, r.output
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["radargram.nc", "radargram_high.png", "radargram_low.png", "radargram_sides_high.png",
-                     "radargram_sides_low.png", "track_map.png"]  # fmt: skip
+    assert names == ["radargram.nc", "radargram_elevation_high.png", "radargram_elevation_low.png", "radargram_high.png",
+                     "radargram_low.png", "radargram_sides_high.png", "radargram_sides_low.png", "track_map.png"]  # fmt: skip
     r = CliRunner().invoke(cli, ["sources", str(out), "--trace", "3", "--depth-m", "30", "--band", "high", "-q"])
     assert r.exit_code == 0, r.output
     assert [p.name for p in out.glob("echo_t3_*")] == [next(out.glob("echo_t3_*")).name]

@@ -39,11 +39,12 @@ def run(args):
     return CliRunner().invoke(cli, [str(a) for a in args])
 
 
-def test_simulate_writes_the_three_products(scene):
+def test_simulate_writes_the_products(scene):
     d, dem, track, radar = scene
     res = run(["simulate", "--dem", dem, "--track", track, "--radar", radar, "--out", d / "run", "-q"])
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in (d / "run").iterdir()) == ["radargram.nc", "radargram.png", "radargram_sides.png", "track_map.png"]
+    assert sorted(p.name for p in (d / "run").iterdir()) == [
+        "radargram.nc", "radargram.png", "radargram_elevation.png", "radargram_sides.png", "track_map.png"]
     with xr.open_dataset(d / "run" / "radargram.nc", engine="h5netcdf") as ds:
         assert ds["power"].dims == ("trace", "sample") and ds["power"].shape == (9, 256)
         assert ds["power"].dtype == np.float32 and ds["power"].attrs["units"] == "W"
@@ -72,7 +73,7 @@ def test_existing_output_is_not_overwritten_without_flag(scene):
 def test_track_command_writes_a_planned_track(scene):
     d, dem, _, _ = scene
     out = d / "planned.csv"
-    res = run(["track", "--start", -0.5, 0.0, "--end", 0.5, 0.0, "--alt-m", 300000, "--spacing-m", 1000, "--dem", dem, "--out", out])
+    res = run(["track", "--start-lat", -0.5, "--start-lon", 0.0, "--end-lat", 0.5, "--end-lon", 0.0, "--alt-m", 300000, "--spacing-m", 1000, "--dem", dem, "--out", out])
     assert res.exit_code == 0, res.output
     lines = out.read_text().splitlines()
     assert lines[0] == "lat,lon,alt"

@@ -94,11 +94,15 @@ def test_track_across_the_antimeridian_reads_both_sides(antimeridian_dems, dem, 
     h = _band_with_hills(0.02, 170.0, 20.0)[49, np.round((lon % 360 - 170.0) / 0.02 - 0.5).astype(int)]
     assert np.ptp(h) > 100  # the track does climb the hills' flanks
     np.testing.assert_allclose(ds["nadir_delay"].values, analytic_delay_s(ALT_AM_M, h), rtol=0, atol=1e-4 * DT)
-    # sources are reported as longitudes in [-180, 180) whichever side of the seam they lie on,
+    # sources are reported in the track's longitude convention whichever side of the seam they lie on,
     # and the same ground whatever the DEM's storage convention
     src = ds["source_lon"].values
-    assert np.nanmin(src) >= -180.0 and np.nanmax(src) < 180.0
-    assert (np.nanmax(src) > 170.0) and (np.nanmin(src) < -170.0)  # echoes from both sides of the seam
+    if lon_convention == "-180..180":
+        assert np.nanmin(src) >= -180.0 and np.nanmax(src) < 180.0
+        assert (np.nanmax(src) > 170.0) and (np.nanmin(src) < -170.0)  # echoes from both sides of the seam
+    else:
+        assert np.nanmin(src) > 170.0 and np.nanmax(src) < 190.0  # 0..360: continuous across the seam
+        assert (np.nanmin(src) < 180.0) and (np.nanmax(src) > 180.0)
 
 
 # --------------------------------------------------------------------------- poles

@@ -102,15 +102,15 @@ CASES = {
                                      "Invalid value for '--nadir-strip-m': inf: expected a finite number"),
     "simulate --beamwidth-deg nan 3": (lambda d, o: _simulate_args(d, ["--beamwidth-deg", "nan", "3"], o), 2,
                                        "Invalid value for '--beamwidth-deg': nan: expected a finite number"),
-    "track --start 11.7 nan": (lambda d, o: ["track", "--start", "11.7", "nan", "--end", "11.8", "0", "--alt-m", "1000",
+    "track --start 11.7 nan": (lambda d, o: ["track", "--start-lat", "11.7", "--start-lon", "nan", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "1000",
                                              "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(o)], 2,
-                               "Invalid value for '--start': nan: expected a finite number"),
-    "track --alt-m -inf": (lambda d, o: ["track", "--start", "11.7", "0", "--end", "11.8", "0", "--alt-m", "-inf",
+                               "Invalid value for '--start-lon': nan: expected a finite number"),
+    "track --alt-m -inf": (lambda d, o: ["track", "--start-lat", "11.7", "--start-lon", "0", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "-inf",
                                          "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(o)], 2,
                            "Invalid value for '--alt-m': -inf: expected a finite number"),
     "sources --delay-us nan": (lambda d, o: ["sources", str(d / "run"), "--trace", "0", "--delay-us", "nan"], 2,
                                "Invalid value for '--delay-us': nan: expected a finite number"),
-    "survey --grid-km nan": (lambda d, o: ["survey", "--dem", str(d / "good.tif"), "--region", "-0.5", "-0.5", "0.5", "0.5",
+    "survey --grid-km nan": (lambda d, o: ["survey", "--dem", str(d / "good.tif"), "--lat-min", "-0.5", "--lat-max", "0.5", "--lon-min", "-0.5", "--lon-max", "0.5",
                                            "--spacing-km", "10", "--alt-m", "1e5", "--grid-km", "nan", "--out", str(o)], 2,
                              "Invalid value for '--grid-km': nan: expected a finite number"),
     "compare --sample-interval-s nan": (lambda d, o: ["compare", "--observed", str(d / "obs.npy"), "--observed-track",
@@ -141,7 +141,7 @@ CASES = {
     "jump of 120 degrees": (lambda d, o: _simulate_args(d, ["--track", _file(d, "jump.csv", "lat,lon,alt\n0,0,1e5\n0,120,1e5\n")], o), 1,
                             "{d}/jump.csv: rows 1 and 2 are 120.0° of arc apart (lat/lon 0, 0 then 0, 120): expected consecutive "
                             "traces within 90° (a wrong sign or longitude convention in one row?)"),
-    "track --start 36.59 -484": (lambda d, o: ["track", "--start", "36.59", "-484", "--end", "36.6", "0", "--alt-m", "1000",
+    "track --start 36.59 -484": (lambda d, o: ["track", "--start-lat", "36.59", "--start-lon", "-484", "--end-lat", "36.6", "--end-lon", "0", "--alt-m", "1000",
                                                "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(o)], 1,
                                  "start longitude -484.0: expected -360..360 degrees"),
     # item 1: a DEM whose every cell is beyond the plausible height
@@ -157,10 +157,10 @@ CASES = {
                                     "{d}/afile/run: cannot write (a part of the path is a file, not a directory)"),
     "simulate --out name too long": (lambda d, o: _simulate_args(d, [], d / LONG), 1,
                                      "{d}/" + LONG + ": cannot write (file name too long)"),
-    "track --out under a file": (lambda d, o: ["track", "--start", "11.7", "0", "--end", "11.8", "0", "--alt-m", "1000",
+    "track --out under a file": (lambda d, o: ["track", "--start-lat", "11.7", "--start-lon", "0", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "1000",
                                                "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(d / "afile" / "t.csv")], 1,
                                  "{d}/afile: cannot create the directory (a file of that name exists)"),
-    "track --out name too long": (lambda d, o: ["track", "--start", "11.7", "0", "--end", "11.8", "0", "--alt-m", "1000",
+    "track --out name too long": (lambda d, o: ["track", "--start-lat", "11.7", "--start-lon", "0", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "1000",
                                                 "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(d / (LONG + ".csv"))], 1,
                                   "{d}/" + LONG + ".csv: cannot write (file name too long)"),
     "report --out under a file": (lambda d, o: ["report", str(d / "run"), "--out", str(d / "afile" / "r.html"), "-q"], 1,
@@ -171,7 +171,7 @@ CASES = {
                                                  "--sim", str(d / "run" / "radargram.nc"), "--sample-interval-s", "37.5e-9",
                                                  "--window-start-s", "6e-4", "--out", str(d / "afile" / "cmp"), "-q"], 1,
                                    "{d}/afile/cmp: cannot write (a part of the path is a file, not a directory)"),
-    "survey --out under a file": (lambda d, o: ["survey", "--dem", str(d / "good.tif"), "--region", "-0.5", "-0.5", "0.5", "0.5",
+    "survey --out under a file": (lambda d, o: ["survey", "--dem", str(d / "good.tif"), "--lat-min", "-0.5", "--lat-max", "0.5", "--lon-min", "-0.5", "--lon-max", "0.5",
                                                 "--spacing-km", "10", "--alt-m", "1e5", "--out", str(d / "afile" / "sv"), "-q"], 1,
                                   "{d}/afile/sv: cannot write (a part of the path is a file, not a directory)"),
 }  # fmt: skip
@@ -229,7 +229,7 @@ def test_extreme_cells_are_holes_with_one_warning_and_the_run_completes(d, tmp_p
 
 
 def test_survey_over_extreme_cells_runs(d, tmp_path):
-    res = CliRunner().invoke(cli, ["survey", "--dem", str(d / "spikes.tif"), "--region", "-0.6", "-0.6", "0.6", "0.6",
+    res = CliRunner().invoke(cli, ["survey", "--dem", str(d / "spikes.tif"), "--lat-min", "-0.6", "--lat-max", "0.6", "--lon-min", "-0.6", "--lon-max", "0.6",
                                    "--spacing-km", "20", "--alt-m", "1e5", "--trace-spacing-m", "3000", "--max-depth-m", "300",
                                    "--workers", "1", "--out", str(tmp_path / "sv"), "-q"])  # fmt: skip
     assert res.exit_code == 0, res.output
@@ -281,9 +281,9 @@ def test_no_space_left_is_one_line_and_nothing_is_left(d, run, tmp_path, monkeyp
     out = tmp_path / "out"
     args = {
         "simulate": _simulate_args(d, [], out),
-        "track": ["track", "--start", "11.7", "0", "--end", "11.8", "0", "--alt-m", "1000", "--spacing-m", "100",
+        "track": ["track", "--start-lat", "11.7", "--start-lon", "0", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "1000", "--spacing-m", "100",
                   "--body-radius-m", "3e6", "--out", str(out / "t.csv")],
-        "survey": ["survey", "--dem", str(d / "good.tif"), "--region", "-0.5", "-0.5", "0.5", "0.5", "--spacing-km", "20",
+        "survey": ["survey", "--dem", str(d / "good.tif"), "--lat-min", "-0.5", "--lat-max", "0.5", "--lon-min", "-0.5", "--lon-max", "0.5", "--spacing-km", "20",
                    "--alt-m", "1e5", "--trace-spacing-m", "3000", "--max-depth-m", "300", "--workers", "1", "--out", str(out), "-q"],
         "compare": ["compare", "--observed", str(d / "obs.npy"), "--observed-track", str(d / "t.csv"), "--sim",
                     str(run / "radargram.nc"), "--sample-interval-s", "37.5e-9", "--window-start-s", _start(d), "--out", str(out), "-q"],
@@ -332,7 +332,7 @@ def test_read_only_file_system(d, tmp_path):
     try:
         res = CliRunner().invoke(cli, _simulate_args(d, [], mnt / "run"))
         assert _one_line(res, 1) == [f"cluttersim: error: {mnt}/run: cannot write (read-only file system)"]
-        res = CliRunner().invoke(cli, ["track", "--start", "11.7", "0", "--end", "11.8", "0", "--alt-m", "1000",
+        res = CliRunner().invoke(cli, ["track", "--start-lat", "11.7", "--start-lon", "0", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "1000",
                                        "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(mnt / "t.csv")])  # fmt: skip
         assert _one_line(res, 1) == [f"cluttersim: error: {mnt}/t.csv: cannot write (read-only file system)"]
     finally:
@@ -393,8 +393,9 @@ def test_an_interrupt_while_the_products_are_renamed_ends_in_130_with_the_new_on
     done = _inject("commit", _simulate_args(d, [], out), ROOT)
     assert done.returncode == 130, done.stderr
     lines = done.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("cluttersim: interrupted; 4 product(s) written before it are complete")
-    assert sorted(p.name for p in out.iterdir()) == ["radargram.nc", "radargram.png", "radargram_sides.png", "track_map.png"]
+    assert len(lines) == 1 and lines[0].startswith("cluttersim: interrupted; 5 product(s) written before it are complete")  # with the elevation figure
+    assert sorted(p.name for p in out.iterdir()) == ["radargram.nc", "radargram.png", "radargram_elevation.png", "radargram_sides.png",
+                                                        "track_map.png"]
     from cluttersim.radargram import open_radargram
 
     assert open_radargram(out / "radargram.nc")["power"].shape == (2, 2048)
@@ -500,8 +501,13 @@ def _region(massif):
     return [lon0, lat0, lon1, lat1]
 
 
+def _region_args(region):
+    lon0, lat0, lon1, lat1 = region
+    return [str(v) for v in ("--lat-min", lat0, "--lat-max", lat1, "--lon-min", lon0, "--lon-max", lon1)]
+
+
 def _survey_args(massif, out, *extra):
-    return ["survey", "--dem", str(massif), "--region", *map(str, _region(massif)), "--spacing-km", "2", "--alt-m", "1e5",
+    return ["survey", "--dem", str(massif), *_region_args(_region(massif)), "--spacing-km", "2", "--alt-m", "1e5",
             "--trace-spacing-m", "700", "--max-depth-m", "300", "--out", str(out), *map(str, extra)]  # fmt: skip
 
 
@@ -689,7 +695,7 @@ def test_overwrite_without_sources_removes_the_old_side_figure_and_says_so(d, tm
     res = CliRunner().invoke(cli, _simulate_args(d, ["--overwrite", "--no-sources"], out))
     assert res.exit_code == 0, res.output
     assert f"cluttersim: warning: {out}: removed radargram_sides.png of the previous run (not made by this one)" in res.output
-    assert sorted(p.name for p in out.iterdir()) == ["radargram.nc", "radargram.png", "track_map.png"]
+    assert sorted(p.name for p in out.iterdir()) == ["radargram.nc", "radargram.png", "radargram_elevation.png", "track_map.png"]
 
 
 def test_report_refuses_a_comparison_paired_with_another_run(d, run, tmp_path):

@@ -120,7 +120,7 @@ def test_pointing_at_the_hills_echo_names_the_hill_and_its_side(page, browser, t
     x, y = pyproj.Transformer.from_crs("EPSG:4326", UTM, always_xy=True).transform(lon, lat)
     assert math.hypot(x - (UTM_X0_M + near_east), y - UTM_Y0_M) <= 2 * CELL_M  # within two DEM cells
     # flying north with the hill to the east: right of the track
-    assert text(browser, "probe-side") == "right"
+    assert text(browser, "probe-side") == "right of track"  # a majority side is named (≥ 60 % of the power)
     off = re.match(r"(\d+) m from nadir", text(browser, "probe-offnadir"))
     _, _, dist = pyproj.Geod(ellps="WGS84").inv(ds["lon"].values[apex], ds["lat"].values[apex], lon, lat)
     assert off and float(off[1]) == pytest.approx(dist, abs=2.0)
@@ -146,7 +146,7 @@ def test_pointing_at_the_hills_echo_names_the_hill_and_its_side(page, browser, t
     assert "pinned" in browser.find_element(By.ID, "probe").get_attribute("class")
     move_to_cell(browser, stage, 2, 10)
     assert text(browser, "probe-trace") == str(apex) and text(browser, "probe-sample") == str(sample)
-    assert text(browser, "probe-side") == "right"
+    assert text(browser, "probe-side") == "right of track"
     ActionChains(browser).send_keys(Keys.ESCAPE).perform()
     assert "pinned" not in browser.find_element(By.ID, "probe").get_attribute("class")
     move_to_cell(browser, stage, 3, 10)
@@ -199,3 +199,62 @@ def test_a_candidate_row_pins_its_echo(tmp_path_factory, browser):
     assert "pinned" in browser.find_element(By.ID, "probe").get_attribute("class")
     assert text(browser, "probe-trace") == trace
     assert "detected, unexplained" in text(browser, "probe-compare")
+
+
+def test_report_colours_match_the_figures_and_the_readout_gives_shares_and_centres(tmp_path, browser):
+    """The side colours the page shows are the palette's (the PNGs' too: tests/test_visual_language.py);
+    pointing shows the shares, names a side only with a majority, and marks each side's centre."""
+    from cluttersim import palette
+    from cluttersim.radargram import open_radargram
+
+    run = dome_run(tmp_path)
+    report = write_report(run, tmp_path / "report.html")  # with the side centroids
+    ds = open_radargram(run / "radargram.nc")
+    browser.get(report.resolve().as_uri())
+    WebDriverWait(browser, 60).until(lambda d: d.execute_script("return document.body.dataset.ready") == "1")
+    browser.find_element(By.CSS_SELECTOR, '#view-switch button[data-view="sides"]').click()
+
+    def css_rgb(element, prop):
+        return tuple(int(v) for v in re.findall(r"\d+", element.value_of_css_property(prop))[:3])
+
+    for side in ("left", "right", "nadir"):
+        swatch = browser.find_element(By.CSS_SELECTOR, f'#rg-legend .sw[data-side="{side}"]')
+        assert css_rgb(swatch, "background-color") == palette.rgb255(palette.SIDES[side])
+
+    # the hill's echo at the apex: right of the track, its right-side centre on the hill
+    apex = NTRACE // 2
+    dt = float(ds["delay"].values[1])
+    sample = round((2 * dome_range_m(ALT_M, 0.0) / C - float(ds["window_start"][apex])) / dt)
+    stage = browser.find_element(By.ID, "rg-stage")
+    move_to_cell(browser, stage, apex, sample)
+    assert text(browser, "probe-side") == "right of track"
+    shares = text(browser, "probe-shares")
+    assert re.search(r"left \d+ % .*· right \d+ % .*· nadir strip \d+ %", shares), shares
+    assert "centre" in shares and "from nadir" in shares
+    right_share = browser.find_element(By.CSS_SELECTOR, '#probe-shares .share[data-side="right"]')
+    assert css_rgb(right_share, "color") == palette.rgb255(palette.text_shade(palette.SIDE_RIGHT, 0.55))
+    mark = browser.find_element(By.CSS_SELECTOR, ".c-mark.side-right-mark")
+    assert mark.is_displayed()
+    assert css_rgb(mark, "background-color") == palette.rgb255(palette.SIDE_RIGHT)
+    # the right side's centre lies on the hill: within the cap's radius of its top (geometry of the scene)
+    meta_map = browser.execute_script("return META.map")
+    west, east, south, north = meta_map["extent"]
+    box = browser.find_element(By.ID, "map-stage")
+    width = browser.execute_script("return arguments[0].clientWidth", box)
+    height = browser.execute_script("return arguments[0].clientHeight", box)
+    left = float(mark.value_of_css_property("left").removesuffix("px")) / width
+    top = float(mark.value_of_css_property("top").removesuffix("px")) / height
+    x_km, y_km = west + left * (east - west), north - top * (north - south)
+    hill_x_km, hill_y_km = (UTM_X0_M + DOME_EAST_M) / 1e3, UTM_Y0_M / 1e3
+    assert math.hypot(x_km - hill_x_km, y_km - hill_y_km) * 1e3 < DOME_RADIUS_M
+
+    # a mixed echo: no side word, only the shares
+    left, right = ds["left_fraction"].values, ds["right_fraction"].values
+    nadir = 1 - left - right
+    mixed = np.isfinite(left) & (np.maximum(np.maximum(left, right), nadir) < 0.55) & (ds["power"].values > 0)
+    t, k = np.argwhere(mixed)[len(np.argwhere(mixed)) // 2]
+    move_to_cell(browser, stage, int(t), int(k))
+    assert text(browser, "probe-side").startswith("mixed")
+    shot = tmp_path / "report_sides.png"
+    assert browser.save_screenshot(str(shot)) and shot.stat().st_size > 10_000
+    assert not [e for e in browser.get_log("browser") if e["level"] == "SEVERE"]

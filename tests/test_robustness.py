@@ -170,7 +170,7 @@ def test_sigint_during_simulate_leaves_no_partial_product(tmp_path):
 
 def test_track_command_never_overwrites_without_the_flag(tmp_path):
     out = tmp_path / "t.csv"
-    args = ["track", "--start", 0, 0, "--end", 0.1, 0, "--alt-m", 1000, "--spacing-m", 1000,
+    args = ["track", "--start-lat", 0, "--start-lon", 0, "--end-lat", 0.1, "--end-lon", 0, "--alt-m", 1000, "--spacing-m", 1000,
             "--body-radius-m", MARS_RADIUS_M, "--out", out]  # fmt: skip
     assert run(args).exit_code == 0
     out.write_text("precious\n")

@@ -139,17 +139,9 @@ def test_predicted_delay_on_flat_scene_is_nadir_plus_two_d_root_eps_over_c(flat_
     assert ds.attrs["subsurface_depth_m"] == 200.0
 
 
-def test_radargram_figure_shows_subsurface_line_and_noise_floor(flat_run, tmp_path, monkeypatch):
+def test_radargram_figure_shows_subsurface_line_and_noise_floor(flat_run):
     _, ds = flat_run
-    saved = {}
-
-    def capture(fig, path):
-        saved["fig"] = fig
-        return path
-
-    monkeypatch.setattr(plots, "_save_atomic", capture)
-    plots.plot_radargram(ds, tmp_path / "rg.png")
-    fig = saved["fig"]
+    fig = plots.plot_radargram(ds)  # no path: the Figure is returned, nothing is written
     texts = [t.get_text() for ax in fig.axes if ax.get_legend() for t in ax.get_legend().get_texts()]
     assert "predicted subsurface echo" in texts
     assert any(t.startswith("noise floor") for t in texts)

@@ -200,13 +200,13 @@ function legendFor(view) {
   if (view.legend === "power") {
     const stops = META.colours.power_ramp.map(([p, c]) => `${rgb(c)} ${p * 100}%`).join(", ");
     const unit = view.grid === "obs" ? "dB (observed unit)" : META.power_unit;
-    box.append(el("span", "", minus(`${(g.vmax_db - META.dynamic_range_db).toFixed(1)}`)));
+    box.append(el("span", "", minus(`${(g.vmax_db - g.range_db).toFixed(1)}`)));
     const bar = el("span", "bar"); bar.style.background = `linear-gradient(90deg, ${stops})`;
     box.append(bar, el("span", "", `${minus(g.vmax_db.toFixed(1))} ${unit}`));
   } else if (view.legend === "sides") {
     const s = META.colours.side;
     for (const [k, label] of [["left", "left of travel"], ["right", "right of travel"], ["nadir", "nadir strip"]]) {
-      const item = el("span"); const sw = el("span", "sw"); sw.style.background = rgb(s[k]);
+      const item = el("span"); const sw = el("span", "sw"); sw.style.background = rgb(s[k]); sw.dataset.side = k;
       item.append(sw, label); box.append(item);
     }
     box.append(el("span", "", "· brightness: power"));
@@ -295,15 +295,23 @@ function simSource(t, k) {  // the simulated grid's record for trace t, sample k
     if (g.map_xy) { out.mapX = value("sim.src_map_x", c.idx); out.mapY = value("sim.src_map_y", c.idx); }
     else [out.mapX, out.mapY] = lonLatPixel(out.lon, out.lat);
   }
+  if (g.centroids) {
+    for (const k of ["left", "right"]) {
+      out[`c_${k}_x`] = value(`sim.c_${k}_x`, c.idx); out[`c_${k}_y`] = value(`sim.c_${k}_y`, c.idx);
+      out[`c_${k}_m`] = value(`sim.c_${k}_m`, c.idx);
+    }
+  }
   return out;
 }
 
+// The side a readout may name: one holding at least META.colours.side_majority of the power, else null
+// (a mixed echo: only the shares are shown).
 function sideOf(left, right) {
   if (!Number.isFinite(left) || !Number.isFinite(right)) return null;
-  const nadir = 1 - left - right;
-  if (left >= right && left >= nadir) return "left";
-  if (right >= left && right >= nadir) return "right";
-  return "nadir strip";
+  const shares = { left, right, nadir: Math.max(0, 1 - left - right) };
+  let best = "left";
+  for (const k of ["right", "nadir"]) if (shares[k] > shares[best]) best = k;
+  return shares[best] >= META.colours.side_majority ? best : null;
 }
 
 function show(cell) {
@@ -342,12 +350,23 @@ function show(cell) {
     src = st >= 0 ? simSource(st, c.k) : null;
     if (src) $("probe-compare").textContent += ` · simulated trace ${src.t}`;
   }
-  const side = src ? sideOf(src.left, src.right) : null;
+  const known = src && Number.isFinite(src.left) && Number.isFinite(src.right);
+  const side = known ? sideOf(src.left, src.right) : null;
   const sideEl = $("probe-side");
-  sideEl.textContent = side || "—";
-  sideEl.className = side ? `side-${side.split(" ")[0]}` : "";
-  $("probe-shares").textContent = side
-    ? `left ${(100 * src.left).toFixed(0)} % · right ${(100 * src.right).toFixed(0)} % · nadir strip ${(100 * Math.max(0, 1 - src.left - src.right)).toFixed(0)} %` : "";
+  sideEl.textContent = !known ? "—" : side ? META.colours.side_words[side] : "mixed: no side holds most of the power";
+  sideEl.className = side ? `side-${side}` : "";
+  const shares = $("probe-shares");
+  shares.replaceChildren();
+  if (known) {
+    const parts = [["left", src.left], ["right", src.right], ["nadir", Math.max(0, 1 - src.left - src.right)]];
+    parts.forEach(([k, v], i) => {
+      const span = el("span", `share side-${k}`, `${k === "nadir" ? "nadir strip" : k} ${(100 * v).toFixed(0)} %`);
+      span.dataset.side = k;
+      if (k !== "nadir" && Number.isFinite(src[`c_${k}_m`])) span.textContent += ` (centre ${distText(src[`c_${k}_m`])} from nadir)`;
+      if (i) shares.append(" · ");
+      shares.append(span);
+    });
+  }
   const hasSrc = src && Number.isFinite(src.lat);
   $("probe-src-lat").textContent = hasSrc ? latText(src.lat) : (META.grids.sim.sources ? "no echo" : "no source record");
   $("probe-src-lon").textContent = hasSrc ? lonText(src.lon) : "";
@@ -355,7 +374,7 @@ function show(cell) {
   $("probe-antenna").textContent = `${latText(tr.lat[c.t])} ${lonText(tr.lon[c.t])}`;
   const probe = $("probe");
   probe.dataset.trace = c.t; probe.dataset.sample = c.k;
-  markMap(tr.map_x[c.t], tr.map_y[c.t], hasSrc ? src.mapX : NaN, hasSrc ? src.mapY : NaN);
+  markMap(tr.map_x[c.t], tr.map_y[c.t], hasSrc ? src.mapX : NaN, hasSrc ? src.mapY : NaN, src);
 }
 
 function refreshCross() {
@@ -420,18 +439,30 @@ function drawMap() {
     marks.appendChild(s);
   }
   state.antMark = el("div", "ant-mark"); state.srcMark = el("div", "src-mark");
-  state.antMark.hidden = state.srcMark.hidden = true;
-  marks.append(state.antMark, state.srcMark);
+  state.cMarks = { left: el("div", "c-mark side-left-mark"), right: el("div", "c-mark side-right-mark") };
+  state.antMark.hidden = state.srcMark.hidden = state.cMarks.left.hidden = state.cMarks.right.hidden = true;
+  marks.append(state.cMarks.left, state.cMarks.right, state.antMark, state.srcMark);
   const e = m.elevation_m;
   $("map-note").textContent = `Shaded relief, light from the north-west${e ? `; heights ${minus(e[0].toFixed(0))} to ${minus(e[1].toFixed(0))} m (sage low, sand high)` : ""}.`;
   drawMapAxes();
 }
 function hideMapMarks() {
   if (!state.antMark) return;
-  state.antMark.hidden = state.srcMark.hidden = true;
+  state.antMark.hidden = state.srcMark.hidden = state.cMarks.left.hidden = state.cMarks.right.hidden = true;
   state.link.setAttribute("visibility", "hidden");
 }
-function markMap(ax, ay, sx, sy) {
+function markMap(ax, ay, sx, sy, src) {
+  for (const k of ["left", "right"]) {  // each side's power-weighted centre, where that side echoes
+    const m = state.cMarks[k], x = src ? src[`c_${k}_x`] : NaN, y = src ? src[`c_${k}_y`] : NaN;
+    const share = src ? src[k] : NaN;
+    m.hidden = !(Number.isFinite(x) && Number.isFinite(y) && share > 0.005);
+    if (!m.hidden) {
+      const [px, py] = mapPct(x, y); m.style.left = `${px}%`; m.style.top = `${py}%`;
+      const size = 8 + 14 * Math.sqrt(Math.min(1, share));  // area grows with the side's share
+      m.style.width = m.style.height = `${size}px`; m.style.margin = `${-size / 2}px 0 0 ${-size / 2}px`;
+      m.title = `${k} of track: centre of its echo power (${(100 * share).toFixed(0)} %)`;
+    }
+  }
   const okA = ax !== null && ay !== null && Number.isFinite(ax) && Number.isFinite(ay);
   const okS = Number.isFinite(sx) && Number.isFinite(sy);
   state.antMark.hidden = !okA; state.srcMark.hidden = !okS;
