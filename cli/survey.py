@@ -46,6 +46,9 @@ from .options import (
 @click.option("--scheduler", default=None, metavar="ADDRESS",
               help="Run tracks as Dask tasks: 'local' starts a LocalCluster, tcp://HOST:PORT uses a running one "
                    "(every worker must read the DEM at the same path). Needs pip install 'cluttersim[dask]'.")
+@click.option("--scheduler-file", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help="Run tracks as Dask tasks on the scheduler whose address is in FILE (written by "
+                   "dask scheduler --scheduler-file, as batch systems hand it to jobs).")
 @band_option
 @max_memory_option
 @out_dir_option()
@@ -53,7 +56,7 @@ from .options import (
 @quiet_option
 @click.pass_context
 def survey_cmd(ctx, dem_path, region, spacing_km, heading_deg, alt_m, trace_spacing_m, tracks_path, radar_path,
-               max_depth_m, permittivity, threshold_db, grid_km, body_radius_m, workers, scheduler, band, max_memory,
+               max_depth_m, permittivity, threshold_db, grid_km, body_radius_m, workers, scheduler, scheduler_file, band, max_memory,
                out_dir, overwrite, quiet):  # fmt: skip
     """Survey a region: where will off-nadir clutter swamp the subsurface?
 
@@ -75,7 +78,7 @@ def survey_cmd(ctx, dem_path, region, spacing_km, heading_deg, alt_m, trace_spac
         trace_spacing_m=trace_spacing_m, tracks_path=tracks_path, max_depth_m=max_depth_m, permittivity=permittivity,
         threshold_db=threshold_db, grid_km=grid_km,
     )  # fmt: skip
-    engine = Engine(workers=workers, scheduler=scheduler)
+    engine = Engine(workers=workers, scheduler=scheduler, scheduler_file=scheduler_file)
     sim_config = load_config(radar_path)
     try:
         summary = run_survey(
