@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.config import SimulationConfig, default_config
 
 
 def out_dir_option(default=None):
@@ -52,7 +51,9 @@ max_memory_option = click.option(
 )
 
 
-def load_config(radar_path) -> SimulationConfig:
+def load_config(radar_path) -> "SimulationConfig":  # noqa: F821 - imported when called
+    from cluttersim.config import SimulationConfig, default_config
+
     return SimulationConfig.from_toml(radar_path) if radar_path else default_config()
 
 permittivity_option = click.option(

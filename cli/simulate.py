@@ -65,6 +65,8 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
     """
     from pathlib import Path
 
+    if not quiet:  # at once: the libraries below take seconds to load on a busy machine
+        click.echo(f"simulating {track_path} over {dem_path} into {out_dir}/", err=True)
     from cluttersim.products import simulate_to_dir
     from cluttersim.segments import SEGMENTS_DIR
     from cluttersim.survey import Engine

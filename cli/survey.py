@@ -6,7 +6,6 @@ from pathlib import Path
 
 import click
 
-from cluttersim.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
 
 from .options import (
     band_option,
@@ -73,6 +72,8 @@ def survey_cmd(ctx, dem_path, region, spacing_km, heading_deg, alt_m, trace_spac
       cluttersim survey --dem site.tif --region 10.5 40 13.5 42 \\
           --spacing-km 5 --heading-deg 10 --alt-m 300000 --out survey1
     """
+    from cluttersim.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
+
     config = SurveyConfig(
         region=tuple(region), spacing_km=spacing_km, heading_deg=heading_deg, alt_m=alt_m,
         trace_spacing_m=trace_spacing_m, tracks_path=tracks_path, max_depth_m=max_depth_m, permittivity=permittivity,

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.products import planned_track_to_csv
 
 
 @click.command("track")
@@ -27,6 +26,8 @@ def track_cmd(start, end, alt_m, spacing_m, speed_m_s, dem_path, body_radius_m, 
     """
     if dem_path is None and body_radius_m is None:
         raise click.UsageError("give --dem (body from its CRS) or --body-radius-m")
+    from cluttersim.products import planned_track_to_csv
+
     n = planned_track_to_csv(
         out_path, start, end, alt_m, spacing_m, speed_m_s=speed_m_s, dem_path=dem_path, body_radius_m=body_radius_m,
         overwrite=overwrite,

@@ -1,5 +1,13 @@
-"""cluttersim: simulate the surface-clutter echo of a radar sounder from a DEM and a track."""
+"""cluttersim: simulate the surface-clutter echo of a radar sounder from a DEM and a track.
 
+The public names below are imported on first use (PEP 562), so ``import cluttersim`` and
+``cluttersim --version`` do not load Numba and its compiled kernels, xarray, rasterio or
+matplotlib until something needs them.
+"""
+
+import sys
+import types
+from importlib import import_module
 from importlib.metadata import PackageNotFoundError, version
 
 try:
@@ -7,32 +15,47 @@ try:
 except PackageNotFoundError:  # pragma: no cover - running from a source tree without install
     __version__ = "0.0.0+unknown"
 
-from .body import Body  # noqa: E402
-from .config import SimulationConfig, SurfaceConfig, default_config  # noqa: E402
-from .dem import DemSource  # noqa: E402
-from .errors import ClutterSimError, ConfigError, DemError, GeometryError, ObservedDataError, TrackError  # noqa: E402
-from .radar import RadarConfig  # noqa: E402
-from .radargram import open_radargram, write_netcdf  # noqa: E402
-from .simulate import simulate  # noqa: E402
-from .track import Track, great_circle_track  # noqa: E402
+#: Public name → the module that defines it.
+_PUBLIC = {
+    "Body": "body",
+    "SimulationConfig": "config",
+    "SurfaceConfig": "config",
+    "default_config": "config",
+    "DemSource": "dem",
+    "ClutterSimError": "errors",
+    "ConfigError": "errors",
+    "DemError": "errors",
+    "GeometryError": "errors",
+    "ObservedDataError": "errors",
+    "TrackError": "errors",
+    "RadarConfig": "radar",
+    "open_radargram": "radargram",
+    "write_netcdf": "radargram",
+    "simulate": "simulate",
+    "Track": "track",
+    "great_circle_track": "track",
+}
 
-__all__ = [
-    "Body",
-    "ClutterSimError",
-    "ConfigError",
-    "DemError",
-    "DemSource",
-    "GeometryError",
-    "ObservedDataError",
-    "RadarConfig",
-    "SimulationConfig",
-    "SurfaceConfig",
-    "Track",
-    "TrackError",
-    "default_config",
-    "great_circle_track",
-    "open_radargram",
-    "simulate",
-    "write_netcdf",
-    "__version__",
-]
+__all__ = sorted(_PUBLIC) + ["__version__"]
+
+
+def __getattr__(name):
+    module = _PUBLIC.get(name)
+    if module is None:
+        raise AttributeError(f"module 'cluttersim' has no attribute {name!r}")
+    value = getattr(import_module(f".{module}", __name__), name)
+    types.ModuleType.__setattr__(sys.modules[__name__], name, value)
+    return value
+
+
+class _Package(types.ModuleType):
+    """``cluttersim.simulate`` is the function, as it was when the package imported it eagerly:
+    importing the submodule of the same name does not replace it."""
+
+    def __setattr__(self, name, value):
+        if name in _PUBLIC and isinstance(value, types.ModuleType) and _PUBLIC[name] == name:
+            return
+        super().__setattr__(name, value)
+
+
+sys.modules[__name__].__class__ = _Package

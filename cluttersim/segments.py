@@ -22,7 +22,8 @@ Segment size ("auto"): the whole track in one piece when its estimated memory
 (and the ``max_memory_bytes`` limit); otherwise, among sizes of
 :data:`SEGMENT_UNIT` × 2^k pulses (× presum) that fit, the one that reads the fewest
 DEM cells in total (plus :data:`SEGMENT_OVERHEAD_CELLS` per segment for its fixed
-costs). A diagonal track prefers short segments (a segment's window is its
+costs). If none fits, the track runs in one piece and its memory check refuses it
+with the estimate. A diagonal track prefers short segments (a segment's window is its
 bounding box); a track along a grid axis, long ones.
 
 Coherent mode is not segmented (its random facet phases are keyed by the facet's
@@ -182,11 +183,9 @@ def plan_segments(src: DemSource, track: Track, config, *, sources: bool = True,
         if not fits and best is not None:
             break  # larger segments only need more
         size *= 2
-    if best is None:  # even the smallest does not fit: its own memory check says so, with the numbers
-        parts = _split(ntr, unit)
-        cells = [0] * len(parts)
-    else:
-        _, parts, cells = best
+    if best is None:  # not even the shortest segments fit: the whole run's memory check says so, with the numbers
+        return [Segment(0, 0, len(track), whole)]
+    _, parts, cells = best
     return [Segment(i, a, b, c) for i, ((a, b), c) in enumerate(zip(parts, cells))]
 
 

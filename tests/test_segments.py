@@ -216,18 +216,48 @@ def test_lazy_radargram_slices_and_plots_without_loading(tmp_path):
         lazy.close()
 
 
-def test_dask_local_cluster_is_bit_identical_to_the_local_segmented_run(airborne, tmp_path):
-    pytest.importorskip("distributed")
-    from cluttersim.survey import Engine
+@pytest.fixture
+def scheduler_file(tmp_path):
+    """A real LocalCluster (2 worker processes) whose scheduler writes its address to a file, as a batch
+    system's job would find it."""
+    distributed = pytest.importorskip("distributed")
+    import logging
+
+    path = tmp_path / "scheduler.json"
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+                                       silence_logs=logging.CRITICAL, scheduler_kwargs={"scheduler_file": str(path)})  # fmt: skip
+    try:
+        yield path
+    finally:
+        cluster.close()
+
+
+def test_dask_runs_are_bit_identical_to_the_local_segmented_run(airborne, tmp_path, scheduler_file):
+    """Segments as Dask tasks on a LocalCluster started by the command (--scheduler local) and on one
+    found through --scheduler-file: the same bytes as segments run in this process."""
+    from click.testing import CliRunner
+
+    from cli.main import cli
 
     _, dem, track = airborne
-    cfg = config(noise=NoiseConfig(noise_temperature_k=300.0, seed=2))
-    with pytest.warns(UserWarning):
-        simulate_to_dir(dem, track, cfg, tmp_path / "local", segment_traces=16)
-    with pytest.warns(UserWarning):
-        simulate_to_dir(dem, track, cfg, tmp_path / "dask", segment_traces=16,
-                        engine=Engine(workers=2, scheduler="local"))  # fmt: skip
-    with open_radargram(tmp_path / "local" / "radargram.nc", lazy=False) as a, \
-            open_radargram(tmp_path / "dask" / "radargram.nc", lazy=False) as b:  # fmt: skip
-        for name in a.data_vars:
-            assert a[name].values.tobytes() == b[name].values.tobytes(), name
+    (tmp_path / "t.csv").write_text("")
+    track.to_csv(tmp_path / "t.csv")
+    radar = tmp_path / "radar.toml"
+    radar.write_text('[radar]\nsamples = 200\n[surface]\nlaw = "hagfors"\nC = 300.0\nrho = 0.1\n'
+                     "[noise]\nnoise_temperature_k = 1e9\nseed = 2\n")  # fmt: skip
+    base = ["simulate", "--dem", str(dem), "--track", str(tmp_path / "t.csv"), "--radar", str(radar),
+            "--segment-traces", "16", "-q"]  # fmt: skip
+    outs = {}
+    for name, extra in (("local", []), ("dask", ["--scheduler", "local", "--workers", "2"]),
+                        ("file", ["--scheduler-file", str(scheduler_file)])):  # fmt: skip
+        res = CliRunner().invoke(cli, base + extra + ["--out", str(tmp_path / name)])
+        assert res.exit_code == 0, res.output
+        outs[name] = tmp_path / name / "radargram.nc"
+    with open_radargram(outs["local"], lazy=False) as a:
+        for name in ("dask", "file"):
+            with open_radargram(outs[name], lazy=False) as b:
+                assert sorted(a.data_vars) == sorted(b.data_vars)
+                for var in a.data_vars:
+                    assert a[var].values.tobytes() == b[var].values.tobytes(), (name, var)
+    res = CliRunner().invoke(cli, base + ["--scheduler-file", str(tmp_path / "none.json"), "--out", str(tmp_path / "x")])
+    assert res.exit_code == 2 and "none.json: file not found" in res.output, res.output
