@@ -416,6 +416,8 @@ def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
     distributed = pytest.importorskip("distributed")
     import logging
 
+    from cluttersim.errors import ConfigError
+
     path = tmp_path / "scheduler.json"
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
                                        silence_logs=logging.CRITICAL, scheduler_kwargs={"scheduler_file": str(path)})  # fmt: skip
