@@ -63,8 +63,8 @@ SEGMENT_UNIT = 256
 SEGMENT_OVERHEAD_CELLS = 250_000
 #: Directory of the finished segments in a run directory.
 SEGMENTS_DIR = "segments"
-#: Cells per side of the decimated read that estimates the terrain's height range for planning.
-_PLAN_PREVIEW = 128
+#: Nadir points whose heights estimate the terrain's height range for planning.
+_PLAN_SAMPLES = 128
 
 
 @dataclass(frozen=True)
@@ -102,19 +102,22 @@ def _estimate(cells: int, pulses: int, config, sources: bool) -> int:
 
 
 def _reach_m(src: DemSource, track: Track, config, on_dem) -> np.ndarray:
-    """Each trace's ground reach (m), from a decimated read of the DEM under the track."""
-    from .simulate import _max_range_m, _window_for_radius, ground_radius_m
+    """Each trace's ground reach (m) for planning, from the terrain heights at up to
+    :data:`_PLAN_SAMPLES` nadir points (widened by half their span and 100 m: the terrain
+    beside the track may reach further; each segment's own read finds its exact window)."""
+    import rasterio
 
-    radius = ground_radius_m(src.body, track.alt_m, _max_range_m(track, config, 0.0, 64), 0.0, 0.0)
-    window = _window_for_radius(src, track, on_dem, radius)
-    if window is None:
-        return radius
-    shape = (min(window.height, _PLAN_PREVIEW), min(window.width, _PLAN_PREVIEW))
-    preview = src.read(window, out_shape=shape).elevation_m
-    if np.isnan(preview).all():
-        return radius
-    lo, hi = float(np.nanmin(preview)), float(np.nanmax(preview))
-    margin = 0.05 * (hi - lo)
+    from .simulate import _max_range_m, ground_radius_m
+
+    idx = np.flatnonzero(on_dem)
+    pick = idx[np.unique(np.linspace(0, idx.size - 1, min(_PLAN_SAMPLES, idx.size)).astype(int))]
+    x, y = src.lonlat_to_xy(track.lon_deg[pick], track.lat_deg[pick])
+    with rasterio.open(src.path) as ds:
+        values = np.array([np.ma.filled(v.astype(float), np.nan)[0]
+                           for v in ds.sample(zip(np.atleast_1d(x), np.atleast_1d(y)), masked=True)])  # fmt: skip
+    values = values[np.isfinite(values)]
+    lo, hi = (float(values.min()), float(values.max())) if values.size else (0.0, 0.0)
+    margin = 0.5 * (hi - lo) + 100.0
     h_lo, h_hi = min(0.0, lo - margin), max(0.0, hi + margin)
     return ground_radius_m(src.body, track.alt_m, _max_range_m(track, config, h_lo, 64), h_lo, h_hi)
 
