@@ -6,7 +6,8 @@ sum of plane waves from 400 m to 60 km long plus 3 m of white roughness, ~250 m 
 required case is 14,000 traces (every ~100 m along the whole diagonal, 3 km above the
 ellipsoid, the built-in radar: 2048 samples). Lengths 1×, 2×, 4× = 3,500, 7,000 and 14,000
 traces at the same spacing from the same start run ``cluttersim simulate`` (the command
-line, streamed segments) in a fresh process each; recorded per run: wall and CPU time,
+line, streamed segments) in a fresh process each (``--samples`` shortens the window, hence
+each trace's reach, for a cheaper run on a busy machine); recorded per run: wall and CPU time,
 peak resident memory of the process (``ru_maxrss`` of the child), segments, facet
 evaluations, load average, and the CPU's vector features.
 
@@ -44,20 +45,11 @@ ALT_M = 3000.0
 
 
 def cpu_features() -> dict:
-    """CPU model and its vector extensions (from /proc/cpuinfo)."""
-    model, flags = platform.processor() or platform.machine(), set()
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name") and ":" in line:
-                model = line.split(":", 1)[1].strip()
-            elif line.startswith("flags") and ":" in line:
-                flags = set(line.split(":", 1)[1].split())
-                break
-    except OSError:
-        pass
-    vector = sorted(f for f in flags if f.startswith(("avx", "sse4", "fma")))
-    return {"cpu": model, "cores": os.cpu_count(), "vector_flags": vector,
-            "cpu_class": "AVX-512" if "avx512f" in flags else ("AVX2" if "avx2" in flags else "other")}  # fmt: skip
+    """CPU model, cores and vector extensions (as bench_simulate records them)."""
+    sys.path.insert(0, str(HERE))
+    from bench_simulate import cpu_model, cpu_vector_features
+
+    return {"cpu": cpu_model(), "cores": os.cpu_count(), **cpu_vector_features()}
 
 
 def generate_dem(path: Path, seed: int = 7) -> Path:
@@ -113,11 +105,13 @@ def track_csv(path: Path, traces: int) -> Path:
     return path
 
 
-def run_one(dem: Path, traces: int, sources: bool, workdir: Path) -> dict:
+def run_one(dem: Path, traces: int, sources: bool, workdir: Path, samples: int) -> dict:
     track = track_csv(workdir / f"track_{traces}.csv", traces)
     out = workdir / f"run_{traces}"
+    radar = workdir / "radar.toml"
+    radar.write_text(f"[radar]\nsamples = {samples}\n")
     cmd = [str(Path(sys.executable).parent / "cluttersim"), "simulate", "--dem", str(dem), "--track", str(track),
-           "--out", str(out), "--overwrite", "-q"] + ([] if sources else ["--no-sources"])  # fmt: skip
+           "--radar", str(radar), "--out", str(out), "--overwrite", "-q"] + ([] if sources else ["--no-sources"])  # fmt: skip
     load0 = os.getloadavg()[0]
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True)
@@ -131,7 +125,7 @@ def run_one(dem: Path, traces: int, sources: bool, workdir: Path) -> dict:
     with h5py.File(out / "radargram.nc", "r") as f:
         segments = int(np.ravel(f.attrs["segments"])[0]) if "segments" in f.attrs else 1
         evaluations = int(np.ravel(f.attrs["facet_evaluations"])[0])
-    return {"traces": traces, "sources": sources, "wall_s": wall, "cpu_s": usage.ru_utime + usage.ru_stime,
+    return {"traces": traces, "samples": samples, "sources": sources, "wall_s": wall, "cpu_s": usage.ru_utime + usage.ru_stime,
             "peak_rss_mb": usage.ru_maxrss / 1024, "segments": segments, "facet_evaluations": evaluations,
             "load_average": [load0, os.getloadavg()[0]], "radargram_mb": (out / "radargram.nc").stat().st_size / 1e6}  # fmt: skip
 
@@ -140,6 +134,8 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--lengths", type=int, nargs="+", default=[1, 2, 4], help="multiples of 3,500 traces")
     parser.add_argument("--no-sources", action="store_true")
+    parser.add_argument("--samples", type=int, default=2048,
+                        help="samples per trace (the built-in radar: 2048; fewer: a shorter reach, a cheaper run)")
     args = parser.parse_args(argv)
     CACHE.mkdir(exist_ok=True)
     dem = CACHE / f"airborne_{N}_{RES_M:g}m.tif"
@@ -151,7 +147,7 @@ def main(argv=None) -> int:
     results = []
     with tempfile.TemporaryDirectory(dir=CACHE) as tmp:
         for k in args.lengths:
-            r = run_one(dem, FULL_TRACES // 4 * k, not args.no_sources, Path(tmp))
+            r = run_one(dem, FULL_TRACES // 4 * k, not args.no_sources, Path(tmp), args.samples)
             results.append(r)
             print(f"{r['traces']:>6} traces: {r['wall_s']:7.1f} s wall, {r['cpu_s']:7.1f} s CPU, peak RSS "
                   f"{r['peak_rss_mb']:6.0f} MB, {r['segments']} segments, {r['facet_evaluations'] / r['cpu_s'] / 1e6:.0f} M "

@@ -3,14 +3,15 @@
 Numba compiles :mod:`cluttersim.kernels` on first use and keeps the machine code in its
 on-disk cache (``cache=True``): an index file (``kernels.<function>-<line>.py311.nbi``) per
 compiled function, in ``__pycache__`` beside ``kernels.py`` or under ``NUMBA_CACHE_DIR``.
-Numba discards an index older than ``kernels.py`` (it records the source's time stamp), so
-the cache counts as empty when no index is at least as new as the source. Nothing here
-imports Numba.
+Numba uses an index only if it records the SHA-256 digest of ``kernels.py`` as it is now
+(numba.core.caching: the index pickles the digest's 32 bytes as they are), so the cache
+counts as empty when no index holds that digest. Nothing here imports Numba.
 """
 
 from __future__ import annotations
 
 import contextlib
+import hashlib
 import os
 import threading
 from pathlib import Path
@@ -24,10 +25,10 @@ def _kernels_source() -> Path:
 
 
 def cache_index_files() -> list[Path]:
-    """The kernels' cache index files that Numba would use (newer than ``kernels.py``)."""
+    """The kernels' cache index files that Numba would use (holding ``kernels.py``'s digest)."""
     source = _kernels_source()
     try:
-        stamp = source.stat().st_mtime
+        digest = hashlib.sha256(source.read_bytes()).digest()
     except OSError:
         return []
     user_dir = os.environ.get("NUMBA_CACHE_DIR")
@@ -38,7 +39,7 @@ def cache_index_files() -> list[Path]:
     fresh = []
     for p in candidates:
         with contextlib.suppress(OSError):
-            if p.stat().st_mtime >= stamp:
+            if digest in p.read_bytes():
                 fresh.append(p)
     return fresh
 
