@@ -31,6 +31,7 @@ test: $(VENV)/.installed-test
 bench: $(VENV)/.installed
 	$(BIN)/python benchmarks/bench_simulate.py
 	$(BIN)/python benchmarks/bench_survey.py
+	$(BIN)/python benchmarks/bench_levels.py
 
 clean:
 	rm -rf $(VENV) demo_output .pytest_cache

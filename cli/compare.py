@@ -60,6 +60,9 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 @permittivity_option
 @band_option
 @max_memory_option
+@click.option("--tec-el-m2", type=click.FloatRange(min=0.0, max=1e19), default=None,
+              help="Ionospheric total electron content (el/m², 1e16 = 1 TECU) applied to the simulation before "
+                   "comparing: it delays and disperses the echoes as the observed ones were.")
 @click.option("--top", type=click.IntRange(0, 1000), default=5, show_default=True, help="Candidates listed in the summary.")
 @out_dir_option()
 @overwrite_option
@@ -68,7 +71,7 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
                 window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
                 byte_order, raw_offset_bytes, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
                 delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, band, max_memory,
-                top, out_dir, overwrite, quiet):  # fmt: skip
+                tec_el_m2, top, out_dir, overwrite, quiet):  # fmt: skip
     """Compare an observed radargram with the simulated clutter of its track.
 
     Aligns the observed data in delay (cross-correlating the surface echoes),
@@ -111,7 +114,7 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         observed_path, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
         config=load_config(radar_path) if dem_path else None, body_radius_m=body_radius_m,
         window_start_s=window_start_s, window_start_column=window_start_column, fmt=fmt, settings=settings,
-        overwrite=overwrite, progress=not quiet, band=band, max_memory_bytes=max_memory,
+        overwrite=overwrite, progress=not quiet, band=band, max_memory_bytes=max_memory, tec_el_m2=tec_el_m2,
     )  # fmt: skip
     if not quiet:
         click.echo(format_summary(result, top=top))

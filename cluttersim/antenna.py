@@ -95,6 +95,11 @@ class AntennaConfig:
     def code(self) -> int:
         return PATTERNS[self.pattern]
 
+    def nadir_pattern_gain(self) -> float:
+        """One-way pattern gain toward nadir (straight down): the dipole's peak directivity D0
+        (its axis is horizontal, ψ = 90°), 1 for the isotropic and Gaussian patterns."""
+        return DIPOLE_PEAK if self.pattern == "dipole" else 1.0
+
     def kernel_params(self) -> np.ndarray:
         """(pattern code, dipole axis index, along beamwidth rad, across beamwidth rad, dipole peak)."""
         return np.array(

@@ -1046,7 +1046,7 @@ def _nan_safe(value: float) -> float:
 def compare_to_dir(
     observed_path, observed_track, sample_interval_s: float, out_dir, *, sim=None, dem=None, config=None,
     body_radius_m=None, window_start_s=None, window_start_column=None, fmt=None, settings=None,
-    overwrite: bool = False, progress: bool = False, band=None, max_memory_bytes="auto",
+    overwrite: bool = False, progress: bool = False, band=None, max_memory_bytes="auto", tec_el_m2=None,
 ) -> tuple[Comparison, dict[str, Path]]:  # fmt: skip
     """Read an observed radargram, compare it with a simulation and write the products into ``out_dir``.
 
@@ -1057,7 +1057,10 @@ def compare_to_dir(
     too, as ``out_dir/radargram.nc`` (usable by ``cluttersim sources``).
     ``band`` names the band of a multi-band radar (default: the first);
     ``max_memory_bytes`` bounds the on-the-fly simulation
-    (:func:`~cluttersim.simulate.simulate`).
+    (:func:`~cluttersim.simulate.simulate`). ``tec_el_m2`` puts an ionospheric layer of
+    that total electron content between the simulation and the observation: the on-the-fly
+    simulation runs through it (``[ionosphere]``), a given ``sim`` is dispersed by
+    :func:`cluttersim.ionosphere.disperse_radargram`.
 
     Products (:data:`COMPARE_FILES`): ``comparison.nc``, ``candidates.csv``,
     ``side_by_side.png``, ``overlay.png``, ``difference.png``. Existing ones
@@ -1083,6 +1086,11 @@ def compare_to_dir(
     if sim is not None:
         sim_ds = open_radargram(sim, band=band)
         sim_source = str(sim)
+        if tec_el_m2:
+            from .ionosphere import disperse_radargram
+
+            sim_ds = disperse_radargram(sim_ds, tec_el_m2)
+            sim_source += f" through TEC {tec_el_m2:.3g} el/m²"
     else:
         from .config import default_config
         from .simulate import simulate
@@ -1094,6 +1102,10 @@ def compare_to_dir(
             raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
         config = replace(config, radar=replace(config.radar, sample_interval_s=observed.sample_interval_s,
                                                samples=max(observed.n_samples, 2)))  # fmt: skip
+        if tec_el_m2:
+            from .ionosphere import IonosphereConfig
+
+            config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
         sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
                           max_memory_bytes=max_memory_bytes)  # fmt: skip
         sim_source = f"simulated on the fly from {Path(dem).name}"

@@ -6,6 +6,7 @@ A radar TOML has two tables::
     [surface]    # SurfaceConfig: backscatter law and its parameters
     [noise]      # optional NoiseConfig (cluttersim.noise): receiver noise floor k T B F
     [subsurface] # optional SubsurfaceConfig (cluttersim.subsurface): predicted interface echo
+    [ionosphere] # optional IonosphereConfig (cluttersim.ionosphere): thin dispersive layer
     [[band]]     # optional, repeated: frequency bands (cluttersim.radar.BandConfig) simulated
                  # in one run; each overrides some [radar] keys (centre frequency, bandwidth...)
 
@@ -27,8 +28,9 @@ import numpy as np
 from .antenna import AntennaConfig
 from .aperture import ProcessingConfig
 from .errors import ConfigError
+from .ionosphere import IonosphereConfig
 from .noise import NoiseConfig
-from .radar import BAND_KEYS, BandConfig, RadarConfig
+from .radar import BAND_KEYS, BandConfig, RadarConfig, pulse_power_kernel
 from .scattering import LAWS
 from .subsurface import SubsurfaceConfig
 
@@ -93,6 +95,7 @@ class SimulationConfig:
     processing: ProcessingConfig = field(default_factory=ProcessingConfig)  # [processing]: along-track aperture
     noise: NoiseConfig | None = None  # [noise]: receiver noise floor (cluttersim.noise)
     subsurface: SubsurfaceConfig | None = None  # [subsurface]: predicted interface echo (cluttersim.subsurface)
+    ionosphere: IonosphereConfig | None = None  # [ionosphere]: thin dispersive layer (cluttersim.ionosphere)
     bands: tuple[BandConfig, ...] = ()  # [[band]] tables: several bands in one run (empty: [radar] alone)
 
     def __post_init__(self):
@@ -102,6 +105,16 @@ class SimulationConfig:
                 raise ConfigError(f"[[band]] name = {name!r} appears twice: expected distinct band names")
         for band in self.bands:
             band.radar(self.radar)  # each band must be a valid radar on the shared window
+        if self.ionosphere is not None:
+            for _, cfg in self.per_band():
+                self.ionosphere.check_band(cfg.radar.center_frequency_hz, cfg.radar.bandwidth_hz)
+
+    def pulse_kernel(self) -> tuple[np.ndarray, np.ndarray]:
+        """This (single-band) configuration's compressed-pulse power kernel on the sample grid,
+        peak-normalised, through the ionosphere if any (:func:`cluttersim.radar.pulse_power_kernel`)."""
+        r = self.radar
+        return pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window, r.center_frequency_hz,
+                                  self.ionosphere)  # fmt: skip
 
     @property
     def band_names(self) -> list[str]:
@@ -150,10 +163,11 @@ class SimulationConfig:
         if not isinstance(data, dict):
             raise ConfigError("expected a table with [radar] and [surface]")
         for table in data:
-            if table not in ("radar", "surface", "antenna", "processing", "noise", "subsurface", "band"):
+            if table not in ("radar", "surface", "antenna", "processing", "noise", "subsurface", "ionosphere",
+                             "band"):
                 raise ConfigError(
                     f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise], "
-                    "[subsurface] and [[band]]"
+                    "[subsurface], [ionosphere] and [[band]]"
                 )
         radar_data = data.get("radar", {})
         surface_data = data.get("surface", {})
@@ -168,7 +182,8 @@ class SimulationConfig:
     def to_dict(self) -> dict:
         return {"radar": self.radar.to_dict(), "surface": self.surface.to_dict(), "antenna": self.antenna.to_dict(),
                 "processing": self.processing.to_dict(),
-                **{k: v.to_dict() for k, v in (("noise", self.noise), ("subsurface", self.subsurface)) if v is not None},
+                **{k: v.to_dict() for k, v in (("noise", self.noise), ("subsurface", self.subsurface),
+                                                 ("ionosphere", self.ionosphere)) if v is not None},
                 **({"band": [b.to_dict() for b in self.bands]} if self.bands else {})}
 
 
@@ -185,6 +200,8 @@ def _optional_tables(data: dict) -> dict:
         out["noise"] = NoiseConfig.from_dict(data["noise"])
     if "subsurface" in data:
         out["subsurface"] = SubsurfaceConfig.from_dict(data["subsurface"])
+    if "ionosphere" in data:
+        out["ionosphere"] = IonosphereConfig.from_dict(data["ionosphere"])
     return out
 
 

@@ -14,6 +14,8 @@ from pathlib import Path
 from . import plots
 from .aperture import ProcessingConfig
 from .config import default_config
+from .ionosphere import IonosphereConfig
+from .noise import NoiseConfig
 from .radar import BandConfig
 from .dem import DemSource
 from .errors import DemError
@@ -41,6 +43,14 @@ DEMO_BANDS = (
     BandConfig("low", {"center_frequency_hz": 9e6, "bandwidth_hz": 3e6}),
     BandConfig("high", {"center_frequency_hz": 25e6, "bandwidth_hz": 20e6}),
 )
+#: The demo's instrument view: galactic sky noise (ITU-R P.372 median) on a 3 dB receiver, a 100 µs
+#: chirp (range-compression gain τB = 1000, 30 dB), unfocused processing of 700 pulses/s (~440
+#: pulses over √(λh) = 2.1 km: 26 dB) and a day-side ionosphere of 2e15 el/m² (invented: 1.3 µs of
+#: delay at 20 MHz and 1.5 µs of dispersion across the band). First 26 µs of the window shown.
+DEMO_SKY = NoiseConfig(noise_figure_db=3.0, sky_temperature_k="galactic", seed=1)
+DEMO_INSTRUMENT = ProcessingConfig(pulse_length_s=100e-6, aperture="unfocused", prf_hz=700.0)
+DEMO_TEC_EL_M2 = 2e15
+DEMO_SKY_SAMPLES = 700
 #: Samples shown in the two-band view (15 µs: the nadir echo and the nearest clutter, where the
 #: resolution difference shows).
 DEMO_BANDS_SAMPLES = 400
@@ -65,8 +75,10 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     track_csv = out_dir / "demo_track.csv"
     focused_png = out_dir / "radargram_focused.png"
     bands_png = out_dir / "radargram_bands.png"
+    sky_png = out_dir / "radargram_sky_ionosphere.png"
     report_html = out_dir / REPORT_FILE
-    check_new([track_csv, focused_png, bands_png, report_html] + [out_dir / f for f in RUN_FILES.values()], overwrite)
+    check_new([track_csv, focused_png, bands_png, sky_png, report_html] + [out_dir / f for f in RUN_FILES.values()],
+              overwrite)  # fmt: skip
     src = DemSource.open(demo_dem_path())
     track = great_circle_track(
         src.body, *DEMO_START_LAT_LON, *DEMO_END_LAT_LON, DEMO_ALT_M, DEMO_SPACING_M, speed_m_s=DEMO_SPEED_M_S
@@ -81,12 +93,19 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     focused = simulate(src, track, focused_cfg, sources=False)
     # the same pass seen by two bands: the wide band resolves the clutter finely, the narrow one smears it
     bands = simulate(src, track, dataclasses.replace(default_config(), bands=DEMO_BANDS), sources=False)
-    with atomic_paths([track_csv, focused_png, bands_png]) as (tmp_csv, tmp_png, tmp_bands):
+    # the same pass as the instrument records it: galactic noise floor, compression gain, ionosphere
+    sky_cfg = dataclasses.replace(default_config(), noise=DEMO_SKY, processing=DEMO_INSTRUMENT,
+                                  ionosphere=IonosphereConfig(tec_el_m2=DEMO_TEC_EL_M2))  # fmt: skip
+    sky = simulate(src, track, sky_cfg, sources=False)
+    with atomic_paths([track_csv, focused_png, bands_png, sky_png]) as (tmp_csv, tmp_png, tmp_bands, tmp_sky):
         track.to_csv(tmp_csv)
         plots.plot_radargram(focused, tmp_png, permittivity=3.15,
                              title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind suppressed")  # fmt: skip
         plots.plot_band_radargrams(bands.isel(sample=slice(0, DEMO_BANDS_SAMPLES)), tmp_bands, permittivity=3.15,
                                    title="the same pass in two frequency bands (first 15 µs of the window)")  # fmt: skip
+        plots.plot_radargram(sky.isel(sample=slice(0, DEMO_SKY_SAMPLES)), tmp_sky, permittivity=3.15,
+                             title=f"galactic sky noise, processing gains, ionosphere {DEMO_TEC_EL_M2:.0e} el/m²")  # fmt: skip
     # the page to point at echoes and see where they come from
     write_report(out_dir, report_html, permittivity=3.15, overwrite=True)
-    return {**paths, "focused": focused_png, "bands": bands_png, "track": track_csv, "report": report_html}, stats
+    return {**paths, "focused": focused_png, "bands": bands_png, "sky": sky_png, "track": track_csv,
+            "report": report_html}, stats  # fmt: skip

@@ -128,8 +128,8 @@ def pattern_gain_two_way(params, frame, ux, uy, uz):
 def direction_weight(params, frame, vx, vy, vz, inv_r):
     """Weight of a facet at offset v from the antenna: the two-way antenna pattern
     (:func:`pattern_gain_two_way`, params[0:5]) times the along-track processing weight
-    (params[5:8] = aperture code, aperture length (code 3: the resolution δ), wavelength;
-    :mod:`cluttersim.aperture`)."""
+    (params[5:8] = aperture code, aperture length (code 3: the resolution δ; code 1: table steps
+    per unit u), wavelength, then for code 1 the unfocused response table; :mod:`cluttersim.aperture`)."""
     ux = vx * inv_r
     uy = vy * inv_r
     uz = vz * inv_r
@@ -138,9 +138,17 @@ def direction_weight(params, frame, vx, vy, vz, inv_r):
     if code != 0.0:
         y = vx * frame[0, 0] + vy * frame[0, 1] + vz * frame[0, 2]  # along-track offset, m
         r = 1.0 / inv_r
-        if code == 1.0:
-            if y * y > 0.5 * params[7] * r:  # outside the first Fresnel zone, |y| > √(λR/2)
-                w = 0.0
+        if code == 1.0:  # unfocused: the tabulated response of an unphased sum in u = |y|/√(λR)
+            u = abs(y) / math.sqrt(params[7] * r)
+            x = u * params[6]
+            n_tab = params.shape[0] - 8
+            if x < n_tab - 1:
+                k = int(x)
+                f = x - k
+                w *= (1.0 - f) * params[8 + k] + f * params[9 + k]
+            else:  # far field: sinc²(2u)
+                sx = math.sin(2.0 * math.pi * u) / (2.0 * math.pi * u)
+                w *= sx * sx
         else:
             if code == 2.0:
                 x = math.pi * y * 2.0 * params[6] / (params[7] * r)  # π y / δ, δ = λR/(2L)
@@ -168,29 +176,35 @@ def _bilinear(heights, r, c):
 
 
 @numba.njit(**_JIT)
-def hidden_from_antenna(heights, row, col, h_facet, row_a, col_a, h_ant, h_max):
+def hidden_from_antenna(heights, row, col, h_facet, row_a, col_a, h_ant, h_max, sag_row=0.0, sag_col=0.0):
     """True when terrain hides a facet from the antenna (line-of-sight shadowing).
 
-    Marches one cell at a time along the straight line, in the DEM grid, from the
+    Marches one cell at a time along the ground path, in the DEM grid, from the
     facet's cell (row, col; height ``h_facet``) toward the antenna's nadir
     (row_a, col_a; antenna height ``h_ant``), comparing the bilinear terrain
     height with the height of the line of sight; stops as soon as the line
     rises above the highest terrain (``h_max``). Heights are above the
-    reference surface; the body's curvature over the march is neglected
-    (a drop of x²/2R: 0.3 m after 1 km on Mars), so the test is meant for the
-    short marches of a line of sight that climbs steeply to an orbiter, or for
-    local airborne geometry.
+    reference surface. The line of sight is the straight chord between the
+    two points, whose height above the curved body at ground distance x from
+    the facet (out of D) is the linear interpolation lowered by the sagitta
+    x (D − x) / (2 Rp) (second order in D/Rp; common practice, e.g. the
+    earth-curvature correction of line-of-sight profiles). ``sag_row`` and
+    ``sag_col`` are Δy²/(2Rp) and Δx²/(2Rp) for the grid's row and column
+    spacings Δy, Δx (m), so D²/(2Rp) = dr² sag_row + dc² sag_col; 0 for the
+    flat approximation.
     """
     dr = row_a - row
     dc = col_a - col
     dist = math.sqrt(dr * dr + dc * dc)
     if dist < 1.0:
         return False
+    sag = dr * dr * sag_row + dc * dc * sag_col  # D² / (2 Rp)
     k = 1.0
     while k < dist:
         frac = k / dist
-        h_ray = h_facet + (h_ant - h_facet) * frac
-        if h_ray > h_max:
+        h_ray = h_facet + (h_ant - h_facet) * frac - sag * frac * (1.0 - frac)
+        # above every peak and climbing (the curved ray's slope grows along the march): visible
+        if h_ray > h_max and (h_ant - h_facet) >= sag * (1.0 - 2.0 * frac):
             return False
         if _bilinear(heights, row + dr * frac, col + dc * frac) > h_ray:
             return True
@@ -756,7 +770,8 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                             rr = cell // grid_nx
                             cc = cell - rr * grid_nx
                             if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
-                                                   nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max):  # fmt: skip
+                                                   nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max,
+                                                   nadir_rc[t, 2], nadir_rc[t, 3]):  # fmt: skip
                                 bp[i] = 0.0
                 if attribute:
                     rx = right_unit[t, 0]
@@ -968,7 +983,8 @@ def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile
                     rr = cell // shadow_heights.shape[1]
                     cc = cell - rr * shadow_heights.shape[1]
                     if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
-                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max):  # fmt: skip
+                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max,
+                                           nadir_rc[t, 2], nadir_rc[t, 3]):  # fmt: skip
                         continue
                 s0 = sigma0_by_code(law_code, cos_inc, p0, p1)
                 g2 = direction_weight(antenna, frames[t], vx, vy, vz, 1.0 / r)

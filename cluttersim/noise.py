@@ -7,10 +7,25 @@ The thermal noise power in a receiver of bandwidth B is ([1]_, [2]_)
 with k the Boltzmann constant, T a noise temperature and F the noise factor.
 Given a noise temperature T (of the whole system), F = 1; given a noise figure
 NF in dB, F = 10^(NF/10) referred to the standard reference temperature
-T0 = 290 K ([2]_). cluttersim's ``power`` is per delay sample with no
-processing gain, and the noise is added on the same footing: P_n is the noise
-power per sample of the received signal before pulse-compression or stacking
-gain.
+T0 = 290 K ([2]_).
+
+An external (sky) noise temperature T_ext (``sky_temperature_k``: a number,
+or ``"galactic"``) replaces the 290 K that a noise figure assumes at the
+antenna: P_n = k B (T_ext + T0 (F − 1)), or k B (T_ext + T) with a receiver
+noise temperature ([4]_). ``"galactic"`` is ITU-R P.372's median galactic
+noise figure F_am = 52 − 23 log10(f / 1 MHz) dB above k T0 b ([4]_), i.e.
+T_ext = T0 · 10^(F_am/10): about 47,000 K at 20 MHz. The straight line is a
+fit to the median galactic curve between about 2 and 100 MHz (used above the
+ionosphere, so without its low-frequency cut-off); outside that range a
+warning is given (below 2 MHz the galactic spectrum flattens and is absorbed).
+
+cluttersim's ``power`` is the compressed receiver output referred to its input
+(:data:`cluttersim.radar.POWER_CONVENTION`); on that scale the noise per sample
+is P_n times the range window's equivalent noise bandwidth B τ_eff (1 for no
+window, 1.5 for Hann: its processing loss, [5]_), divided by the processing
+gains switched on in ``[processing]`` (:mod:`cluttersim.aperture`): the echo
+stays at its radar-equation level and the noise drops, so power / noise is the
+output signal-to-noise ratio (Skolnik 2001, ch. 2).
 
 Single-look power of circular complex Gaussian noise is exponentially
 distributed with mean P_n ([3]_; common practice); the noise added to each
@@ -25,11 +40,18 @@ References
        Proc. IRE 32(7), 419–422 (noise factor F referred to T0 = 290 K).
 .. [3] Goodman, J. W. (1976). Some fundamental properties of speckle.
        J. Opt. Soc. Am. 66(11), 1145–1150 (exponential intensity statistics).
+.. [4] ITU-R Recommendation P.372 (Radio noise), Table 1 and Fig. 2: median
+       galactic noise F_am = c − d log f, c = 52, d = 23 (f in MHz); system
+       noise factor f = f_a + f_r − 1 (coefficients from memory).
+.. [5] Harris, F. J. (1978). On the use of windows for harmonic analysis with
+       the discrete Fourier transform. Proc. IEEE 66(1), 51–83, Table 1
+       (equivalent noise bandwidth: Hann 1.50 bins).
 """
 
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -73,6 +95,32 @@ def noise_power_w(bandwidth_hz: float, temperature_k: float | None = None, noise
     return BOLTZMANN_J_K * REFERENCE_TEMPERATURE_K * bandwidth_hz * 10.0 ** (noise_figure_db / 10.0)
 
 
+#: ITU-R P.372 median galactic noise F_am = c − d log10(f/MHz) dB (Table 1; from memory).
+GALACTIC_C_DB, GALACTIC_D_DB = 52.0, 23.0
+#: Frequencies (Hz) over which the straight-line galactic fit is used without a warning.
+GALACTIC_VALID_HZ = (2e6, 100e6)
+
+
+def galactic_noise_figure_db(frequency_hz) -> np.ndarray:
+    """Median galactic external noise figure F_am = 52 − 23 log10(f / 1 MHz) dB above k T0 b
+    (ITU-R P.372, [4]_ of the module); 22.1 dB at 20 MHz."""
+    return GALACTIC_C_DB - GALACTIC_D_DB * np.log10(np.asarray(frequency_hz, dtype=np.float64) / 1e6)
+
+
+def galactic_temperature_k(frequency_hz, *, warn: bool = True) -> float:
+    """External noise temperature T0 · 10^(F_am/10) of the median galactic background (K); warns
+    outside :data:`GALACTIC_VALID_HZ`."""
+    f = float(frequency_hz)
+    lo, hi = GALACTIC_VALID_HZ
+    if warn and not lo <= f <= hi:
+        warnings.warn(
+            f"[noise] sky_temperature_k = 'galactic' at {f / 1e6:.4g} MHz: ITU-R P.372's galactic line is used between "
+            f"{lo / 1e6:g} and {hi / 1e6:g} MHz; extrapolated here",
+            stacklevel=3,
+        )
+    return REFERENCE_TEMPERATURE_K * 10.0 ** (float(galactic_noise_figure_db(f)) / 10.0)
+
+
 def add_noise(power_w, noise_power_w_: float, rng: np.random.Generator) -> np.ndarray:
     """Echo power plus single-look noise power drawn from an exponential law of mean P_n.
 
@@ -112,6 +160,7 @@ class NoiseConfig:
     noise_temperature_k: float | None = None
     noise_figure_db: float | None = None
     seed: int = 0
+    sky_temperature_k: float | str | None = None
 
     def __post_init__(self):
         if (self.noise_temperature_k is None) == (self.noise_figure_db is None):
@@ -124,13 +173,18 @@ class NoiseConfig:
             raise ConfigError(f"[noise] noise_figure_db = {nf!r}: expected a noise figure between 0 and 100 dB")
         if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
             raise ConfigError(f"[noise] seed = {self.seed!r}: expected an integer >= 0")
+        sky = self.sky_temperature_k
+        if sky is not None and sky != "galactic" and (
+            isinstance(sky, (bool, str)) or not isinstance(sky, (int, float)) or not (math.isfinite(sky) and sky >= 0)
+        ):
+            raise ConfigError(f"[noise] sky_temperature_k = {sky!r}: expected a temperature >= 0 K or \"galactic\"")
 
     @classmethod
     def from_dict(cls, data) -> "NoiseConfig":
         """Build from the parsed ``[noise]`` table, rejecting unknown keys by name."""
         if not isinstance(data, dict):
             raise ConfigError("[noise] must be a table")
-        names = ("noise_temperature_k", "noise_figure_db", "seed")
+        names = ("noise_temperature_k", "noise_figure_db", "seed", "sky_temperature_k")
         kwargs = {}
         for key, value in data.items():
             if key not in names:
@@ -138,6 +192,9 @@ class NoiseConfig:
             if key == "seed":
                 if isinstance(value, float) and value.is_integer():
                     value = int(value)
+            elif key == "sky_temperature_k" and isinstance(value, str):
+                if value != "galactic":
+                    raise ConfigError(f"[noise] sky_temperature_k = {value!r}: expected a number of K or \"galactic\"")
             elif isinstance(value, bool) or not isinstance(value, (int, float)):
                 raise ConfigError(f"[noise] {key} = {value!r}: expected a number")
             else:
@@ -145,9 +202,29 @@ class NoiseConfig:
             kwargs[key] = value
         return cls(**kwargs)
 
-    def noise_power_w(self, bandwidth_hz: float) -> float:
-        """P_n = k T B F (W) for this table and the radar's bandwidth (:func:`noise_power_w`)."""
-        return noise_power_w(bandwidth_hz, self.noise_temperature_k, self.noise_figure_db)
+    def sky_k(self, center_frequency_hz: float | None = None) -> float | None:
+        """The external noise temperature (K) at the centre frequency, or None without one."""
+        if self.sky_temperature_k is None:
+            return None
+        if self.sky_temperature_k == "galactic":
+            if center_frequency_hz is None:
+                raise ValueError("NoiseConfig.sky_k: 'galactic' needs the centre frequency")
+            return galactic_temperature_k(center_frequency_hz)
+        return float(self.sky_temperature_k)
+
+    def noise_power_w(self, bandwidth_hz: float, center_frequency_hz: float | None = None) -> float:
+        """Input noise power in the bandwidth (W): k T B F without a sky temperature
+        (:func:`noise_power_w`), k B (T_ext + T0 (F − 1)) or k B (T_ext + T) with one."""
+        sky = self.sky_k(center_frequency_hz)
+        if sky is None:
+            return noise_power_w(bandwidth_hz, self.noise_temperature_k, self.noise_figure_db)
+        if self.noise_temperature_k is not None:
+            receiver_k = self.noise_temperature_k
+        else:
+            receiver_k = REFERENCE_TEMPERATURE_K * (10.0 ** (self.noise_figure_db / 10.0) - 1.0)
+        if sky + receiver_k <= 0:
+            raise ConfigError("[noise] sky_temperature_k = 0 with a 0 dB noise figure: the system has no noise")
+        return BOLTZMANN_J_K * (sky + receiver_k) * bandwidth_hz
 
     def rng(self) -> np.random.Generator:
         """A fresh generator seeded with ``seed`` (NumPy PCG64)."""
@@ -155,7 +232,8 @@ class NoiseConfig:
 
     def to_dict(self) -> dict:
         return {k: v for k, v in (("noise_temperature_k", self.noise_temperature_k),
-                                  ("noise_figure_db", self.noise_figure_db), ("seed", self.seed)) if v is not None}
+                                  ("noise_figure_db", self.noise_figure_db), ("seed", self.seed),
+                                  ("sky_temperature_k", self.sky_temperature_k)) if v is not None}
 
 
 def add_noise_by_pulse(power_w, noise_power_w_: float, seed_words: tuple[int, ...], first_pulse: int = 0) -> np.ndarray:

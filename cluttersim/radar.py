@@ -102,23 +102,126 @@ def compressed_pulse_amplitude(t_s, bandwidth_hz: float, window: str = "hann"):
     return (a0 * np.sinc(x) + 0.5 * (1.0 - a0) * (np.sinc(x - 1.0) + np.sinc(x + 1.0))) / a0
 
 
-def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: str = "hann", oversample: int = 64):
-    """Compressed-pulse power response integrated over delay samples.
+#: The level convention of ``power`` in files written by this version (the ``power_convention``
+#: attribute of radargram.nc; files without it use :data:`LEGACY_POWER_CONVENTION`).
+POWER_CONVENTION = "compressed-peak"
+#: Files written before the convention was named: power per delay sample, the facet power
+#: spread over bins and convolved with a compressed-pulse kernel summing to 1.
+LEGACY_POWER_CONVENTION = "energy-per-sample"
+#: One-line description written beside :data:`POWER_CONVENTION`.
+POWER_CONVENTION_TEXT = (
+    "received power at the output of the range-compressed receiver referred to its input: a point target reads "
+    "Pt G^2 lambda^2 sigma / ((4 pi)^3 R^4) at its peak sample, a diffuse surface Pt G^2 lambda^2 sigma0 A_tau / "
+    "((4 pi)^3 R^4) with A_tau the ground area within range extent c tau_eff / 2, tau_eff = integral |h|^2 dt / "
+    "max |h|^2 of the compressed pulse; whatever the sample interval"
+)
 
-    Returns ``(offsets, weights)``: integer sample offsets and the fraction of
-    the echo energy |h(t)|² falling into each sample, summing to 1 (energy is
-    preserved when a radargram is convolved with it). The response is
-    truncated where the window's sidelobes have decayed (±16/B for Hann and
-    Hamming, ±64/B unweighted).
+
+def window_weights(f_over_b, window: str = "hann"):
+    """Spectral weighting w(f) = a0 + (1 − a0) cos(2πf/B) at f/B in [−1/2, 1/2], 0 outside ([3]_)."""
+    a0 = RANGE_WINDOWS[window]
+    x = np.asarray(f_over_b, dtype=np.float64)
+    return np.where(np.abs(x) <= 0.5, a0 + (1.0 - a0) * np.cos(2.0 * np.pi * x), 0.0)
+
+
+def effective_pulse_duration_s(bandwidth_hz: float, window: str = "hann") -> float:
+    """τ_eff = ∫|h(t)|² dt / max|h|² of the compressed pulse's amplitude response h, seconds.
+
+    By Parseval, with h(t) = ∫ w(f) e^(i2πft) df and max|h| = h(0) = ∫ w df,
+    τ_eff = ∫ w² df / (∫ w df)², evaluated here by quadrature of the window
+    (Gauss–Legendre, exact for these cosines to rounding). It is 1/B
+    unweighted and 1.5/B for Hann, 1.36/B for Hamming: the windows' equivalent
+    noise bandwidths in bins (Harris 1978, Table 1) divided by B.
+    """
+    x, wq = np.polynomial.legendre.leggauss(64)
+    f = 0.5 * x  # f/B on [-1/2, 1/2]
+    w = window_weights(f, window)
+    integral_w = 0.5 * np.sum(wq * w)  # ∫ w d(f/B)
+    integral_w2 = 0.5 * np.sum(wq * w * w)
+    return float(integral_w2 / integral_w**2) / bandwidth_hz
+
+
+def noise_bandwidth_factor(window: str = "hann") -> float:
+    """Equivalent noise bandwidth of the range window in units of B: B τ_eff (1 unweighted,
+    1.5 Hann; Harris 1978, Table 1 "ENBW"). Receiver noise referred to the input on the
+    scale of a point target's peak is k T B F times this (the window's processing loss)."""
+    return effective_pulse_duration_s(1.0, window)
+
+
+def pulse_amplitude_response(t_s, bandwidth_hz: float, window: str = "hann", center_frequency_hz: float | None = None,
+                             ionosphere=None):  # fmt: skip
+    """Complex amplitude response h(t) of the range-compressed pulse, normalised to max|h| = 1.
+
+    Without an ionosphere this is :func:`compressed_pulse_amplitude` (real, peak 1 at t = 0).
+    With ``ionosphere`` (:class:`cluttersim.ionosphere.IonosphereConfig`) the pulse's spectrum
+    is multiplied by the layer's two-way transfer function H(f) at RF frequency f = f_c + ν
+    (:func:`cluttersim.ionosphere.two_way_transfer`):
+
+        h(t) = ∫ w(ν) H(f_c + ν) e^(i2πνt) dν / ∫ w(ν) dν,
+
+    so the response is delayed, dispersed and its peak lowered (still normalised by the
+    undisturbed peak). The integral is a midpoint sum over the band fine enough that its
+    period in t exceeds four times the response's span.
+
+    This is the function coherent contributions are convolved with: the complex field
+    deposited per delay bin ⊛ h, detected as |·|², reads on the ``power`` scale.
+    """
+    t = np.asarray(t_s, dtype=np.float64)
+    if ionosphere is None or not ionosphere.active:
+        return compressed_pulse_amplitude(t, bandwidth_hz, window).astype(np.complex128)
+    if center_frequency_hz is None:
+        raise ValueError("pulse_amplitude_response: the ionosphere needs center_frequency_hz")
+    from .ionosphere import two_way_transfer
+
+    span = max(float(np.max(np.abs(t), initial=0.0)), 1.0 / bandwidth_hz)
+    n = int(max(512, math.ceil(8.0 * bandwidth_hz * span)))
+    nu = ((np.arange(n) + 0.5) / n - 0.5) * bandwidth_hz
+    spec = window_weights(nu / bandwidth_hz, window) * two_way_transfer(center_frequency_hz + nu, ionosphere)
+    norm = np.sum(window_weights(nu / bandwidth_hz, window))
+    out = np.empty(t.shape, dtype=np.complex128)
+    flat = t.ravel()
+    res = out.reshape(-1)
+    for a in range(0, flat.size, 4096):
+        phase = np.exp(2j * np.pi * np.outer(flat[a : a + 4096], nu))
+        res[a : a + 4096] = phase @ spec / norm
+    return out
+
+
+def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: str = "hann",
+                       center_frequency_hz: float | None = None, ionosphere=None):  # fmt: skip
+    """Compressed-pulse power response on the sample grid, peak-normalised.
+
+    Returns ``(offsets, weights)``: integer sample offsets −H..H and
+    |h(k Δt)|², h the amplitude response of :func:`pulse_amplitude_response`
+    (peak 1 at offset 0 without an ionosphere). Convolved with the power per
+    delay bin of the facets, it gives the ``power`` convention
+    (:data:`POWER_CONVENTION`): a point target in one bin reads its radar-equation
+    power at its peak sample, and since Δt ≤ 1/B (the band of |h|² is [−B, B])
+    Poisson's summation formula makes Σ_k |h(kΔt + u)|² Δt = ∫|h|² dt = τ_eff
+    exactly for any sub-sample shift u, so a diffuse surface of power density ρ
+    per unit delay reads ρ τ_eff. The response is truncated where the window's
+    sidelobes have decayed (±16/B for Hann and Hamming, ±64/B unweighted); an
+    ionosphere widens it to cover its group delays across the band.
     """
     extent_s = (64.0 if window == "none" else 16.0) / bandwidth_hz
-    half = int(math.ceil(extent_s / sample_interval_s))
+    lo_s, hi_s = -extent_s, extent_s
+    if ionosphere is not None and ionosphere.active:
+        from .ionosphere import group_delay_two_way_s
+
+        f_lo = center_frequency_hz - 0.5 * bandwidth_hz
+        f_hi = center_frequency_hz + 0.5 * bandwidth_hz
+        d_lo, d_hi = group_delay_two_way_s(ionosphere.tec_el_m2, np.array([f_hi, f_lo]))
+        lo_s, hi_s = d_lo - extent_s, d_hi + extent_s
+    half = int(math.ceil(max(abs(lo_s), abs(hi_s)) / sample_interval_s))
     offsets = np.arange(-half, half + 1)
-    sub = (np.arange(oversample) + 0.5) / oversample - 0.5
-    t = (offsets[:, None] + sub[None, :]) * sample_interval_s
-    power = compressed_pulse_amplitude(t, bandwidth_hz, window) ** 2
-    weights = power.mean(axis=1)
-    weights /= weights.sum()
+    t = offsets * sample_interval_s
+    if ionosphere is not None and ionosphere.active:
+        weights = np.zeros(offsets.size)
+        inside = (t >= lo_s) & (t <= hi_s)
+        weights[inside] = np.abs(pulse_amplitude_response(t[inside], bandwidth_hz, window, center_frequency_hz,
+                                                          ionosphere)) ** 2  # fmt: skip
+    else:
+        weights = compressed_pulse_amplitude(t, bandwidth_hz, window) ** 2
     return offsets, weights
 
 

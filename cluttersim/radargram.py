@@ -6,8 +6,9 @@ and ``sample``:
 =====================  ===============  ====  ==============================================
 variable               dims             units meaning
 =====================  ===============  ====  ==============================================
-``power``              trace, sample    W     received echo power per delay sample, no
-                                              processing gain (float32; NaN off the DEM)
+``power``              trace, sample    W     received power at the range-compressed
+                                              receiver's output referred to its input
+                                              (``power_convention``; float32; NaN off the DEM)
 ``delay``              sample           s     delay of each sample after the window start
 ``window_start``       trace            s     absolute two-way delay of sample 0
 ``lat``, ``lon``       trace            deg   antenna geodetic position
@@ -32,8 +33,16 @@ With the source record (the default) also:
 ``first_return_offnadir``  trace           m     its ground distance from nadir
 =========================  ==============  ====  ===========================================
 
+The ``power_convention`` attribute names the level convention
+(:data:`cluttersim.radar.POWER_CONVENTION`: a point target reads its
+radar-equation power at its peak sample, a diffuse surface
+Pt G² λ² σ0 A_τ / ((4π)³ R⁴) with A_τ the area within c τ_eff / 2, whatever
+the sample interval). Files written before it existed have no such attribute:
+:func:`open_radargram` rescales their ``power`` and ``noise_power`` by
+τ_eff / Δt (:func:`to_current_convention`).
+
 With a ``[noise]`` table, ``noise_power`` (scalar, W): the mean noise power
-k T B F added to every sample (:mod:`cluttersim.noise`). With a ``[subsurface]``
+added to every sample, on the same scale (:mod:`cluttersim.noise`). With a ``[subsurface]``
 table, ``predicted_subsurface_delay`` (trace, s, absolute),
 ``predicted_subsurface_power`` and ``predicted_surface_power`` (trace, W)
 (:mod:`cluttersim.subsurface`).
@@ -92,7 +101,7 @@ def build_dataset(
         "power": (
             ("trace", "sample"),
             power_w.astype(np.float32),
-            {"units": "W", "long_name": "received echo power per delay sample (no processing gain)"},
+            {"units": "W", "long_name": "received power at the compressed receiver output referred to its input"},
         )
     }
     for name, (values, units, long_name) in trace_vars.items():
@@ -136,7 +145,7 @@ def stack_bands(datasets: list[xr.Dataset], config) -> xr.Dataset:
     config_attrs = [k for k in first.attrs if k == "cluttersim_config" or k.split("_", 1)[0] in config.to_dict()]
     out.attrs = {k: v for k, v in first.attrs.items() if k not in config_attrs}
     out.attrs.update(flatten_config_attrs(config))
-    out["power"].attrs["long_name"] = "received echo power per delay sample (no processing gain), per band"
+    out["power"].attrs["long_name"] = "received power at the compressed receiver output referred to its input, per band"
     return out
 
 
@@ -330,7 +339,49 @@ def open_radargram(path, band: str | None = None, *, lazy: bool | None = None) -
         raise ClutterSimError(f"{path}: not a readable netCDF radargram ({exc})") from None
     if "power" not in ds or ds["power"].dims not in (("trace", "sample"), ("band", "trace", "sample")):
         raise ClutterSimError(f"{path}: expected a variable 'power' with dimensions (trace, sample)")
-    return select_band(ds, band, source=str(path))
+    return to_current_convention(select_band(ds, band, source=str(path)), source=str(path))
+
+
+def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
+    """A single-band radargram on the current ``power`` scale.
+
+    Files with ``power_convention`` = :data:`~cluttersim.radar.POWER_CONVENTION` are
+    returned as they are. Files without the attribute were written with power per
+    delay sample (the facet power spread over bins of Δt, convolved with a pulse
+    kernel summing to 1): a diffuse echo of power density ρ per unit delay read ρ Δt
+    there and reads ρ τ_eff now, and a point echo P read about P Δt/τ_eff at its peak
+    and reads P now; both are τ_eff/Δt times the old value (exact for the diffuse
+    echo, to the sub-sample scalloping of the old box-averaged kernel for a point).
+    ``power`` and ``noise_power`` are multiplied by τ_eff/Δt (so their ratio, that
+    file's own, is kept) and the attributes ``power_convention`` and
+    ``power_convention_converted_from`` say so. Predicted specular powers are left
+    as they were (they had no spherical divergence then). A file without the radar
+    attributes (not written by cluttersim) is returned unchanged.
+    """
+    from .radar import LEGACY_POWER_CONVENTION, POWER_CONVENTION, effective_pulse_duration_s
+
+    convention = ds.attrs.get("power_convention", LEGACY_POWER_CONVENTION)
+    if convention == POWER_CONVENTION:
+        return ds
+    if convention != LEGACY_POWER_CONVENTION:
+        raise ClutterSimError(f"{source}: power_convention = {convention!r}: expected {POWER_CONVENTION!r} or none")
+    try:
+        bandwidth = float(ds.attrs["radar_bandwidth_hz"])
+        dt = float(ds.attrs["radar_sample_interval_s"])
+        window = str(ds.attrs.get("radar_range_window", "hann"))
+        factor = effective_pulse_duration_s(bandwidth, window) / dt
+    except (KeyError, ValueError, TypeError):
+        return ds  # not written by cluttersim (no radar attributes): nothing to convert; readers check the rest
+    ds = ds.copy()
+    for name in ("power", "noise_power"):
+        if name in ds:
+            attrs = dict(ds[name].attrs)
+            ds[name] = (ds[name] * np.float32(factor) if ds[name].dtype == np.float32 else ds[name] * factor).astype(ds[name].dtype)
+            ds[name].attrs = attrs
+    ds.attrs["power_convention"] = POWER_CONVENTION
+    ds.attrs["power_convention_converted_from"] = LEGACY_POWER_CONVENTION
+    ds.attrs["power_convention_factor"] = factor
+    return ds
 
 
 @contextlib.contextmanager

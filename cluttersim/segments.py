@@ -15,7 +15,10 @@ is kept per trace:
 * presum groups never straddle a segment: segment sizes are multiples of ``presum``;
 * receiver noise is seeded per pulse by its index in the whole track
   (:func:`cluttersim.noise.add_noise_by_pulse`);
-* the platform speed of a Doppler-focused aperture comes from the whole track.
+* the platform speed of a Doppler-focused aperture comes from the whole track, and so
+  does the height at which an aperture's integration gain (the noise level with
+  ``prf_hz``) is taken: the track's median height above the nadir surface
+  (:func:`track_gain_height_m`).
 
 Segment size ("auto"): the whole track in one piece when its estimated memory
 (:func:`cluttersim.memory.estimate_memory_bytes`) fits :data:`SEGMENT_BUDGET_BYTES`
@@ -42,6 +45,7 @@ import dataclasses
 import hashlib
 import json
 import os
+import re
 import shutil
 import time
 import warnings
@@ -216,6 +220,7 @@ class SegmentJob:
     max_memory_bytes: object = "auto"
     numba_threads: int | None = None
     key: str = ""
+    gain_height_m: float | None = None
 
     def track(self) -> Track:
         return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_source)
@@ -236,13 +241,36 @@ def make_jobs(src: DemSource, track: Track, config, plan, *, body_radius_m=None,
               first_return_db=-20.0, max_memory_bytes="auto") -> list[SegmentJob]:  # fmt: skip
     """The jobs of a plan, each with its resume key (:func:`segment_key`)."""
     jobs = []
+    gain_h = track_gain_height_m(src, track, config, plan)
     for seg in plan:
         t = sub_track(track, seg.start, seg.stop)
         job = SegmentJob(seg.index, seg.start, seg.stop, str(src.path.resolve()), body_radius_m, t.lat_deg, t.lon_deg,
                          t.alt_m, t.time_s, track.source, config, sources, nadir_strip_m, first_return_db,
-                         max_memory_bytes)  # fmt: skip
+                         max_memory_bytes, gain_height_m=gain_h)  # fmt: skip
         jobs.append(dataclasses.replace(job, key=segment_key(src, job)))
     return jobs
+
+
+def track_gain_height_m(src: DemSource, track: Track, config, plan) -> float | None:
+    """The whole track's median height above the nadir surface when an aperture's integration
+    gain needs it (``prf_hz`` > 0 with an aperture), else None: the nadir heights of each
+    segment from a small read around its nadir points, bilinear as in
+    :func:`cluttersim.simulate.prepare_scene`."""
+    proc = config.processing
+    if not (proc.prf_hz > 0 and proc.aperture != "none"):
+        return None
+    heights = np.full(len(track), np.nan)
+    for seg in plan:
+        part = sub_track(track, seg.start, seg.stop)
+        rows, cols = src.lonlat_to_rowcol(part.lon_deg, part.lat_deg)
+        on = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
+        if not on.any():
+            continue
+        window = src.window_around(rows[on], cols[on], pad=2)
+        if window is None:
+            continue
+        heights[seg.start : seg.stop] = src.read(window).bilinear_m(part.lon_deg, part.lat_deg)
+    return float(np.nanmedian(track.alt_m[: plan[-1].stop] - heights[: plan[-1].stop]))
 
 
 def segment_key(src: DemSource, job: SegmentJob) -> str:
@@ -251,7 +279,8 @@ def segment_key(src: DemSource, job: SegmentJob) -> str:
     h = hashlib.sha256()
     meta = {"dem": str(src.path.resolve()), "dem_bytes": src.path.stat().st_size, "body_radius_m": job.body_radius_m,
             "config": job.config.to_dict(), "sources": job.sources, "nadir_strip_m": job.nadir_strip_m,
-            "first_return_db": job.first_return_db, "start": job.start, "stop": job.stop}  # fmt: skip
+            "first_return_db": job.first_return_db, "start": job.start, "stop": job.stop,
+            "gain_height_m": job.gain_height_m}  # fmt: skip
     h.update(json.dumps(meta, sort_keys=True, default=str).encode())
     for a in (job.lat_deg, job.lon_deg, job.alt_m) + (() if job.time_s is None else (job.time_s,)):
         h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
@@ -279,7 +308,7 @@ def run_segment(job: SegmentJob, src: DemSource | None = None) -> SegmentResult:
         ds = simulate(src, track, job.config, body_radius_m=job.body_radius_m, stats=stats, sources=job.sources,
                       nadir_strip_m=job.nadir_strip_m, first_return_db=job.first_return_db,
                       max_memory_bytes=job.max_memory_bytes, segment_traces=None, first_pulse=job.start,
-                      require_echo=False)  # fmt: skip
+                      require_echo=False, gain_height_m=job.gain_height_m)  # fmt: skip
     presum = job.config.processing.presum
     first = job.start // presum
     ds = ds.assign_coords(trace=("trace", np.arange(first, first + ds.sizes["trace"]), ds["trace"].attrs))
@@ -344,7 +373,7 @@ def simulate_in_segments(src: DemSource, track: Track, config, plan, *, body_rad
         for job in jobs:
             res = run_segment(job, src)
             results[job.index] = res
-            seen.extend(w for w in res.warnings if w not in seen)
+            _add_warnings(seen, res.warnings)
             bar.update(job.stop - job.start)
     datasets = _complete(results, jobs)
     ds = xr.concat(datasets, dim="trace", data_vars="minimal", coords="minimal", compat="override",
@@ -370,6 +399,16 @@ def _finish_attrs(ds, facet_evaluations: int, plan) -> None:
     ds.attrs["facet_evaluations"] = int(facet_evaluations)
     ds.attrs["segments"] = len(plan)
     ds.attrs["segment_pulses"] = int(max(s.pulses for s in plan))
+
+
+def _add_warnings(seen: list[str], new) -> None:
+    """Keep one of each warning: segments repeat the same one with their own numbers."""
+    keys = {re.sub(r"\d[\d.,]*", "#", w) for w in seen}
+    for w in new:
+        key = re.sub(r"\d[\d.,]*", "#", w)
+        if key not in keys:
+            keys.add(key)
+            seen.append(w)
 
 
 def _warn_off_dem(src: DemSource, track: Track) -> None:
@@ -487,7 +526,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
                         write_netcdf_to(res.dataset, tmp)
                 finished[job.index] = path
             evaluations += res.facet_evaluations
-            seen.extend(w for w in res.warnings if w not in seen)
+            _add_warnings(seen, res.warnings)
             bar.update(job.stop - job.start)
             if on_segment is not None:
                 on_segment(res)

@@ -36,7 +36,14 @@ from .facets import Facets, build_facets
 from .noise import add_complex_noise, add_noise_by_pulse
 from .antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
-from .radar import compressed_pulse_amplitude, pulse_limited_radius_m, pulse_power_kernel
+from .radar import (
+    POWER_CONVENTION,
+    POWER_CONVENTION_TEXT,
+    noise_bandwidth_factor,
+    pulse_amplitude_response,
+    pulse_limited_radius_m,
+    pulse_power_kernel,
+)
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track
@@ -87,6 +94,7 @@ def simulate(
     segment_traces: int | str | None = "auto",
     first_pulse: int = 0,
     require_echo: bool = True,
+    gain_height_m: float | None = None,
 ) -> xr.Dataset:
     """Simulate the surface-clutter radargram of a track over a DEM.
 
@@ -129,6 +137,9 @@ def simulate(
     require_echo : bool
         Raise :class:`GeometryError` when no sample receives surface power (a segment
         of a longer track may have none).
+    gain_height_m : float, optional
+        The height above the nadir surface at which the aperture's integration gain is
+        taken (default: this track's median; a segment gets its whole track's).
 
     Returns
     -------
@@ -161,6 +172,7 @@ def simulate(
                 max_memory_bytes=max_memory_bytes,
             )  # fmt: skip
     scene = prepare_scene(src, track, config, stats, max_memory_bytes=max_memory_bytes, sources=sources)
+    warn_grazing_without_shadowing(scene)
     idx, pad = scene.idx, scene.pad
     ant_on = np.ascontiguousarray(scene.ant_m[idx])
     dt = radar.sample_interval_s
@@ -177,6 +189,8 @@ def simulate(
         _BandRun.start(name, scene_for_band(scene, cfg), i, ntr, sources, coherent_presum, first_pulse)
         for i, (name, cfg) in enumerate(config.per_band())
     ]  # fmt: skip
+    for run in runs:
+        run.gain_height_m = gain_height_m
     for run in runs:
         strip = nadir_strip_m
         if strip is None:
@@ -232,6 +246,29 @@ def simulate(
     return ds
 
 
+#: Shadowing matters when the recording window reaches ground seen this low above the horizontal
+#: (deg): the range at the window's end exceeds h / sin(angle), h the median height above the nadir
+#: terrain (airborne and low passes over relief; an orbiter's window rarely reaches that far out).
+GRAZING_ELEVATION_DEG = 15.0
+
+
+def warn_grazing_without_shadowing(scene: "Scene") -> None:
+    """Warn when ``[processing] shadowing`` is off and the geometry is grazing (see
+    :data:`GRAZING_ELEVATION_DEG`): there terrain hidden behind ridges would still echo (about 20 %
+    too much energy 20 km off-track at 5 km up in the test scene of the issue)."""
+    if scene.config.processing.shadowing or scene.idx.size == 0:
+        return
+    h = float(np.nanmedian((scene.track.alt_m - scene.h_nadir_m)[scene.idx]))
+    end_m = 0.5 * SPEED_OF_LIGHT_M_S * float(np.nanmedian(scene.start_s + scene.config.radar.window_length_s))
+    if h > 0 and end_m > h / math.sin(math.radians(GRAZING_ELEVATION_DEG)):
+        warnings.warn(
+            f"{scene.track.source}: the window reaches ground {end_m / 1e3:.1f} km away from {h / 1e3:.2f} km up "
+            f"(below {GRAZING_ELEVATION_DEG:g}° elevation) with [processing] shadowing off: terrain hidden behind "
+            "ridges still echoes; set shadowing = true",
+            stacklevel=3,
+        )
+
+
 def _kernel_groups(runs, coherent: bool, sources: bool, strip_per_band: bool) -> list[list["_BandRun"]]:
     """Bands whose kernel output differs only by a constant factor share one kernel run.
 
@@ -265,6 +302,7 @@ class _BandRun:
     rng: np.random.Generator | None
     strip_m: np.ndarray | None = None
     first_pulse: int = 0
+    gain_height_m: float | None = None
 
     @classmethod
     def start(cls, name, scene, index, ntr, sources, coherent_presum, first_pulse=0) -> "_BandRun":
@@ -301,8 +339,28 @@ class _BandRun:
         return (seed,) if self.name is None else (seed, self.index)
 
     def noise_w(self) -> float | None:
+        """Mean noise power per sample of one pulse on the ``power`` scale (W): the input noise
+        (:meth:`NoiseConfig.noise_power_w`) times the range window's equivalent noise bandwidth
+        B τ_eff, divided by the processing gains of ``[processing]`` (range compression τB and the
+        aperture's integration gain), which the echo does not get (see :mod:`cluttersim.noise`)."""
         noise = self.scene.config.noise
-        return None if noise is None else noise.noise_power_w(self.radar.bandwidth_hz)
+        if noise is None:
+            return None
+        return noise.noise_power_w(self.radar.bandwidth_hz, self.radar.center_frequency_hz) \
+            * noise_bandwidth_factor(self.radar.range_window) / self.processing_gain()
+
+    def processing_gain(self) -> float:
+        """Range-compression gain τB times the aperture's integration gain at the track's median
+        height above the nadir surface (:class:`~cluttersim.aperture.ProcessingConfig`); 1 without
+        ``pulse_length_s`` and ``prf_hz``."""
+        proc = self.scene.config.processing
+        gain = proc.range_compression_gain(self.radar.bandwidth_hz)
+        if proc.prf_hz > 0 and proc.aperture != "none":
+            h = self.gain_height_m
+            if h is None:
+                h = np.nanmedian(self.scene.track.alt_m - self.scene.h_nadir_m)
+            gain *= proc.integration_gain(self.radar.wavelength_m, float(h))
+        return gain
 
     def add_coherent(self, rows, signal) -> None:
         """Coherent mode: complex echoes of some pulses (receiver noise added as complex Gaussian)."""
@@ -353,10 +411,14 @@ class _BandRun:
             power = presum.group_mean(noisy, n).astype(np.float32)
         else:
             power = clutter
-        if cfg.noise is not None:
-            extra["noise_power"] = ((), np.float64(self.noise_w()), "W", "mean receiver noise power per sample, k T B F")
+        if cfg.noise is not None:  # coherent presumming averages the pulses' noise down by n
+            noise_out = self.noise_w() / (n if self.signal is not None else 1)
+            extra["noise_power"] = ((), np.float64(noise_out), "W",
+                                    "mean noise power per sample on the power scale, k T B F x B tau_eff / gains")  # fmt: skip
         if cfg.subsurface is not None:
-            extra.update(subsurface_variables(cfg.subsurface, radar, nadir_delay))
+            extra.update(subsurface_variables(cfg.subsurface, radar, nadir_delay, scene.src.body.mean_radius_m,
+                                              cfg.antenna.nadir_pattern_gain()))  # fmt: skip
+        attrs = {**attrs, "power_convention": POWER_CONVENTION, "power_convention_text": POWER_CONVENTION_TEXT}
         band_attrs = {**flatten_config_attrs(cfg), **attrs}
         return build_dataset(power, window_start, dt, track_out, nadir_delay, earliest, on_dem, band_attrs, extra)
 
@@ -432,8 +494,7 @@ def prepare_scene(
         )
 
     # the widest compressed pulse (lowest bandwidth) sets the padding of every band
-    band_pulses = [pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window)
-                   for r in (cfg.radar for _, cfg in config.per_band())]  # fmt: skip
+    band_pulses = [cfg.pulse_kernel() for _, cfg in config.per_band()]
     pad = max(int(offsets[-1]) for offsets, _ in band_pulses)
     kernel_weights = band_pulses[0][1]
 
@@ -504,8 +565,7 @@ def prepare_scene(
 def scene_for_band(scene: Scene, band_config: SimulationConfig) -> Scene:
     """The scene with one band's single-band configuration and compressed pulse (the DEM
     window, facets, recording windows and padding are shared by all bands)."""
-    radar = band_config.radar
-    _, weights = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
+    _, weights = band_config.pulse_kernel()
     if scene.config.processing.shadowing:
         scene.shadow_heights_m  # computed once, shared by the bands
     return dataclasses.replace(scene, config=band_config, pulse_weights=weights)
@@ -513,15 +573,26 @@ def scene_for_band(scene: Scene, band_config: SimulationConfig) -> Scene:
 
 def shadow_inputs(scene: Scene, traces):
     """Kernel inputs for line-of-sight shadowing of some traces (indices into the track):
-    (window heights, facet cells, nadir (row, col) in the window, antenna heights, highest
-    terrain); small dummies when ``[processing] shadowing`` is off."""
+    (window heights, facet cells, per trace (nadir row, nadir col in the window, Δy²/(2Rp),
+    Δx²/(2Rp)) for the curved line of sight (:func:`cluttersim.kernels.hidden_from_antenna`),
+    antenna heights, highest terrain); small dummies when ``[processing] shadowing`` is off."""
     n = len(traces)
     if not scene.config.processing.shadowing:
-        return np.zeros((1, 1), np.float32), scene.facets.cell[:1], np.zeros((n, 2)), np.zeros(n), 0.0
+        return np.zeros((1, 1), np.float32), scene.facets.cell[:1], np.zeros((n, 4)), np.zeros(n), 0.0
     heights = scene.shadow_heights_m
     x, y = scene.src.lonlat_to_xy(scene.track.lon_deg[traces], scene.track.lat_deg[traces])
     col, row = ~scene.window.transform @ (np.asarray(x, dtype=np.float64), np.asarray(y, dtype=np.float64))
-    nadir_rc = np.column_stack([np.asarray(row) - 0.5, np.asarray(col) - 0.5])
+    # the curvature of the body under the line of sight: Δy²/(2Rp), Δx²/(2Rp) per row and column step
+    rp = scene.src.body.mean_radius_m
+    t = scene.window.transform
+    if scene.src.is_geographic:
+        lat = math.radians(float(np.nanmedian(scene.track.lat_deg[traces])))
+        dy_m = rp * math.radians(abs(t.e))
+        dx_m = rp * math.radians(abs(t.a)) * max(math.cos(lat), 1e-3)
+    else:
+        dy_m, dx_m = abs(t.e), abs(t.a)
+    nadir_rc = np.column_stack([np.asarray(row) - 0.5, np.asarray(col) - 0.5, np.full(n, dy_m**2 / (2.0 * rp)),
+                                np.full(n, dx_m**2 / (2.0 * rp))])  # fmt: skip
     return heights, scene.facets.cell, nadir_rc, scene.track.alt_m[traces].astype(np.float64), float(heights.max())
 
 
@@ -570,30 +641,32 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
 COHERENT_OVERSAMPLE = 8
 
 
-def pulse_amplitude_grid(radar, oversample: int) -> np.ndarray:
-    """Compressed-pulse amplitude h sampled every dt/oversample, normalised so that the
-    energy over samples, Σ_k |g(k dt)|², is 1 (then the mean coherent power of
-    random-phase facets equals the incoherent power)."""
-    offsets, _ = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window)
+def pulse_amplitude_grid(radar, oversample: int, ionosphere=None) -> np.ndarray:
+    """Compressed-pulse complex amplitude h sampled every dt/oversample, peak-normalised (max|h| = 1
+    without an ionosphere; :func:`cluttersim.radar.pulse_amplitude_response`): a complex field
+    deposited in a bin and convolved with it reads its power at its peak sample (the ``power``
+    convention), and random-phase facets average to the incoherent mode's power."""
+    offsets, _ = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window,
+                                    radar.center_frequency_hz, ionosphere)  # fmt: skip
     half = int(offsets[-1])
     j = np.arange(-half * oversample, half * oversample + 1)
-    h = compressed_pulse_amplitude(j * radar.sample_interval_s / oversample, radar.bandwidth_hz, radar.range_window)
-    return h / np.sqrt(np.sum(h[::oversample] ** 2))
+    return pulse_amplitude_response(j * radar.sample_interval_s / oversample, radar.bandwidth_hz, radar.range_window,
+                                    radar.center_frequency_hz, ionosphere)  # fmt: skip
 
 
-def compress_coherent(re, im, radar, oversample: int, nbins: int) -> np.ndarray:
+def compress_coherent(re, im, radar, oversample: int, nbins: int, ionosphere=None) -> np.ndarray:
     """Range-compress complex impulse rows (n, nbins·oversample): the complex echo
     (impulses ⊛ g)(t_k) at the sample centres, (n, nbins)."""
     from scipy.signal import fftconvolve
 
-    g = pulse_amplitude_grid(radar, oversample)
+    g = pulse_amplitude_grid(radar, oversample, ionosphere)
     signal = fftconvolve(re + 1j * im, g[None, :], mode="same", axes=1)
     return signal[:, oversample // 2 :: oversample][:, :nbins]
 
 
-def detect_coherent(re, im, radar, oversample: int, nbins: int) -> np.ndarray:
+def detect_coherent(re, im, radar, oversample: int, nbins: int, ionosphere=None) -> np.ndarray:
     """Power per sample (n, nbins) of range-compressed complex impulse rows: |compress_coherent|²."""
-    return np.abs(compress_coherent(re, im, radar, oversample, nbins)) ** 2
+    return np.abs(compress_coherent(re, im, radar, oversample, nbins, ionosphere)) ** 2
 
 
 def coherent_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
@@ -614,7 +687,7 @@ def coherent_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
         config.kernel_weighting(), *shadow_inputs(scene, traces), 4.0 * math.pi / radar.wavelength_m,
         proc.random_phase, proc.seed, re, im,
     )  # fmt: skip
-    return compress_coherent(re, im, radar, k, nbins), n_eval
+    return compress_coherent(re, im, radar, k, nbins, config.ionosphere), n_eval
 
 
 def _compress(binned, weights, pad, samples):

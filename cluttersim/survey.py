@@ -66,7 +66,7 @@ from .errors import (
     TrackError,
 )
 from .outputs import atomic_paths, check_new
-from .radar import apparent_depth_m, delay_after_surface_s
+from .radar import POWER_CONVENTION, apparent_depth_m, delay_after_surface_s, effective_pulse_duration_s
 from .track import Track, great_circle_track, read_track_table
 
 #: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
@@ -492,8 +492,9 @@ def survey_track(job: TrackJob) -> TrackResult:
 
 
 def survey_sim_config(config: SimulationConfig, band: str | None = None) -> SimulationConfig:
-    """The configuration a survey simulates with: [noise] and [subsurface] dropped (the index
-    compares surface clutter with the surface echo); one band of a multi-band radar (``band``,
+    """The configuration a survey simulates with: [noise], [subsurface] and [ionosphere] dropped (the
+    index compares surface clutter with the surface echo, both delayed alike by a layer, and its
+    window is placed by the geometric nadir delay); one band of a multi-band radar (``band``,
     default the first); coherent mode refused."""
     if config.processing.mode == "coherent":
         raise ConfigError("[processing] mode = 'coherent': the survey needs the incoherent mode's source record; "
@@ -502,7 +503,7 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
         config = config.for_band(band or config.band_names[0])
     elif band is not None:
         raise ConfigError(f"band {band!r} asked for, but the radar has a single band (no [[band]] tables)")
-    return dataclasses.replace(config, noise=None, subsurface=None)
+    return dataclasses.replace(config, noise=None, subsurface=None, ionosphere=None)
 
 
 def job_key(dem: DemSource, sim_config: SimulationConfig, config: SurveyConfig, track: Track,
@@ -539,15 +540,21 @@ def write_track_result(result: TrackResult, path) -> Path:
     ds = xr.Dataset(
         {k: ("trace", np.asarray(v), {"units": u, "long_name": n}) for k, (v, u, n) in variables.items()},
         attrs={"Conventions": "CF-1.10", "track_id": result.track_id, "survey_key": result.key,
-               "truncated_windows": result.truncated},
+               "truncated_windows": result.truncated, "power_convention": POWER_CONVENTION},
     )  # fmt: skip
     with atomic_paths([path]) as (tmp,):
         ds.to_netcdf(tmp, engine="h5netcdf", format="NETCDF4")
     return path
 
 
-def read_track_result(path) -> TrackResult:
-    """Read a file written by :func:`write_track_result`."""
+def read_track_result(path, radar=None) -> TrackResult:
+    """Read a file written by :func:`write_track_result`.
+
+    A file without ``power_convention`` predates the level convention
+    (:data:`cluttersim.radar.POWER_CONVENTION`): its clutter index and fraction are
+    ratios of powers and read as they are; its ``surface_power`` is rescaled by
+    τ_eff/Δt of ``radar`` (:func:`cluttersim.radargram.to_current_convention`) when
+    the radar is given."""
     import xarray as xr
 
     path = Path(path)
@@ -560,11 +567,18 @@ def read_track_result(path) -> TrackResult:
         return TrackResult(
             track_id=str(ds.attrs["track_id"]), lat_deg=ds["lat"].values, lon_deg=ds["lon"].values,
             index_db=ds["clutter_index"].values, fraction=ds["clutter_fraction"].values,
-            depth_m=ds["clutter_depth"].values, surface_power_w=ds["surface_power"].values,
+            depth_m=ds["clutter_depth"].values, surface_power_w=ds["surface_power"].values * _legacy_factor(ds, radar),
             truncated=int(ds.attrs.get("truncated_windows", 0)), key=str(ds.attrs["survey_key"]),
         )  # fmt: skip
     except KeyError as exc:
         raise ClutterSimError(f"{path}: {exc} missing; expected a survey track file (delete it to recompute)") from None
+
+
+def _legacy_factor(ds, radar) -> float:
+    """τ_eff/Δt for a track file written before the power convention (1 otherwise, or without a radar)."""
+    if ds.attrs.get("power_convention") == POWER_CONVENTION or radar is None:
+        return 1.0
+    return effective_pulse_duration_s(radar.bandwidth_hz, radar.range_window) / radar.sample_interval_s
 
 
 # --------------------------------------------------------------------------- engines
@@ -763,7 +777,7 @@ def run_survey(
         The DEM; with a Dask scheduler, its path must be readable by every worker.
     config : SurveyConfig
     sim_config : SimulationConfig, optional
-        The radar (default: the built-in one); [noise] and [subsurface] are ignored.
+        The radar (default: the built-in one); [noise], [subsurface] and [ionosphere] are ignored.
     out_dir : path
         Gets ``tracks/<id>.nc`` (one per track, as each finishes) and :data:`SURVEY_FILES`.
         Tracks already there from an interrupted run with the same arguments are not
@@ -797,7 +811,7 @@ def run_survey(
         key = job_key(src, sim_config, config, st.track, body_radius_m)
         path = track_dir / track_file_name(st.track_id)
         if path.exists() and not overwrite:
-            previous = read_track_result(path)
+            previous = read_track_result(path, sim_config.radar)
             if previous.key != key:
                 raise OutputExistsError(
                     f"{path}: made by a survey with other arguments (DEM, radar, window or track); pass --overwrite "

@@ -6,7 +6,14 @@ import numpy as np
 import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.aperture import ProcessingConfig, doppler_resolution_m, focused_resolution_m, fresnel_zone_radius_m
+from cluttersim.aperture import (
+    ProcessingConfig,
+    along_track_weight,
+    doppler_resolution_m,
+    focused_resolution_m,
+    fresnel_zone_radius_m,
+    unfocused_response,
+)
 from cluttersim.errors import ConfigError
 from cluttersim.radar import RadarConfig
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
@@ -94,14 +101,46 @@ def test_focused_aperture_suppresses_clutter_ahead_and_behind(dome_runs):
     assert np.all(ratio[far] < 0.06)
 
 
-def test_unfocused_processing_keeps_the_first_fresnel_zone(dome_runs):
+def test_unfocused_processing_follows_the_unphased_sum(dome_runs):
+    """The unfocused aperture is the response of an unphased sum of the pulses over L = √(λR)
+    (it was a hard window |y| ≤ √(λR/2) before, about twice as wide): the bump's echo follows
+    aperture.unfocused_response(k y / √(λR)), 0.80 abeam, which test_unfocused_response_is_the_sum
+    checks against a direct sum of the pulses' phases."""
     along, runs, lam, r0, k = dome_runs
     ratio = runs["unfocused"] / runs["none"]
-    r_f = fresnel_zone_radius_m(lam, r0)  # 52.7 m at 1112 m
-    inside = np.abs(along) < 0.7 * r_f / k
-    outside = np.abs(along) > 1.5 * r_f / k
-    assert np.all(ratio[inside] > 0.8)
-    assert np.all(ratio[outside] < 0.05)
+    predicted = unfocused_response(k * along / np.sqrt(lam * r0))
+    np.testing.assert_allclose(ratio, predicted, atol=0.05)
+    assert ratio[np.argmin(np.abs(along))] == pytest.approx(0.80, abs=0.03)
+
+
+@pytest.mark.parametrize("y_over_root", [0.0, 0.15, 0.3, 0.6, 1.0, 2.5])
+def test_unfocused_response_is_the_sum_of_the_pulses_phases(y_over_root):
+    """Direct numerical sum of N pulses' two-way phases exp(−i 4π R_j/λ) over the aperture
+    L = √(λR), R_j = √(R² + (y − x_j)²) exact, normalised by N: |mean|² against the Fresnel-integral
+    form (30 m wavelength, 10 km range, 2001 pulses)."""
+    lam, r = 30.0, 10e3
+    length = math.sqrt(lam * r)
+    x = np.linspace(-length / 2, length / 2, 2001)
+    y = y_over_root * math.sqrt(lam * r)
+    rj = np.sqrt(r * r + (y - x) ** 2)
+    direct = abs(np.mean(np.exp(-4j * math.pi * rj / lam))) ** 2
+    assert unfocused_response(y_over_root) == pytest.approx(direct, abs=2e-3)
+    # and the kernel's weight function agrees
+    assert along_track_weight(y, r, lam, "unfocused") == pytest.approx(direct, abs=2e-3)
+
+
+def test_doppler_form_uses_the_footprint_speed():
+    """δ = v_g/B_D with v_g = v Rp/(Rp + h): at 300 km over Mars v_g = 0.9188 v, so δ is 8.8 %
+    smaller than with the platform speed (the issue's figure; Rp from the IAU 2015 report)."""
+    from cluttersim import Body, great_circle_track
+
+    body = Body.sphere(3_396_190.0)
+    track = great_circle_track(body, 0.0, 0.0, 1.0, 0.0, 300e3, 500.0)
+    proc = ProcessingConfig(aperture="focused", doppler_bandwidth_hz=4.0, platform_speed_m_s=3500.0)
+    proc = proc.with_track_speed(track, body)
+    assert proc.footprint_speed_m_s == pytest.approx(3500.0 * 3_396_190.0 / 3_696_190.0, rel=1e-9)
+    assert proc.kernel_params(15.0)[1] == pytest.approx(proc.footprint_speed_m_s / 4.0)
+    assert 3500.0 / proc.footprint_speed_m_s == pytest.approx(1.088, abs=0.001)
 
 
 def test_doppler_bandwidth_form_matches_the_equivalent_aperture(dome_runs):

@@ -9,6 +9,7 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim import Body, SimulationConfig, great_circle_track, simulate
 from cluttersim.errors import ClutterSimError, ConfigError
+from cluttersim.radar import effective_pulse_duration_s
 from cluttersim.radargram import open_radargram, select_band, write_netcdf
 from scenes import MARS_RADIUS_M, flat_geographic
 
@@ -86,7 +87,8 @@ def test_bad_band_tables_are_one_line_errors(bands, message):
 def test_each_band_follows_the_radar_equation_with_its_own_wavelength(flat_bands):
     """Level sphere, constant σ0: power per sample after the leading edge is
     Pt G² λ² σ0 2π Rp R ΔR / ((Rp+h)(4π)³R⁴) (Skolnik 2001 eq. 1.7; Brown 1977): with the
-    same window the bands differ by (λ_low/λ_high)² = (40/10)² = 16 there."""
+    same window the bands differ by (λ_low/λ_high)² (B_high/B_low) = (40/10)² × 4 = 64 there
+    (ΔR = c τ_eff/2 ∝ 1/B since the power convention; 16 before it)."""
     *_, cfg, track, _, ds = flat_bands
     assert ds["power"].dims == ("band", "trace", "sample")
     dt = 12.5e-9
@@ -96,12 +98,16 @@ def test_each_band_follows_the_radar_equation_with_its_own_wavelength(flat_bands
         p = ds["power"].sel(band=name).values[len(track) // 2]
         delay = ds["window_start"].values[len(track) // 2] + np.arange(p.size) * dt
         r = C * delay / 2
-        expected = (radar.transmit_power_w * lam**2 * 0.01 * 2 * math.pi * MARS_RADIUS_M * r * C * dt / 2
+        # ΔR = c τ_eff / 2, the compressed pulse's range extent (power convention, README "Output";
+        # it was the sample's c Δt / 2 before: power per sample)
+        tau_eff = effective_pulse_duration_s(radar.bandwidth_hz, radar.range_window)
+        expected = (radar.transmit_power_w * lam**2 * 0.01 * 2 * math.pi * MARS_RADIUS_M * r * C * tau_eff / 2
                     / ((MARS_RADIUS_M + ALT_M) * (4 * math.pi) ** 3 * r**4))  # fmt: skip
         after = slice(64 + 40, 64 + 200)  # well past the widest leading edge (low band: 1/B = 16 samples)
         np.testing.assert_allclose(p[after], expected[after], rtol=0.03)
     ratio = ds["power"].sel(band="low").values[:, after] / ds["power"].sel(band="high").values[:, after]
-    assert np.median(ratio) == pytest.approx(16.0, rel=0.01)
+    low, high = cfg.for_band("low").radar, cfg.for_band("high").radar
+    assert np.median(ratio) == pytest.approx(16.0 * high.bandwidth_hz / low.bandwidth_hz, rel=0.01)
 
 
 def _rise_samples(p):

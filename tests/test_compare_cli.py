@@ -310,3 +310,16 @@ def test_observed_and_simulated_grids_may_differ_in_sample_interval(files, tmp_p
         assert ds.attrs["delay_offset_samples"] == pytest.approx(7.3, abs=0.25)
         assert ds.attrs["gain_db"] == pytest.approx(23.0, abs=0.3)
     assert not math.isnan(float(res.output.split("delay offset:")[1].split()[0]))
+
+
+def test_a_given_tec_delays_the_simulation_before_the_alignment(files, tmp_path):
+    """--tec-el-m2: the simulation is seen through the layer, later by 2 · 40.3 · TEC / (c f²) at the
+    centre frequency (Davies, Ionospheric Radio), so the offset found shrinks by that many samples."""
+    from cluttersim.ionosphere import group_delay_two_way_s
+
+    out = tmp_path / "cmp_tec"
+    res = run(base_args(files, out) + ["--sim", files["sim"], "--tec-el-m2", "3e14"])
+    assert res.exit_code == 0, res.output
+    offset_line = next(line for line in res.output.splitlines() if line.startswith("delay offset:"))
+    delay_samples = group_delay_two_way_s(3e14, files["radar"].radar.center_frequency_hz) / DT
+    assert float(offset_line.split()[2]) == pytest.approx(7.3 - delay_samples, abs=0.5)

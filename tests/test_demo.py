@@ -13,7 +13,7 @@ def test_demo_writes_products_and_shows_off_nadir_clutter(tmp_path):
     res = CliRunner().invoke(cli, ["demo", "--out", str(out)])
     assert res.exit_code == 0, res.output
     for name in ("radargram.nc", "radargram.png", "radargram_sides.png", "radargram_focused.png", "track_map.png",
-                 "demo_track.csv", "report.html", "radargram_bands.png"):  # fmt: skip
+                 "demo_track.csv", "report.html", "radargram_bands.png", "radargram_sky_ionosphere.png"):  # fmt: skip
         assert (out / name).stat().st_size > 0
     assert "radargram.png" in res.output
     assert str(out / "report.html") in res.output  # the demo prints the report's path

@@ -6,6 +6,8 @@ import pytest
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
 from cluttersim.radar import (
     compressed_pulse_amplitude,
+    effective_pulse_duration_s,
+    pulse_amplitude_response,
     pulse_power_kernel,
     radar_equation_power_w,
     range_from_delay_m,
@@ -69,9 +71,38 @@ def test_compressed_pulse_half_power_width_matches_harris(window):
     assert width_in_inverse_b == pytest.approx(HARRIS_3DB_WIDTH[window], abs=0.01)
 
 
+# Harris (1978), Proc. IEEE 66(1), Table 1: equivalent noise bandwidth in bins of the rectangle,
+# Hanning and Hamming windows (1.00, 1.50, 1.36): for the compressed pulse it is B τ_eff,
+# τ_eff = ∫|h|² dt / max|h|².
+HARRIS_ENBW_BINS = {"none": 1.00, "hann": 1.50, "hamming": 1.36}
+
+
 @pytest.mark.parametrize("window", ["none", "hann", "hamming"])
-def test_pulse_kernel_preserves_energy_and_is_symmetric(window):
-    offsets, weights = pulse_power_kernel(10e6, 37.5e-9, window)
-    assert weights.sum() == pytest.approx(1.0, rel=1e-12)
-    np.testing.assert_allclose(weights, weights[::-1], rtol=1e-9)
+def test_effective_pulse_duration_is_harris_noise_bandwidth(window):
+    assert effective_pulse_duration_s(10e6, window) * 10e6 == pytest.approx(HARRIS_ENBW_BINS[window], abs=0.005)
+    # and equals a direct numerical ∫|h|² dt of the amplitude response (peak 1)
+    t = np.linspace(-400e-6, 400e-6, 8_000_001)
+    direct = np.trapezoid(compressed_pulse_amplitude(t, 10e6, window) ** 2, t)
+    assert direct == pytest.approx(effective_pulse_duration_s(10e6, window), rel=2e-3)
+
+
+# Previously the kernel summed to 1 (energy per sample). The shared level convention (README
+# "Output") normalises it to a PEAK of 1 for a point target at the sample, and its sum × Δt is
+# τ_eff for any Δt ≤ 1/B (Poisson summation: |h|² is band-limited to [−B, B]).
+@pytest.mark.parametrize("window", ["none", "hann", "hamming"])
+@pytest.mark.parametrize("dt", [100e-9, 75e-9, 37.5e-9, 12.5e-9])
+def test_pulse_kernel_is_peak_normalised_and_sums_to_tau_eff(window, dt):
+    offsets, weights = pulse_power_kernel(10e6, dt, window)
+    assert weights.max() == pytest.approx(1.0, rel=1e-12)
     assert offsets[np.argmax(weights)] == 0
+    np.testing.assert_allclose(weights, weights[::-1], rtol=1e-9)
+    # truncation: the unweighted |sinc|² at ±64/B, Hamming (a pedestal: sidelobes ∝ 1/t) at ±16/B
+    tol = {"none": 2e-3, "hamming": 2e-4, "hann": 1e-6}[window]
+    assert weights.sum() * dt == pytest.approx(effective_pulse_duration_s(10e6, window), rel=tol)
+
+
+def test_amplitude_response_is_the_peak_normalised_pulse():
+    t = np.linspace(-3e-7, 3e-7, 61)
+    h = pulse_amplitude_response(t, 10e6, "hann")
+    np.testing.assert_allclose(h.real, compressed_pulse_amplitude(t, 10e6, "hann"), atol=1e-15)
+    assert np.abs(h).max() == pytest.approx(1.0)

@@ -1,5 +1,7 @@
 """Line-of-sight shadowing: a wall between the track and a plateau hides the plateau."""
 
+import math
+
 import numpy as np
 import pytest
 
@@ -66,3 +68,37 @@ def test_hidden_from_antenna_on_a_ridge_profile():
 def test_shadowing_key_must_be_boolean():
     with pytest.raises(ConfigError, match=r"\[processing\] shadowing = 'yes'"):
         SimulationConfig.from_dict({"processing": {"shadowing": "yes"}})
+
+
+def test_the_line_of_sight_follows_the_body_curvature():
+    """Antenna 5 km up over column 0 of a grid of 100 m cells on a Mars-sized sphere, a facet at
+    0 m 20 km away, a ridge half-way: the exact chord between them (3-D, on the sphere) passes the
+    ridge at 2483.4 m; the march's sagitta model, 2500 − 10 km × 10 km / (2 Rp) = 2485.3 m (common
+    practice), removes 89 % of the flat approximation's error (2500 m). A 2488 m ridge hides the
+    facet; the flat approximation did not see it."""
+    rp = 3_396_190.0
+    # exact: chord from the facet (angle 20 km / Rp, radius Rp) to the antenna (angle 0, Rp + 5 km),
+    # its height above the sphere where it crosses the radial line at 10 km
+    a = np.array([0.0, rp + 5000.0])
+    th = 20e3 / rp
+    f = np.array([rp * math.sin(th), rp * math.cos(th)])
+    phi = 10e3 / rp
+    d = np.array([math.sin(phi), math.cos(phi)])
+    # solve f + s (a − f) = t d
+    s_, t_ = np.linalg.solve(np.column_stack([a - f, -d]), -f)
+    exact_m = t_ - rp
+    assert exact_m == pytest.approx(2500.0 - 10e3 * 10e3 / (2 * rp), abs=2.0)
+    h = np.zeros((3, 260), dtype=np.float32)
+    h[:, 100] = 2488.0
+    sag = 100.0**2 / (2 * rp)
+    assert hidden_from_antenna(h, 1.0, 200.0, 0.0, 1.0, 0.0, 5000.0, 2488.0, sag, sag)
+    assert not hidden_from_antenna(h, 1.0, 200.0, 0.0, 1.0, 0.0, 5000.0, 2488.0)  # flat: seen
+    h[:, 100] = 2478.0  # below the exact chord: seen either way
+    assert not hidden_from_antenna(h, 1.0, 200.0, 0.0, 1.0, 0.0, 5000.0, 2478.0, sag, sag)
+
+
+def test_grazing_geometry_without_shadowing_warns(tmp_path):
+    """The rule: shadowing off and the window reaching ground below 15° elevation (range at its
+    end > h / sin 15°): 200 m up with a 10 µs window (1.5 km of range) warns."""
+    with pytest.warns(UserWarning, match="shadowing off"):
+        run(tmp_path, False, plateau=False)

@@ -9,7 +9,7 @@ from scipy.interpolate import RegularGridInterpolator
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
-from cluttersim.radar import RadarConfig
+from cluttersim.radar import RadarConfig, effective_pulse_duration_s
 from scenes import MARS_RADIUS_M, flat_geographic, write_geotiff
 
 C = 299_792_458.0  # SI definition
@@ -21,16 +21,20 @@ def constant_sigma0_config(**radar):
 
 
 def brown_flat_sphere_power_w(cfg, range_m, alt_m, rp_m=MARS_RADIUS_M):
-    """Power per delay sample from a level sphere after the leading edge.
+    """Power of a sample from a level sphere after the leading edge.
 
     Radar equation (Skolnik, Introduction to Radar Systems, 3rd ed., eq. 1.7) applied to
     the annulus between ranges R and R + ΔR on a sphere of radius Rp seen from height h,
     dA = 2π Rp R ΔR / (Rp + h) (Brown 1977, IEEE Trans. Antennas Propag. 25(1), 67–74):
-        P = Pt G² λ² σ0 · 2π Rp R ΔR / ((Rp + h) (4π)³ R⁴),   ΔR = c Δt / 2.
+        P = Pt G² λ² σ0 · 2π Rp R ΔR / ((Rp + h) (4π)³ R⁴),   ΔR = c τ_eff / 2.
+    The power convention (README "Output") makes ΔR the range extent of the compressed
+    pulse, c τ_eff/2 with τ_eff = ∫|h|²dt / max|h|² (1.5/B for Hann: Harris 1978's
+    equivalent noise bandwidth). Before it, ΔR was the sample's c Δt/2 (power per sample),
+    so these expected values are τ_eff/Δt = 4 times the old ones at B = 10 MHz, Δt = 37.5 ns.
     """
     r = cfg.radar
     lam = C / r.center_frequency_hz
-    d_range = C * r.sample_interval_s / 2
+    d_range = C * effective_pulse_duration_s(r.bandwidth_hz, r.range_window) / 2
     return (
         r.transmit_power_w * r.gain_linear**2 * lam**2 * 0.01 * 2 * math.pi * rp_m * range_m * d_range
         / ((rp_m + alt_m) * (4 * math.pi) ** 3 * range_m**4)
