@@ -104,6 +104,18 @@ def test_segments_equal_the_one_window_run_with_presum_and_noise(airborne):
     assert not np.allclose(other_seed["power"].values[quiet], one["power"].values[quiet], rtol=1e-3)
 
 
+def test_segments_keep_the_whole_tracks_aperture_gain(airborne):
+    """With prf_hz and an unfocused aperture the noise level depends on the integration gain at the
+    track's median height: a segment takes its whole track's, so the noise floor is the same."""
+    _, dem, track = airborne
+    cfg = config(processing=ProcessingConfig(aperture="unfocused", prf_hz=1000.0, platform_speed_m_s=80.0),
+                 noise=NoiseConfig(noise_temperature_k=1e9, seed=1))  # fmt: skip
+    one = simulate(dem, track, cfg, segment_traces=None, sources=False)
+    seg = simulate(dem, track, cfg, segment_traces=16, sources=False)
+    assert float(seg["noise_power"]) == float(one["noise_power"])
+    assert_same_run(one, seg)
+
+
 def test_plan_auto_keeps_short_tracks_whole_and_cuts_long_ones(airborne):
     _, dem, track = airborne
     src = DemSource.open(dem)
