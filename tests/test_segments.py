@@ -273,4 +273,4 @@ def test_dask_runs_are_bit_identical_to_the_local_segmented_run(airborne, tmp_pa
                 for var in a.data_vars:
                     assert a[var].values.tobytes() == b[var].values.tobytes(), (name, var)
     res = CliRunner().invoke(cli, base + ["--scheduler-file", str(tmp_path / "none.json"), "--out", str(tmp_path / "x")])
-    assert res.exit_code == 2 and "none.json: file not found" in res.output, res.output
+    assert res.exit_code == 1 and "none.json: file not found" in res.output, res.output
