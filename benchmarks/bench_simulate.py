@@ -78,7 +78,7 @@ def synthetic_dem(path: Path, n: int, res_deg: float, seed: int = 42) -> Path:
     return path
 
 
-def case_inputs(name: str, shadowing: bool = False, coherent: bool = False):
+def case_inputs(name: str, shadowing: bool = False, coherent: bool = False, specular: bool = False):
     from cluttersim import Body, SimulationConfig, great_circle_track
     from cluttersim.aperture import ProcessingConfig
     from cluttersim.config import SurfaceConfig
@@ -93,7 +93,8 @@ def case_inputs(name: str, shadowing: bool = False, coherent: bool = False):
     half = n * res / 2
     length_m = np.radians(1.6 * half) * MARS_RADIUS_M
     track = great_circle_track(body, -0.8 * half, 0.0, 0.8 * half, 0.0, 300e3, length_m / (ntraces - 1) * 0.9999)
-    cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}),
+    surface = SurfaceConfig("hagfors", {"C": 400.0, "rho": 0.08}, **({"permittivity": 3.15, "rms_height_m": 0.3} if specular else {}))
+    cfg = SimulationConfig(radar=RadarConfig(samples=samples), surface=surface,
                            processing=ProcessingConfig(shadowing=shadowing, mode="coherent" if coherent else "incoherent"))  # fmt: skip
     return dem, track, cfg
 
@@ -107,20 +108,21 @@ def _busy_cores() -> float:
 
 
 def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, coherent: bool = False,
-                spreading: str = "trapezoid") -> dict:  # fmt: skip
+                spreading: str = "trapezoid", specular: bool = False) -> dict:  # fmt: skip
     """One case in this process: a first run (kernel compile or cache load) and ``repeat`` warm runs.
 
     Besides wall times, the CPU time of the process and of the kernel calls is
     recorded (``time.process_time``, all threads): on a shared machine the wall
     time of a 2-thread kernel depends on what else runs, its CPU time much less.
     ``spreading="centre"`` runs the benchmark-only centre-binned kernel variant
-    (``simulate.DELAY_SPREADING``).
+    (``simulate.DELAY_SPREADING``). ``specular``: the surface also reflects specularly
+    (``[surface] permittivity``; the physical-optics kernel, timed on its own).
     """
     import importlib
 
     import numba
 
-    from cluttersim import kernels
+    from cluttersim import kernels, kernels_coherent
     from cluttersim.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
@@ -137,7 +139,18 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
             kernel_cpu[0] += time.process_time() - c0
 
     kernels.accumulate_power = timed_kernel
-    dem, track, cfg = case_inputs(name, shadowing, coherent)
+    compiled_spec = kernels_coherent.accumulate_specular
+    specular_cpu = [0.0]
+
+    def timed_specular(*args):
+        c0 = time.process_time()
+        try:
+            return compiled_spec(*args)
+        finally:
+            specular_cpu[0] += time.process_time() - c0
+
+    kernels_coherent.accumulate_specular = timed_specular
+    dem, track, cfg = case_inputs(name, shadowing, coherent, specular)
     runs = []
     write_s = []
     load = []
@@ -145,6 +158,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
         for i in range(repeat + 1):
             st = RunStats()
             kernel_cpu[0] = 0.0
+            specular_cpu[0] = 0.0
             load.append(_busy_cores())
             t0 = time.perf_counter()
             c0 = time.process_time()
@@ -152,18 +166,22 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
             t1 = time.perf_counter()
             write_netcdf_to(ds, Path(tmp) / f"r{i}.nc")
             write_s.append(time.perf_counter() - t1)
-            runs.append((time.perf_counter() - t0, st, time.process_time() - c0, kernel_cpu[0]))
+            runs.append((time.perf_counter() - t0, st, time.process_time() - c0, kernel_cpu[0], specular_cpu[0]))
     kernels.accumulate_power = compiled
+    kernels_coherent.accumulate_specular = compiled_spec
     warm = runs[1:]
     kernel = statistics.median(r[1].seconds_kernel for r in warm)
     kernel_cpu_s = statistics.median(r[3] for r in warm)
     evals = warm[0][1].facet_evaluations
+    spec_evals = warm[0][1].specular_evaluations
+    spec_cpu_s = statistics.median(r[4] for r in warm)
     threads = numba.get_num_threads()
     return {
         "case": name,
         "sources": sources,
         "shadowing": shadowing,
         "coherent": coherent,
+        "specular": specular,
         "spreading": spreading,
         "traces": len(track),
         "samples": cfg.radar.samples,
@@ -181,6 +199,9 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
         "facet_evals_per_s": evals / kernel,
         "facet_evals_per_s_per_core": evals / kernel / threads,
         "facet_evals_per_cpu_s": evals / kernel_cpu_s if kernel_cpu_s > 0 else float("nan"),
+        "specular_evaluations": spec_evals,
+        "median_specular_cpu_s": spec_cpu_s,
+        "specular_evals_per_cpu_s": spec_evals / spec_cpu_s if spec_cpu_s > 0 else float("nan"),
         "threads": threads,
         "load_average": load,
         "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
@@ -293,6 +314,18 @@ def avx2_code_env(cache_dir: Path) -> dict:
             "NUMBA_CPU_FEATURES": text, "NUMBA_CACHE_DIR": str(cache_dir)}  # fmt: skip
 
 
+def vector_features() -> list[str]:
+    """The CPU's SIMD flags that matter for the vectorised kernels (from /proc/cpuinfo; empty elsewhere)."""
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("flags"):
+                flags = set(line.split(":", 1)[1].split())
+                return sorted(f for f in flags if f.startswith(("avx", "sse4", "fma")))
+    except OSError:
+        pass
+    return []
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--case", choices=list(CASES), action="append", help="case(s) to run (default: small, medium)")
@@ -306,6 +339,7 @@ def main(argv=None) -> int:
                     help="avx2: compile the kernels for AVX2 on an AVX-512 host (Numba's target features; own cache)")
     ap.add_argument("--variants", choices=["all", "spreading"], default="all",
                     help="spreading: only range spreading with and without the source record")
+    ap.add_argument("--specular", type=int, default=0, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.worker:
         if args.worker == "reference":
@@ -314,31 +348,32 @@ def main(argv=None) -> int:
             result = worker_startup()
         else:
             result = worker_case(args.worker, bool(args.sources), args.repeat, bool(args.shadowing), bool(args.coherent),
-                                 args.spreading)  # fmt: skip
+                                 args.spreading, bool(args.specular))  # fmt: skip
         print(json.dumps(result))
         return 0
 
     machine = {"cpu": cpu_model(), "cores": os.cpu_count(), "python": sys.version.split()[0], "platform": platform.platform(),
-               **cpu_vector_features(), "code": args.code}  # fmt: skip
+               "vector_features": vector_features(), **cpu_vector_features(), "code": args.code}  # fmt: skip
     env = avx2_code_env(CACHE / "numba-avx2") if args.code == "avx2" else None
     print(f"machine: {machine['cpu']}, {machine['cores']} cores, {machine['cpu_class']} "
           f"({' '.join(machine['vector_flags'])}); kernels compiled for: {args.code}")  # fmt: skip
     report = {"machine": machine, "cases": [], "time": time.strftime("%Y-%m-%dT%H:%M:%S")}
     for name in args.case or ["small", "medium"]:
-        # sources, shadowing, coherent, spreading
-        variants = [(0, 0, 0, "trapezoid"), (1, 0, 0, "trapezoid"), (0, 0, 0, "centre")]
+        # sources, shadowing, coherent, spreading, specular
+        variants = [(0, 0, 0, "trapezoid", 0), (1, 0, 0, "trapezoid", 0), (0, 0, 0, "centre", 0)]
         if name == "small" and args.variants == "all":
-            variants += [(0, 1, 0, "trapezoid"), (0, 0, 1, "trapezoid")]
+            variants += [(0, 1, 0, "trapezoid", 0), (0, 0, 1, "trapezoid", 0), (0, 0, 0, "trapezoid", 1)]
         if args.variants == "spreading":
             variants = variants[:2]
-        for sources, shadowing, coherent, spreading in variants:
+        for sources, shadowing, coherent, spreading, specular in variants:
             r = run_worker(["--worker", name, "--sources", str(sources), "--shadowing", str(shadowing),
-                            "--coherent", str(coherent), "--spreading", spreading, "--repeat", str(args.repeat)],
-                           env=env)  # fmt: skip
+                            "--coherent", str(coherent), "--spreading", spreading, "--specular", str(specular),
+                            "--repeat", str(args.repeat)], env=env)  # fmt: skip
             report["cases"].append(r)
             print(
                 f"{name:>7} sources={'on ' if sources else 'off'}{' shadowing' if shadowing else ''}"
-                f"{' coherent' if coherent else ''}{' centre-binned (benchmark only)' if spreading == 'centre' else ''}: "
+                f"{' coherent' if coherent else ''}{' centre-binned (benchmark only)' if spreading == 'centre' else ''}"
+                f"{' specular' if specular else ''}: "
                 f"{r['traces']} traces x {r['samples']} samples, "
                 f"window {r['dem_window'][0]}x{r['dem_window'][1]} cells | wall {r['median_wall_s']:.2f} s "
                 f"(kernel {r['median_kernel_s']:.2f} s, facets {r['median_facets_s']:.2f} s, netCDF {r['median_write_s']:.2f} s; "
@@ -346,6 +381,9 @@ def main(argv=None) -> int:
                 f"{r['facet_evals_per_s'] / 1e6:.0f} M facet-evals/s ({r['facet_evals_per_s_per_core'] / 1e6:.0f} M/s per thread; "
                 f"{r['facet_evals_per_cpu_s'] / 1e6:.0f} M per CPU-second) | "
                 f"CPU {r['median_cpu_s']:.1f} s | load avg {max(r['load_average']):.1f} | peak {r['peak_rss_mb']:.0f} MB"
+                + (f" | specular kernel: {r['specular_evaluations'] / 1e6:.0f} M (sub-)facet evaluations, "
+                   f"{r['median_specular_cpu_s']:.1f} CPU-s, {r['specular_evals_per_cpu_s'] / 1e6:.1f} M per CPU-second"
+                   if specular else "")
             )
     if args.variants == "spreading":  # the kernel alone: no reference, no start-up
         _write_report(report)

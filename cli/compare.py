@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.compare import CompareSettings, compare_to_dir, format_summary
+from cluttersim.compare import CompareSettings, compare_many, compare_to_dir, format_summary
 from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
 
 from .options import (
@@ -15,16 +15,36 @@ from .options import (
 _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 
 
+def _replaced(what: str):
+    """Callback of an option that no longer exists: stop with what replaced it."""
+
+    def callback(ctx, param, value):
+        if value is not None:
+            raise click.UsageError(f"{param.opts[0]} was replaced: {what}")
+        return value
+
+    return callback
+
+
+def _odd(ctx, param, value):
+    if value % 2 != 1:
+        raise click.BadParameter(f"{value} is even; expected an odd number of traces (centred on each trace)")
+    return value
+
+
 @click.command("compare")
-@click.option("--observed", "observed_path", required=True, type=click.Path(dir_okay=False),
+@click.option("--observed", "observed_path", type=click.Path(dir_okay=False),
               help="Observed radargram: .nc/.h5, .npy, .tif/.png image or raw binary (.bin/.raw/.dat).")
-@click.option("--observed-track", "track_path", required=True, type=click.Path(dir_okay=False),
+@click.option("--observed-track", "track_path", type=click.Path(dir_okay=False),
               help="Track CSV of the observed traces (lat, lon, alt[, time]), one row per trace.")
+@click.option("--list", "list_path", type=click.Path(dir_okay=False),
+              help="…or a CSV listing many comparisons, one per row (columns: observed, observed_track, "
+                   "sample_interval_s, sim or dem, window_start_s or window_start_column[, name, radar, values]).")
 @click.option("--sim", "sim_path", type=click.Path(dir_okay=False), help="Simulated RUN_DIR/radargram.nc to compare with.")
 @click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="…or simulate the observed track over this DEM now.")
 @radar_option
 @click.option("--body-radius-m", type=float, default=None, help="Sphere radius (m) for a DEM without CRS (with --dem).")
-@click.option("--sample-interval-s", required=True, type=_POSITIVE, help="Observed sample interval, s.")
+@click.option("--sample-interval-s", type=_POSITIVE, help="Observed sample interval, s.")
 @click.option("--window-start-s", type=click.FloatRange(min=0.0), default=None,
               help="Absolute two-way delay of observed sample 0, s (all traces).")
 @click.option("--window-start-column", default=None, help="…or the track CSV column with each trace's window start, s.")
@@ -50,11 +70,22 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 @click.option("--offset-window-traces", type=click.IntRange(min=1), default=51, show_default=True,
               help="Smoothing length of the per-trace offset, traces.")
 @click.option("--delay-tolerance-us", type=_POSITIVE, default=None,
-              help="Simulated power this close in delay can explain an echo, µs [default: 2/bandwidth].")
-@click.option("--threshold-db", type=click.FloatRange(min=0.0), default=15.0, show_default=True,
-              help="Echoes: local maxima at least this far above the noise floor, dB.")
-@click.option("--explained-within-db", type=click.FloatRange(min=0.0), default=6.0, show_default=True,
-              help="Simulated power within this many dB of the observed explains it.")
+              help="Simulated power this close in delay can explain an echo, µs "
+                   "[default: one range cell 1/B plus 3 × the offset's uncertainty].")
+@click.option("--pfa", type=click.FloatRange(0.0, 1.0, min_open=True, max_open=True), default=1e-6,
+              show_default=True, help="False-alarm probability per observed sample of the unexplained-echo test.")
+@click.option("--looks", type=click.FloatRange(min=0.0, min_open=True), default=1.0, show_default=True,
+              help="Independent looks averaged in each observed sample (1: single look, exponential power).")
+@click.option("--model-tolerance-db", type=click.FloatRange(min=0.0), default=3.0, show_default=True,
+              help="The simulated clutter may be this much too weak (DEM, scattering law), dB.")
+@click.option("--integration-traces", type=click.IntRange(min=1), default=15, show_default=True, callback=_odd,
+              help="Neighbouring traces averaged by the test, at the same depth below the surface (odd; 1: none).")
+@click.option("--threshold-db", type=float, default=None, hidden=True,
+              callback=_replaced("echoes are now tested against the predicted clutter and noise at a false-alarm "
+                                 "probability; use --pfa (and --looks)"))
+@click.option("--explained-within-db", type=float, default=None, hidden=True,
+              callback=_replaced("the simulated clutter's uncertainty is now a tolerance on its power; use "
+                                 "--model-tolerance-db"))
 @click.option("--continuity-traces", type=click.IntRange(1, 100), default=2, show_default=True,
               help="Neighbouring traces on each side checked for a candidate's continuity.")
 @permittivity_option
@@ -70,15 +101,20 @@ _POSITIVE = click.FloatRange(min=0.0, min_open=True)
 def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_radius_m, sample_interval_s,
                 window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
                 byte_order, raw_offset_bytes, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
-                delay_tolerance_us, threshold_db, explained_within_db, continuity_traces, permittivity, band, max_memory,
-                tec_el_m2, top, out_dir, overwrite, quiet):  # fmt: skip
+                delay_tolerance_us, pfa, looks, model_tolerance_db, integration_traces, threshold_db,
+                explained_within_db, continuity_traces, permittivity, band, max_memory, tec_el_m2, top, out_dir,
+                overwrite, quiet, list_path):  # fmt: skip
     """Compare an observed radargram with the simulated clutter of its track.
 
-    Aligns the observed data in delay (cross-correlating the surface echoes),
-    fits the power scale, and lists the observed echoes that simulated clutter
-    does not explain. Writes OUT/comparison.nc, OUT/candidates.csv,
+    Aligns the observed data in delay (fitting the simulated surface echo's
+    leading edge and peak), fits the power scale, and tests every observed
+    sample against the predicted clutter and noise under speckle statistics:
+    the improbable ones (p < --pfa) are the candidates. Writes
+    OUT/comparison.nc, OUT/candidates.csv, OUT/candidates.geojson,
     OUT/side_by_side.png, OUT/overlay.png and OUT/difference.png (and, with
-    --dem, the simulation as OUT/radargram.nc); prints a summary.
+    --dem, the simulation as OUT/radargram.nc); prints a summary. With --list,
+    one such folder per row (OUT/NAME/) and a combined OUT/candidates.csv,
+    OUT/candidates.geojson and OUT/candidates_map.png.
 
     \b
     Examples:
@@ -88,7 +124,40 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
       cluttersim compare --observed obs.bin --raw-dtype float32 --raw-shape 2000 1024 \\
           --byte-order big --observed-track obs_track.csv --sample-interval-s 37.5e-9 \\
           --window-start-column window_start --values db --dem site.tif --out cmp2
+      cluttersim compare --list passes.csv --out survey_cmp
     """
+    settings = CompareSettings(
+        match_tolerance_m=match_tolerance_m, max_offset_s=None if max_offset_us is None else max_offset_us * 1e-6,
+        per_trace_offset=per_trace_offset, offset_window_traces=offset_window_traces,
+        delay_tolerance_s=None if delay_tolerance_us is None else delay_tolerance_us * 1e-6, pfa=pfa, looks=looks,
+        model_tolerance_db=model_tolerance_db, integration_traces=integration_traces, permittivity=permittivity,
+        continuity_traces=continuity_traces,
+    )  # fmt: skip
+    if list_path is not None:
+        single = {"--observed": observed_path, "--observed-track": track_path, "--sim": sim_path, "--dem": dem_path,
+                  "--radar": radar_path, "--sample-interval-s": sample_interval_s, "--window-start-s": window_start_s,
+                  "--window-start-column": window_start_column}  # fmt: skip
+        given = [k for k, v in single.items() if v is not None]
+        if given:
+            raise click.UsageError(f"with --list each row names its inputs; drop {', '.join(given)}")
+
+        def report(name, result):
+            if not quiet:
+                click.echo(f"== {name}")
+                click.echo(format_summary(result, top=top))
+
+        results, paths = compare_many(list_path, out_dir, settings=settings, overwrite=overwrite, progress=not quiet,
+                                      max_memory_bytes=max_memory, on_result=report, tec_el_m2=tec_el_m2)  # fmt: skip
+        if not quiet:
+            total = sum(len(r.candidates) for _, r in results)
+            click.echo(f"all tracks: {len(results)} compared, {total} candidates")
+            for p in paths.values():
+                click.echo(f"wrote {p}")
+        return
+    for opt, value in (("--observed", observed_path), ("--observed-track", track_path),
+                       ("--sample-interval-s", sample_interval_s)):  # fmt: skip
+        if value is None:
+            raise click.UsageError(f"missing option {opt} (or give --list)")
     if (sim_path is None) == (dem_path is None):
         raise click.UsageError("give either --sim RUN_DIR/radargram.nc or --dem DEM (to simulate the observed track)")
     if (radar_path is not None or body_radius_m is not None) and dem_path is None:
@@ -104,12 +173,6 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         raise click.UsageError("--raw-dtype, --raw-shape and --raw-offset-bytes apply to raw binary files only")
     if is_raw and (raw_dtype is None or raw_shape is None):
         raise click.UsageError("a raw binary observed file needs --raw-dtype and --raw-shape TRACES SAMPLES")
-    settings = CompareSettings(
-        match_tolerance_m=match_tolerance_m, max_offset_s=None if max_offset_us is None else max_offset_us * 1e-6,
-        per_trace_offset=per_trace_offset, offset_window_traces=offset_window_traces,
-        delay_tolerance_s=None if delay_tolerance_us is None else delay_tolerance_us * 1e-6, threshold_db=threshold_db,
-        explained_within_db=explained_within_db, permittivity=permittivity, continuity_traces=continuity_traces,
-    )  # fmt: skip
     result, paths = compare_to_dir(
         observed_path, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
         config=load_config(radar_path) if dem_path else None, body_radius_m=body_radius_m,

@@ -1,8 +1,9 @@
 """The ``cluttersim`` command: one click group, one module per subcommand.
 
 This layer only parses arguments, shows progress and turns the library's
-errors into one-line messages and exit codes (1 = bad data, 2 = usage or an
-existing output); ``--debug`` shows the traceback instead.
+errors into one-line messages and exit codes (1 = bad data or a product that
+cannot be written, 2 = usage, an existing output or an output directory in use,
+130 = interrupted by SIGINT or SIGTERM); ``--debug`` shows the traceback instead.
 """
 
 from __future__ import annotations
@@ -16,6 +17,8 @@ import click
 
 from cluttersim import __version__
 from cluttersim.errors import ClutterSimError
+
+from .options import require_finite_floats
 
 
 #: Subcommand → (module of :mod:`cli`, command object): imported when the command is used, so
@@ -46,6 +49,7 @@ class _Group(click.Group):
             if name in _KERNEL_COMMANDS:
                 cmd.callback = _with_compile_notice(cmd.callback)
             self.add_command(cmd, name)
+            require_finite_floats(self, only=name)
         return super().get_command(ctx, name)
 
     def invoke(self, ctx):
@@ -59,8 +63,31 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             if ctx.obj and ctx.obj.get("debug"):
                 raise
-            click.echo("cluttersim: interrupted; no output was written", err=True)
+            click.echo(interrupt_message(), err=True)
             ctx.exit(130)
+        except OSError as exc:  # an output the library did not wrap (a figure, a directory)
+            if ctx.obj and ctx.obj.get("debug"):
+                raise
+            from cluttersim.outputs import describe_os_error
+
+            click.echo(f"cluttersim: error: {describe_os_error(exc)}", err=True)
+            ctx.exit(1)
+        except MemoryError:
+            if ctx.obj and ctx.obj.get("debug"):
+                raise
+            click.echo("cluttersim: error: out of memory; lower --max-memory so that the run is refused before "
+                       "it starts, or make it smaller (fewer traces, samples or DEM cells)", err=True)  # fmt: skip
+            ctx.exit(1)
+
+
+def interrupt_message() -> str:
+    """The one line for an interrupt: whether any product was put in place before it."""
+    from cluttersim import outputs
+
+    if not outputs.committed:
+        return "cluttersim: interrupted; no output was written"
+    names = ", ".join(str(p) for p in outputs.committed[-3:])
+    return f"cluttersim: interrupted; {len(outputs.committed)} product(s) written before it are complete ({names})"
 
 
 def _with_compile_notice(callback):
@@ -93,8 +120,23 @@ def cli(ctx, debug):
 
 
 def main(argv=None):
-    """Console entry point."""
-    return cli.main(args=argv, prog_name="cluttersim", standalone_mode=True)
+    """Console entry point: SIGINT and SIGTERM both interrupt (exit 130), and an interrupt is never
+    followed by exit 0, even where a library swallowed the KeyboardInterrupt."""
+    from cluttersim import outputs
+
+    outputs.install_interrupt_handlers()
+    try:
+        cli.main(args=argv, prog_name="cluttersim", standalone_mode=True)
+        code = 0
+    except SystemExit as exc:
+        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+    except KeyboardInterrupt:  # outside any command (argument parsing, start-up)
+        click.echo(interrupt_message(), err=True)
+        code = 130
+    if code == 0 and outputs.interrupt_count():
+        click.echo(interrupt_message(), err=True)
+        code = 130
+    sys.exit(code)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import click
 
 
@@ -88,3 +90,50 @@ band_option = click.option(
     metavar="NAME",
     help="Band of a multi-band run ([[band]] tables of the radar TOML) [default: the first].",
 )
+
+
+# --------------------------------------------------------------------------- finite numbers
+
+
+def _check_finite(value, param, ctx, fail):
+    if isinstance(value, float) and not math.isfinite(value):
+        fail(f"{value!r}: expected a finite number", param, ctx)
+    return value
+
+
+class FiniteFloat(click.types.FloatParamType):
+    """click's FLOAT without nan and ±inf."""
+
+    def convert(self, value, param, ctx):
+        return _check_finite(super().convert(value, param, ctx), param, ctx, self.fail)
+
+
+class FiniteFloatRange(click.FloatRange):
+    """click's FloatRange without nan (which passes its bounds) and ±inf."""
+
+    def convert(self, value, param, ctx):
+        _check_finite(click.FLOAT.convert(value, param, ctx), param, ctx, self.fail)
+        return super().convert(value, param, ctx)
+
+
+def finite_type(t):
+    """The finite counterpart of a click parameter type (float types only; others unchanged)."""
+    if isinstance(t, click.FloatRange) and not isinstance(t, FiniteFloatRange):
+        return FiniteFloatRange(t.min, t.max, min_open=t.min_open, max_open=t.max_open, clamp=t.clamp)
+    if type(t) is click.types.FloatParamType:
+        return FiniteFloat()
+    if isinstance(t, click.Tuple):
+        t.types = [finite_type(x) for x in t.types]
+    return t
+
+
+def require_finite_floats(group: click.Group, only: str | None = None) -> None:
+    """Make every float option and argument of every command (or of the command ``only``, as it
+    is loaded) refuse nan and inf (a usage error, exit 2), so that no command needs to remember it."""
+    for name, command in group.commands.items():
+        if only is not None and name != only:
+            continue
+        if isinstance(command, click.Group):
+            require_finite_floats(command)
+        for param in command.params:
+            param.type = finite_type(param.type)

@@ -37,9 +37,43 @@ def right_unit_vectors(body: Body, track: Track) -> np.ndarray:
         pos = body.geodetic_to_ecef_m(track.lat_deg, track.lon_deg, track.alt_m)
         travel = np.gradient(pos, axis=0)
     travel = travel - np.sum(travel * up, axis=-1, keepdims=True) * up
+    travel = _fill_still_traces(travel, up, track)
     right = np.cross(travel, up)
     norm = np.linalg.norm(right, axis=-1, keepdims=True)
     return right / np.where(norm > 0, norm, 1.0)
+
+
+def _fill_still_traces(travel, up, track):
+    """Traces without a horizontal direction of travel of their own (repeated positions, a vertical
+    climb) take the nearest moving trace's, made horizontal at their place; a track that never moves
+    is taken as flying north. Either is said in a warning: left and right were undefined there
+    (every echo counted in the nadir strip)."""
+    import warnings
+
+    speed = np.linalg.norm(travel, axis=-1)
+    still = ~(speed > 1e-6)  # metres per trace: repeated positions give exactly 0
+    if not still.any():
+        return travel
+    moving = np.flatnonzero(~still)
+    first = int(np.flatnonzero(still)[0]) + 1
+    if moving.size == 0:
+        lat = np.radians(track.lat_deg)
+        lon = np.radians(track.lon_deg)
+        travel = np.stack([-np.sin(lat) * np.cos(lon), -np.sin(lat) * np.sin(lon), np.cos(lat)], axis=-1)
+        warnings.warn(f"{track.source}: the antenna never moves horizontally; left and right are taken for a flight "
+                      "to the north (west and east)", stacklevel=3)  # fmt: skip
+        return travel
+    idx = np.flatnonzero(still)
+    k = np.clip(np.searchsorted(moving, idx), 0, moving.size - 1)
+    km = np.clip(k - 1, 0, moving.size - 1)
+    nearest = np.where(np.abs(moving[km] - idx) <= np.abs(moving[k] - idx), moving[km], moving[k])
+    travel = travel.copy()
+    t = travel[nearest]
+    travel[idx] = t - np.sum(t * up[idx], axis=-1, keepdims=True) * up[idx]
+    warnings.warn(f"{track.source}: {idx.size} trace(s) without a horizontal direction of travel of their own (repeated "
+                  f"positions; the first at row {first}); left and right use the nearest moving trace's direction",
+                  stacklevel=3)  # fmt: skip
+    return travel
 
 
 def side_fractions(left_w, right_w, total_w):

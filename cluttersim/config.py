@@ -45,8 +45,28 @@ class SurfaceConfig:
 
     law: str = "hagfors"
     params: dict = field(default_factory=dict)
+    #: Real relative permittivity ε′ of the ground: with it the surface also reflects
+    #: specularly (:mod:`cluttersim.physical_optics`), Fresnel reflectivity at normal incidence.
+    permittivity: float | None = None
+    #: Standard deviation σh of the heights below a DEM cell (m): the specular part is weighted
+    #: in power by exp(−(4π σh cos θ / λ)²). Needs ``permittivity``.
+    rms_height_m: float | None = None
 
     def __post_init__(self):
+        for name in ("permittivity", "rms_height_m"):
+            value = getattr(self, name)
+            if value is not None and (isinstance(value, bool) or not isinstance(value, (int, float))
+                                      or not math.isfinite(value)):  # fmt: skip
+                raise ConfigError(f"[surface] {name} = {value!r}: expected a finite number")
+        if self.permittivity is not None and not 1.0 < self.permittivity <= 1000.0:
+            raise ConfigError(f"[surface] permittivity = {self.permittivity!r}: expected a real relative permittivity "
+                              "above 1 (and at most 1000)")  # fmt: skip
+        if self.rms_height_m is not None:
+            if not self.rms_height_m >= 0:
+                raise ConfigError(f"[surface] rms_height_m = {self.rms_height_m!r}: expected a height >= 0 in metres")
+            if self.permittivity is None:
+                raise ConfigError("[surface] rms_height_m weights the specular reflection: expected [surface] "
+                                  "permittivity as well")  # fmt: skip
         if self.law not in LAWS:
             raise ConfigError(f"[surface] law = {self.law!r}: expected one of {', '.join(LAWS)}")
         spec = LAWS[self.law]
@@ -59,7 +79,8 @@ class SurfaceConfig:
         for name in self.params:
             if name not in spec.params:
                 raise ConfigError(
-                    f"[surface] unknown key {name!r} for law {self.law!r}: expected {', '.join(spec.params) or 'no parameters'}"
+                    f"[surface] unknown key {name!r} for law {self.law!r}: expected "
+                    f"{', '.join(spec.params + ('permittivity', 'rms_height_m'))}"
                 )
         for name, value in full.items():
             if name == "rms_slope_deg" and not 0 < value < 90:
@@ -81,8 +102,26 @@ class SurfaceConfig:
         values = [self.params[name] for name in LAWS[self.law].params] + [0.0, 0.0]
         return values[0], values[1]
 
+    @property
+    def specular(self) -> bool:
+        """Whether the surface reflects specularly as well (``permittivity`` given)."""
+        return self.permittivity is not None
+
+    def reflection_coefficient(self, fallback_to_law: bool = False) -> float | None:
+        """Normal-incidence amplitude reflection coefficient Γ of the ground: from
+        ``permittivity``; else, with ``fallback_to_law``, Γ = −√ρ from the law's ``rho``
+        (Hagfors and Gaussian: the Fresnel reflectivity); else None."""
+        if self.permittivity is not None:
+            from .physical_optics import normal_reflection_coefficient
+
+            return normal_reflection_coefficient(self.permittivity)
+        if fallback_to_law and "rho" in self.params:
+            return -math.sqrt(self.params["rho"])
+        return None
+
     def to_dict(self) -> dict:
-        return {"law": self.law, **self.params}
+        extra = {k: getattr(self, k) for k in ("permittivity", "rms_height_m") if getattr(self, k) is not None}
+        return {"law": self.law, **self.params, **extra}
 
 
 @dataclass(frozen=True)
@@ -105,6 +144,12 @@ class SimulationConfig:
                 raise ConfigError(f"[[band]] name = {name!r} appears twice: expected distinct band names")
         for band in self.bands:
             band.radar(self.radar)  # each band must be a valid radar on the shared window
+        proc = self.processing
+        if proc.mode == "coherent" and not proc.random_phase and self.surface.reflection_coefficient(True) is None:
+            raise ConfigError(
+                f"[processing] random_phase = false treats every facet as a smooth reflector: expected [surface] "
+                f"permittivity (or a law with rho; {self.surface.law!r} has none)"
+            )
         if self.ionosphere is not None:
             for _, cfg in self.per_band():
                 self.ionosphere.check_band(cfg.radar.center_frequency_hz, cfg.radar.bandwidth_hz)
@@ -152,6 +197,8 @@ class SimulationConfig:
             data = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             raise ConfigError(f"{path}: not valid TOML ({exc})") from None
+        if not data:
+            raise ConfigError(f"{path}: no tables: expected at least [radar] (omit --radar for the built-in radar)")
         try:
             return cls.from_dict(data)
         except ConfigError as exc:
@@ -263,4 +310,5 @@ def _surface_from_dict(data: dict) -> SurfaceConfig:
     law = data.pop("law", SurfaceConfig.law)
     if not isinstance(law, str):
         raise ConfigError(f"[surface] law = {law!r}: expected a string")
-    return SurfaceConfig(law=law, params=data)
+    specular = {k: data.pop(k) for k in ("permittivity", "rms_height_m") if k in data}
+    return SurfaceConfig(law=law, params=data, **specular)

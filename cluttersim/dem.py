@@ -22,6 +22,7 @@ from rasterio.windows import Window
 
 from .body import Body
 from .errors import DemError
+from .validate import height_limit_m
 
 
 #: GDAL block cache during a read, MB.
@@ -50,6 +51,10 @@ class DemSource:
     width: int
     height: int
     nodata: float | None
+    #: metres per stored value (the band's scale × its vertical unit) and the offset in metres:
+    #: height_m = stored × height_scale_m + height_offset_m (:func:`vertical_scaling`)
+    height_scale_m: float = 1.0
+    height_offset_m: float = 0.0
 
     @property
     def is_geographic(self) -> bool:
@@ -79,6 +84,9 @@ class DemSource:
             with rasterio.open(path) as ds:
                 count, width, height = ds.count, ds.width, ds.height
                 transform, nodata, rcrs = ds.transform, ds.nodata, ds.crs
+                band_scale = ds.scales[0] if ds.scales else 1.0
+                band_offset = ds.offsets[0] if ds.offsets else 0.0
+                band_unit = ds.units[0] if ds.units else None
         except rasterio.errors.RasterioIOError as exc:
             raise DemError(f"{path}: not a raster GDAL can read ({str(exc).splitlines()[0]})") from None
         if count != 1:
@@ -103,10 +111,13 @@ class DemSource:
                     f"{path}: geographic CRS {crs.name!r} has axes {axes}; expected latitude north and longitude east "
                     "(re-grid the DEM to east-positive longitudes)"
                 )
+            check_angular_units(crs, path)
             body = Body.from_crs(crs)
             if body_radius_m is not None:
                 body = Body.sphere(body_radius_m, name=f"sphere overriding {body.name}")
-        return cls(path=path, crs=crs, body=body, transform=transform, width=width, height=height, nodata=nodata)
+        scale_m, offset_m = vertical_scaling(path, band_scale, band_offset, band_unit, crs)
+        return cls(path=path, crs=crs, body=body, transform=transform, width=width, height=height, nodata=nodata,
+                   height_scale_m=scale_m, height_offset_m=offset_m)  # fmt: skip
 
     # ----------------------------------------------------------------- coordinates
 
@@ -219,11 +230,14 @@ class DemSource:
             cause = str(exc.__cause__ or exc).strip().splitlines()[0] if str(exc.__cause__ or exc).strip() else type(exc).__name__
             raise DemError(f"{self.path}: cannot read elevations, the file may be truncated or corrupt ({cause})") from None
         elev = np.ma.filled(data.astype(np.float64), np.nan)
+        if self.height_scale_m != 1.0 or self.height_offset_m != 0.0:
+            elev = elev * self.height_scale_m + self.height_offset_m
         elev[~np.isfinite(elev)] = np.nan
+        implausible = mask_implausible_heights(elev, self.body, self.path)
         wt = rasterio.windows.transform(window, self.transform)
         if out_shape is not None:
             wt = wt @ Affine.scale(window.width / out_shape[1], window.height / out_shape[0])
-        return DemWindow(source=self, window=window, transform=wt, elevation_m=elev)
+        return DemWindow(source=self, window=window, transform=wt, elevation_m=elev, implausible=implausible)
 
 
 @dataclass(frozen=True)
@@ -234,6 +248,8 @@ class DemWindow:
     window: Window
     transform: Affine
     elevation_m: np.ndarray
+    #: (count, most extreme value in metres) of cells beyond the plausible height (now holes)
+    implausible: tuple[int, float] = (0, 0.0)
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -320,7 +336,16 @@ class DemWindow:
 
 
 def warn_holes(window: DemWindow) -> None:
-    """Warn (once) with the fraction of nodata cells in the window read for a track."""
+    """Warn (once) with the fraction of nodata cells in the window read for a track, and separately
+    with the cells whose heights were beyond :func:`~cluttersim.validate.height_limit_m`."""
+    count, extreme = window.implausible
+    if count:
+        warnings.warn(
+            f"{window.source.path.name}: {count} DEM cell(s) around the track have heights beyond "
+            f"±{height_limit_m(window.source.body.mean_radius_m) / 1e3:g} km (the most extreme {extreme:.6g} m: a nodata "
+            "value without its nodata tag?); they are treated as nodata",
+            stacklevel=3,
+        )
     frac = window.hole_fraction()
     if 0 < frac < 1:  # all nodata is an error (build_facets), not a warning
         warnings.warn(
@@ -328,3 +353,107 @@ def warn_holes(window: DemWindow) -> None:
             "they are skipped (no echo from holes)",
             stacklevel=3,
         )
+
+
+# --------------------------------------------------------------------------- units and plausibility
+
+#: Band unit names (lower case) → metres, for heights. GDAL writes what the file says; these are
+#: the spellings in use for metres and feet (international foot 0.3048 m exactly; US survey foot
+#: 1200/3937 m: NIST Handbook 44, Appendix C).
+_HEIGHT_UNITS_M = {
+    **dict.fromkeys(["", "m", "metre", "metres", "meter", "meters", "metre(s)"], 1.0),
+    **dict.fromkeys(["km", "kilometre", "kilometres", "kilometer", "kilometers"], 1000.0),
+    **dict.fromkeys(["ft", "foot", "feet", "international foot", "international feet", "foot (international)",
+                     "ft (international)", "intl foot"], 0.3048),
+    **dict.fromkeys(["us survey foot", "us survey feet", "us-ft", "ftus", "ft_us", "us_survey_foot", "foot_us",
+                     "us foot", "us feet", "survey foot", "foot (us survey)"], 1200.0 / 3937.0),
+}
+
+
+def vertical_scaling(path, scale, offset, unit, crs) -> tuple[float, float]:
+    """Metres per stored value and offset in metres: the band's scale and offset (GDAL's, as in
+    int16 DEMs stored as value × scale + offset) and its vertical unit, from the band's unit
+    name or else from the vertical axis of a compound CRS. An unknown unit, or a band unit that
+    disagrees with the CRS's, is refused (DemError): heights are never used in a unit guessed."""
+    scale = 1.0 if scale is None else float(scale)
+    offset = 0.0 if offset is None else float(offset)
+    if not (math.isfinite(scale) and scale != 0 and math.isfinite(offset)):
+        raise DemError(f"{path}: band scale {scale!r} and offset {offset!r}: expected finite numbers, scale not 0")
+    name = (unit or "").strip().lower()
+    if name not in _HEIGHT_UNITS_M:
+        raise DemError(
+            f"{path}: band unit {unit!r} not understood: expected metres (m) or feet (ft, US survey foot); set the "
+            "band's unit if its heights are in one of these"
+        )
+    band_m = _HEIGHT_UNITS_M[name]
+    crs_m = _vertical_crs_unit_m(crs)
+    if name and crs_m is not None and not math.isclose(band_m, crs_m, rel_tol=1e-9):
+        raise DemError(
+            f"{path}: band unit {unit!r} ({band_m:g} m) disagrees with the CRS's vertical unit ({crs_m:g} m); expected "
+            "one unit for the heights"
+        )
+    unit_m = band_m if name else (crs_m if crs_m is not None else 1.0)
+    return scale * unit_m, offset * unit_m
+
+
+def _vertical_crs_unit_m(crs) -> float | None:
+    """Metres per unit of the vertical axis of a compound (or vertical) CRS; None if it has none."""
+    if crs is None:
+        return None
+    for sub in ([crs] if crs.is_vertical else list(getattr(crs, "sub_crs_list", None) or [])):
+        if sub.is_vertical and sub.axis_info:
+            factor = sub.axis_info[0].unit_conversion_factor
+            if factor and math.isfinite(factor):
+                return float(factor)
+    return None
+
+
+def check_angular_units(crs, path) -> None:
+    """Refuse a geographic CRS whose angles are not degrees counted from the body's reference
+    meridian (grads from Paris, EPSG:4807, would be read as degrees from Greenwich)."""
+    if crs is None or not crs.is_geographic:
+        return
+    factor = crs.axis_info[0].unit_conversion_factor if crs.axis_info else math.radians(1.0)
+    unit = crs.axis_info[0].unit_name if crs.axis_info else "degree"
+    pm = crs.prime_meridian
+    if not math.isclose(factor, math.radians(1.0), rel_tol=1e-9):
+        raise DemError(
+            f"{path}: geographic CRS {crs.name!r} counts angles in {unit}: expected degrees; reproject the DEM to a "
+            "CRS in degrees"
+        )
+    if pm is not None and pm.longitude != 0:
+        raise DemError(
+            f"{path}: geographic CRS {crs.name!r} counts longitudes from the {pm.name} meridian "
+            f"({pm.longitude:g} {pm.unit_name} east): expected the body's reference meridian (Greenwich on Earth); "
+            "reproject the DEM"
+        )
+
+
+def mask_implausible_heights(elevation_m: np.ndarray, body: Body, path) -> tuple[int, float]:
+    """Turn heights beyond ±:func:`~cluttersim.validate.height_limit_m` into holes (NaN), in place;
+    returns (their count, the most extreme). If every cell with a value is beyond it, the heights
+    are not metres on this body at all: DemError."""
+    limit = height_limit_m(body.mean_radius_m)
+    with np.errstate(invalid="ignore"):
+        bad = np.abs(elevation_m) > limit
+    count = int(np.count_nonzero(bad))
+    if not count:
+        return 0, 0.0
+    values = elevation_m[bad]
+    extreme = float(values[np.argmax(np.abs(values))])
+    if count == np.count_nonzero(np.isfinite(elevation_m)):
+        raise DemError(
+            f"{path}: every DEM cell read ({count}) is beyond ±{limit / 1e3:g} km of the reference surface (e.g. "
+            f"{extreme:.6g} m): expected heights in metres (a nodata value without its tag, or another unit?)"
+        )
+    elevation_m[bad] = np.nan
+    return count, extreme
+
+
+def crs_linear_unit_m(crs) -> float:
+    """Metres per unit of a projected CRS's x axis (1 for metres; 0.3048 for international feet);
+    1 for a geographic CRS or none (their grids are in degrees)."""
+    if crs is None or crs.is_geographic or not crs.axis_info:
+        return 1.0
+    factor = crs.axis_info[0].unit_conversion_factor
+    return float(factor) if factor and math.isfinite(factor) else 1.0

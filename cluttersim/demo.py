@@ -21,7 +21,7 @@ from .dem import DemSource
 from .errors import DemError
 from .products import RUN_FILES, simulate_to_dir
 from .report import REPORT_FILE, write_report
-from .outputs import atomic_paths, check_new
+from .outputs import atomic_paths, check_new, locked_output
 from .simulate import RunStats, simulate
 from .track import great_circle_track
 
@@ -43,6 +43,11 @@ DEMO_BANDS = (
     BandConfig("low", {"center_frequency_hz": 9e6, "bandwidth_hz": 3e6}),
     BandConfig("high", {"center_frequency_hz": 25e6, "bandwidth_hz": 20e6}),
 )
+#: The demo ground's specular reflection: ice-rich soil (ε′ = 3.15, Fresnel reflectivity 0.078) with
+#: 0.3 m rms heights below the DEM's cells (coherent share −0.3 dB at nadir, 20 MHz). Over the smooth
+#: plain (dem_examples/README.md) the nadir echo is then a mirror's; over rough ground it is not.
+DEMO_PERMITTIVITY = 3.15
+DEMO_RMS_HEIGHT_M = 0.3
 #: The demo's instrument view: galactic sky noise (ITU-R P.372 median) on a 3 dB receiver, a 100 µs
 #: chirp (range-compression gain τB = 1000, 30 dB), unfocused processing of 700 pulses/s (~440
 #: pulses over √(λh) = 2.1 km: 26 dB) and a day-side ionosphere of 2e15 el/m² (invented: 1.3 µs of
@@ -69,6 +74,14 @@ def demo_dem_path() -> Path:
     return Path(module.make_demo_dem(DEMO_DEM))
 
 
+def demo_config():
+    """The built-in radar over the demo's ground: its diffuse law plus specular reflection."""
+    base = default_config()
+    surface = dataclasses.replace(base.surface, permittivity=DEMO_PERMITTIVITY, rms_height_m=DEMO_RMS_HEIGHT_M)
+    return dataclasses.replace(base, surface=surface)
+
+
+@locked_output("out_dir")
 def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool = True) -> tuple[dict[str, Path], RunStats]:
     """Run the demo scenario end to end; returns the product paths and run counters."""
     out_dir = Path(out_dir)
@@ -84,18 +97,21 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
         src.body, *DEMO_START_LAT_LON, *DEMO_END_LAT_LON, DEMO_ALT_M, DEMO_SPACING_M, speed_m_s=DEMO_SPEED_M_S
     )
     stats = RunStats()
-    paths = simulate_to_dir(src, track, default_config(), out_dir, overwrite=True, progress=progress, stats=stats)
+    paths = simulate_to_dir(src, track, demo_config(), out_dir, overwrite=True, progress=progress, stats=stats)
     # the same pass as focused data would show it: clutter ahead of and behind the spacecraft
     # suppressed by along-track processing, clutter beside the track kept
     focused_cfg = dataclasses.replace(
-        default_config(), processing=ProcessingConfig(aperture="focused", aperture_length_m=DEMO_APERTURE_M)
+        demo_config(), processing=ProcessingConfig(aperture="focused", aperture_length_m=DEMO_APERTURE_M)
     )
     focused = simulate(src, track, focused_cfg, sources=False)
     # the same pass seen by two bands: the wide band resolves the clutter finely, the narrow one smears it
-    bands = simulate(src, track, dataclasses.replace(default_config(), bands=DEMO_BANDS), sources=False)
+    bands_cfg = dataclasses.replace(demo_config(), bands=DEMO_BANDS)  # only the samples shown are simulated
+    bands_cfg = dataclasses.replace(bands_cfg, radar=dataclasses.replace(bands_cfg.radar, samples=DEMO_BANDS_SAMPLES))
+    bands = simulate(src, track, bands_cfg, sources=False)
     # the same pass as the instrument records it: galactic noise floor, compression gain, ionosphere
-    sky_cfg = dataclasses.replace(default_config(), noise=DEMO_SKY, processing=DEMO_INSTRUMENT,
+    sky_cfg = dataclasses.replace(demo_config(), noise=DEMO_SKY, processing=DEMO_INSTRUMENT,
                                   ionosphere=IonosphereConfig(tec_el_m2=DEMO_TEC_EL_M2))  # fmt: skip
+    sky_cfg = dataclasses.replace(sky_cfg, radar=dataclasses.replace(sky_cfg.radar, samples=DEMO_SKY_SAMPLES))
     sky = simulate(src, track, sky_cfg, sources=False)
     with atomic_paths([track_csv, focused_png, bands_png, sky_png]) as (tmp_csv, tmp_png, tmp_bands, tmp_sky):
         track.to_csv(tmp_csv)

@@ -41,3 +41,13 @@ class OutputExistsError(ClutterSimError, FileExistsError):
 
 class MemoryLimitError(ClutterSimError, MemoryError):
     """Raised before reading when a run's estimated memory exceeds the allowed limit."""
+
+
+class OutputError(ClutterSimError, OSError):
+    """Raised when a product cannot be written (no space left, read-only file system, bad path)."""
+
+
+class OutputLockedError(ClutterSimError, BlockingIOError):
+    """Raised when another run holds the lock on an output directory."""
+
+    exit_code = 2

@@ -692,8 +692,15 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     inv_ov = 1.0 / ov
     nsub = nb * ov
     inv_sub_m = ov / (half_c * dt_s)
-    # a facet reaching the window has every corner within 2 half-extents (+ rounding) of it
-    margin = int(2.0 * max_extent_m * inv_sub_m) + 8
+    # a facet reaching the window has every corner within 2 half-extents (+ rounding) of it; the
+    # margin is capped (a facet wider than 4 windows is clipped to that width) so that it is an int
+    # for any input, and every facet's widths are clipped to it below: no index leaves the rows
+    ext_sub = 2.0 * max_extent_m * inv_sub_m
+    cap_sub = 4.0 * nsub + 64.0
+    if not ext_sub < cap_sub:  # also for nan
+        ext_sub = cap_sub
+    margin = int(ext_sub) + 8
+    wmax = 0.5 * (margin - 8)
     nrow = nsub + 2 * margin + 2
     nblk = (nt + traces_per_block - 1) // traces_per_block
     counts = np.zeros(nblk, dtype=np.int64)
@@ -740,11 +747,15 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     cos_inc = -(vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f]) * inv_r
                     wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) * inv_r * inv_sub_m
                     wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) * inv_r * inv_sub_m
+                    wa = wa if wa < wmax else wmax  # nan too: the kinks stay inside the row whatever the input
+                    wb = wb if wb < wmax else wmax
                     x = r2 * inv_r * inv_sub_m - x0
                     half = 0.5 * (wa + wb)
                     ok = (cos_inc > 0.0) & (x + half > 0.0) & (x - half < nsub)
                     # corners clamped into the row's margins: only facets outside the window (p = 0) move
-                    xc = min(max(x, -1.0 * margin), 1.0 * (nsub + margin))
+                    # (written so that a nan position lands on the margin too)
+                    xc = x if x > -1.0 * margin else -1.0 * margin
+                    xc = xc if xc < 1.0 * (nsub + margin) else 1.0 * (nsub + margin)
                     # centre spreading: widths 0, so A = B = 1 and the first corner floor(x); no branch on
                     # the mode here, it would stop the vectorisation (as do more output buffers)
                     n1, a, b = trapezoid_kinks_float(xc, wa * spread_on, wb * spread_on)
@@ -1050,7 +1061,7 @@ def accumulate_complex(ant, bin0_s, dt_s, oversample, tile_centre, tile_radius, 
                 r2 = vx * vx + vy * vy + vz * vz
                 r = math.sqrt(r2)
                 x = r * inv_grid_m - x0
-                if x < 0.0 or x >= ngrid - 1:
+                if not (x >= 0.0 and x < ngrid - 1):  # nan too
                     continue
                 inv_r = 1.0 / r
                 cos_inc = -(vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f]) * inv_r

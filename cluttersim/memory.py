@@ -130,3 +130,70 @@ def check_memory(estimate: MemoryEstimate, limit_bytes: int | None, *, given: bo
         "Use a coarser DEM, fewer samples or a later window, fewer traces (split the track), or --no-sources; "
         "or raise --max-memory"
     )
+
+
+#: Bytes held per observed value while comparing: the stored value, its power (float64) and the
+#: resampled copies on the simulated grid (observed and simulated, float64).
+BYTES_PER_OBSERVED_VALUE = 8 + 8 + 8
+
+
+def observed_shape(path, file_format: str | None, raw_shape=None, variable: str | None = None):
+    """(rows, columns, bytes per stored value) of an observed array from its metadata alone (no
+    values read), for the formats whose headers give it; None when it cannot be told."""
+    from pathlib import Path as _P
+
+    import numpy as np
+
+    path = _P(path)
+    suffix = path.suffix.lower()
+    kind = file_format or {".npy": "npy", ".tif": "image", ".tiff": "image", ".png": "image", ".bin": "raw",
+                           ".raw": "raw", ".dat": "raw", ".nc": "netcdf", ".nc4": "netcdf", ".h5": "netcdf",
+                           ".hdf5": "netcdf", ".he5": "netcdf"}.get(suffix)  # fmt: skip
+    try:
+        if kind == "npy":
+            with open(path, "rb") as fh:
+                version = np.lib.format.read_magic(fh)
+                read = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
+                shape, _, dtype = read(fh)
+            return (*shape, dtype.itemsize) if len(shape) == 2 else None
+        if kind == "raw" and raw_shape is not None:
+            return int(raw_shape[0]), int(raw_shape[1]), 8
+        if kind == "image":
+            import rasterio
+
+            with rasterio.open(path) as src:
+                return src.height, src.width, np.dtype(src.dtypes[0]).itemsize
+        if kind == "netcdf":
+            import h5py
+
+            with h5py.File(path, "r") as f:
+                sets = []
+                f.visititems(lambda name, obj: sets.append((name, obj)) if isinstance(obj, h5py.Dataset) else None)
+                two_d = [(n, d) for n, d in sets if d.ndim == 2 and (variable is None or n == variable.strip("/"))]
+                if two_d:
+                    n, d = max(two_d, key=lambda nd: nd[1].size)
+                    return d.shape[0], d.shape[1], d.dtype.itemsize
+    except Exception:  # an unreadable header is reported by the reader itself, with its own message
+        return None
+    return None
+
+
+def check_observed_memory(path, limit, *, file_format=None, raw_shape=None, variable=None) -> None:
+    """Refuse (MemoryLimitError) an observed array whose comparison would need more than ``limit``
+    bytes ("auto": :func:`default_limit_bytes`; None: no check), from its header, before reading it."""
+    given = limit != "auto"
+    if not given:
+        limit = default_limit_bytes()
+    elif isinstance(limit, str):
+        limit = parse_size(limit)
+    shape = observed_shape(path, file_format, raw_shape, variable)
+    if limit is None or shape is None:
+        return
+    rows, cols, item = shape
+    need = rows * cols * (item + BYTES_PER_OBSERVED_VALUE)
+    if need > limit:
+        what = "the limit given (--max-memory)" if given else f"{DEFAULT_FRACTION:.0%} of the available memory (--max-memory)"
+        raise MemoryLimitError(
+            f"{path}: the observed array ({rows:,} x {cols:,} values) needs about {format_bytes(need)} to compare; more "
+            f"than {format_bytes(limit)}, {what}. Cut it into shorter pieces along the track, or raise --max-memory"
+        )

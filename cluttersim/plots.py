@@ -679,7 +679,7 @@ def plot_comparison_overlay(
         ax.contour(np.arange(ntrace), _sample_centres_us(sim), z, levels=levels, colors=CONTOUR_COLOURS,
                    linewidths=(0.8, 1.1, 1.4))  # fmt: skip
     for colour, step, lw in zip(CONTOUR_COLOURS, (0, 10, 20), (0.8, 1.1, 1.4)):
-        handles.append(Line2D([], [], color=colour, lw=lw, label=f"simulated: noise + {threshold_db + step:g} dB"))
+        handles.append(Line2D([], [], color=colour, lw=lw, label=f"simulated: noise + {threshold_db + step:.1f} dB"))
     ax.set_ylim(obs.delay_bottom_us, obs.delay_top_us)
     marker = _draw_candidates(ax, obs, list(candidates))
     if marker is not None:

@@ -14,8 +14,8 @@ import numpy as np
 
 from .body import Body
 from .constants import SPEED_OF_LIGHT_M_S
-from .dem import DemSource
-from .outputs import atomic_paths, check_new
+from .dem import DemSource, crs_linear_unit_m
+from .outputs import atomic_paths, check_new, locked_output
 from .radargram import band_names, select_band, thin_traces, write_netcdf_to
 from .simulate import _window_for_radius, ground_radius_m, simulate
 from .track import Track, great_circle_track
@@ -50,6 +50,7 @@ def run_files(band_names=(), sources: bool = True) -> dict[str, str]:
 _MAP_CELLS = 900
 
 
+@locked_output("out_dir")
 def simulate_to_dir(
     dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None,
     sources=True, nadir_strip_m=None, first_return_db=-20.0, permittivity=3.15, max_memory_bytes="auto",
@@ -58,7 +59,10 @@ def simulate_to_dir(
     """Simulate and write the run's products (:data:`RUN_FILES`) into ``out_dir``.
 
     Existing products are refused before any work unless ``overwrite``; all
-    are written under temporary names and renamed together at the end.
+    are written under temporary names and renamed together at the end; with
+    ``overwrite``, figures of the previous run that this one does not make (the
+    side figure without the source record, other bands') are removed, with a warning.
+    The directory is locked while the run lasts (:func:`~cluttersim.outputs.lock_directory`).
     ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
     and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
 
@@ -101,8 +105,42 @@ def simulate_to_dir(
                   max_memory_bytes=max_memory_bytes, segment_traces=None)  # fmt: skip
     if summary is not None:
         summary.update(segments=1, resumed=0, computed=1)
+    stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
     write_run(ds, src, paths, permittivity=permittivity)
+    remove_stale_products(out_dir, stale)
     return paths
+
+
+def previous_run_files(out_dir) -> set[str]:
+    """Names of the files a run already in ``out_dir`` wrote (from its radargram.nc's bands)."""
+    out_dir = Path(out_dir)
+    nc = out_dir / RUN_FILES["radargram"]
+    if not nc.exists():
+        return set()
+    bands = []
+    try:
+        import h5py
+
+        with h5py.File(nc, "r") as f:
+            if "band" in f:
+                bands = [b.decode() if isinstance(b, bytes) else str(b) for b in f["band"][()]]
+    except (OSError, ValueError, KeyError):
+        pass
+    return set(run_files(bands, sources=True).values()) | set(RUN_FILES.values())
+
+
+def remove_stale_products(out_dir, names) -> None:
+    """Remove products of a previous run that the new one replaced without rewriting them, saying so."""
+    import warnings
+
+    removed = []
+    for name in sorted(names):
+        p = Path(out_dir) / name
+        if p.exists():
+            p.unlink()
+            removed.append(name)
+    if removed:
+        warnings.warn(f"{out_dir}: removed {', '.join(removed)} of the previous run (not made by this one)", stacklevel=3)
 
 
 def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15) -> None:
@@ -176,7 +214,7 @@ class MapFrame:
         x1, y1 = x0 + transform.a * nx, y0 + transform.e * ny
         if src.is_geographic:
             return cls(src, (x0, x1, y1, y0), x0, 1.0, ("longitude (°E)", "latitude (°N)"))
-        k = 1e-3
+        k = 1e-3 * crs_linear_unit_m(src.crs)  # km, whatever the CRS's unit
         return cls(src, (x0 * k, x1 * k, y1 * k, y0 * k), x0, k, ("easting (km)", "northing (km)"))
 
     def xy(self, lon_deg, lat_deg):

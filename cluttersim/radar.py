@@ -25,6 +25,7 @@ import numpy as np
 
 from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ConfigError
+from .validate import MAX_TRANSMIT_POWER_W
 
 #: Raised-cosine window coefficients a0 in w(f) = a0 + (1 − a0) cos(2πf/B), |f| ≤ B/2 ([3]_).
 RANGE_WINDOWS = {"none": 1.0, "hann": 0.5, "hamming": 0.54}
@@ -187,6 +188,29 @@ def pulse_amplitude_response(t_s, bandwidth_hz: float, window: str = "hann", cen
     return out
 
 
+def _pulse_extent_s(bandwidth_hz: float, window: str = "hann", center_frequency_hz: float | None = None,
+                    ionosphere=None) -> tuple[float, float]:  # fmt: skip
+    """Delays (s) before and after the centre where :func:`pulse_power_kernel` truncates the response."""
+    extent_s = (64.0 if window == "none" else 16.0) / bandwidth_hz
+    lo_s, hi_s = -extent_s, extent_s
+    if ionosphere is not None and ionosphere.active:
+        from .ionosphere import group_delay_two_way_s
+
+        f_lo = center_frequency_hz - 0.5 * bandwidth_hz
+        f_hi = center_frequency_hz + 0.5 * bandwidth_hz
+        d_lo, d_hi = group_delay_two_way_s(ionosphere.tec_el_m2, np.array([f_hi, f_lo]))
+        lo_s, hi_s = d_lo - extent_s, d_hi + extent_s
+    return float(lo_s), float(hi_s)
+
+
+def pulse_half_width_samples(bandwidth_hz: float, sample_interval_s: float, window: str = "hann",
+                             center_frequency_hz: float | None = None, ionosphere=None) -> int:  # fmt: skip
+    """Samples on each side of the centre of :func:`pulse_power_kernel`'s response (known before
+    the response is computed, for the memory check)."""
+    lo_s, hi_s = _pulse_extent_s(bandwidth_hz, window, center_frequency_hz, ionosphere)
+    return int(math.ceil(max(abs(lo_s), abs(hi_s)) / sample_interval_s))
+
+
 def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: str = "hann",
                        center_frequency_hz: float | None = None, ionosphere=None):  # fmt: skip
     """Compressed-pulse power response on the sample grid, peak-normalised.
@@ -203,15 +227,7 @@ def pulse_power_kernel(bandwidth_hz: float, sample_interval_s: float, window: st
     sidelobes have decayed (±16/B for Hann and Hamming, ±64/B unweighted); an
     ionosphere widens it to cover its group delays across the band.
     """
-    extent_s = (64.0 if window == "none" else 16.0) / bandwidth_hz
-    lo_s, hi_s = -extent_s, extent_s
-    if ionosphere is not None and ionosphere.active:
-        from .ionosphere import group_delay_two_way_s
-
-        f_lo = center_frequency_hz - 0.5 * bandwidth_hz
-        f_hi = center_frequency_hz + 0.5 * bandwidth_hz
-        d_lo, d_hi = group_delay_two_way_s(ionosphere.tec_el_m2, np.array([f_hi, f_lo]))
-        lo_s, hi_s = d_lo - extent_s, d_hi + extent_s
+    lo_s, hi_s = _pulse_extent_s(bandwidth_hz, window, center_frequency_hz, ionosphere)
     half = int(math.ceil(max(abs(lo_s), abs(hi_s)) / sample_interval_s))
     offsets = np.arange(-half, half + 1)
     t = offsets * sample_interval_s
@@ -249,6 +265,10 @@ class RadarConfig:
             value = getattr(self, key)
             if not (math.isfinite(value) and value > 0):
                 raise ConfigError(f"[radar] {key} = {value!r}: expected a positive number")
+        if self.transmit_power_w > MAX_TRANSMIT_POWER_W:
+            raise ConfigError(
+                f"[radar] transmit_power_w = {self.transmit_power_w!r}: expected at most {MAX_TRANSMIT_POWER_W:g} W"
+            )
         if self.samples < 2:
             raise ConfigError(f"[radar] samples = {self.samples!r}: expected an integer of at least 2")
         if self.samples > 1_000_000:

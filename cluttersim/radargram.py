@@ -63,7 +63,9 @@ DEM file name, the body and the package version.
 from __future__ import annotations
 
 import contextlib
+import io
 import json
+import os
 from pathlib import Path
 
 import numpy as np
@@ -236,9 +238,53 @@ def write_netcdf_to(ds: xr.Dataset, path) -> None:
             enc["chunksizes"] = (1,) * (len(shape) - 2) + (min(_CHUNK_TRACES, shape[-2]), shape[-1])
         encoding[name] = enc
     placeholder = ds.assign({n: ds[n].copy(data=np.zeros(ds[n].shape, dtype=np.float32)) for n in parallel})
-    placeholder.to_netcdf(path, engine="h5netcdf", encoding=encoding, format="NETCDF4")
+    image = io.BytesIO()
+    with _local_write_lock():
+        placeholder.to_netcdf(image, engine="h5netcdf", encoding=encoding, format="NETCDF4")
     if parallel:
-        _write_deflated_chunks(path, {n: np.ascontiguousarray(ds[n].values) for n in parallel})
+        image.seek(0)
+        _write_deflated_chunks(image, {n: np.ascontiguousarray(ds[n].values) for n in parallel})
+    write_file_image(image, path)
+
+
+def save_netcdf(ds: xr.Dataset, path, **to_netcdf_kwargs) -> None:
+    """``ds.to_netcdf(path, engine="h5netcdf")`` built in memory, then written by :func:`write_file_image`."""
+    image = io.BytesIO()
+    with _local_write_lock():
+        ds.to_netcdf(image, engine="h5netcdf", **{"format": "NETCDF4", **to_netcdf_kwargs})
+    write_file_image(image, path)
+
+
+def _local_write_lock():
+    """With a Dask distributed client in the process, xarray takes a cluster-wide lock named after
+    the target, which an in-memory file has not: the image is written with a local lock instead."""
+    import contextlib
+    import sys
+
+    if "dask" not in sys.modules:
+        return contextlib.nullcontext()
+    import dask
+
+    return dask.config.set(scheduler="synchronous")
+
+
+def write_file_image(image: io.BytesIO, path) -> None:
+    """Write an HDF5 file built in memory to ``path`` with plain file I/O.
+
+    HDF5 is never the one writing to disk: a write error there (a full disk) leaves
+    its file object in a state that crashes the interpreter at exit, whereas an
+    OSError from ``write`` is an ordinary exception (see
+    :func:`cluttersim.outputs.atomic_paths`).
+    """
+    try:
+        with open(path, "wb") as fh:
+            fh.write(image.getbuffer())
+            fh.flush()
+            os.fsync(fh.fileno())
+    except OSError as exc:
+        if exc.filename is None:  # write() and fsync() errors do not name the file
+            raise OSError(exc.errno, exc.strerror, str(path)) from None
+        raise
 
 
 def _zlib_compressor():
@@ -254,7 +300,7 @@ def _zlib_compressor():
     return lambda data, level: isal_zlib.compress(data, min(level, 3))
 
 
-def _write_deflated_chunks(path, arrays: dict) -> None:
+def _write_deflated_chunks(path, arrays: dict) -> None:  # path: a file name or a file object
     """Overwrite every chunk of the given (chunked, shuffle + deflate) datasets of an HDF5 file with
     ``arrays``, compressed in parallel: the HDF5 shuffle filter (byte k of every element together,
     for k = 0..itemsize−1, over the whole padded chunk) then a zlib stream at the dataset's level

@@ -395,9 +395,35 @@ def load_inputs(run_dir, *, sim=None, band=None) -> RunInputs:
             f"{sim_path}: has {sim_ds.sizes['trace']} traces but {cmp_path} matches trace {int(st.max())}; "
             "expected the simulated radargram of that comparison"
         )
+    check_same_simulation(comparison, sim_ds, cmp_path, sim_path)
     cand_path = run_dir / COMPARE_FILES["candidates"]
     candidates = _read_candidates(cand_path) if cand_path.exists() else []
     return RunInputs(run_dir, kind, sim_ds, sim_path, comparison, candidates)
+
+
+def check_same_simulation(comparison, sim_ds, cmp_path, sim_path) -> None:
+    """Refuse a simulated radargram other than the one a comparison was made with: each matched
+    trace's window start and nadir delay, copied into comparison.nc, must be those of its
+    simulated trace (to a thousandth of a sample)."""
+    st = comparison["sim_trace"].values
+    matched = np.flatnonzero(st >= 0)
+    if not matched.size:
+        return
+    dt = float(sim_ds["delay"].values[1] - sim_ds["delay"].values[0]) if sim_ds.sizes["sample"] > 1 else 1e-9
+    rows = st[matched].astype(np.int64)
+    for name in ("window_start", "nadir_delay"):
+        if name not in comparison or name not in sim_ds:
+            continue
+        a = comparison[name].values[matched]
+        b = sim_ds[name].values[rows]
+        both = np.isfinite(a) & np.isfinite(b)
+        off = np.flatnonzero(both & (np.abs(a - b) > 1e-3 * dt))
+        if off.size:
+            i = off[0]
+            raise ClutterSimError(
+                f"{sim_path}: trace {rows[i]} has {name} {b[i] * 1e6:.6f} µs but {cmp_path} recorded {a[i] * 1e6:.6f} µs "
+                "for it; expected the simulated radargram of that comparison"
+            )
 
 
 def _read_candidates(path) -> list[dict]:
@@ -411,7 +437,8 @@ def _read_candidates(path) -> list[dict]:
         rows = []
         for line, row in enumerate(reader, start=2):
             try:
-                rows.append({k: (int(row[k]) if k in ("rank", "trace", "sample", "sim_trace") else float(row[k]))
+                rows.append({k: (int(row[k]) if k in ("rank", "trace", "sample", "sim_trace")
+                                 else float(row[k]) if row[k] != "" else math.nan)
                              for k in CANDIDATE_COLUMNS})  # fmt: skip
             except ValueError:
                 raise ClutterSimError(f"{path}: row {line} has a value that is not a number") from None
@@ -611,9 +638,11 @@ def parameter_sections(inputs: RunInputs, src) -> list[dict]:
             ("surface correlation", f"{float(a.get('surface_correlation', math.nan)):.3f}"),
             ("gain", f"{float(a.get('gain_db', math.nan)):+.2f} ± {float(a.get('gain_uncertainty_db', math.nan)):.2f} dB"),
             ("noise floor from", str(a.get("noise_floor_source", ""))),
-            ("detection threshold", f"{float(a.get('threshold_db', math.nan)):g} dB above the noise floor"),
-            ("explained within", f"{float(a.get('explained_within_db', math.nan)):g} dB, "
-                                 f"±{float(a.get('delay_tolerance_s', math.nan)) * 1e6:.4f} µs"),
+            ("test", f"false-alarm probability {float(a.get('pfa', math.nan)):g} per sample, "
+                     f"{float(a.get('looks', math.nan)):g} look(s), {a.get('integration_traces', '?')} trace(s) "
+                     "integrated"),
+            ("clutter tolerances", f"+{float(a.get('model_tolerance_db', math.nan)):g} dB, "
+                                   f"±{float(a.get('delay_tolerance_s', math.nan)) * 1e6:.4f} µs"),
             ("candidates", f"{len(inputs.candidates or [])}"),
         ]})  # fmt: skip
     return sections
@@ -641,6 +670,15 @@ def cautions(inputs: RunInputs, sim_shape: GridShape, permittivity: float, quant
     except ValueError:
         cfg = {}
     proc = cfg.get("processing", {})
+    surface = cfg.get("surface", {})
+    if "permittivity" in surface:
+        out.append("Specular reflection is physical optics over planar DEM facets, weakened only by rms_height_m "
+                   f"({surface.get('rms_height_m', 0)} m): glints from slopes facing the antenna are those of smooth "
+                   "facets. Where the specular echo dominates a sample, the source shown is still the densest "
+                   "diffuse facet; the left/right shares include the specular power.")  # fmt: skip
+    elif proc.get("mode") != "coherent" or proc.get("random_phase", True):
+        out.append("No specular reflection ([surface] permittivity not set): over smooth ground the nadir echo "
+                   "is weaker than a smooth surface returns (15-20 dB at HF).")  # fmt: skip
     if not proc.get("shadowing", False):
         out.append("Shadowing was off: terrain hidden behind ridges still echoes if it faces the antenna.")
     if proc.get("aperture", "none") == "none":
@@ -658,11 +696,8 @@ def cautions(inputs: RunInputs, sim_shape: GridShape, permittivity: float, quant
     out.extend(quant_notes)
     if inputs.kind == "comparison":
         a = inputs.comparison.attrs
-        if float(a.get("surface_correlation", 1.0)) < 0.3:
-            out.append(f"Weak surface correlation ({float(a['surface_correlation']):.2f}): the delay offset may be unreliable.")
-        if str(a.get("noise_floor_source", "before surface")) != "before surface":
-            out.append("The noise floor came from the deepest samples (no samples before the surface echo): "
-                       "deep echoes raise it.")  # fmt: skip
+        for line in str(a.get("warnings", "")).splitlines():
+            out.append(line[:1].upper() + line[1:] + ".")
         out.append("Power in the observed and overlay views is in the observed data's own unit (dB of it); "
                    "the simulated power there is scaled by the fitted gain.")  # fmt: skip
     return out

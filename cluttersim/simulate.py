@@ -27,7 +27,7 @@ from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
-from . import __version__, kernels, memory, presum
+from . import __version__, kernels, kernels_coherent, memory, physical_optics, presum
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
@@ -41,12 +41,14 @@ from .radar import (
     POWER_CONVENTION_TEXT,
     noise_bandwidth_factor,
     pulse_amplitude_response,
+    pulse_half_width_samples,
     pulse_limited_radius_m,
     pulse_power_kernel,
 )
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track
+from .validate import check_far_field, check_noise_power, check_power_finite, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
@@ -73,12 +75,29 @@ class RunStats:
 
     facets: int = 0
     facet_evaluations: int = 0
+    specular_evaluations: int = 0
     dem_window_shape: tuple[int, int] = (0, 0)
     seconds_facets: float = 0.0
     seconds_kernel: float = 0.0
     seconds_total: float = 0.0
 
 
+def _refuse_overflow(fn):
+    """Run without NumPy's overflow warnings and refuse a radargram whose power overflowed, in one
+    line (:func:`~cluttersim.validate.check_power_finite`)."""
+    import functools
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        with np.errstate(over="ignore"):
+            ds = fn(*args, **kwargs)
+        check_power_finite(ds["power"].values)
+        return ds
+
+    return wrapper
+
+
+@_refuse_overflow
 def simulate(
     dem,
     track,
@@ -150,8 +169,10 @@ def simulate(
         the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).
     """
     t_start = time.perf_counter()
+    check_run_arguments(first_return_db=first_return_db, nadir_strip_m=nadir_strip_m)
     stats = stats if stats is not None else RunStats()
     config = config if config is not None else default_config()
+    check_noise_power(config)
     radar = config.radar  # the window (samples, sample interval, start) is shared by every band
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
@@ -217,10 +238,17 @@ def simulate(
                 for run in group:
                     scaled = binned if run is ref else binned * (run.radar_constant / ref.radar_constant)
                     compressed = _compress(scaled[:, 0], run.scene.pulse_weights, pad, radar.samples)
+                    specular = None
+                    if run.scene.config.surface.specular:  # the coherent (physical-optics) reflection, as power
+                        specular, n_spec = specular_power(run.scene, ant_on[a:b], bin0[a:b], nbins, frames[a:b], rows,
+                                                          right_unit[a:b] if sources else None, run.strip_m[a:b])
+                        specular = specular[..., pad : pad + radar.samples]
+                        stats.specular_evaluations += n_spec
+                        compressed = compressed + specular[:, 0]
                     run.power[rows] = compressed
                     if sources:
                         run.record.add(rows, scaled, best, compressed, run.scene.pulse_weights, pad, radar.samples,
-                                       _compress)  # fmt: skip
+                                       _compress, specular)  # fmt: skip
             bar.update(b - a)
     stats.seconds_kernel = time.perf_counter() - t0
     if require_echo and not any(run.has_echo() for run in runs):
@@ -494,9 +522,10 @@ def prepare_scene(
         )
 
     # the widest compressed pulse (lowest bandwidth) sets the padding of every band
-    band_pulses = [cfg.pulse_kernel() for _, cfg in config.per_band()]
-    pad = max(int(offsets[-1]) for offsets, _ in band_pulses)
-    kernel_weights = band_pulses[0][1]
+    band_configs = [cfg for _, cfg in config.per_band()]
+    band_radars = [cfg.radar for cfg in band_configs]
+    pad = max(pulse_half_width_samples(r.bandwidth_hz, r.sample_interval_s, r.range_window, r.center_frequency_hz,
+                                       cfg.ionosphere) for r, cfg in zip(band_radars, band_configs))  # fmt: skip
 
     given = max_memory_bytes != "auto"
     limit = max_memory_bytes
@@ -507,13 +536,16 @@ def prepare_scene(
 
     def check(win):
         est = memory.estimate_memory_bytes(
-            win.width * win.height, len(track) * len(band_pulses), radar.samples, sources=sources,
+            win.width * win.height, len(track) * len(band_radars), radar.samples, sources=sources,
             threads=numba.get_num_threads(),
             pad_samples=pad, oversample=OVERSAMPLE, traces_per_block=TRACES_PER_BLOCK,
         )  # fmt: skip
         memory.check_memory(est, limit, given=given)
 
+    # the memory check comes before any preview of the DEM and before the pulse response is computed
     window = read_track_window(src, track, on_dem, config, pad_samples=pad, before_full_read=check)
+    band_pulses = [cfg.pulse_kernel() for cfg in band_configs]
+    kernel_weights = band_pulses[0][1]
     warn_holes(window)
     t0 = time.perf_counter()
     facets = build_facets(window)
@@ -530,6 +562,7 @@ def prepare_scene(
             f"{track.source}: row {i + 1} alt = {track.alt_m[i]:.1f} m is at or below the terrain "
             f"({h_nadir[i]:.1f} m); expected the antenna above the surface"
         )
+    check_far_field(track, h_nadir, config)
     nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S
 
     idx = np.flatnonzero(on_dem)
@@ -671,10 +704,22 @@ def detect_coherent(re, im, radar, oversample: int, nbins: int, ionosphere=None)
 
 def coherent_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
     """Coherent mode for some traces: the complex echo per (padded) sample, whose squared
-    modulus is the power, and the number of facet evaluations."""
+    modulus is the power, and the number of facet evaluations.
+
+    With ``random_phase`` the facets are diffuse scatterers (σ0 law) with a random phase each
+    (:func:`cluttersim.kernels.accumulate_complex`), plus the specular field when the surface
+    has a ``permittivity``. Without it every facet is a smooth reflector: its physical-optics
+    field (:func:`specular_signal`), with Γ from ``permittivity`` or else −√ρ from the law's
+    ``rho``, and no σ0 term; a deterministic sum of σ0 point scatterers would depend on the
+    DEM's cell size.
+    """
     f = scene.facets
     config = scene.config
     radar, proc = config.radar, config.processing
+    if not proc.random_phase:
+        signal, n_eval = specular_signal(scene, ant_m, bin0_s, nbins, frames, traces,
+                                         reflection_coefficient=config.surface.reflection_coefficient(True))  # fmt: skip
+        return signal[:, 0], n_eval
     k = COHERENT_OVERSAMPLE
     n = len(ant_m)
     re = np.zeros((n, nbins * k + 2))
@@ -687,7 +732,82 @@ def coherent_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces):
         config.kernel_weighting(), *shadow_inputs(scene, traces), 4.0 * math.pi / radar.wavelength_m,
         proc.random_phase, proc.seed, re, im,
     )  # fmt: skip
-    return compress_coherent(re, im, radar, k, nbins, config.ionosphere), n_eval
+    signal = compress_coherent(re, im, radar, k, nbins, config.ionosphere)
+    if config.surface.specular:
+        specular, n_spec = specular_signal(scene, ant_m, bin0_s, nbins, frames, traces)
+        signal, n_eval = signal + specular[:, 0], n_eval + n_spec
+    return signal, n_eval
+
+
+#: Delay cells per sample of the specular term's grid (odd: one cell is centred on each sample).
+SPECULAR_CELLS_PER_SAMPLE = 9
+#: Traces per call of the specular kernel (its grid, 3 sides × 9 cells × samples of complex128 per
+#: trace, is ~1 MB per trace at 2048 samples).
+SPECULAR_TRACES_PER_CALL = 16
+
+
+def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, right_unit=None, strip_half_m=None,
+                    reflection_coefficient=None):  # fmt: skip
+    """The specular (physical-optics) echo of some traces, range-compressed: complex (n, nside, nbins)
+    at the (padded) sample centres, and the number of (sub-)facet evaluations.
+
+    ``kernels_coherent.accumulate_specular`` deposits every facet's field on a grid of
+    :data:`SPECULAR_CELLS_PER_SAMPLE` cells per sample; the cells are convolved with the
+    compressed pulse's amplitude response h, normalised to max |h| = 1 (a point target, or
+    a mirror, reads its radar-equation power at its peak sample), through the ionosphere if
+    any (:func:`cluttersim.radar.pulse_amplitude_response`). With ``right_unit``
+    (n, 3) and ``strip_half_m`` (n,) the rows are the nadir strip, left and right sides
+    (:data:`cluttersim.kernels.SIDE_NADIR`...), else one row. Γ is the surface's
+    (``[surface] permittivity``) unless ``reflection_coefficient`` is given.
+    """
+    from scipy.signal import fftconvolve
+
+    config = scene.config
+    radar, surface = config.radar, config.surface
+    f = scene.facets
+    n = len(ant_m)
+    k = SPECULAR_CELLS_PER_SAMPLE
+    gamma = surface.reflection_coefficient() if reflection_coefficient is None else reflection_coefficient
+    nside = 1 if right_unit is None else 3
+    if right_unit is None:
+        right_unit, strip_half_m = np.zeros((n, 3)), np.zeros(n)
+    traces = np.arange(n) if traces is None else np.asarray(traces)
+    amp = physical_optics.field_constant(radar.transmit_power_w, radar.gain_linear, radar.wavelength_m, gamma)
+    offsets, _ = config.pulse_kernel()
+    half = int(offsets[-1]) * k
+    h = pulse_amplitude_response(np.arange(-half, half + 1) * radar.sample_interval_s / k, radar.bandwidth_hz,
+                                 radar.range_window, radar.center_frequency_hz, config.ionosphere)  # fmt: skip
+    signal = np.empty((n, nside, nbins), dtype=np.complex128)
+    n_eval = 0
+    for a in range(0, n, SPECULAR_TRACES_PER_CALL):  # the fine grid is 9× a trace: a few traces at a time
+        b = min(a + SPECULAR_TRACES_PER_CALL, n)
+        cells = np.zeros((b - a, nside, nbins * k), dtype=np.complex128)
+        n_eval += kernels_coherent.accumulate_specular(
+            np.ascontiguousarray(ant_m[a:b], dtype=np.float64), np.ascontiguousarray(right_unit[a:b], dtype=np.float64),
+            np.ascontiguousarray(strip_half_m[a:b], dtype=np.float64), np.ascontiguousarray(bin0_s[a:b], dtype=np.float64),
+            radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,
+            f.e_row_m, f.area_m2, 2.0 * math.pi / radar.wavelength_m, complex(amp), float(surface.rms_height_m or 0.0),
+            1.0 / scene.src.body.mean_radius_m, np.ascontiguousarray(frames[a:b], dtype=np.float64),
+            config.kernel_weighting(), *shadow_inputs(scene, traces[a:b]), float(f.tile_extent_m.max(initial=0.0)), cells,
+        )  # fmt: skip
+        signal[a:b] = fftconvolve(cells, h[None, None, :], mode="same", axes=2)[:, :, (k - 1) // 2 :: k][:, :, :nbins]
+    return signal, n_eval
+
+
+def specular_power(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, right_unit=None, strip_half_m=None):
+    """Detected specular power (n, 1 or 3, nbins), W: row 0 the total |Σ sides|²; with
+    ``right_unit`` rows 1 and 2 are its left and right shares (each side's own detected power
+    |S_side|² as a share of Σ_side |S_side|², times the total). Returns (power, evaluations)."""
+    signal, n_eval = specular_signal(scene, ant_m, bin0_s, nbins, frames, traces, right_unit, strip_half_m)
+    total = np.abs(signal.sum(axis=1)) ** 2
+    if signal.shape[1] == 1:
+        return total[:, None, :], n_eval
+    side = np.abs(signal) ** 2
+    norm = side.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(norm > 0, total / norm, 0.0)
+    out = np.stack([total, side[:, kernels.SIDE_LEFT] * share, side[:, kernels.SIDE_RIGHT] * share], axis=1)
+    return out, n_eval
 
 
 def _compress(binned, weights, pad, samples):
@@ -715,9 +835,14 @@ class SourceRecord:
             facet=np.full((ntrace, nsamples), -1, dtype=np.int32),
         )
 
-    def add(self, rows, binned, best, total, weights, pad, samples, compress) -> None:
+    def add(self, rows, binned, best, total, weights, pad, samples, compress, specular=None) -> None:
+        """``specular`` (n, 3, samples): the specular power (total, left, right; :func:`specular_power`),
+        already in ``total``; its left and right shares join the diffuse ones."""
         left = compress(binned[:, kernels.SIDE_LEFT], weights, pad, samples)
         right = compress(binned[:, kernels.SIDE_RIGHT], weights, pad, samples)
+        if specular is not None:
+            left = left + specular[:, 1]
+            right = right + specular[:, 2]
         self.left[rows], self.right[rows] = side_fractions(left, right, total)
         facet = np.empty((len(rows), samples), dtype=np.int32)
         kernels.dominant_source(np.ascontiguousarray(binned[:, 0]), best, weights, pad, samples, facet)
@@ -883,6 +1008,8 @@ def read_track_window(
         if window is not None and new == window:
             break
         window = new
+        if before_full_read is not None:  # the window only grows: refuse at once one that is already too big
+            before_full_read(window)
         shape = (min(window.height, _PREVIEW_CELLS), min(window.width, _PREVIEW_CELLS))
         preview = src.read(window, out_shape=shape).elevation_m
         if np.isnan(preview).all():

@@ -48,7 +48,7 @@ import math
 import os
 import re
 import signal
-import threading
+import sys
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -57,7 +57,7 @@ from pathlib import Path
 import numpy as np
 
 from .config import SimulationConfig, default_config
-from .dem import DemSource
+from .dem import DemSource, crs_linear_unit_m
 from .errors import (
     ClutterSimError,
     ConfigError,
@@ -65,7 +65,7 @@ from .errors import (
     OutputExistsError,
     TrackError,
 )
-from .outputs import atomic_paths, check_new
+from .outputs import atomic_paths, check_new, hold_interrupts, locked_output
 from .radar import POWER_CONVENTION, apparent_depth_m, delay_after_surface_s, effective_pulse_duration_s
 from .track import Track, great_circle_track, read_track_table
 
@@ -506,12 +506,33 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
     return dataclasses.replace(config, noise=None, subsurface=None, ionosphere=None)
 
 
+_DIGESTS: dict[tuple, str] = {}
+
+
+def dem_digest(path) -> str:
+    """BLAKE2b digest of every byte of the DEM file (and of a GDAL sidecar ``.aux.xml``, which can
+    change its scale, offset or nodata), computed once per file state (path, size, modification
+    time) in a process: about 1.3 CPU-seconds per GB plus reading it. Any edit of the pixels changes it,
+    even at the same size; a copy of the same file keeps it."""
+    path = Path(path)
+    files = [path] + [p for p in (path.with_name(path.name + ".aux.xml"),) if p.exists()]
+    state = tuple((str(p.resolve()), p.stat().st_size, p.stat().st_mtime_ns) for p in files)
+    if state not in _DIGESTS:
+        h = hashlib.blake2b(digest_size=20)
+        for p in files:
+            with open(p, "rb") as fh:
+                for block in iter(lambda: fh.read(1 << 23), b""):
+                    h.update(block)
+        _DIGESTS[state] = h.hexdigest()
+    return _DIGESTS[state]
+
+
 def job_key(dem: DemSource, sim_config: SimulationConfig, config: SurveyConfig, track: Track,
             body_radius_m) -> str:  # fmt: skip
-    """A digest of everything that shapes one track's result: the DEM (path and size), the radar,
-    the reduction settings and the track's positions."""
+    """A digest of everything that shapes one track's result: the DEM (its path and a digest of its
+    whole content, :func:`dem_digest`), the radar, the reduction settings and the track's positions."""
     h = hashlib.sha256()
-    meta = {"dem": str(dem.path.resolve()), "dem_bytes": dem.path.stat().st_size, "body_radius_m": body_radius_m,
+    meta = {"dem": str(dem.path.resolve()), "dem_content": dem_digest(dem.path), "body_radius_m": body_radius_m,
             "config": sim_config.to_dict(), "survey": config.reduction()}  # fmt: skip
     h.update(json.dumps(meta, sort_keys=True, default=str).encode())
     for a in (track.lat_deg, track.lon_deg, track.alt_m):
@@ -542,8 +563,10 @@ def write_track_result(result: TrackResult, path) -> Path:
         attrs={"Conventions": "CF-1.10", "track_id": result.track_id, "survey_key": result.key,
                "truncated_windows": result.truncated, "power_convention": POWER_CONVENTION},
     )  # fmt: skip
+    from .radargram import save_netcdf
+
     with atomic_paths([path]) as (tmp,):
-        ds.to_netcdf(tmp, engine="h5netcdf", format="NETCDF4")
+        save_netcdf(ds, tmp)
     return path
 
 
@@ -595,9 +618,36 @@ def _worker_tqdm_lock() -> None:
     tqdm.set_lock(threading.RLock())
 
 
-def _init_local_worker(threads: int) -> None:
-    """Worker start-up: leave SIGINT to the parent (it stops the pool) and limit Numba's threads."""
+def _die_with_parent(parent_pid: int) -> None:
+    """End this worker when the process that started it ends, however it ends (SIGKILL included):
+    the kernel's parent-death signal on Linux (prctl PR_SET_PDEATHSIG), and everywhere a thread
+    that checks once a second whether the parent is still this process's parent."""
+    import ctypes
+    import threading
+
+    if sys.platform.startswith("linux"):
+        with contextlib.suppress(OSError, AttributeError):
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1 (linux/prctl.h)
+
+    def watch():
+        while True:
+            if os.getppid() != parent_pid:
+                os._exit(1)
+            time.sleep(1.0)
+
+    if os.getppid() != parent_pid:  # the parent ended before the signal was set up
+        os._exit(1)
+    threading.Thread(target=watch, name="cluttersim-parent-watch", daemon=True).start()
+
+
+def _init_local_worker(threads: int, parent_pid: int | None = None) -> None:
+    """Worker start-up: die with the parent, leave SIGINT and SIGTERM to it (it stops the pool) and
+    limit Numba's threads."""
+    if parent_pid is not None:
+        _die_with_parent(parent_pid)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
     _worker_tqdm_lock()
     import numba
 
@@ -616,7 +666,7 @@ def _run_local(jobs, workers: int, on_result) -> None:
 
     threads = max(1, (os.cpu_count() or 1) // workers)
     pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                               initializer=_init_local_worker, initargs=(threads,))  # fmt: skip
+                               initializer=_init_local_worker, initargs=(threads, os.getpid()))  # fmt: skip
     try:
         pending = {pool.submit(survey_track, job) for job in jobs}
         while pending:
@@ -764,6 +814,7 @@ class SurveySummary:
     track_seconds: list[float] = field(default_factory=list)  # workers' time per computed track
 
 
+@locked_output("out_dir")
 def run_survey(
     dem, config: SurveyConfig, sim_config: SimulationConfig | None = None, out_dir=".", *, engine: Engine | None = None,
     body_radius_m: float | None = None, overwrite: bool = False, progress: bool = False,
@@ -831,7 +882,7 @@ def run_survey(
     with tqdm(total=len(planned), initial=resumed, unit="track", desc="surveying", disable=not progress) as bar:
 
         def on_result(result: TrackResult) -> None:
-            with _HeldInterrupt():
+            with hold_interrupts():
                 write_track_result(result, track_dir / track_file_name(result.track_id))
             done[result.track_id] = result
             for w in result.warnings:
@@ -873,29 +924,6 @@ def _check_window_fits(sim_config: SimulationConfig, config: SurveyConfig) -> No
         )
 
 
-class _HeldInterrupt:
-    """Hold SIGINT while a finished track is written and raise it once the file is in place: a
-    KeyboardInterrupt raised inside the netCDF library's clean-up can be swallowed there
-    ("Exception ignored in ..."), and the run would go on."""
-
-    def __enter__(self):
-        self.pending = False
-        self.previous = None
-        if threading.current_thread() is threading.main_thread():
-            self.previous = signal.signal(signal.SIGINT, self._hold)
-        return self
-
-    def _hold(self, signum, frame):
-        self.pending = True
-
-    def __exit__(self, exc_type, exc, tb):
-        if self.previous is not None:
-            signal.signal(signal.SIGINT, self.previous)
-        if self.pending and exc_type is None:
-            raise KeyboardInterrupt
-        return False
-
-
 def _remove_stale_temporaries(track_dir: Path) -> None:
     """Remove temporary track files left by a run that was killed (not merely interrupted)."""
     if track_dir.is_dir():
@@ -934,6 +962,8 @@ class SurveyGrid:
         res = 1e3 * grid_km
         if src.is_geographic:
             res = math.degrees(res / src.body.mean_radius_m)
+        else:
+            res /= crs_linear_unit_m(src.crs)  # the grid is in the CRS's unit (feet, US survey feet...)
         width = max(1, int(math.ceil((x1 - x0) / res - 1e-9)))
         height = max(1, int(math.ceil((y1 - y0) / res - 1e-9)))
         if width * height > 25_000_000:

@@ -17,6 +17,7 @@ import numpy as np
 
 from .body import Body
 from .errors import TrackError
+from .validate import check_longitudes, check_trace_steps
 
 REQUIRED_COLUMNS = ("lat", "lon", "alt")
 
@@ -56,6 +57,8 @@ class Track:
         bad = np.flatnonzero(np.abs(self.lat_deg) > 90)
         if bad.size:
             raise TrackError(f"{self.source}: column 'lat' row {bad[0] + 1} = {self.lat_deg[bad[0]]}: expected -90..90 degrees")
+        check_longitudes(self.lon_deg, self.source)
+        check_trace_steps(self.lat_deg, self.lon_deg, self.source)
         if self.time_s is not None:
             if len(self.time_s) != n:
                 raise TrackError(f"{self.source}: column 'time' has {len(self.time_s)} values, expected {n}")
@@ -111,7 +114,7 @@ def read_track_table(path, extra_columns: tuple[str, ...] = ()) -> tuple[list[st
     columns lat, lon, alt and ``extra_columns``."""
     path = Path(path)
     try:
-        with open(path, newline="", encoding="utf-8") as fh:
+        with open(path, newline="", encoding="utf-8-sig") as fh:  # -sig: a byte-order mark is not part of the header
             reader = csv.reader(fh)
             header = next(reader, None)
             rows = list(reader)
@@ -125,7 +128,16 @@ def read_track_table(path, extra_columns: tuple[str, ...] = ()) -> tuple[list[st
     names = [h.strip().lower() for h in header]
     missing = [c for c in REQUIRED_COLUMNS + tuple(extra_columns) if c not in names]
     if missing:
-        raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; expected {expected} (and optional time)")
+        hint = ""
+        if len(names) == 1 and (";" in names[0] or "\t" in names[0]):
+            hint = " (columns separated by ';' or tabs? expected commas)"
+        raise TrackError(f"{path}: missing column(s) {', '.join(missing)}; expected {expected} (and optional time){hint}")
+    for number, row in enumerate(rows, start=1):
+        if len(row) > len(names) and any(cell.strip() for cell in row[len(names):]):
+            raise TrackError(
+                f"{path}: row {number} has {len(row)} fields, the header {len(names)}: expected one value per column "
+                "('.' as the decimal mark: a decimal comma splits numbers)"
+            )
     return names, rows
 
 
@@ -147,8 +159,11 @@ def great_circle_track(
     first trace) is added at that ground speed.
     """
     for name, lat in (("start latitude", start_lat_deg), ("end latitude", end_lat_deg)):
-        if not -90 <= lat <= 90:
+        if not -90 <= lat <= 90:  # false for nan
             raise TrackError(f"{name} {lat}: expected -90..90 degrees")
+    for name, lon in (("start longitude", start_lon_deg), ("end longitude", end_lon_deg)):
+        if not (math.isfinite(lon) and abs(lon) <= 360):
+            raise TrackError(f"{name} {lon}: expected -360..360 degrees")
     if not (math.isfinite(spacing_m) and spacing_m > 0):
         raise TrackError(f"trace spacing {spacing_m} m: expected a positive distance")
     if not math.isfinite(alt_m):

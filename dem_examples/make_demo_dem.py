@@ -23,6 +23,7 @@ import pyproj
 import rasterio
 import rasterio.crs
 from rasterio.transform import from_origin
+from scipy.ndimage import gaussian_filter
 
 #: Geographic lon/lat on the 2015 IAU Mars sphere.
 CRS_CODE = "IAU_2015:49900"
@@ -52,6 +53,16 @@ CRATERS = [
 MESA = dict(east_km=25.0, north_km=0.0, half_ns_km=7.5, half_ew_km=5.0, height_m=600.0, scarp_km=0.6)
 VALLEY = dict(centre_north_km=-65.0, meander_km=12.0, wavelength_km=140.0, depth_m=300.0, half_width_km=1.5,
               wall_km=0.7)
+#: A smooth plain on the track (a lava- or ice-filled lowland): inside it the fractal roughness is
+#: damped to ``rough_fraction`` of the plain's (25 m → 0.25 m rms), with a cosine taper ``taper_km``
+#: wide at its edge; the regional slope and swells stay. Its nadir echo is specular.
+SMOOTH_PLAIN = dict(east_km=0.0, north_km=-30.0, half_ns_km=20.0, half_ew_km=12.0, taper_km=4.0, rough_fraction=0.01)
+#: Short-range roughness everywhere but the smooth plain: the fractal relief is smooth over a Fresnel
+#: zone (1.5 km at 300 km), so without it every slope would be a mirror. 4 m rms (3.4 rad rms of two-way
+#: phase at 20 MHz), correlated over ~2 cells (Gaussian filter of σ = 1.5 cells) so that neighbouring
+#: facets still meet: rough to the radar across a Fresnel zone, smooth from one cell to the next.
+CELL_ROUGHNESS_M = 4.0
+CELL_ROUGHNESS_CORRELATION_CELLS = 1.5
 
 
 def local_grid_km(n: int = N_CELLS, cell_deg: float = CELL_DEG):
@@ -152,6 +163,13 @@ def valley_relief_m(east_km, north_km, centre_north_km, meander_km, wavelength_k
     return -0.5 * depth_m * (1.0 - np.tanh((dist_km - half_width_km) / (0.5 * wall_km)))
 
 
+def smooth_plain_weight(east_km, north_km, east_c_km, north_c_km, half_ns_km, half_ew_km, taper_km) -> np.ndarray:
+    """1 inside the smooth plain's rectangle, 0 outside it, a cosine taper ``taper_km`` wide inside its edge."""
+    inside_km = np.minimum(half_ew_km - np.abs(east_km - east_c_km), half_ns_km - np.abs(north_km - north_c_km))
+    t = np.clip(inside_km / taper_km, 0.0, 1.0)
+    return 0.5 * (1.0 - np.cos(np.pi * t))
+
+
 def demo_elevation_m(seed: int = DEFAULT_SEED) -> tuple[np.ndarray, tuple[float, float, float, float]]:
     """Build the demo elevation grid.
 
@@ -167,12 +185,17 @@ def demo_elevation_m(seed: int = DEFAULT_SEED) -> tuple[np.ndarray, tuple[float,
     cell_km = np.deg2rad(CELL_DEG) * SPHERE_RADIUS_M / 1000.0
 
     z = regional_surface_m(east_km, north_km)
-    z += fractal_surface_m(rng, east_km.shape, cell_km, rms_m=25.0)
+    plain = SMOOTH_PLAIN
+    smooth = smooth_plain_weight(east_km, north_km, plain["east_km"], plain["north_km"], plain["half_ns_km"],
+                                 plain["half_ew_km"], plain["taper_km"])
+    z += fractal_surface_m(rng, east_km.shape, cell_km, rms_m=25.0) * (1.0 - (1.0 - plain["rough_fraction"]) * smooth)
     z += valley_relief_m(east_km, north_km, **VALLEY)
     z += mesa_relief_m(east_km, north_km, MESA["east_km"], MESA["north_km"], MESA["half_ns_km"],
                        MESA["half_ew_km"], MESA["height_m"], MESA["scarp_km"])
     for crater in CRATERS:
         z += crater_relief_m(east_km, north_km, *crater)
+    bumps = gaussian_filter(rng.standard_normal(z.shape), CELL_ROUGHNESS_CORRELATION_CELLS)  # drawn last: the
+    z += CELL_ROUGHNESS_M * bumps / bumps.std() * (1.0 - smooth)  # rest of the scene is unchanged
 
     half = N_CELLS * CELL_DEG / 2.0
     extent = (CENTRE_LON_DEG - half, CENTRE_LON_DEG + half, CENTRE_LAT_DEG - half, CENTRE_LAT_DEG + half)

@@ -66,7 +66,8 @@ def test_compare_prints_a_summary_and_writes_the_products(files):
     top = lines[next(i for i, line in enumerate(lines) if line.split()[:2] == ["rank", "trace"]) + 1].split()
     assert top[0] == "1" and float(top[4]) == pytest.approx(40.0, abs=1.0)  # depth_m of the top candidate
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["candidates.csv", "comparison.nc", "difference.png", "overlay.png", "side_by_side.png"]
+    assert names == ["candidates.csv", "candidates.geojson", "comparison.nc", "difference.png", "overlay.png",
+                     "side_by_side.png"]
     again = run(base_args(files, out) + ["--sim", files["sim"]])
     assert again.exit_code == 2 and "already exists; pass --overwrite" in again.output
     assert run(base_args(files, out) + ["--sim", files["sim"], "--overwrite", "-q"]).exit_code == 0
@@ -283,7 +284,48 @@ BAD_CASES = {
     "sim and dem": (lambda f, d: {"dem": f["dem"]}, 2, "give either --sim RUN_DIR/radargram.nc or --dem DEM"),
     "two window starts": (lambda f, d: {"window_start_column": "ws"}, 2, "exactly one of --window-start-s or --window-start-column"),
     "zero sample interval": (lambda f, d: {"sample_interval_s": "0"}, 2, "Invalid value for '--sample-interval-s'"),
+    "old threshold option": (lambda f, d: {"threshold_db": "15"}, 2, "--threshold-db was replaced: echoes are now "
+                             "tested against the predicted clutter and noise at a false-alarm probability; use --pfa"),
+    "old explained option": (lambda f, d: {"explained_within_db": "6"}, 2, "use --model-tolerance-db"),
+    "even integration": (lambda f, d: {"integration_traces": "4"}, 2, "4 is even; expected an odd number"),
+    "pfa of one": (lambda f, d: {"pfa": "1"}, 2, "Invalid value for '--pfa'"),
+    "list and observed": (lambda f, d: {"list": _track_list(f, d)}, 2, "with --list each row names its inputs; drop"),
+    "list row without file": (lambda f, d: {"list": _track_list(f, d, observed="gone.npy"), "observed": None,
+                                            "observed_track": None, "sample_interval_s": None, "window_start_s": None,
+                                            "sim": None, "values": None}, 1,
+                              "row 2: column 'observed' = 'gone.npy': no such file"),
+    "list without column": (lambda f, d: {"list": _track_list(f, d, drop="sample_interval_s"), "observed": None,
+                                          "observed_track": None, "sample_interval_s": None, "window_start_s": None,
+                                          "sim": None, "values": None}, 1, "missing column(s) sample_interval_s"),
+    "noisy simulation": (lambda f, d: {"sim": _noisy_sim(f, d)}, 1,
+                         "contains receiver noise ([noise] table): the comparison needs the noise-free"),
 }  # fmt: skip
+
+
+def _track_list(f, d, observed=None, drop=None):
+    """A list of two comparisons of the same files (the second observed file may be renamed)."""
+    cols = {"name": None, "observed": None, "observed_track": str(f["track"]), "sample_interval_s": repr(DT),
+            "sim": str(f["sim"]), "window_start_s": repr(f["start"]), "values": "amplitude"}  # fmt: skip
+    if drop:
+        cols.pop(drop)
+    rows = [",".join(cols)]
+    for name, obs in (("first", str(f["dir"] / "obs.npy")), ("second", observed or str(f["dir"] / "obs.npy"))):
+        vals = {**cols, "name": name, "observed": obs}
+        rows.append(",".join(vals[k] for k in cols))
+    (d / "list.csv").write_text("\n".join(rows) + "\n")
+    return d / "list.csv"
+
+
+def _noisy_sim(f, d):
+    import json
+
+    with xr.open_dataset(f["sim"], engine="h5netcdf") as ds:
+        ds = ds.load()
+    cfg = json.loads(ds.attrs["cluttersim_config"])
+    cfg["noise"] = {"noise_figure_db": 3.0, "seed": 1}
+    ds.attrs["cluttersim_config"] = json.dumps(cfg)
+    ds.to_netcdf(d / "noisy.nc", engine="h5netcdf")
+    return d / "noisy.nc"
 
 
 @pytest.mark.parametrize("case", list(BAD_CASES))
@@ -310,6 +352,33 @@ def test_observed_and_simulated_grids_may_differ_in_sample_interval(files, tmp_p
         assert ds.attrs["delay_offset_samples"] == pytest.approx(7.3, abs=0.25)
         assert ds.attrs["gain_db"] == pytest.approx(23.0, abs=0.3)
     assert not math.isnan(float(res.output.split("delay offset:")[1].split()[0]))
+
+
+def test_many_tracks_give_one_combined_table_geojson_and_map(files, tmp_path):
+    """--list: one folder per row, and the candidates of all rows in one ranked table, GeoJSON and map."""
+    import csv
+    import json
+
+    from matplotlib.image import imread
+
+    out = tmp_path / "many"
+    res = run(["compare", "--list", _track_list(files, tmp_path), "--out", out])
+    assert res.exit_code == 0, res.output
+    assert "== first" in res.output and "== second" in res.output
+    for name in ("first", "second"):
+        assert (out / name / "comparison.nc").exists() and (out / name / "candidates.geojson").exists()
+    rows = list(csv.DictReader((out / "candidates.csv").open()))
+    per_track = {name: list(csv.DictReader((out / name / "candidates.csv").open())) for name in ("first", "second")}
+    assert len(rows) == sum(len(v) for v in per_track.values()) > 0
+    assert {r["track"] for r in rows} == {"first", "second"}
+    assert [int(r["rank"]) for r in rows] == list(range(1, len(rows) + 1))
+    scores = [float(r["score"]) for r in rows]
+    assert scores == sorted(scores, reverse=True)
+    doc = json.loads((out / "candidates.geojson").read_text())
+    assert {f["properties"]["track"] for f in doc["features"]} == {"first", "second"}
+    assert imread(out / "candidates_map.png").shape[0] > 100
+    again = run(["compare", "--list", tmp_path / "list.csv", "--out", out])
+    assert again.exit_code == 2 and "already exists; pass --overwrite" in again.output
 
 
 def test_a_given_tec_delays_the_simulation_before_the_alignment(files, tmp_path):

@@ -54,7 +54,7 @@ def test_group_mean_and_track_centres():
     np.testing.assert_array_equal(group_mean(p, 3)[:, 0], [1.0, 4.0, 7.0])  # the 10th row is left over
     from cluttersim import Track
 
-    t = Track(np.linspace(0, 0.9, 10), np.array([179.8, 179.9, -180.0, -179.9] * 2 + [0, 0]), np.full(10, 5e3),
+    t = Track(np.linspace(0, 0.9, 10), np.array([179.8, 179.9, -180.0, -179.9] * 2 + [-179.8, -179.7]), np.full(10, 5e3),
               np.arange(10.0))  # fmt: skip
     with pytest.warns(UserWarning, match="10 pulses are not a multiple of presum = 4; the last 2 are dropped"):
         out = presum_track(t, 4)
