@@ -274,10 +274,13 @@ def track_gain_height_m(src: DemSource, track: Track, config, plan) -> float | N
 
 
 def segment_key(src: DemSource, job: SegmentJob) -> str:
-    """A digest of everything that shapes a segment's result: the DEM (path and size), the
+    """A digest of everything that shapes a segment's result: the DEM (its path and a digest of its
+    content, :func:`cluttersim.survey.dem_digest`, as the survey keys its tracks), the
     configuration and options, the segment's place in the track and its positions."""
+    from .survey import dem_digest
+
     h = hashlib.sha256()
-    meta = {"dem": str(src.path.resolve()), "dem_bytes": src.path.stat().st_size, "body_radius_m": job.body_radius_m,
+    meta = {"dem": str(src.path.resolve()), "dem_content": dem_digest(src.path), "body_radius_m": job.body_radius_m,
             "config": job.config.to_dict(), "sources": job.sources, "nadir_strip_m": job.nadir_strip_m,
             "first_return_db": job.first_return_db, "start": job.start, "stop": job.stop,
             "gain_height_m": job.gain_height_m}  # fmt: skip
@@ -484,7 +487,8 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
     from tqdm.auto import tqdm
 
     from .radargram import write_netcdf_to
-    from .survey import _HeldInterrupt, _remove_stale_temporaries
+    from .outputs import hold_interrupts
+    from .survey import _remove_stale_temporaries
 
     t0 = time.perf_counter()
     out_dir = Path(out_dir)
@@ -518,7 +522,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
             else:
                 res.dataset.attrs["segment_key"] = job.key
                 path = seg_dir / segment_file_name(job.index)
-                with _HeldInterrupt():
+                with hold_interrupts():
                     seg_dir.mkdir(parents=True, exist_ok=True)
                     from .outputs import atomic_paths
 
