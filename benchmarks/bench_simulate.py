@@ -285,6 +285,35 @@ def cpu_model() -> str:
     return platform.processor() or "unknown"
 
 
+def cpu_vector_features() -> dict:
+    """The CPU's vector extensions from /proc/cpuinfo (avx, avx2, fma, avx512*) and its class for
+    the README's tables: "AVX-512" (avx512f), "AVX2" or "other"."""
+    flags: set[str] = set()
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("flags") and ":" in line:
+                flags = set(line.split(":", 1)[1].split())
+                break
+    except OSError:
+        pass
+    vector = sorted(f for f in flags if f.startswith(("avx", "fma", "sse4")))
+    cls = "AVX-512" if "avx512f" in flags else ("AVX2" if "avx2" in flags else "other")
+    return {"vector_flags": vector, "cpu_class": cls}
+
+
+def avx2_code_env(cache_dir: Path) -> dict:
+    """Environment that makes Numba generate AVX2 code on an AVX-512 host (the host's features with
+    every AVX-512 extension switched off, its own compile cache): what an AVX2-only CPU runs,
+    executed by this one (a proxy: the instruction mix is that of AVX2, the timing this core's)."""
+    import llvmlite.binding as ll
+
+    feats = ll.get_host_cpu_features()
+    off = lambda k: k.startswith(("avx512", "avx10", "amx")) or k in ("evex512",)  # noqa: E731
+    text = ",".join(("-" if off(k) or not v else "+") + k for k, v in feats.items())
+    return {**os.environ, "NUMBA_CPU_NAME": "znver3" if "znver" in ll.get_host_cpu_name() else "haswell",
+            "NUMBA_CPU_FEATURES": text, "NUMBA_CACHE_DIR": str(cache_dir)}  # fmt: skip
+
+
 def vector_features() -> list[str]:
     """The CPU's SIMD flags that matter for the vectorised kernels (from /proc/cpuinfo; empty elsewhere)."""
     try:
@@ -306,6 +335,10 @@ def main(argv=None) -> int:
     ap.add_argument("--shadowing", type=int, default=0, help=argparse.SUPPRESS)
     ap.add_argument("--coherent", type=int, default=0, help=argparse.SUPPRESS)
     ap.add_argument("--spreading", default="trapezoid", help=argparse.SUPPRESS)
+    ap.add_argument("--code", choices=["host", "avx2"], default="host",
+                    help="avx2: compile the kernels for AVX2 on an AVX-512 host (Numba's target features; own cache)")
+    ap.add_argument("--variants", choices=["all", "spreading"], default="all",
+                    help="spreading: only range spreading with and without the source record")
     ap.add_argument("--specular", type=int, default=0, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.worker:
@@ -320,18 +353,22 @@ def main(argv=None) -> int:
         return 0
 
     machine = {"cpu": cpu_model(), "cores": os.cpu_count(), "python": sys.version.split()[0], "platform": platform.platform(),
-               "vector_features": vector_features()}
-    print(f"machine: {machine['cpu']}, {machine['cores']} cores")
+               "vector_features": vector_features(), **cpu_vector_features(), "code": args.code}  # fmt: skip
+    env = avx2_code_env(CACHE / "numba-avx2") if args.code == "avx2" else None
+    print(f"machine: {machine['cpu']}, {machine['cores']} cores, {machine['cpu_class']} "
+          f"({' '.join(machine['vector_flags'])}); kernels compiled for: {args.code}")  # fmt: skip
     report = {"machine": machine, "cases": [], "time": time.strftime("%Y-%m-%dT%H:%M:%S")}
     for name in args.case or ["small", "medium"]:
         # sources, shadowing, coherent, spreading, specular
         variants = [(0, 0, 0, "trapezoid", 0), (1, 0, 0, "trapezoid", 0), (0, 0, 0, "centre", 0)]
-        if name == "small":
+        if name == "small" and args.variants == "all":
             variants += [(0, 1, 0, "trapezoid", 0), (0, 0, 1, "trapezoid", 0), (0, 0, 0, "trapezoid", 1)]
+        if args.variants == "spreading":
+            variants = variants[:2]
         for sources, shadowing, coherent, spreading, specular in variants:
             r = run_worker(["--worker", name, "--sources", str(sources), "--shadowing", str(shadowing),
                             "--coherent", str(coherent), "--spreading", spreading, "--specular", str(specular),
-                            "--repeat", str(args.repeat)])  # fmt: skip
+                            "--repeat", str(args.repeat)], env=env)  # fmt: skip
             report["cases"].append(r)
             print(
                 f"{name:>7} sources={'on ' if sources else 'off'}{' shadowing' if shadowing else ''}"
@@ -348,6 +385,9 @@ def main(argv=None) -> int:
                    f"{r['median_specular_cpu_s']:.1f} CPU-s, {r['specular_evals_per_cpu_s'] / 1e6:.1f} M per CPU-second"
                    if specular else "")
             )
+    if args.variants == "spreading":  # the kernel alone: no reference, no start-up
+        _write_report(report)
+        return 0
     ref = run_worker(["--worker", "reference"])
     report["reference"] = ref
     print(
@@ -364,11 +404,15 @@ def main(argv=None) -> int:
         f"kernel start-up: first simulate {cold_run['first_simulate_s']:.1f} s with an empty numba cache (compilation), "
         f"{warm_run['first_simulate_s']:.2f} s with the cache on disk"
     )
+    _write_report(report)
+    return 0
+
+
+def _write_report(report: dict) -> None:
     out = HERE / "results" / f"simulate-{time.strftime('%Y%m%dT%H%M%S')}.json"
     out.parent.mkdir(exist_ok=True)
     out.write_text(json.dumps(report, indent=2))
     print(f"wrote {out}")
-    return 0
 
 
 if __name__ == "__main__":

@@ -39,7 +39,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from bench_simulate import CACHE, CASES, MARS_RADIUS_M, cpu_model, synthetic_dem
+from bench_simulate import CACHE, CASES, MARS_RADIUS_M, cpu_model, cpu_vector_features, synthetic_dem
 
 TRACKS = 20
 RADAR_TOML = """[radar]
@@ -111,7 +111,7 @@ def main(argv=None) -> int:
         print(json.dumps(worker(args.worker)))
         return 0
     machine = {"cpu": cpu_model(), "cores": os.cpu_count(), "python": sys.version.split()[0], "platform": platform.platform(),
-               "load_average_at_start": os.getloadavg()}  # fmt: skip
+               "load_average_at_start": os.getloadavg(), **cpu_vector_features()}  # fmt: skip
     print(f"machine: {machine['cpu']}, {machine['cores']} cores; load average {os.getloadavg()[0]:.2f} (others share it)")
     base_env = dict(os.environ)
     one_thread = {**base_env, "NUMBA_NUM_THREADS": "1"}

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.demo import DEMO_ALT_M, run_demo
 
 from .options import out_dir_option, overwrite_option, quiet_option
 
@@ -15,6 +14,8 @@ from .options import out_dir_option, overwrite_option, quiet_option
 @quiet_option
 def demo_cmd(out_dir, overwrite, quiet):
     """Simulate an orbital pass over the invented demo site and write its products."""
+    from cluttersim.demo import DEMO_ALT_M, run_demo
+
     paths, stats = run_demo(out_dir, overwrite=overwrite, progress=not quiet)
     if quiet:
         return

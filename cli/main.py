@@ -8,6 +8,8 @@ cannot be written, 2 = usage, an existing output or an output directory in use,
 
 from __future__ import annotations
 
+import functools
+import importlib
 import sys
 import warnings
 
@@ -19,8 +21,38 @@ from cluttersim.errors import ClutterSimError
 from .options import require_finite_floats
 
 
+#: Subcommand → (module of :mod:`cli`, command object): imported when the command is used, so
+#: ``cluttersim --version`` and each command start without loading the others' libraries.
+_COMMANDS = {
+    "compare": ("compare", "compare_cmd"),
+    "demo": ("demo", "demo_cmd"),
+    "plan": ("plan", "plan_cmd"),
+    "radar-template": ("template", "template_cmd"),
+    "report": ("report", "report_cmd"),
+    "simulate": ("simulate", "simulate_cmd"),
+    "sources": ("sources", "sources_cmd"),
+    "survey": ("survey", "survey_cmd"),
+    "track": ("track", "track_cmd"),
+}
+#: Commands that run the compiled kernels (a first run with an empty cache compiles them).
+_KERNEL_COMMANDS = ("compare", "demo", "plan", "simulate", "sources", "survey")
+
+
 class _Group(click.Group):
-    """A click group that reports library errors as one line."""
+    """A click group that loads its subcommands on first use and reports library errors as one line."""
+
+    def list_commands(self, ctx):
+        return sorted(set(super().list_commands(ctx)) | set(_COMMANDS))
+
+    def get_command(self, ctx, name):
+        if name in _COMMANDS and name not in self.commands:
+            module, attr = _COMMANDS[name]
+            cmd = getattr(importlib.import_module(f"{__package__}.{module}"), attr)
+            if name in _KERNEL_COMMANDS:
+                cmd.callback = _with_compile_notice(cmd.callback)
+            self.add_command(cmd, name)
+            require_finite_floats(self, only=name)
+        return super().get_command(ctx, name)
 
     def invoke(self, ctx):
         try:
@@ -60,6 +92,19 @@ def interrupt_message() -> str:
     return f"cluttersim: interrupted; {len(outputs.committed)} product(s) written before it are complete ({names})"
 
 
+def _with_compile_notice(callback):
+    """The command's callback, saying so when the compiled kernels are not in the cache yet."""
+
+    @functools.wraps(callback)
+    def run(*args, **kwargs):
+        from cluttersim.compile_notice import compile_notice
+
+        with compile_notice(lambda text: click.echo(text, err=True)):
+            return callback(*args, **kwargs)
+
+    return run
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     click.echo(f"cluttersim: warning: {message}", err=True)
 
@@ -74,36 +119,6 @@ def cli(ctx, debug):
     ctx.obj["debug"] = debug
     if not debug:
         warnings.showwarning = _show_warning
-
-
-def _register():
-    from . import compare, demo, simulate, sources, track
-
-    cli.add_command(simulate.simulate_cmd)
-    cli.add_command(track.track_cmd)
-    cli.add_command(demo.demo_cmd)
-    cli.add_command(sources.sources_cmd)
-    cli.add_command(compare.compare_cmd)
-
-    from . import report
-
-    cli.add_command(report.report_cmd)
-
-    from . import survey
-
-    cli.add_command(survey.survey_cmd)
-    require_finite_floats(cli)
-
-    from . import plan
-
-    cli.add_command(plan.plan_cmd)
-
-    from . import template  # no float options
-
-    cli.add_command(template.template_cmd)
-
-
-_register()
 
 
 def main(argv=None):

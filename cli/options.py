@@ -6,7 +6,6 @@ import math
 
 import click
 
-from cluttersim.config import SimulationConfig, default_config
 
 
 def out_dir_option(default=None):
@@ -54,7 +53,9 @@ max_memory_option = click.option(
 )
 
 
-def load_config(radar_path) -> SimulationConfig:
+def load_config(radar_path) -> "SimulationConfig":  # noqa: F821 - imported when called
+    from cluttersim.config import SimulationConfig, default_config
+
     return SimulationConfig.from_toml(radar_path) if radar_path else default_config()
 
 permittivity_option = click.option(
@@ -200,10 +201,12 @@ def finite_type(t):
     return t
 
 
-def require_finite_floats(group: click.Group) -> None:
-    """Make every float option and argument of every command refuse nan and inf (a usage error,
-    exit 2), so that no command needs to remember it."""
-    for command in group.commands.values():
+def require_finite_floats(group: click.Group, only: str | None = None) -> None:
+    """Make every float option and argument of every command (or of the command ``only``, as it
+    is loaded) refuse nan and inf (a usage error, exit 2), so that no command needs to remember it."""
+    for name, command in group.commands.items():
+        if only is not None and name != only:
+            continue
         if isinstance(command, click.Group):
             require_finite_floats(command)
         for param in command.params:

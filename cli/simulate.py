@@ -6,11 +6,6 @@ import dataclasses
 
 import click
 
-from cluttersim.dem_error import DemErrorConfig, dem_error_paths, simulate_dem_error, write_dem_error
-from cluttersim.errors import ConfigError
-from cluttersim.outputs import check_new
-from cluttersim.products import simulate_to_dir
-
 from .options import (
     figure_options, height_datum_options, load_config, make_figure_options, max_memory_option, track_for_dem, with_antenna,
     out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
@@ -49,13 +44,25 @@ from .options import (
 @permittivity_option
 @max_memory_option
 @figure_options
+@click.option("--segment-traces", default="auto", show_default=True, metavar="N|auto",
+              help="Pulses per segment: a long track is simulated in segments, each with its own DEM window, "
+                   "written to OUT/segments/ as it finishes (resumed after an interruption); auto: one piece "
+                   "when the track fits in about 1 GB.")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="Run the segments as Dask tasks: 'local' starts a LocalCluster (--workers processes), "
+                   "tcp://HOST:PORT uses a running one (every worker must read the DEM at the same path).")
+@click.option("--scheduler-file", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help="Run the segments on the Dask scheduler whose address is in FILE (dask scheduler --scheduler-file).")
+@click.option("--workers", type=click.IntRange(min=1), default=None,
+              help="Worker processes of --scheduler local [default: one per core].")
 @out_dir_option()
 @overwrite_option
 @quiet_option
-def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
+@click.pass_context
+def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_sources, nadir_strip_m, first_return_db,
                  antenna_pattern, antenna_axis, beamwidth_deg, shadowing, track_height_datum, dem_height_datum, dem_height_unit,
-                 dem_error, realisations, dem_error_seed, permittivity, max_memory, dpi, figure_format, db_range, out_dir,
-                 overwrite, quiet):  # fmt: skip
+                 dem_error, realisations, dem_error_seed, permittivity, max_memory, dpi, figure_format, db_range,
+                 segment_traces, scheduler, scheduler_file, workers, out_dir, overwrite, quiet):  # fmt: skip
     """Simulate the surface-clutter radargram of TRACK over DEM.
 
     Writes OUT/radargram.nc (netCDF4), OUT/radargram.png (power, with an apparent-depth
@@ -80,6 +87,29 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     Example:
       cluttersim simulate --dem site.tif --track pass.csv --radar radar.toml --out run1
     """
+    from pathlib import Path
+
+    if not quiet:  # at once: the libraries below take seconds to load on a busy machine
+        click.echo(f"simulating {track_path} over {dem_path} into {out_dir}/", err=True)
+    from cluttersim.products import simulate_to_dir
+    from cluttersim.dem_error import dem_error_paths, simulate_dem_error, write_dem_error
+    from cluttersim.outputs import check_new
+    from cluttersim.segments import SEGMENTS_DIR
+    from cluttersim.survey import Engine
+
+    if segment_traces != "auto":
+        try:
+            segment_traces = int(segment_traces)
+            if segment_traces < 1:
+                raise ValueError
+        except ValueError:
+            raise click.BadParameter(f"{segment_traces!r}: expected a whole number >= 1 or auto",
+                                     param_hint="--segment-traces") from None  # fmt: skip
+    if workers is not None and scheduler != "local":
+        raise click.BadParameter("--workers is for --scheduler local", param_hint="--workers")
+    engine = None
+    if scheduler is not None or scheduler_file is not None:
+        engine = Engine(workers=workers, scheduler=scheduler, scheduler_file=scheduler_file)
     config = with_antenna(load_config(radar_path), antenna_pattern, antenna_axis, beamwidth_deg)
     if shadowing is not None:
         config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, shadowing=shadowing))
@@ -98,11 +128,22 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
     error = _dem_error_config(radar_path, dem_error, realisations, dem_error_seed)
     error_paths = dem_error_paths(out_dir) if error is not None else {}
     check_new(error_paths.values(), overwrite)  # before any work
-    paths = simulate_to_dir(
-        dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite, progress=not quiet,
-        sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db, permittivity=permittivity,
-        max_memory_bytes=max_memory, figures=make_figure_options(dpi, figure_format, db_range),
-    )  # fmt: skip
+    summary = {}
+    try:
+        paths = simulate_to_dir(
+            dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite,
+            progress=not quiet, sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
+            permittivity=permittivity, max_memory_bytes=max_memory, segment_traces=segment_traces, engine=engine,
+            summary=summary, figures=make_figure_options(dpi, figure_format, db_range),
+        )  # fmt: skip
+    except KeyboardInterrupt:
+        seg_dir = Path(out_dir) / SEGMENTS_DIR
+        kept = len(list(seg_dir.glob("*.nc"))) if seg_dir.is_dir() else 0
+        if (ctx.obj and ctx.obj.get("debug")) or not kept:
+            raise
+        click.echo(f"cluttersim: interrupted; {kept} finished segment(s) are kept in {seg_dir}, no radargram was "
+                   "written; run the same command again to resume", err=True)  # fmt: skip
+        ctx.exit(130)
     if error is not None:
         ds = simulate_dem_error(dem_path, track_path, config, error, body_radius_m=body_radius_m, progress=not quiet,
                                 keep_realisations=True,
@@ -110,12 +151,19 @@ def simulate_cmd(dem_path, track_path, radar_path, body_radius_m, no_sources, na
         write_dem_error(ds, error_paths)
         paths.update(error_paths)
     if not quiet:
+        if summary.get("resumed"):
+            click.echo(f"resumed: {summary['resumed']} of {summary['segments']} segments were already finished")
+        elif summary.get("segments", 1) > 1:
+            click.echo(f"simulated in {summary['segments']} segments")
         for p in paths.values():
             click.echo(f"wrote {p}")
 
 
 def _dem_error_config(radar_path, option, realisations, seed):
     """The DEM-error settings: the radar TOML's [dem_error] table, overridden by the options."""
+    from cluttersim.dem_error import DemErrorConfig
+    from cluttersim.errors import ConfigError
+
     table = DemErrorConfig.from_toml(radar_path) if radar_path else None
     if option is None and table is None:
         if realisations is not None or seed is not None:

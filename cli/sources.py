@@ -4,15 +4,6 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.sources import (
-    ask_echo,
-    depth_window_map,
-    format_echo_answer,
-    load_run,
-    write_echo_answer,
-    write_source_map,
-)
-
 from .options import band_option, figure_options, make_figure_options, overwrite_option, permittivity_option, quiet_option
 
 
@@ -43,6 +34,10 @@ def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivi
       cluttersim sources run1 --trace 120 --delay-us 14.2
       cluttersim sources run1 --trace 120 --depth-m 180
     """
+    from cluttersim.sources import (
+        ask_echo, depth_window_map, format_echo_answer, load_run, write_echo_answer, write_source_map,
+    )  # fmt: skip
+
     if (depth_window is None) == (trace is None):
         raise click.UsageError("give either --depth-window A B, or --trace N with --delay-us or --depth-m")
     if trace is not None and (delay_us is None) == (depth_m is None):

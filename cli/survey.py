@@ -6,7 +6,6 @@ from pathlib import Path
 
 import click
 
-from cluttersim.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
 
 from .options import (
     band_option,
@@ -57,14 +56,18 @@ from .options import (
 @click.option("--scheduler", default=None, metavar="ADDRESS",
               help="Run tracks as Dask tasks: 'local' starts a LocalCluster, tcp://HOST:PORT uses a running one "
                    "(every worker must read the DEM at the same path). Needs pip install 'cluttersim[dask]'.")
+@click.option("--scheduler-file", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+              help="Run tracks as Dask tasks on the scheduler whose address is in FILE (written by "
+                   "dask scheduler --scheduler-file, as batch systems hand it to jobs).")
 @band_option
 @max_memory_option
 @out_dir_option()
 @overwrite_option
 @quiet_option
 @click.pass_context
-def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacing_km, heading_deg, alt_m, trace_spacing_m, tracks_path, radar_path,
-               max_depth_m, permittivity, threshold_db, swath_km, grid_km, body_radius_m, workers, scheduler, band, max_memory,
+def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacing_km, heading_deg, alt_m, trace_spacing_m,
+               tracks_path, radar_path, max_depth_m, permittivity, threshold_db, swath_km, grid_km, body_radius_m, workers,
+               scheduler, scheduler_file, band, max_memory,
                out_dir, overwrite, quiet):  # fmt: skip
     """Survey a region: where will off-nadir clutter swamp the subsurface?
 
@@ -82,6 +85,8 @@ def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacin
           --spacing-km 5 --heading-deg 10 --alt-m 300000 --out survey1
     (--region LON_MIN LAT_MIN LON_MAX LAT_MAX still works but is deprecated.)
     """
+    from cluttersim.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
+
     box = pick_coordinates(region, {"lat_min": lat_min, "lat_max": lat_max, "lon_min": lon_min, "lon_max": lon_max},
                            "--region", ("lon_min", "lat_min", "lon_max", "lat_max"))  # fmt: skip
     config = SurveyConfig(
@@ -89,7 +94,7 @@ def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacin
         trace_spacing_m=trace_spacing_m, tracks_path=tracks_path, max_depth_m=max_depth_m, permittivity=permittivity,
         threshold_db=threshold_db, grid_km=grid_km, swath_km=swath_km,
     )  # fmt: skip
-    engine = Engine(workers=workers, scheduler=scheduler)
+    engine = Engine(workers=workers, scheduler=scheduler, scheduler_file=scheduler_file)
     sim_config = load_config(radar_path)
     try:
         summary = run_survey(

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.products import planned_track_to_csv
 
 from .options import deprecated_pair, pick_coordinates
 
@@ -40,6 +39,8 @@ def track_cmd(start_lat, start_lon, end_lat, end_lon, start, end, alt_m, spacing
         raise click.UsageError("give --dem (body from its CRS) or --body-radius-m")
     a = pick_coordinates(start, {"start_lat": start_lat, "start_lon": start_lon}, "--start", ("start_lat", "start_lon"))
     b = pick_coordinates(end, {"end_lat": end_lat, "end_lon": end_lon}, "--end", ("end_lat", "end_lon"))
+    from cluttersim.products import planned_track_to_csv
+
     n = planned_track_to_csv(
         out_path, (a["start_lat"], a["start_lon"]), (b["end_lat"], b["end_lon"]), alt_m, spacing_m,
         speed_m_s=speed_m_s, dem_path=dem_path, body_radius_m=body_radius_m, overwrite=overwrite,

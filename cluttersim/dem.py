@@ -27,6 +27,10 @@ from .errors import DemError
 from .validate import height_limit_m
 
 
+#: GDAL block cache during a read, MB.
+READ_CACHE_MB = 64
+
+
 @dataclass(frozen=True)
 class DemSource:
     """An opened DEM's metadata (the pixels are read on demand by :meth:`read`).
@@ -213,7 +217,9 @@ class DemSource:
         if wrapped and not (self.wraps_longitude and w <= self.width):
             raise ValueError(f"window {window} lies outside the DEM's {self.width} columns")
         try:
-            with rasterio.open(self.path) as ds:
+            # GDAL's block cache (default 5 % of the RAM) fills during one read: a decimated read of a
+            # 20,000² DEM held 1.3 GB; a small cache bounds it (the blocks are read in order anyway)
+            with rasterio.Env(GDAL_CACHEMAX=READ_CACHE_MB), rasterio.open(self.path) as ds:
                 if not wrapped:
                     data = ds.read(1, window=window, out_shape=out_shape, masked=True)
                 else:

@@ -234,3 +234,23 @@ class NoiseConfig:
         return {k: v for k, v in (("noise_temperature_k", self.noise_temperature_k),
                                   ("noise_figure_db", self.noise_figure_db), ("seed", self.seed),
                                   ("sky_temperature_k", self.sky_temperature_k)) if v is not None}
+
+
+def add_noise_by_pulse(power_w, noise_power_w_: float, seed_words: tuple[int, ...], first_pulse: int = 0) -> np.ndarray:
+    """:func:`add_noise` with one generator per row (pulse), seeded by ``seed_words`` and the
+    row's index in the whole track (``first_pulse`` + row).
+
+    Each pulse's noise is then fixed by its place in the track alone, whatever part of the
+    track a run computes: a track simulated in segments (:mod:`cluttersim.segments`), on any
+    number of workers, gets the noise of the same track simulated in one piece.
+    """
+    power = np.asarray(power_w)
+    dtype = power.dtype if power.dtype in (np.float32, np.float64) else np.dtype(np.float64)
+    out = power.astype(dtype, copy=True)
+    scale = dtype.type(noise_power_w_)
+    for row in range(out.shape[0]):
+        rng = np.random.default_rng([*seed_words, first_pulse + row])
+        noise = rng.standard_exponential(size=out.shape[1:], dtype=dtype)
+        noise *= scale
+        out[row] += noise
+    return out

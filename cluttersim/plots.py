@@ -32,6 +32,7 @@ from matplotlib.patheffects import withStroke
 from . import palette
 from .overlays import draw_noise_floor, draw_predicted_subsurface
 from .radar import apparent_depth_m, delay_after_surface_s
+from .radargram import thin_traces
 
 #: Output resolution of every figure (dots per inch).
 DPI = 120
@@ -129,6 +130,9 @@ class RadargramLayers:
         y-axis label.
     nadir_us : ndarray (trace,) or None
         Nadir surface delay on the y axis, NaN where unknown; None if not drawn.
+    trace_step : int
+        Traces of the radargram per column (a long radargram is drawn from every k-th
+        trace, :func:`cluttersim.radargram.thin_traces`); the x axis counts the radargram's traces.
     """
 
     image_db: np.ndarray
@@ -138,6 +142,7 @@ class RadargramLayers:
     delay_bottom_us: float
     delay_label: str
     nadir_us: np.ndarray | None
+    trace_step: int = 1
 
 
 #: Bounds of the data-driven dynamic range (dB) chosen by :func:`auto_db_range`.
@@ -228,6 +233,7 @@ def radargram_layers(ds, dynamic_range_db: float | None = None, *, db_limits=Non
     if "delay" not in ds.coords:
         raise ValueError("radargram dataset needs a 'delay' (sample) coordinate in seconds")
     _check_range(dynamic_range_db, db_limits)
+    ds = thin_traces(ds)
     power_w = np.asarray(ds["power"].values, dtype=np.float64)
     nsample = power_w.shape[1]
     delay_s = np.asarray(ds["delay"].values, dtype=np.float64)
@@ -263,6 +269,7 @@ def radargram_layers(ds, dynamic_range_db: float | None = None, *, db_limits=Non
         delay_bottom_us=(offset_s + delay_s[-1] + 0.5 * step_s) * 1e6,
         delay_label=delay_label,
         nadir_us=nadir_us,
+        trace_step=int(ds.attrs.get("picture_trace_step", 1)),
     )
 
 
@@ -660,6 +667,7 @@ def plot_side_radargram(
                 "the per-sample source record; this dataset has none"
             )
     _check_permittivity(permittivity)
+    ds = thin_traces(ds)
     layers = radargram_layers(ds, dynamic_range_db, db_limits=db_limits)
     power_w = ds["power"].values
     left, right = (_trace_by_sample(ds[name]) for name in ("left_fraction", "right_fraction"))
@@ -1038,8 +1046,8 @@ def plot_comparison_difference(
 
 def _radargram_extent(layers: RadargramLayers) -> tuple[float, float, float, float]:
     """imshow extent: traces centred on integers, delay increasing downwards."""
-    ntrace = layers.image_db.shape[1]
-    return (-0.5, ntrace - 0.5, layers.delay_bottom_us, layers.delay_top_us)
+    ntrace, step = layers.image_db.shape[1], layers.trace_step
+    return (-0.5 * step, (ntrace - 0.5) * step, layers.delay_bottom_us, layers.delay_top_us)
 
 
 def _draw_nadir_line(ax, layers: RadargramLayers, colour: str):
@@ -1047,7 +1055,7 @@ def _draw_nadir_line(ax, layers: RadargramLayers, colour: str):
     if layers.nadir_us is None:
         return None
     ntrace = layers.image_db.shape[1]
-    (line,) = ax.plot(np.arange(ntrace), layers.nadir_us, color=colour, lw=0.8, ls=(0, (4, 3)), label="nadir surface")
+    (line,) = ax.plot(np.arange(ntrace) * layers.trace_step, layers.nadir_us, color=colour, lw=0.8, ls=(0, (4, 3)), label="nadir surface")
     ax.set_ylim(layers.delay_bottom_us, layers.delay_top_us)  # keep the image frame
     return line
 

@@ -6,6 +6,7 @@ from Python.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -15,7 +16,7 @@ from .body import Body
 from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, crs_linear_unit_m
 from .outputs import atomic_paths, check_new, locked_output
-from .radargram import band_names, select_band, write_netcdf_to
+from .radargram import band_names, select_band, thin_traces, write_netcdf_to
 from .simulate import _window_for_radius, ground_radius_m, simulate
 from .track import Track, great_circle_track
 
@@ -79,7 +80,7 @@ _MAP_CELLS = 900
 def simulate_to_dir(
     dem, track, config, out_dir, *, body_radius_m=None, overwrite=False, progress=False, stats=None,
     sources=True, nadir_strip_m=None, first_return_db=-20.0, permittivity=3.15, max_memory_bytes="auto",
-    figures: "FigureOptions | None" = None,
+    figures: "FigureOptions | None" = None, segment_traces="auto", engine=None, summary: dict | None = None,
 ) -> dict[str, Path]:  # fmt: skip
     """Simulate and write the run's products (:data:`RUN_FILES`) into ``out_dir``.
 
@@ -89,7 +90,14 @@ def simulate_to_dir(
     side figure without the source record, other bands') are removed, with a warning.
     The directory is locked while the run lasts (:func:`~cluttersim.outputs.lock_directory`).
     ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
-    is passed to :func:`~cluttersim.simulate.simulate`.
+    and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
+
+    A track that needs segments (:func:`cluttersim.segments.plan_segments`), or any
+    track with a Dask ``engine`` (:class:`cluttersim.survey.Engine`), is streamed:
+    :func:`cluttersim.segments.run_segments_to_dir` writes each finished segment to
+    ``OUT/segments/`` (resumed after an interruption) and joins them into
+    ``radargram.nc`` without holding the whole radargram. ``summary``, if given, is
+    filled with ``segments``, ``resumed`` and ``computed``.
     """
     out_dir = Path(out_dir)
     coherent = config is not None and config.processing.mode == "coherent"
@@ -99,13 +107,35 @@ def simulate_to_dir(
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
+    from . import segments
+    from .config import default_config
+
+    config = config if config is not None else default_config()
+    config = dataclasses.replace(config, processing=config.processing.with_track_speed(track, src.body))
+    streamed = engine is not None and engine.uses_dask
+    plan = segments.plan_segments(src, track, config, sources=sources, max_memory_bytes=max_memory_bytes,
+                                  segment_traces=segment_traces if segment_traces is not None or not streamed else "auto")  # fmt: skip
+    if len(plan) > 1 or streamed:
+        run = segments.run_segments_to_dir(
+            src, track, config, plan, out_dir, paths, body_radius_m=body_radius_m, overwrite=overwrite,
+            progress=progress, sources=sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
+            max_memory_bytes=max_memory_bytes, permittivity=permittivity, engine=engine,
+        )  # fmt: skip
+        if stats is not None:
+            stats.facet_evaluations = run.facet_evaluations
+            stats.seconds_total = run.seconds
+        if summary is not None:
+            summary.update(segments=run.segments, resumed=run.resumed, computed=run.computed)
+        return paths
     ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
                   nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
-                  max_memory_bytes=max_memory_bytes)  # fmt: skip
+                  max_memory_bytes=max_memory_bytes, segment_traces=None)  # fmt: skip
     if src.height_scale_m != 1.0:  # so that `sources` and `report` read the DEM's heights as simulated
         from .datums import HEIGHT_UNIT_ATTR
 
         ds.attrs[HEIGHT_UNIT_ATTR] = src.height_scale_m
+    if summary is not None:
+        summary.update(segments=1, resumed=0, computed=1)
     stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
     write_run(ds, src, paths, permittivity=permittivity, figures=figures)
     remove_stale_products(out_dir, stale)
@@ -147,44 +177,53 @@ def remove_stale_products(out_dir, names) -> None:
 
 def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15,
               figures: "FigureOptions | None" = None) -> None:  # fmt: skip
-    """Write a radargram and its figures atomically to ``paths`` (keys of :func:`run_files`).
+    """Write a radargram and its figures atomically to ``paths`` (keys of :func:`run_files`)."""
+    keys = list(paths)
+    with atomic_paths([paths[k] for k in keys]) as temps:
+        tmp = dict(zip(keys, temps))
+        write_netcdf_to(ds, tmp["radargram"])
+        write_figures(ds, src, {k: v for k, v in tmp.items() if k != "radargram"}, permittivity=permittivity,
+                      figures=figures)  # fmt: skip
 
-    The power, side and elevation radargrams of a band share one colour scale
-    (:func:`cluttersim.plots.db_limits`)."""
+
+def write_figures(ds, src: DemSource, tmp: dict[str, Path], permittivity: float = 3.15,
+                  max_traces: int | None = None, figures: "FigureOptions | None" = None) -> None:  # fmt: skip
+    """Draw a run's figures to ``tmp`` (the figure keys of :func:`run_files`). With
+    ``max_traces``, a longer radargram is drawn from every k-th trace (:func:`thin_traces`:
+    a lazily opened one is read only there). The power, side and elevation radargrams of a
+    band share one colour scale (:func:`cluttersim.plots.db_limits`)."""
     from . import plots
 
     figures = figures or FigureOptions()
     save = {"dpi": figures.dpi, "fmt": figures.fmt}
-    keys = list(paths)
     names = band_names(ds)
-    with atomic_paths([paths[k] for k in keys]) as temps:
-        tmp = dict(zip(keys, temps))
-        write_netcdf_to(ds, tmp["radargram"])
-        for name in names or [None]:
-            one = select_band(ds, name)
-            limits = plots.db_limits(one, dynamic_range_db=figures.db_range)
-            suffix = "" if name is None else f":{name}"
-            label = "" if name is None else f" — band {name} ({one.attrs['radar_center_frequency_hz'] / 1e6:g} MHz)"
-            plots.plot_radargram(one, tmp["radargram_png" + suffix], title=f"simulated clutter — {src.path.name}{label}",
-                                 permittivity=permittivity, db_limits=limits, **save)  # fmt: skip
-            if "sides_png" + suffix in tmp:
-                plots.plot_side_radargram(one, tmp["sides_png" + suffix], permittivity=permittivity, db_limits=limits,
-                                          title=f"which side of the track each echo comes from — {src.path.name}{label}",
-                                          **save)  # fmt: skip
-            if "elevation_png" + suffix in tmp:
-                plots.plot_elevation_radargram(one, tmp["elevation_png" + suffix], permittivity=permittivity,
-                                               db_limits=limits, title=f"in elevation — {src.path.name}{label}",
-                                               **save)  # fmt: skip
-        ds = select_band(ds)
-        elevation, frame = track_map_data(src, ds)
-        tx, ty = frame.xy(ds["lon"].values, ds["lat"].values)
-        first = None
-        if "first_return_lat" in ds:
-            first = frame.xy(ds["first_return_lon"].values, ds["first_return_lat"].values)
-        plots.plot_track_map(
-            elevation, frame.extent, tx, ty, tmp["track_map"], first_return=first,
-            title=f"track over {src.path.name}", axis_labels=frame.axis_labels, geographic=src.is_geographic, **save,
-        )  # fmt: skip
+    if max_traces is not None:
+        ds = thin_traces(ds, max_traces)
+    for name in names or [None]:
+        one = select_band(ds, name)
+        limits = plots.db_limits(one, dynamic_range_db=figures.db_range)
+        suffix = "" if name is None else f":{name}"
+        label = "" if name is None else f" — band {name} ({one.attrs['radar_center_frequency_hz'] / 1e6:g} MHz)"
+        plots.plot_radargram(one, tmp["radargram_png" + suffix], title=f"simulated clutter — {src.path.name}{label}",
+                             permittivity=permittivity, db_limits=limits, **save)  # fmt: skip
+        if "sides_png" + suffix in tmp:
+            plots.plot_side_radargram(one, tmp["sides_png" + suffix], permittivity=permittivity, db_limits=limits,
+                                      title=f"which side of the track each echo comes from — {src.path.name}{label}",
+                                      **save)  # fmt: skip
+        if "elevation_png" + suffix in tmp:
+            plots.plot_elevation_radargram(one, tmp["elevation_png" + suffix], permittivity=permittivity,
+                                           db_limits=limits, title=f"in elevation — {src.path.name}{label}",
+                                           **save)  # fmt: skip
+    ds = select_band(ds)
+    elevation, frame = track_map_data(src, ds)
+    tx, ty = frame.xy(ds["lon"].values, ds["lat"].values)
+    first = None
+    if "first_return_lat" in ds:
+        first = frame.xy(ds["first_return_lon"].values, ds["first_return_lat"].values)
+    plots.plot_track_map(
+        elevation, frame.extent, tx, ty, tmp["track_map"], first_return=first,
+        title=f"track over {src.path.name}", axis_labels=frame.axis_labels, geographic=src.is_geographic, **save,
+    )  # fmt: skip
 
 
 def track_map_data(src: DemSource, ds):

@@ -62,10 +62,10 @@ DEM file name, the body and the package version.
 
 from __future__ import annotations
 
+import contextlib
 import io
-import os
-
 import json
+import os
 from pathlib import Path
 
 import numpy as np
@@ -398,17 +398,46 @@ def _write_deflated_chunks(path, arrays: dict) -> None:  # path: a file name or 
                 dset.id.write_direct_chunk(offset, data)
 
 
-def open_radargram(path, band: str | None = None) -> xr.Dataset:
-    """Load a radargram written by cluttersim into memory.
+#: Radargrams with more (trace, sample) values than this open lazily by default (dask-backed chunks).
+LAZY_VALUES = 50_000_000
+#: Most traces a figure draws: larger radargrams are drawn from every k-th trace (:func:`thin_traces`).
+PICTURE_TRACES = 4096
+
+
+def _open(path, lazy):
+    """The dataset of a netCDF file: loaded, or lazy (dask chunks of whole HDF5 chunks when dask is
+    installed, else xarray's lazily indexed arrays: slicing reads only what it needs)."""
+    if not lazy:
+        with xr.open_dataset(path, engine="h5netcdf") as ds:
+            return ds.load()
+    try:
+        import dask  # noqa: F401
+    except ImportError:
+        return xr.open_dataset(path, engine="h5netcdf")
+    return xr.open_dataset(path, engine="h5netcdf", chunks={})
+
+
+def open_radargram(path, band: str | None = None, *, lazy: bool | None = None) -> xr.Dataset:
+    """Open a radargram written by cluttersim.
 
     A multi-band file gives one band (:func:`select_band`): ``band``, or the first.
+    ``lazy``: True keeps the arrays on disk (dask-backed chunks: a 100,000 × 2,048
+    radargram can be sliced, reduced and plotted without loading it; close the
+    dataset when done); False loads everything; None (default) loads radargrams of
+    up to :data:`LAZY_VALUES` values per (trace, sample) variable and opens larger
+    ones lazily.
     """
     path = Path(path)
     if not path.exists():
         raise ClutterSimError(f"{path}: radargram file not found")
     try:
-        with xr.open_dataset(path, engine="h5netcdf") as ds:
-            ds = ds.load()
+        if lazy is None:
+            import h5py
+
+            with h5py.File(path, "r") as f:
+                size = f["power"].size if "power" in f else 0
+            lazy = size > LAZY_VALUES
+        ds = _open(path, lazy)
     except (OSError, ValueError) as exc:
         raise ClutterSimError(f"{path}: not a readable netCDF radargram ({exc})") from None
     if "power" not in ds or ds["power"].dims not in (("trace", "sample"), ("band", "trace", "sample")):
@@ -456,3 +485,26 @@ def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
     ds.attrs["power_convention_converted_from"] = LEGACY_POWER_CONVENTION
     ds.attrs["power_convention_factor"] = factor
     return ds
+
+
+@contextlib.contextmanager
+def open_radargram_lazy(path, band: str | None = None):
+    """:func:`open_radargram` with ``lazy=True`` as a context manager that closes the file."""
+    ds = open_radargram(path, band, lazy=True)
+    try:
+        yield ds
+    finally:
+        ds.close()
+
+
+def thin_traces(ds: xr.Dataset, max_traces: int = PICTURE_TRACES) -> xr.Dataset:
+    """Every k-th trace of a radargram with more than ``max_traces`` traces (k the smallest
+    that leaves at most ``max_traces``), for figures; attribute ``picture_trace_step`` = k.
+    Lazily opened arrays are read only at the traces kept."""
+    n = ds.sizes.get("trace", 0)
+    if n <= max_traces:
+        return ds
+    step = -(-n // max_traces)
+    out = ds.isel(trace=slice(0, None, step))
+    out.attrs = {**ds.attrs, "picture_trace_step": step}
+    return out

@@ -33,7 +33,7 @@ from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
-from .noise import add_complex_noise, add_noise
+from .noise import add_complex_noise, add_noise_by_pulse
 from .antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
 from .radar import (
@@ -110,6 +110,10 @@ def simulate(
     nadir_strip_m: float | None = None,
     first_return_db: float = -20.0,
     max_memory_bytes: int | str | None = "auto",
+    segment_traces: int | str | None = "auto",
+    first_pulse: int = 0,
+    require_echo: bool = True,
+    gain_height_m: float | None = None,
 ) -> xr.Dataset:
     """Simulate the surface-clutter radargram of a track over a DEM.
 
@@ -141,6 +145,20 @@ def simulate(
         read at full resolution) a run whose estimated memory
         (:func:`cluttersim.memory.estimate_memory_bytes`) exceeds this; "auto":
         80 % of the available memory; None: no check.
+    segment_traces : int, "auto" or None
+        Pulses per segment (:mod:`cluttersim.segments`): a long track is simulated in
+        segments, each with its own DEM window, so memory is bounded by one segment.
+        "auto": one piece when the whole track fits :data:`cluttersim.segments.SEGMENT_BUDGET_BYTES`,
+        else segments of the size that reads the fewest DEM cells; None: one piece.
+    first_pulse : int
+        Index of this track's first pulse in a longer track it is a segment of (the
+        per-pulse noise seeds, :func:`cluttersim.noise.add_noise_by_pulse`).
+    require_echo : bool
+        Raise :class:`GeometryError` when no sample receives surface power (a segment
+        of a longer track may have none).
+    gain_height_m : float, optional
+        The height above the nadir surface at which the aperture's integration gain is
+        taken (default: this track's median; a segment gets its whole track's).
 
     Returns
     -------
@@ -163,6 +181,17 @@ def simulate(
     proc = config.processing
     if len(track) < proc.presum:
         raise TrackError(f"{track.source}: {len(track)} pulses, fewer than [processing] presum = {proc.presum}")
+    if segment_traces is not None:
+        from . import segments
+
+        plan = segments.plan_segments(src, track, config, sources=sources, segment_traces=segment_traces,
+                                      max_memory_bytes=max_memory_bytes)  # fmt: skip
+        if len(plan) > 1:
+            return segments.simulate_in_segments(
+                src, track, config, plan, body_radius_m=body_radius_m, progress=progress, stats=stats,
+                sources=sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
+                max_memory_bytes=max_memory_bytes,
+            )  # fmt: skip
     scene = prepare_scene(src, track, config, stats, max_memory_bytes=max_memory_bytes, sources=sources)
     warn_grazing_without_shadowing(scene)
     idx, pad = scene.idx, scene.pad
@@ -178,9 +207,11 @@ def simulate(
     sources = sources and not coherent  # the source record is an incoherent-mode product
     coherent_presum = coherent and proc.presum > 1 and proc.presum_mode == "coherent"
     runs = [
-        _BandRun.start(name, scene_for_band(scene, cfg), i, ntr, sources, coherent_presum)
+        _BandRun.start(name, scene_for_band(scene, cfg), i, ntr, sources, coherent_presum, first_pulse)
         for i, (name, cfg) in enumerate(config.per_band())
     ]  # fmt: skip
+    for run in runs:
+        run.gain_height_m = gain_height_m
     for run in runs:
         strip = nadir_strip_m
         if strip is None:
@@ -220,7 +251,7 @@ def simulate(
                                        _compress, specular)  # fmt: skip
             bar.update(b - a)
     stats.seconds_kernel = time.perf_counter() - t0
-    if not any(run.has_echo() for run in runs):
+    if require_echo and not any(run.has_echo() for run in runs):
         raise GeometryError(
             "no surface echo falls inside the recording window of any trace; check [radar] window_start_s and samples"
         )
@@ -302,9 +333,11 @@ class _BandRun:
     signal: np.ndarray | None
     rng: np.random.Generator | None
     strip_m: np.ndarray | None = None
+    first_pulse: int = 0
+    gain_height_m: float | None = None
 
     @classmethod
-    def start(cls, name, scene, index, ntr, sources, coherent_presum) -> "_BandRun":
+    def start(cls, name, scene, index, ntr, sources, coherent_presum, first_pulse=0) -> "_BandRun":
         cfg = scene.config
         samples = cfg.radar.samples
         rng = None
@@ -315,7 +348,7 @@ class _BandRun:
             power=np.full((ntr, samples), np.nan, dtype=np.float32),
             record=SourceRecord.empty(ntr, samples) if sources else None,
             signal=np.full((ntr, samples), np.nan, dtype=np.complex64) if coherent_presum else None,
-            rng=rng,
+            rng=rng, first_pulse=first_pulse,
         )  # fmt: skip
 
     @property
@@ -330,6 +363,12 @@ class _BandRun:
         """Whether any sample received surface power (before noise)."""
         values = self.power if self.signal is None else np.abs(self.signal)
         return bool(np.nanmax(values, initial=0.0) > 0)
+
+    @property
+    def noise_seed_words(self) -> tuple[int, ...]:
+        """Seed of the per-pulse noise generators (with the pulse's index in the track)."""
+        seed = self.scene.config.noise.seed
+        return (seed,) if self.name is None else (seed, self.index)
 
     def noise_w(self) -> float | None:
         """Mean noise power per sample of one pulse on the ``power`` scale (W): the input noise
@@ -349,7 +388,9 @@ class _BandRun:
         proc = self.scene.config.processing
         gain = proc.range_compression_gain(self.radar.bandwidth_hz)
         if proc.prf_hz > 0 and proc.aperture != "none":
-            h = np.nanmedian(self.scene.track.alt_m - self.scene.h_nadir_m)
+            h = self.gain_height_m
+            if h is None:
+                h = np.nanmedian(self.scene.track.alt_m - self.scene.h_nadir_m)
             gain *= proc.integration_gain(self.radar.wavelength_m, float(h))
         return gain
 
@@ -398,7 +439,8 @@ class _BandRun:
         if self.signal is not None:  # coherent presumming: average the complex echoes, then detect
             power = (np.abs(presum.group_mean(self.signal, n)) ** 2).astype(np.float32)
         elif cfg.noise is not None and proc.mode != "coherent":  # after the source record: it is of the clutter alone
-            power = presum.group_mean(add_noise(self.power, self.noise_w(), self.rng), n).astype(np.float32)
+            noisy = add_noise_by_pulse(self.power, self.noise_w(), self.noise_seed_words, self.first_pulse)
+            power = presum.group_mean(noisy, n).astype(np.float32)
         else:
             power = clutter
         if cfg.noise is not None:  # coherent presumming averages the pulses' noise down by n

@@ -181,12 +181,21 @@ def _positive(name, value):
 class Engine:
     """Where tracks run: ``workers`` local processes, or a Dask ``scheduler``
     ("local" starts a ``LocalCluster`` of ``workers`` processes; "tcp://HOST:PORT"
-    connects to a running one)."""
+    connects to a running one), or the Dask scheduler whose address is in
+    ``scheduler_file`` (the JSON file ``dask scheduler --scheduler-file`` writes, the
+    usual way batch systems hand the address to jobs)."""
 
     workers: int | None = None
     scheduler: str | None = None
+    scheduler_file: str | None = None
 
     def __post_init__(self):
+        if self.scheduler_file is not None:
+            if self.scheduler is not None:
+                raise ConfigError("give either --scheduler or --scheduler-file, not both")
+            if self.workers is not None:
+                raise ConfigError("workers: the Dask cluster of --scheduler-file has its own workers; give --workers "
+                                  "only with --scheduler local or without a scheduler")  # fmt: skip
         if self.workers is not None and not (isinstance(self.workers, int) and self.workers >= 1):
             raise ConfigError(f"workers = {self.workers!r}: expected a whole number >= 1")
         if self.scheduler is not None and self.scheduler != "local" and not _SCHEDULER_RE.match(self.scheduler):
@@ -201,7 +210,13 @@ class Engine:
     def n_workers(self) -> int:
         return self.workers or (os.cpu_count() or 1)
 
+    @property
+    def uses_dask(self) -> bool:
+        return self.scheduler is not None or self.scheduler_file is not None
+
     def describe(self) -> str:
+        if self.scheduler_file is not None:
+            return f"Dask cluster of {self.scheduler_file}"
         if self.scheduler is None:
             return f"{self.n_workers} local process{'es' if self.n_workers > 1 else ''}"
         if self.scheduler == "local":
@@ -768,7 +783,7 @@ def run_jobs(jobs, engine: Engine, on_result, task=None) -> None:
     """Run ``task(job)`` (a picklable module-level function; default :func:`survey_track`) for
     every job on the engine, calling ``on_result`` with each result as it completes. Jobs need
     ``track_id``, ``key`` and ``numba_threads`` fields (as :class:`TrackJob`)."""
-    if engine.scheduler is None:
+    if not engine.uses_dask:
         _run_local(jobs, engine.n_workers, on_result, task)
     else:
         _run_dask(jobs, engine, on_result, task)
@@ -830,22 +845,34 @@ def _dask_survey_track(job: TrackJob, task=None) -> TrackResult:
     return (task or survey_track)(job)
 
 
+def _engine_option(engine: Engine) -> str:
+    return f"--scheduler-file {engine.scheduler_file}" if engine.scheduler_file else f"--scheduler {engine.scheduler}"
+
+
 def _dask(engine: Engine):
     """The ``distributed`` module, or a ConfigError saying how to install it."""
     try:
         import distributed
     except ImportError:
         raise ConfigError(
-            f"--scheduler {engine.scheduler}: Dask is not installed; install it with pip install 'cluttersim[dask]'"
+            f"{_engine_option(engine)}: Dask is not installed; install it with pip install 'cluttersim[dask]'"
         ) from None
     return distributed
 
 
-def _run_dask(jobs, engine: Engine, on_result, task=None) -> None:
-    """Run jobs as Dask tasks on a LocalCluster or the cluster behind ``engine.scheduler``."""
+@contextlib.contextmanager
+def dask_client(engine: Engine):
+    """``(client, numba_threads)`` for an engine's Dask cluster: a LocalCluster of ``engine.workers``
+    processes (``numba_threads``: cores / workers), the scheduler at ``engine.scheduler``, or the one
+    named in ``engine.scheduler_file`` (``numba_threads`` None: each task divides its worker's
+    cores). Closed (and a LocalCluster stopped) on exit."""
     distributed = _dask(engine)
-    Client, LocalCluster, as_completed = distributed.Client, distributed.LocalCluster, distributed.as_completed
+    Client, LocalCluster = distributed.Client, distributed.LocalCluster
     cluster = None
+    threads = None
+    if engine.scheduler_file is not None and not Path(engine.scheduler_file).is_file():
+        raise ConfigError(f"--scheduler-file {engine.scheduler_file}: file not found; expected the JSON file written "
+                          "by dask scheduler --scheduler-file")  # fmt: skip
     try:
         if engine.scheduler == "local":
             n = engine.n_workers
@@ -853,13 +880,34 @@ def _run_dask(jobs, engine: Engine, on_result, task=None) -> None:
                                    silence_logs=logging.CRITICAL)  # errors reach the user as one line, below
             client = Client(cluster)
             threads = max(1, (os.cpu_count() or 1) // n)
-            jobs = [dataclasses.replace(j, numba_threads=threads) for j in jobs]
+        elif engine.scheduler_file is not None:
+            client = Client(scheduler_file=engine.scheduler_file, timeout="20s")
         else:
             client = Client(engine.scheduler, timeout="20s")
-    except (OSError, TimeoutError) as exc:
+    except (OSError, TimeoutError, ValueError, KeyError) as exc:
         if cluster is not None:
             cluster.close()
-        raise ClutterSimError(f"--scheduler {engine.scheduler}: cannot reach the Dask scheduler ({exc})") from None
+        raise ClutterSimError(f"{_engine_option(engine)}: cannot reach the Dask scheduler ({exc})") from None
+    try:
+        yield client, threads
+    finally:
+        with _quiet_dask_logs(), contextlib.suppress(Exception):
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+
+def _run_dask(jobs, engine: Engine, on_result, task=None) -> None:
+    """Run jobs as Dask tasks on a LocalCluster or the cluster behind ``engine.scheduler`` (or
+    ``engine.scheduler_file``); ``task`` replaces :func:`survey_track` (the planner's hook)."""
+    as_completed = _dask(engine).as_completed
+    with dask_client(engine) as (client, threads):
+        if threads is not None:
+            jobs = [dataclasses.replace(j, numba_threads=threads) for j in jobs]
+        _submit_tracks(client, jobs, on_result, as_completed, task)
+
+
+def _submit_tracks(client, jobs, on_result, as_completed, task=None) -> None:
     futures = []
     try:
         futures = [client.submit(_dask_survey_track, job, task, key=f"cluttersim-survey-{job.key[:16]}-{job.track_id}",
@@ -870,11 +918,6 @@ def _run_dask(jobs, engine: Engine, on_result, task=None) -> None:
         with contextlib.suppress(Exception):
             client.cancel(futures)
         raise
-    finally:
-        with _quiet_dask_logs(), contextlib.suppress(Exception):
-            client.close()
-            if cluster is not None:
-                cluster.close()
 
 
 @contextlib.contextmanager
@@ -944,7 +987,7 @@ def run_survey(
     out_dir = Path(out_dir)
     paths = {k: out_dir / v for k, v in SURVEY_FILES.items()}
     check_new(paths.values(), overwrite)
-    if engine.scheduler is not None:
+    if engine.uses_dask:
         _dask(engine)  # before any work: say at once if Dask is missing
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     _check_window_fits(sim_config, config)
@@ -987,7 +1030,7 @@ def run_survey(
                 on_track(result)
 
         if jobs:  # tracks/ is made by the first track written (atomic_paths): nothing if none finishes
-            if engine.scheduler is None:
+            if not engine.uses_dask:
                 _run_local(jobs, engine.n_workers, on_result)
             else:
                 _run_dask(jobs, engine, on_result)

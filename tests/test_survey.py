@@ -422,3 +422,24 @@ def test_a_multi_band_radar_is_surveyed_one_band_at_a_time():
         survey_sim_config(bands, "mid")
     with pytest.raises(ConfigError, match="has a single band"):
         survey_sim_config(SimulationConfig(), "low")
+
+
+def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
+    """--scheduler-file: the survey's tracks as Dask tasks on the cluster named in the file (a real
+    LocalCluster here), the same results as in this process."""
+    distributed = pytest.importorskip("distributed")
+    import logging
+
+    from cluttersim.errors import ConfigError
+
+    path = tmp_path / "scheduler.json"
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+                                       silence_logs=logging.CRITICAL, scheduler_kwargs={"scheduler_file": str(path)})  # fmt: skip
+    try:
+        run_survey(massif, _small(), radar_config(), tmp_path / "file", engine=Engine(scheduler_file=str(path)))
+    finally:
+        cluster.close()
+    run_survey(massif, _small(), radar_config(), tmp_path / "here", engine=Engine(workers=1))
+    _assert_identical(_outputs(tmp_path / "here"), _outputs(tmp_path / "file"))
+    with pytest.raises(ConfigError, match="either --scheduler or --scheduler-file"):
+        Engine(scheduler="local", scheduler_file=str(path))
