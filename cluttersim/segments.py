@@ -44,7 +44,6 @@ import contextlib
 import dataclasses
 import hashlib
 import json
-import os
 import re
 import shutil
 import time
@@ -336,6 +335,14 @@ def empty_segment(template, job: SegmentJob):
     first = job.start // presum
     coords = {name: c for name, c in template.coords.items() if "trace" not in c.dims}
     coords["trace"] = ("trace", np.arange(first, first + n), template["trace"].attrs)
+    positions = {"lat": track.lat_deg, "lon": track.lon_deg, "alt": track.alt_m, "time": track.time_s}
+    for name, c in template.coords.items():  # lat, lon, alt, time, distance: coordinates on trace
+        if name == "trace" or "trace" not in c.dims:
+            continue
+        values = positions.get(name)
+        if values is None or c.dtype.kind != "f":
+            values = np.full(n, 0 if c.dtype.kind in "iu" else np.nan, dtype=c.dtype)
+        coords[name] = ("trace", np.asarray(values, dtype=c.dtype), c.attrs)
     data = {}
     for name, var in template.data_vars.items():
         if "trace" not in var.dims:
@@ -345,10 +352,20 @@ def empty_segment(template, job: SegmentJob):
         fill = 0 if var.dtype.kind in "iu" else np.nan
         data[name] = (var.dims, np.full(shape, fill, dtype=var.dtype), var.attrs)
     ds = xr.Dataset(data, coords=coords, attrs={**template.attrs, "facet_evaluations": 0})
-    for name, values in (("lat", track.lat_deg), ("lon", track.lon_deg), ("alt", track.alt_m), ("time", track.time_s)):
-        if name in ds and values is not None and ds[name].dtype.kind == "f":
+    for name, values in positions.items():
+        if name in ds.data_vars and values is not None and ds[name].dtype.kind == "f":
             ds[name].values[...] = values
     return ds
+
+
+def _whole_track_distance(ds):
+    """The along-track ``distance`` coordinate counted from the whole track's first trace (each
+    segment counts from its own)."""
+    from .radargram import with_trace_coordinates
+
+    if "distance" not in ds.variables:
+        return ds
+    return with_trace_coordinates(ds.drop_vars("distance"))
 
 
 # --------------------------------------------------------------------------- in memory
@@ -381,6 +398,7 @@ def simulate_in_segments(src: DemSource, track: Track, config, plan, *, body_rad
     datasets = _complete(results, jobs)
     ds = xr.concat(datasets, dim="trace", data_vars="minimal", coords="minimal", compat="override",
                    combine_attrs="override")  # fmt: skip
+    ds = _whole_track_distance(ds)
     for w in seen:
         warnings.warn(w, stacklevel=3)
     stats.facet_evaluations = sum(r.facet_evaluations for r in results.values())
@@ -585,6 +603,7 @@ def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet
                 parts.append(empty_segment(template.isel(trace=slice(0, 1)).load(), job).chunk({"trace": JOIN_CHUNK_TRACES}))
         ds = xr.concat(parts, dim="trace", data_vars="minimal", coords="minimal", compat="override",
                        combine_attrs="override")  # fmt: skip
+        ds = _whole_track_distance(ds)
         ds.attrs.pop("segment_key", None)
         _finish_attrs(ds, facet_evaluations, plan)
         ds = ds.chunk({"trace": JOIN_CHUNK_TRACES})
@@ -624,19 +643,11 @@ def _write_streamed_netcdf(ds, path) -> None:
 
 
 def _dask_run_segment(job: SegmentJob) -> SegmentResult:
-    """The Dask task: :func:`run_segment` with Numba's threads shared among the worker's threads."""
-    from .survey import _worker_tqdm_lock
+    """The Dask task: :func:`run_segment` with Numba's threads shared among the worker's threads
+    (the survey's task wrapper, which only reads ``job.numba_threads``)."""
+    from .survey import _dask_survey_track
 
-    _worker_tqdm_lock()
-    if job.numba_threads is None:
-        try:
-            from distributed import get_worker
-
-            nthreads = get_worker().state.nthreads
-        except (ImportError, ValueError, AttributeError):
-            nthreads = 1
-        job = dataclasses.replace(job, numba_threads=max(1, (os.cpu_count() or 1) // max(1, nthreads)))
-    return run_segment(job)
+    return _dask_survey_track(job, run_segment)
 
 
 def _run_dask(jobs, engine, on_result) -> None:

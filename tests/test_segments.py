@@ -83,6 +83,11 @@ def test_segments_equal_the_one_window_run(airborne):
     assert np.isnan(seg["power"].values[:5]).all() and np.isfinite(seg["power"].values[20:]).all()
     assert_same_run(one, seg)
     np.testing.assert_array_equal(seg["trace"].values, np.arange(len(track)))
+    # trace coordinates, including those of the segment off the DEM, and the along-track distance
+    # counted from the whole track's first trace (pyproj's geodesic, via the one-window run)
+    for name in ("lat", "lon", "alt", "distance"):
+        assert name in seg.coords
+        np.testing.assert_allclose(seg[name].values, one[name].values, rtol=0, atol=1e-6)
 
 
 def test_segments_equal_the_one_window_run_with_presum_and_noise(airborne):
