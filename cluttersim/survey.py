@@ -56,6 +56,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .clutter_index import clutter_index, level_ground_index_db, swath_half_width_m
 from .config import SimulationConfig, default_config
 from .dem import DemSource, crs_linear_unit_m
 from .demcrs import vsi_path
@@ -67,7 +68,7 @@ from .errors import (
     TrackError,
 )
 from .outputs import atomic_paths, check_new, hold_interrupts, locked_output
-from .radar import POWER_CONVENTION, apparent_depth_m, delay_after_surface_s, effective_pulse_duration_s
+from .radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
 from .track import Track, great_circle_track, read_track_table
 
 #: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
@@ -422,139 +423,6 @@ class TrackResult:
     seconds: float = 0.0  # the worker's time on this track (simulation and reduction)
     level_db: float = 0.0  # the level-ground index of this track's geometry, subtracted from index_db
     swath_m: float = 0.0  # cross-track half-width of the ground the subsurface window reaches (level ground)
-
-
-def clutter_index(power_w, left_fraction, right_fraction, window_start_s, nadir_delay_s, sample_interval_s: float,
-                  window_s: float, mainlobe_samples: int, threshold_db: float, permittivity: float = 3.15):  # fmt: skip
-    """Per trace: clutter index I (dB), clutter fraction F, apparent depth of the strongest
-    clutter (m) and the nadir surface echo power P_s (W), as defined in the module docstring.
-
-    ``power_w``, ``left_fraction``, ``right_fraction``: (trace, sample); delays absolute
-    two-way, s. Traces without a nadir echo give NaN. Also returns the number of traces
-    whose subsurface window ran past the end of the recording window (truncated there).
-    """
-    p = np.asarray(power_w, dtype=np.float64)
-    side = np.asarray(left_fraction, dtype=np.float64) + np.asarray(right_fraction, dtype=np.float64)
-    ntr, ns = p.shape
-    clutter = p * side
-    strip = p * (1.0 - side)
-    k = np.arange(ns)
-    start = np.asarray(window_start_s, dtype=np.float64)[:, None]
-    nadir = np.asarray(nadir_delay_s, dtype=np.float64)[:, None]
-    t = start + k * sample_interval_s
-    k_nadir = np.rint((nadir - start) / sample_interval_s)
-    with np.errstate(invalid="ignore"):
-        near = np.abs(k - k_nadir) <= mainlobe_samples
-        in_win = (t >= nadir - 0.5 * sample_interval_s) & (t <= nadir + window_s + 0.5 * sample_interval_s)
-        surface = np.max(np.where(near & np.isfinite(strip), strip, -np.inf), axis=1)
-        c_win = np.where(in_win & np.isfinite(clutter), clutter, -np.inf)
-        best = np.argmax(c_win, axis=1)
-        c_max = c_win[np.arange(ntr), best]
-        ok = np.isfinite(surface) & (surface > 0) & np.isfinite(c_max)
-        index_db = np.full(ntr, np.nan)
-        index_db[ok] = 10.0 * np.log10(np.maximum(c_max[ok], 1e-300) / surface[ok])
-        above = clutter >= surface[:, None] * 10.0 ** (threshold_db / 10.0)
-        p_win = np.where(in_win & np.isfinite(p), p, 0.0)
-        total = p_win.sum(axis=1)
-        fraction = np.full(ntr, np.nan)
-        good = ok & (total > 0)
-        fraction[good] = (p_win * above).sum(axis=1)[good] / total[good]
-        depth = np.full(ntr, np.nan)
-        depth[ok] = apparent_depth_m(t[ok, best[ok]] - nadir[ok, 0], permittivity)
-    truncated = int(np.sum(ok & (nadir[:, 0] + window_s > start[:, 0] + (ns - 1) * sample_interval_s)))
-    return index_db, fraction, depth, np.where(ok, surface, np.nan), truncated
-
-
-def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: SimulationConfig, survey: dict) -> float:
-    """The clutter index (raw, dB) that level ground gives in a track's geometry: computed, not tuned.
-
-    The trace with the median height above its nadir terrain and its two
-    neighbours (for the direction of travel) are simulated over a level DEM —
-    a constant height equal to that trace's nadir terrain, on the DEM's own
-    CRS and cell size (so facets are those of the real DEM) — with the same
-    radar, and :func:`clutter_index` is taken at the middle trace. Level ground
-    just outside the nadir strip (the pulse-limited footprint) echoes right
-    after the nadir echo, so this floor is a few dB below 0 for most sounders
-    (about −2.5 dB for the built-in radar 100 km up); the survey reports every
-    index relative to it, so level ground reads 0 dB. Returns NaN if no trace
-    has a nadir echo.
-    """
-    import tempfile
-
-    import rasterio
-    from rasterio.transform import from_origin
-
-    from .constants import SPEED_OF_LIGHT_M_S
-    from .simulate import ground_radius_m, simulate
-
-    clearance = np.asarray(track.alt_m, dtype=np.float64) - np.asarray(h_nadir_m, dtype=np.float64)
-    ok = np.flatnonzero(np.isfinite(clearance) & (clearance > 0))
-    if ok.size == 0:
-        return float("nan")
-    i = int(ok[np.argsort(clearance[ok])[ok.size // 2]])
-    rows = [max(0, i - 1), i, min(len(track) - 1, i + 1)]
-    rows = sorted(set(rows))
-    h0 = float(h_nadir_m[i])
-    radar = config.radar
-    window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
-    if radar.window_start_s == "auto":  # only the subsurface window matters: a shorter recording is enough
-        need = radar.auto_margin_samples + int(math.ceil(window_s / radar.sample_interval_s)) + 4 * radar.mainlobe_samples + 8
-        samples = int(min(radar.samples, max(need, 64)))
-        config = dataclasses.replace(config, radar=dataclasses.replace(radar, samples=samples))
-        radar = config.radar
-    max_range = clearance[i] + 0.5 * SPEED_OF_LIGHT_M_S * (radar.samples * radar.sample_interval_s + 2e-6)
-    if radar.window_start_s != "auto":
-        max_range = 0.5 * SPEED_OF_LIGHT_M_S * (float(radar.window_start_s) + radar.window_length_s)
-    radius = float(ground_radius_m(src.body, np.array([track.alt_m[i]]), np.array([max_range]), h0, h0)[0])
-    cell_x, cell_y = abs(src.transform.a), abs(src.transform.e)
-    x, y = src.lonlat_to_xy(np.array([track.lon_deg[i]]), np.array([track.lat_deg[i]]))
-    x, y = float(np.asarray(x)[0]), float(np.asarray(y)[0])
-    if src.is_geographic:
-        deg = math.degrees(1.0 / src.body.mean_radius_m)
-        half_x = radius * deg / max(math.cos(math.radians(track.lat_deg[i])), 0.05) + 3 * cell_x
-        half_y = radius * deg + 3 * cell_y
-    else:
-        half_x, half_y = radius + 3 * cell_x, radius + 3 * cell_y
-    nx = int(min(6000, 2 * math.ceil(half_x / cell_x) + 1))
-    ny = int(min(6000, 2 * math.ceil(half_y / cell_y) + 1))
-    # on the DEM's own grid lines, so the facets fall across the nadir strip's edge as the real ones do
-    t = src.transform
-    west = t.c + math.floor((x - 0.5 * nx * cell_x - t.c) / cell_x) * cell_x
-    north = t.f - math.floor((t.f - (y + 0.5 * ny * cell_y)) / cell_y) * cell_y
-    sub = Track(track.lat_deg[rows], track.lon_deg[rows], track.alt_m[rows],
-                None if track.time_s is None else track.time_s[rows], source=f"{track.source} (level-ground reference)")  # fmt: skip
-    with tempfile.TemporaryDirectory(prefix="cluttersim-level-") as tmp:
-        path = Path(tmp) / "level.tif"
-        profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32",
-                       transform=from_origin(west, north, cell_x, cell_y))  # fmt: skip
-        if src.crs is not None:
-            from rasterio.crs import CRS as RioCRS
-
-            profile["crs"] = RioCRS.from_wkt(src.crs.to_wkt())
-        with rasterio.open(path, "w", **profile) as out:
-            out.write(np.full((ny, nx), h0, dtype=np.float32), 1)
-        radius_given = None if src.crs is not None else src.body.mean_radius_m
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            ds = simulate(DemSource.open(path, radius_given), sub, config, body_radius_m=radius_given, sources=True,
-                          max_memory_bytes=None)  # fmt: skip
-    index_db, *_ = clutter_index(
-        ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
-        ds["nadir_delay"].values, radar.sample_interval_s, window_s, radar.mainlobe_samples, 0.0, survey["permittivity"],
-    )  # fmt: skip
-    return float(index_db[rows.index(i)])
-
-
-def swath_half_width_m(body, clearance_m, max_depth_m: float, permittivity: float) -> float:
-    """Cross-track distance from nadir of the level ground whose echo arrives at the bottom of the
-    subsurface window: the ground the window reaches, ρ = √(2 h Δr / (1 + h/R)) with
-    Δr = d_max √ε′ the extra range (flat-ground approximation of the law of cosines on a sphere of
-    radius R, valid for Δr ≪ h), for the median clearance h of the track."""
-    h = float(np.nanmedian(np.asarray(clearance_m, dtype=np.float64)))
-    if not (math.isfinite(h) and h > 0):
-        return 0.0
-    dr = max_depth_m * math.sqrt(permittivity)
-    return math.sqrt(2.0 * h * dr / (1.0 + h / body.mean_radius_m))
 
 
 def survey_track(job: TrackJob) -> TrackResult:
