@@ -57,7 +57,7 @@ from .dem import DemSource
 from .errors import ConfigError, TrackError
 from .outputs import atomic_paths, check_new
 from .radar import delay_after_surface_s
-from .track import Track
+from .track import Track, TrackOverDem
 
 #: Products of a plan directory.
 PLAN_FILES = {"table": "plan.csv", "best_track": "best_track.csv", "polar": "objective_polar.png",
@@ -219,24 +219,21 @@ def candidate_track(body, plan: PlanConfig, cand: Candidate, ground_m: float = 0
 
 
 @dataclass(frozen=True)
-class PlanJob:
-    """One candidate for a worker (picklable; the DEM travels as a path)."""
+class PlanJob(TrackOverDem):
+    """One candidate for a worker (:class:`cluttersim.track.TrackOverDem`: DEM path, track arrays,
+    memory limit, threads, key) and the planner's own: the candidate's id, its traces on the
+    target, the configuration and the objective's depth window."""
 
     track_id: str
-    dem_path: str
-    body_radius_m: float | None
-    lat_deg: np.ndarray
-    lon_deg: np.ndarray
-    alt_m: np.ndarray
     on_target: np.ndarray
     sim_config: SimulationConfig
     depth_m: tuple[float, float]
     permittivity: float
     threshold_db: float
-    max_memory_bytes: int | str | None = "auto"
-    numba_threads: int | None = None
-    key: str = ""
     dem_error: object | None = None  # DemErrorConfig: also the probability under DEM error
+
+    def track_name(self) -> str:
+        return self.track_id
 
 
 @dataclass
@@ -418,9 +415,10 @@ def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *,
             tr = candidate_track(body, plan, c, ground)
             mask = plan.target.on_target(body, tr.lon_deg, tr.lat_deg)
             key = hashlib.sha256(json.dumps([c.id, str(src.path.resolve())]).encode()).hexdigest()
-            jobs.append(PlanJob(c.id, str(src.path.resolve()), body_radius_m, tr.lat_deg, tr.lon_deg, tr.alt_m, mask,
-                                sim_config, tuple(plan.depth_m), plan.permittivity, plan.threshold_db,
-                                max_memory_bytes, None, key, plan.dem_error))  # fmt: skip
+            jobs.append(PlanJob(c.id, mask, sim_config, tuple(plan.depth_m), plan.permittivity, plan.threshold_db,
+                                plan.dem_error, dem_path=str(src.path.resolve()), body_radius_m=body_radius_m,
+                                lat_deg=tr.lat_deg, lon_deg=tr.lon_deg, alt_m=tr.alt_m,
+                                max_memory_bytes=max_memory_bytes, key=key))  # fmt: skip
         by_id = {c.id: c for c in cands}
         bar.total = (bar.total or 0) + len(jobs)
         bar.refresh()

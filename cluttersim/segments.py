@@ -55,7 +55,7 @@ import numpy as np
 
 from .dem import DemSource
 from .errors import ClutterSimError, OutputExistsError, TrackError
-from .track import Track
+from .track import Track, TrackOverDem
 
 #: Largest estimated memory of one segment chosen by "auto", bytes (a whole run's peak stays
 #: under ~2 GB with the interpreter, the compiled kernels and the output of one segment).
@@ -199,30 +199,23 @@ def plan_segments(src: DemSource, track: Track, config, *, sources: bool = True,
 
 
 @dataclass(frozen=True)
-class SegmentJob:
-    """One segment's work, small and picklable: the DEM travels as a path, never as pixels."""
+class SegmentJob(TrackOverDem):
+    """One segment's work (:class:`cluttersim.track.TrackOverDem`: DEM path, the segment's arrays,
+    memory limit, threads, resume key) and the segment's own: its place in the whole track, the
+    track's name, the configuration and :func:`cluttersim.simulate.simulate`'s options."""
 
     index: int
     start: int
     stop: int
-    dem_path: str
-    body_radius_m: float | None
-    lat_deg: np.ndarray
-    lon_deg: np.ndarray
-    alt_m: np.ndarray
-    time_s: np.ndarray | None
     track_source: str
     config: object
     sources: bool = True
     nadir_strip_m: float | None = None
     first_return_db: float = -20.0
-    max_memory_bytes: object = "auto"
-    numba_threads: int | None = None
-    key: str = ""
     gain_height_m: float | None = None
 
-    def track(self) -> Track:
-        return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_source)
+    def track_name(self) -> str:
+        return self.track_source
 
 
 @dataclass
@@ -243,9 +236,9 @@ def make_jobs(src: DemSource, track: Track, config, plan, *, body_radius_m=None,
     gain_h = track_gain_height_m(src, track, config, plan)
     for seg in plan:
         t = sub_track(track, seg.start, seg.stop)
-        job = SegmentJob(seg.index, seg.start, seg.stop, str(src.path.resolve()), body_radius_m, t.lat_deg, t.lon_deg,
-                         t.alt_m, t.time_s, track.source, config, sources, nadir_strip_m, first_return_db,
-                         max_memory_bytes, gain_height_m=gain_h)  # fmt: skip
+        job = SegmentJob(seg.index, seg.start, seg.stop, track.source, config, sources, nadir_strip_m, first_return_db,
+                         gain_h, dem_path=str(src.path.resolve()), body_radius_m=body_radius_m, lat_deg=t.lat_deg,
+                         lon_deg=t.lon_deg, alt_m=t.alt_m, time_s=t.time_s, max_memory_bytes=max_memory_bytes)  # fmt: skip
         jobs.append(dataclasses.replace(job, key=segment_key(src, job)))
     return jobs
 

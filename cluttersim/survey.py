@@ -69,7 +69,7 @@ from .errors import (
 )
 from .outputs import atomic_paths, check_new, hold_interrupts, locked_output
 from .radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
-from .track import Track, great_circle_track, read_track_table
+from .track import Track, TrackOverDem, great_circle_track, read_track_table
 
 #: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
 SURVEY_FILES = {"csv": "survey.csv", "map_tif": "clutter_map.tif", "map_png": "clutter_map.png"}
@@ -386,24 +386,17 @@ def track_file_name(track_id: str) -> str:
 
 
 @dataclass(frozen=True)
-class TrackJob:
-    """Everything a worker needs for one track: small and picklable (the DEM travels as a path)."""
+class TrackJob(TrackOverDem):
+    """Everything a worker needs for one track (:class:`cluttersim.track.TrackOverDem`: DEM path,
+    track arrays, memory limit, threads, resume key) and the survey's own: the track's id, the
+    simulation's configuration and the reduction's parameters."""
 
     track_id: str
-    dem_path: str
-    body_radius_m: float | None
-    lat_deg: np.ndarray
-    lon_deg: np.ndarray
-    alt_m: np.ndarray
-    time_s: np.ndarray | None
     sim_config: SimulationConfig
     survey: dict
-    max_memory_bytes: int | str | None = "auto"
-    numba_threads: int | None = None
-    key: str = ""
 
-    def track(self) -> Track:
-        return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_id)
+    def track_name(self) -> str:
+        return self.track_id
 
 
 @dataclass
@@ -876,8 +869,9 @@ def run_survey(
             done[st.track_id] = previous
             continue
         t = st.track
-        jobs.append(TrackJob(st.track_id, str(src.path.resolve()), body_radius_m, t.lat_deg, t.lon_deg, t.alt_m,
-                             t.time_s, sim_config, config.reduction(), max_memory_bytes, None, key))  # fmt: skip
+        jobs.append(TrackJob(st.track_id, sim_config, config.reduction(), dem_path=str(src.path.resolve()),
+                             body_radius_m=body_radius_m, lat_deg=t.lat_deg, lon_deg=t.lon_deg, alt_m=t.alt_m,
+                             time_s=t.time_s, max_memory_bytes=max_memory_bytes, key=key))  # fmt: skip
     _remove_stale_temporaries(track_dir)
     resumed = len(done)
     seen_warnings: list[str] = []
