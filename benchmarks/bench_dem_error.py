@@ -28,18 +28,6 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
 
-def cpu_flags() -> list[str]:
-    """The CPU's vector extensions (from /proc/cpuinfo)."""
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("flags"):
-                flags = line.split(":", 1)[1].split()
-                return sorted(f for f in flags if f.startswith(("avx", "sse4", "fma")))
-    except OSError:
-        pass
-    return []
-
-
 def timed(fn):
     w0, c0 = time.perf_counter(), time.process_time()
     out = fn()
@@ -47,7 +35,8 @@ def timed(fn):
 
 
 def main(argv=None) -> int:
-    from bench_simulate import case_inputs, cpu_model
+    from _common import cpu_model, vector_features, write_results
+    from bench_simulate import case_inputs
 
     from cluttersim.dem_error import DemErrorConfig, ErrorStats, simulate_dem_error
     from cluttersim.simulate import simulate
@@ -74,7 +63,7 @@ def main(argv=None) -> int:
     run_wall = statistics.median(w for w, _ in runs["sources"])
     run_cpu = statistics.median(c for _, c in runs["sources"])
     result = {
-        "case": args.case, "realisations": n, "cpu": cpu_model(), "cpu_vector_features": cpu_flags(),
+        "case": args.case, "realisations": n, "cpu": cpu_model(), "cpu_vector_features": vector_features(),
         "cores": os.cpu_count(), "load_average": [load0, load1],
         "run_wall_s": runs["sources"], "run_no_sources_wall_s": runs["no_sources"],
         "run_median_wall_s": run_wall, "run_median_cpu_s": run_cpu,
@@ -85,9 +74,7 @@ def main(argv=None) -> int:
         "per_realisation_wall_s": mc_wall / (n + 1),
         "saving_wall": n * run_wall / mc_wall, "saving_cpu": n * run_cpu / mc_cpu,
     }  # fmt: skip
-    out = HERE / "results" / f"dem_error-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.parent.mkdir(exist_ok=True)
-    out.write_text(json.dumps(result, indent=1))
+    out = write_results("dem_error", result, indent=1)
     print(json.dumps(result, indent=1))
     print(f"{n} realisations: {mc_wall:.1f} s wall ({mc_cpu:.1f} s CPU); one run {run_wall:.2f} s "
           f"({run_cpu:.2f} s CPU): N runs / Monte Carlo = {result['saving_wall']:.2f} (wall), "
