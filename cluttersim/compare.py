@@ -40,7 +40,7 @@ import xarray as xr
 
 from .compare_align import DelayOffset, estimate_delay_offset, fit_windows
 from .compare_detect import (
-    Detections, GainFit, NoiseFloor, candidate_score, clutter_within_tolerance, continuity_fraction,
+    Detections, GainFit, NoiseFloor, SampleVerdicts, candidate_score, clutter_within_tolerance, continuity_fraction,
     detect_unexplained, gain_from_scales, noise_floor, sub_sample_peaks,
 )  # fmt: skip
 from .compare_grid import (
@@ -360,22 +360,14 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
 
 
 @dataclass(frozen=True)
-class SimGridMasks:
-    """The test's outcome carried onto the simulated grid (matched traces × simulated samples).
+class SimGridMasks(SampleVerdicts):
+    """The test's outcome (:class:`~cluttersim.compare_detect.SampleVerdicts`) carried onto the
+    simulated grid (matched traces × simulated samples).
 
     A simulated sample is *detected* / *unexplained* / a *candidate* when any
     observed sample whose aligned delay rounds to it is; ``p_value`` is the
     smallest p-value among them (NaN: no observed sample tested there).
     """
-
-    detected: np.ndarray
-    unexplained: np.ndarray
-    candidate: np.ndarray
-    p_value: np.ndarray
-
-    @property
-    def explained(self) -> np.ndarray:
-        return self.detected & ~self.unexplained
 
     @classmethod
     def from_detections(cls, det: Detections, x, ns: int) -> "SimGridMasks":
