@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 import rasterio
 from rasterio.transform import from_origin
-from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_grid, utm_track, write_geotiff, write_utm
+from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_grid, utm_track, write_utm
 
 from cluttersim import SurfaceConfig, default_config
 from cluttersim.body import Body
