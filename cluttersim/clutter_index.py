@@ -93,30 +93,32 @@ def clutter_index(power_w, left_fraction, right_fraction, window_start_s, nadir_
     return index_db, fraction, depth, np.where(ok, surface, np.nan), truncated
 
 
-def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: SimulationConfig, survey: dict) -> float:
-    """The clutter index (raw, dB) that level ground gives in a track's geometry: computed, not tuned.
+@dataclass(frozen=True)
+class LevelScene:
+    """What :func:`level_ground_index_db` simulates: the reference traces, the level ground under
+    them, the radar (its recording shortened to what the index reads) and the index's window."""
 
-    The trace with the median height above its nadir terrain and its two
-    neighbours (for the direction of travel) are simulated over level ground
-    (:class:`LevelGround`, in memory) — a constant height equal to that trace's
-    nadir terrain, on the DEM's own CRS and cell size and grid lines (so facets
-    are those of the real DEM) — with the same radar, and :func:`clutter_index`
-    is taken at the middle trace. Level ground just outside the nadir strip (the
-    pulse-limited footprint) echoes right after the nadir echo, so this floor is
-    a few dB below 0 for most sounders (about −2.5 dB for the built-in radar
-    100 km up); the survey reports every index relative to it, so level ground
-    reads 0 dB. Returns NaN if no trace has a nadir echo.
-    """
+    traces: Track  # the median-clearance trace and its neighbours
+    middle: int  # the median-clearance trace's row in ``traces``
+    ground: LevelGround
+    config: SimulationConfig
+    window_s: float  # the subsurface window after the nadir echo, s
+
+
+def level_scene(src: DemSource, track: Track, h_nadir_m, config: SimulationConfig, survey: dict) -> LevelScene | None:
+    """The level-ground scene of a track's geometry (see :func:`level_ground_index_db`); None if no
+    trace is above its nadir terrain."""
+    from affine import Affine
+
     from .constants import SPEED_OF_LIGHT_M_S
-    from .simulate import ground_radius_m, simulate
+    from .simulate import ground_radius_m
 
     clearance = np.asarray(track.alt_m, dtype=np.float64) - np.asarray(h_nadir_m, dtype=np.float64)
     ok = np.flatnonzero(np.isfinite(clearance) & (clearance > 0))
     if ok.size == 0:
-        return float("nan")
+        return None
     i = int(ok[np.argsort(clearance[ok])[ok.size // 2]])
-    rows = [max(0, i - 1), i, min(len(track) - 1, i + 1)]
-    rows = sorted(set(rows))
+    rows = sorted({max(0, i - 1), i, min(len(track) - 1, i + 1)})
     h0 = float(h_nadir_m[i])
     radar = config.radar
     window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
@@ -144,20 +146,46 @@ def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: Simul
     t = src.transform
     west = t.c + math.floor((x - 0.5 * nx * cell_x - t.c) / cell_x) * cell_x
     north = t.f - math.floor((t.f - (y + 0.5 * ny * cell_y)) / cell_y) * cell_y
-    sub = Track(track.lat_deg[rows], track.lon_deg[rows], track.alt_m[rows],
-                None if track.time_s is None else track.time_s[rows], source=f"{track.source} (level-ground reference)")  # fmt: skip
-    from affine import Affine
+    traces = Track(track.lat_deg[rows], track.lon_deg[rows], track.alt_m[rows],
+                   None if track.time_s is None else track.time_s[rows], source=f"{track.source} (level-ground reference)")  # fmt: skip
+    # the height as a float32 DEM holds it (the reference was a float32 GeoTIFF: the same values)
+    ground = LevelGround.like(src, Affine(cell_x, 0.0, west, 0.0, -cell_y, north), nx, ny, float(np.float32(h0)))
+    return LevelScene(traces, rows.index(i), ground, config, window_s)
 
-    # the height as a float32 DEM holds it (the reference was a float32 GeoTIFF: same values)
-    level = LevelGround.like(src, Affine(cell_x, 0.0, west, 0.0, -cell_y, north), nx, ny, float(np.float32(h0)))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        ds = simulate(level, sub, config, sources=True, max_memory_bytes=None, segment_traces=None)
+
+def level_index_db(ds, scene: LevelScene, permittivity: float) -> float:
+    """:func:`clutter_index` (threshold 0 dB) of a radargram of ``scene`` at its middle trace, dB."""
+    radar = scene.config.radar
     index_db, *_ = clutter_index(
         ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
-        ds["nadir_delay"].values, radar.sample_interval_s, window_s, radar.mainlobe_samples, 0.0, survey["permittivity"],
+        ds["nadir_delay"].values, radar.sample_interval_s, scene.window_s, radar.mainlobe_samples, 0.0, permittivity,
     )  # fmt: skip
-    return float(index_db[rows.index(i)])
+    return float(index_db[scene.middle])
+
+
+def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: SimulationConfig, survey: dict) -> float:
+    """The clutter index (raw, dB) that level ground gives in a track's geometry: computed, not tuned.
+
+    The trace with the median height above its nadir terrain and its two
+    neighbours (for the direction of travel) are simulated over level ground
+    (:func:`level_scene`: :class:`LevelGround`, in memory) — a constant height
+    equal to that trace's nadir terrain, on the DEM's own CRS and cell size and
+    grid lines (so facets are those of the real DEM) — with the same radar, and
+    :func:`clutter_index` is taken at the middle trace. Level ground just outside
+    the nadir strip (the pulse-limited footprint) echoes right after the nadir
+    echo, so this floor is a few dB below 0 for most sounders (about −2.5 dB for
+    the built-in radar 100 km up); the survey reports every index relative to it,
+    so level ground reads 0 dB. Returns NaN if no trace has a nadir echo.
+    """
+    from .simulate import simulate
+
+    scene = level_scene(src, track, h_nadir_m, config, survey)
+    if scene is None:
+        return float("nan")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ds = simulate(scene.ground, scene.traces, scene.config, sources=True, max_memory_bytes=None, segment_traces=None)
+    return level_index_db(ds, scene, survey["permittivity"])
 
 
 def swath_half_width_m(body, clearance_m, max_depth_m: float, permittivity: float) -> float:
