@@ -155,7 +155,7 @@ def check_power_bound(config, nearest_m: float, area_m2: float, pulse_sum: float
     worst = None
     for name, cfg in config.per_band():
         radar = cfg.radar
-        r = max(float(nearest_m), radar.wavelength_m)
+        r = max(float(nearest_m) if math.isfinite(nearest_m) else 0.0, radar.wavelength_m)
         bound = radar.radar_constant_w_m2() * sigma0_max * float(area_m2) * float(pulse_sum) / r**4
         if worst is None or not bound <= worst[0]:
             worst = (bound, name, radar, r)
