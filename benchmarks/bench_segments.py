@@ -24,7 +24,6 @@ from __future__ import annotations
 import argparse
 import os
 import platform
-import resource
 import subprocess
 import sys
 import tempfile
