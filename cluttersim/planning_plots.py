@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 
-from .plots import RADARGRAM_CMAP, _new_figure, _save_atomic, power_db, radargram_layers
+from .plots import RADARGRAM_CMAP, _new_figure, power_db, radargram_layers, save_figure
 
 #: Colour map of the 5–95 % band width (dB).
 BAND_CMAP = "cividis"
@@ -28,8 +28,10 @@ def _image(ax, layers, vmin, vmax, cmap):
                      extent=(-0.5, ntr - 0.5, layers.delay_bottom_us, layers.delay_top_us))  # fmt: skip
 
 
-def plot_dem_error(ds, path, *, dynamic_range_db: float = 60.0, band_max_db: float = 10.0):
-    """Median power (dBW) over DEM realisations and the 5–95 % band width 10 log10(q95/q05) (dB)."""
+def plot_dem_error(ds, path, *, dynamic_range_db: float | None = 60.0, band_max_db: float = 10.0, dpi=None, fmt=None):
+    """Median power (dBW) over DEM realisations and the 5–95 % band width 10 log10(q95/q05) (dB),
+    saved to ``path`` (``dpi``, ``fmt``: :func:`cluttersim.plots.save_figure`; ``dynamic_range_db``
+    None: chosen from the data)."""
     fig = _new_figure((12.0, 5.0))
     ax1, ax2 = fig.subplots(1, 2, sharey=True)
     med = radargram_layers(ds.assign(power=ds["power_q50"]), dynamic_range_db)
@@ -55,16 +57,17 @@ def plot_dem_error(ds, path, *, dynamic_range_db: float = 60.0, band_max_db: flo
     ax2.set_title(f"spread: RMS {ds.attrs.get('dem_error_rms_m', '?')} m, "
                   f"correlation {ds.attrs.get('dem_error_correlation_m', '?')} m")  # fmt: skip
     ax2.set_facecolor("#d8d8d8")
-    return _save_atomic(fig, path)
+    return save_figure(fig, path, dpi=dpi, fmt=fmt)
 
 
 def plot_objective_polar(headings_deg, objective, labels, path, *, objective_label: str, best=None, worst=None,
-                         mirror: bool = True):  # fmt: skip
+                         mirror: bool = True, dpi=None, fmt=None):  # fmt: skip
     """Objective against heading on a polar plot (clockwise from north), one curve per label.
 
     ``headings_deg`` and ``objective``: lists (per curve) of arrays. ``best``/``worst``:
     (heading, value) marked. ``mirror``: also draw each value at the reverse heading (h + 180°,
-    the same ground track flown the other way), so the rose closes on itself.
+    the same ground track flown the other way), so the rose closes on itself. Saved to ``path``
+    (``dpi``, ``fmt``: :func:`cluttersim.plots.save_figure`).
     """
     fig = _new_figure((7.0, 6.5))
     ax = fig.add_subplot(projection="polar")
@@ -97,15 +100,22 @@ def plot_objective_polar(headings_deg, objective, labels, path, *, objective_lab
     ax.set_title(f"{objective_label} vs heading\n(lower is better, nearer the centre"
                  + ("; a heading and its reverse are one track)" if mirror else ")"))
     ax.legend(loc="lower left", bbox_to_anchor=(-0.12, -0.12), fontsize="small", framealpha=0.85)
-    return _save_atomic(fig, path)
+    return save_figure(fig, path, dpi=dpi, fmt=fmt)
 
 
 def plot_best_worst(best_ds, worst_ds, path, *, best_title: str, worst_title: str, target_traces=(None, None),
-                    depth_window_s=None, dynamic_range_db: float = 60.0):  # fmt: skip
+                    depth_window_s=None, dynamic_range_db: float | None = 60.0, dpi=None, fmt=None):  # fmt: skip
     """Best and worst tracks' radargrams side by side on one colour scale. ``target_traces``: per panel a
-    boolean mask of the target's traces; ``depth_window_s``: (after-nadir start, end) two-way delays."""
+    boolean mask of the target's traces; ``depth_window_s``: (after-nadir start, end) two-way delays;
+    ``dynamic_range_db`` None: chosen from both (:func:`cluttersim.plots.db_limits`). Saved to ``path``
+    (``dpi``, ``fmt``: :func:`cluttersim.plots.save_figure`)."""
     fig = _new_figure((13.0, 5.5))
     axes = fig.subplots(1, 2)
+    if dynamic_range_db is None:
+        from .plots import db_limits
+
+        lo, hi = db_limits(best_ds, worst_ds)
+        dynamic_range_db = hi - lo
     layers = [radargram_layers(d, dynamic_range_db) for d in (best_ds, worst_ds)]
     vmax = max(lay.vmax_db for lay in layers)
     vmin = vmax - dynamic_range_db
@@ -129,4 +139,4 @@ def plot_best_worst(best_ds, worst_ds, path, *, best_title: str, worst_title: st
         ax.set_ylabel(lay.delay_label)
         ax.legend(loc="lower right", fontsize="small", framealpha=0.85)
     fig.colorbar(im, ax=list(axes), label="power (dBW)")
-    return _save_atomic(fig, path)
+    return save_figure(fig, path, dpi=dpi, fmt=fmt)

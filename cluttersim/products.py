@@ -119,7 +119,7 @@ def simulate_to_dir(
         run = segments.run_segments_to_dir(
             src, track, config, plan, out_dir, paths, body_radius_m=body_radius_m, overwrite=overwrite,
             progress=progress, sources=sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
-            max_memory_bytes=max_memory_bytes, permittivity=permittivity, engine=engine,
+            max_memory_bytes=max_memory_bytes, permittivity=permittivity, engine=engine, figures=figures,
         )  # fmt: skip
         if stats is not None:
             stats.facet_evaluations = run.facet_evaluations

@@ -217,10 +217,10 @@ def test_plan_command_and_bad_input(massif, tmp_path):
                                                             "best_worst.png"}  # fmt: skip
     both = CliRunner().invoke(cli, base + ["--target-polygon", str(poly), "--target", "1", "2", "--out", str(tmp_path / "q")])
     assert both.exit_code == 2 and "either --target" in both.output
-    bad = CliRunner().invoke(cli, [*base[:4], "300", "50", *base[6:], "--target", str(t.lon_deg), str(t.lat_deg),
-                                   "--out", str(tmp_path / "r")])  # fmt: skip
+    bad = CliRunner().invoke(cli, [*base[:4], "300", "50", *base[6:], "--target-lat", str(t.lat_deg), "--target-lon",
+                                   str(t.lon_deg), "--out", str(tmp_path / "r")])  # fmt: skip
     assert bad.exit_code == 1 and "depth 300.0 50.0" in bad.output and len(bad.output.strip().splitlines()) == 1
-    off = CliRunner().invoke(cli, base + ["--target", "0", "0", "--out", str(tmp_path / "s")])
+    off = CliRunner().invoke(cli, base + ["--target-lat", "0", "--target-lon", "0", "--out", str(tmp_path / "s")])
     assert off.exit_code == 1 and "not on the DEM" in off.output
     assert not (tmp_path / "q").exists() and not (tmp_path / "r").exists() and not (tmp_path / "s").exists()
 
