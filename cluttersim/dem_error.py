@@ -580,10 +580,10 @@ def dem_error_paths(out_dir, fmt: str = "png") -> dict:
 
 def write_dem_error(ds: xr.Dataset, paths: dict, figures=None) -> None:
     """Write ``dem_error.nc`` (the Dataset of :func:`simulate_dem_error`) and ``dem_error.png``
-    (:func:`cluttersim.planning_plots.plot_dem_error`; ``figures``,
+    (:func:`cluttersim.plots.plot_dem_error`; ``figures``,
     :class:`cluttersim.products.FigureOptions`: dpi, format, dynamic range [default 60 dB]) atomically."""
     from .outputs import atomic_paths
-    from .planning_plots import plot_dem_error
+    from .plots.planning import plot_dem_error
     from .radargram import write_netcdf_to
 
     with atomic_paths([paths["dem_error"], paths["dem_error_png"]]) as (nc, png):

@@ -501,7 +501,7 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
                         figures=None) -> None:  # fmt: skip
     """plan.csv (ranked), best_track.csv, objective_polar.png, best_worst.png — atomically (``figures``:
     :class:`cluttersim.products.FigureOptions`)."""
-    from .planning_plots import plot_best_worst, plot_objective_polar
+    from .plots.planning import plot_best_worst, plot_objective_polar
     from .products import FigureOptions
 
     figures = figures or FigureOptions()
