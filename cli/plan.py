@@ -15,7 +15,7 @@ from .options import (
 
 @click.command("plan")
 @click.option("--dem", "dem_path", required=True, type=click.Path(dir_okay=False), help="Elevation raster (GeoTIFF...).")
-@click.option("--target-lat", type=float, default=None,
+@click.option("--target-lat", type=click.FloatRange(-90.0, 90.0), default=None,
               help="Target point: latitude, degrees north; its traces are those within --target-radius-m.")
 @click.option("--target-lon", type=float, default=None, help="Target point: longitude, degrees east.")
 @click.option("--target", nargs=2, type=float, default=None, metavar="LON LAT", hidden=True,
