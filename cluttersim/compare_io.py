@@ -33,14 +33,12 @@ COMPARE_FILES = {
 }
 #: File names of a many-track comparison directory (one subdirectory per track besides).
 COMBINED_FILES = {"candidates": "candidates.csv", "geojson": "candidates.geojson", "map": "candidates_map.png"}
-#: Figures of a comparison directory and of a many-track one (their suffix follows the figure format).
-_FIGURE_KEYS = ("side_by_side", "overlay", "difference", "map")
-
-
 def with_figure_format(files: dict[str, str], fmt: str = "png") -> dict[str, str]:
     """File names (:data:`COMPARE_FILES`, :data:`COMBINED_FILES`) with the figures in format ``fmt``
-    (png, pdf, svg)."""
-    return {k: v[: -len(".png")] + f".{fmt}" if k in _FIGURE_KEYS else v for k, v in files.items()}
+    (png, pdf, svg; :func:`cluttersim.products.figure_name`)."""
+    from .products import figure_name
+
+    return {k: figure_name(v, fmt) for k, v in files.items()}
 
 
 #: Columns of ``candidates.csv``.

@@ -574,8 +574,9 @@ def dem_error_paths(out_dir, fmt: str = "png") -> dict:
     """Paths of the DEM-error products in ``out_dir``, the figure in format ``fmt`` (png, pdf, svg)."""
     from pathlib import Path
 
-    return {k: Path(out_dir) / (v[: -len(".png")] + f".{fmt}" if v.endswith(".png") else v)
-            for k, v in DEM_ERROR_FILES.items()}  # fmt: skip
+    from .products import figure_name
+
+    return {k: Path(out_dir) / figure_name(v, fmt) for k, v in DEM_ERROR_FILES.items()}
 
 
 def write_dem_error(ds: xr.Dataset, paths: dict, figures=None) -> None:

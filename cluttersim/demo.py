@@ -19,7 +19,7 @@ from .noise import NoiseConfig
 from .radar import BandConfig
 from .dem import DemSource
 from .errors import DemError
-from .products import FigureOptions, run_files, simulate_to_dir
+from .products import FigureOptions, figure_name, run_files, simulate_to_dir
 from .report import REPORT_FILE, write_report
 from .outputs import atomic_paths, check_new, locked_output
 from .radargram import open_radargram
@@ -94,9 +94,8 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     save = {"dpi": figures.dpi, "fmt": figures.fmt}
     out_dir = Path(out_dir)
     track_csv = out_dir / "demo_track.csv"
-    focused_png = out_dir / f"radargram_focused.{figures.fmt}"
-    bands_png = out_dir / f"radargram_bands.{figures.fmt}"
-    sky_png = out_dir / f"radargram_sky_ionosphere.{figures.fmt}"
+    focused_png, bands_png, sky_png = (out_dir / figure_name(f"radargram_{view}.png", figures.fmt)
+                                       for view in ("focused", "bands", "sky_ionosphere"))  # fmt: skip
     report_html = out_dir / REPORT_FILE
     check_new([track_csv, focused_png, bands_png, sky_png, report_html]
               + [out_dir / f for f in run_files(fmt=figures.fmt).values()], overwrite)  # fmt: skip

@@ -479,8 +479,10 @@ def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, 
 
     t0 = time.perf_counter()
     out_dir = Path(out_dir)
+    from .products import figure_name
+
     fmt = figures.fmt if figures is not None else "png"
-    paths = {k: out_dir / (v[: -len(".png")] + f".{fmt}" if v.endswith(".png") else v) for k, v in PLAN_FILES.items()}
+    paths = {k: out_dir / figure_name(v, fmt) for k, v in PLAN_FILES.items()}
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     rows = search(src, plan, sim_config, engine=engine, body_radius_m=body_radius_m, progress=progress,

@@ -1247,8 +1247,9 @@ def track_rows(body, results, threshold_db: float) -> list[dict]:
 
 def survey_files(out_dir, fmt: str = "png") -> dict[str, Path]:
     """Paths of a survey's products (:data:`SURVEY_FILES`), the map figure in format ``fmt``."""
-    out_dir = Path(out_dir)
-    return {k: out_dir / (v[: -len(".png")] + f".{fmt}" if k == "map_png" else v) for k, v in SURVEY_FILES.items()}
+    from .products import figure_name
+
+    return {k: Path(out_dir) / figure_name(v, fmt) for k, v in SURVEY_FILES.items()}
 
 
 #: The survey map's colour scale by default: this many dB below the threshold and above it.
