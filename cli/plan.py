@@ -23,7 +23,8 @@ from .options import (
 @click.option("--target-radius-m", type=float, default=1000.0, show_default=True,
               help="Traces whose nadir is this close to the target point are the target's traces, m.")
 @click.option("--target-polygon", type=click.Path(dir_okay=False), default=None,
-              help="Instead of --target-lat/--target-lon: a CSV of polygon vertices (columns lon, lat); its traces are those inside.")
+              help="Instead of --target-lat/--target-lon: a CSV of polygon vertices (columns lon, lat); its traces "
+                   "are those inside.")
 @click.option("--depth-m", nargs=2, type=float, required=True, metavar="MIN MAX",
               help="The target's apparent depth range, m (for --permittivity).")
 @radar_option
@@ -61,8 +62,8 @@ from .options import (
 @out_dir_option()
 @overwrite_option
 @quiet_option
-def plan_cmd(dem_path, target_lat, target_lon, target, target_radius_m, target_polygon, depth_m, radar_path, platform, alt_m, offset_m,
-             headings_deg, coarse_step_deg, fine_step_deg, track_length_km, trace_spacing_m, permittivity, dem_error,
+def plan_cmd(dem_path, target_lat, target_lon, target, target_radius_m, target_polygon, depth_m, radar_path, platform,
+             alt_m, offset_m, headings_deg, coarse_step_deg, fine_step_deg, track_length_km, trace_spacing_m, permittivity, dem_error,
              realisations, dem_error_seed, threshold_db, body_radius_m, workers, scheduler, band, max_memory, dpi,
              figure_format, db_range, out_dir, overwrite, quiet):  # fmt: skip
     """Find the track over a target whose radargram has the least clutter in the target's depth window.
