@@ -460,48 +460,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
         write_candidates_csv(rows, t_csv, extra_columns=("track", "track_rank"))
         write_candidates_geojson(rows, t_json, source=str(list_path),
                                  extra_properties=lambda c: {"track": c["track"], "track_rank": c["track_rank"]})  # fmt: skip
+        from .plots import plot_candidate_map
+
         plot_candidate_map(results, t_png, dpi=figures.dpi if figures else None, fmt=fmt)
     return results, combined
-
-
-def plot_candidate_map(results, path, *, title: str | None = None, dpi: float | None = None,
-                       fmt: str | None = None) -> Path:  # fmt: skip
-    """Every track's antenna path and its candidates (colour: score) on a lon/lat map, saved to
-    ``path`` (``dpi``, ``fmt``: :func:`cluttersim.plots.save_figure`)."""
-    from matplotlib import colormaps
-
-    from .plots import _LEGEND_STYLE, _new_figure, save_figure
-
-    fig = _new_figure((8.0, 6.5))
-    ax = fig.add_subplot()
-    cmap = colormaps["viridis"]
-    sc = None
-    for name, r in results:
-        ds = r.dataset
-        lon = np.asarray(ds["lon"].values)
-        lat = np.asarray(ds["lat"].values)
-        line, = ax.plot(lon, lat, lw=0.8, color="0.55")
-        ax.annotate(name, (lon[0], lat[0]), fontsize="small", color="0.3")
-        if r.candidates:
-            sc = ax.scatter([c["lon"] for c in r.candidates], [c["lat"] for c in r.candidates],
-                            c=[c["score"] for c in r.candidates], cmap=cmap, vmin=0.0, vmax=1.0, s=14,
-                            edgecolors="k", linewidths=0.3, zorder=3)  # fmt: skip
-    ax.set_xlabel("longitude (°)")
-    ax.set_ylabel("latitude (°)")
-    lats = np.concatenate([np.asarray(r.dataset["lat"].values) for _, r in results])
-    lons = np.concatenate([np.asarray(r.dataset["lon"].values) for _, r in results])
-    coslat = max(math.cos(math.radians(float(np.nanmean(lats)))), 0.05)
-    half = 0.55 * max(float(np.nanmax(lats) - np.nanmin(lats)), float(np.nanmax(lons) - np.nanmin(lons)) * coslat, 1e-3)
-    mid_lat, mid_lon = 0.5 * (np.nanmax(lats) + np.nanmin(lats)), 0.5 * (np.nanmax(lons) + np.nanmin(lons))
-    ax.set_ylim(mid_lat - half, mid_lat + half)
-    ax.set_xlim(mid_lon - half / coslat, mid_lon + half / coslat)
-    ax.set_aspect(1.0 / coslat)
-    ax.ticklabel_format(useOffset=False)
-    n_cand = sum(len(r.candidates) for _, r in results)
-    ax.set_title(title or f"{len(results)} track(s), {n_cand} unexplained echoes at the antenna's nadir", fontsize="medium")
-    if sc is not None:
-        fig.colorbar(sc, ax=ax, label="candidate score", pad=0.01)
-    from matplotlib.lines import Line2D
-
-    ax.legend(handles=[Line2D([], [], color="0.55", lw=0.8, label="observed track")], loc="best", **_LEGEND_STYLE)
-    return save_figure(fig, path, dpi=dpi, fmt=fmt)

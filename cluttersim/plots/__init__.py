@@ -89,6 +89,8 @@ from .sides import (  # noqa: F401
     _side_palette,
 )
 from .comparison import (  # noqa: F401
+    CANDIDATE_MAP_FIGSIZE_IN,
+    plot_candidate_map,
     CANDIDATE_COLOUR,
     comparison_difference_db,
     COMPARISON_FIGSIZE_IN,

@@ -3,6 +3,7 @@ over the observed radargram, and observed minus predicted, with the candidates m
 
 from __future__ import annotations
 
+import math
 from dataclasses import replace
 from pathlib import Path
 
@@ -314,4 +315,48 @@ def plot_comparison_difference(
         ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     fig.colorbar(image, ax=ax, label="observed − predicted (dB): red = more observed than predicted", pad=0.01,
                  extend="both")  # fmt: skip
+    return _finish(fig, ax, given, path, dpi, fmt)
+
+
+#: Size of the many-track candidates map, inches (width, height).
+CANDIDATE_MAP_FIGSIZE_IN = (8.0, 6.5)
+
+
+def plot_candidate_map(results, path=None, *, ax=None, title: str | None = None, dpi: float | None = None,
+                       fmt: str | None = None):  # fmt: skip
+    """Every track's antenna path and its candidates (colour: score) on a lon/lat map.
+
+    ``results``: (name, :class:`cluttersim.compare.Comparison`) pairs, as
+    :func:`cluttersim.compare.compare_many` returns them. ``path``, ``ax``, ``dpi``, ``fmt``: see
+    :func:`plot_radargram`. Returns the new Figure, the given ``ax``, or ``path`` if one was given.
+    """
+    fig, ax, given = _figure_for(ax, CANDIDATE_MAP_FIGSIZE_IN)
+    cmap = colormaps["viridis"]
+    sc = None
+    for name, r in results:
+        ds = r.dataset
+        lon = np.asarray(ds["lon"].values)
+        lat = np.asarray(ds["lat"].values)
+        ax.plot(lon, lat, lw=0.8, color="0.55")
+        ax.annotate(name, (lon[0], lat[0]), fontsize="small", color="0.3")
+        if r.candidates:
+            sc = ax.scatter([c["lon"] for c in r.candidates], [c["lat"] for c in r.candidates],
+                            c=[c["score"] for c in r.candidates], cmap=cmap, vmin=0.0, vmax=1.0, s=14,
+                            edgecolors="k", linewidths=0.3, zorder=3)  # fmt: skip
+    ax.set_xlabel("longitude (°)")
+    ax.set_ylabel("latitude (°)")
+    lats = np.concatenate([np.asarray(r.dataset["lat"].values) for _, r in results])
+    lons = np.concatenate([np.asarray(r.dataset["lon"].values) for _, r in results])
+    coslat = max(math.cos(math.radians(float(np.nanmean(lats)))), 0.05)
+    half = 0.55 * max(float(np.nanmax(lats) - np.nanmin(lats)), float(np.nanmax(lons) - np.nanmin(lons)) * coslat, 1e-3)
+    mid_lat, mid_lon = 0.5 * (np.nanmax(lats) + np.nanmin(lats)), 0.5 * (np.nanmax(lons) + np.nanmin(lons))
+    ax.set_ylim(mid_lat - half, mid_lat + half)
+    ax.set_xlim(mid_lon - half / coslat, mid_lon + half / coslat)
+    ax.set_aspect(1.0 / coslat)
+    ax.ticklabel_format(useOffset=False)
+    n_cand = sum(len(r.candidates) for _, r in results)
+    ax.set_title(title or f"{len(results)} track(s), {n_cand} unexplained echoes at the antenna's nadir", fontsize="medium")
+    if sc is not None:
+        fig.colorbar(sc, ax=ax, label="candidate score", pad=0.01)
+    ax.legend(handles=[Line2D([], [], color="0.55", lw=0.8, label="observed track")], loc="best", **_LEGEND_STYLE)
     return _finish(fig, ax, given, path, dpi, fmt)
