@@ -6,6 +6,8 @@ resolution from the PNG header, and the dB range from the image: a narrower rang
 radargram at the bottom of the colour map (black in magma), so the picture gets darker.
 """
 
+import shutil
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -97,6 +99,15 @@ def test_sources_figures_follow_the_options(default_run):
     assert res.exit_code == 0, res.output
     low = next(default_run.glob("echo_t4_*.png"))
     assert png_size(low)[0] == round(7.0 * 60)  # ECHO_SOURCES_FIGSIZE_IN width at 60 dpi
+    # the source map's range: cells more than --db-range below the strongest are left uncoloured (relief shows)
+    shades = {}
+    for db in ("5", "80"):
+        out = default_run.parent / f"sources_{db}"
+        shutil.copytree(default_run, out, ignore=shutil.ignore_patterns("sources_*", "echo_*"))
+        res = run(["sources", out, "--depth-window", "50", "2000", "--dpi", "60", "--db-range", db, "-q"])
+        assert res.exit_code == 0, res.output
+        shades[db] = mean_brightness(next(out.glob("sources_*.png")))
+    assert abs(shades["5"] - shades["80"]) > 0.01, shades
 
 
 @pytest.fixture(scope="module")
