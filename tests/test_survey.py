@@ -433,7 +433,7 @@ def test_survey_map_follows_the_figure_options(massif, tmp_path):
             "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]  # fmt: skip
     runs = {"svg": ["--figure-format", "svg"], "a": ["--dpi", "50"], "b": ["--dpi", "50", "--db-range", "4"]}
     for name, extra in runs.items():
-        res = CliRunner().invoke(cli, base + ["--out", str(tmp_path / name), *extra])
+        res = invoke(*base, "--out", tmp_path / name, *extra)
         assert res.exit_code == 0, res.output
     assert figure_format(tmp_path / "svg" / "clutter_map.svg") == "svg"
     assert not (tmp_path / "svg" / "clutter_map.png").exists()
