@@ -266,8 +266,6 @@ class ErrorStats:
     seconds_kernel: float = 0.0
     seconds_total: float = 0.0
     facet_evaluations: int = 0
-    method: str = ""
-    group_size: int = 0
 
 
 class _Realiser:
@@ -297,26 +295,6 @@ class _Realiser:
         )  # fmt: skip
         self.grid = np.empty(elev.shape + (3,))
         self.tile = _tile_cells(f)
-
-    def facet_up(self) -> np.ndarray:
-        """(3, nfacet) float32: each facet's local vertical û (the geodetic normal of its cell, along
-        which :func:`cluttersim.kernels.grid_to_ecef` adds height)."""
-        f = self.scene.facets
-        nx = f.grid_shape[1]
-        i, j = np.divmod(f.cell.astype(np.int64), nx)
-        cos_lat, sin_lat, cos_lon, sin_lon = (np.broadcast_to(a, f.grid_shape) for a in self.trig)
-        up = np.empty((3, len(f)), dtype=np.float32)
-        c = cos_lat[i, j]
-        up[0] = c * cos_lon[i, j]
-        up[1] = c * sin_lon[i, j]
-        up[2] = sin_lat[i, j]
-        return up
-
-    def nadir_delay_s(self, error_m: np.ndarray, track) -> np.ndarray:
-        """Two-way nadir delay of each trace over heights + ``error_m`` (bilinear heights)."""
-        elev = np.where(self.valid, self.filled + error_m, np.nan)
-        h = dataclasses.replace(self.window, elevation_m=elev).bilinear_m(track.lon_deg, track.lat_deg)
-        return 2.0 * (track.alt_m - h) / SPEED_OF_LIGHT_M_S
 
     @property
     def max_rms_m(self) -> float:
@@ -361,7 +339,7 @@ def _tile_cells(facets) -> int:
 def simulate_dem_error(
     dem, track, config: SimulationConfig | None, error: DemErrorConfig, *, body_radius_m: float | None = None,
     band: str | None = None, progress: bool = False, keep_realisations: bool = False, stats: ErrorStats | None = None,
-    max_memory_bytes: int | str | None = "auto", sides: bool = False, method: str = "exact",
+    max_memory_bytes: int | str | None = "auto", sides: bool = False,
 ) -> xr.Dataset:  # fmt: skip
     """Simulate a track over N realisations of the DEM plus its error; per (trace, sample) statistics.
 
@@ -378,15 +356,6 @@ def simulate_dem_error(
         With ``keep_realisations``, also each realisation's source-record side shares
         ``left_fraction_realisations`` and ``right_fraction_realisations`` (the kernel then runs
         with the source record, nadir strip = the pulse-limited footprint; no presumming).
-    method : {"auto", "ensemble", "exact"}
-        ``"ensemble"``: groups of K realisations in one pass over the nominal facets
-        (:mod:`cluttersim.kernels_ensemble`; K bounded by :func:`ensemble_group_size`);
-        ``"exact"``: the facets rebuilt from the raised heights for each realisation and the
-        ordinary kernel (the reference, and the only way with shadowing or ``sides``);
-        ``"auto"``: the ensemble unless shadowing or ``sides`` need the exact path. The two agree
-        to :data:`ENSEMBLE_TOLERANCE` (tests/test_dem_error.py), but the ensemble measured 2.3×
-        slower in CPU time (benchmarks/bench_dem_error.py's small case, N = 32: its K delay rows
-        per trace miss the caches on every deposit), so the default is ``"exact"``.
 
     Returns
     -------
@@ -429,14 +398,6 @@ def simulate_dem_error(
             f"{memory.format_bytes(need)}, more than the allowed {memory.format_bytes(limit)}; expected fewer "
             "realisations or traces, or a larger --max-memory"
         )
-
-    if method not in ("auto", "ensemble", "exact"):
-        raise ConfigError(f"[dem_error] method {method!r}: expected 'auto', 'ensemble' or 'exact'")
-    exact_only = (sides and keep_realisations) or config.processing.shadowing
-    if method == "ensemble" and exact_only:
-        raise ConfigError("[dem_error] the ensemble kernel has no shadowing and no side shares: expected method 'exact'")
-    ensemble = method == "ensemble" or (method == "auto" and not exact_only)
-    stats.method = "ensemble" if ensemble else "exact"
 
     t0 = time.perf_counter()
     rms_guess = error.rms_m
@@ -504,25 +465,21 @@ def simulate_dem_error(
     if sides:
         side_out["left"] = np.full((n, ntr, radar.samples), np.nan, dtype=np.float32)
         side_out["right"] = np.full((n, ntr, radar.samples), np.nan, dtype=np.float32)
+    nominal = run(scene)
     stack = np.empty((n, n_out, radar.samples), dtype=np.float32)
     nadir = np.empty((n, ntr))
     with tqdm(total=n, unit="realisation", delay=1.0, disable=not progress, desc="DEM realisations") as bar:
-        if ensemble:
-            stats.group_size = ensemble_group_size(scene, nbins, chunk, limit)
-            nominal = _run_ensemble(realiser, track, ant_on, bin0, nbins, frames, idx, chunk, stats.group_size, stack,
-                                    nadir, stats, bar)  # fmt: skip
-        else:
-            nominal = run(scene)
-            for k in range(n):
-                t1 = time.perf_counter()
-                e = realiser.field_m(k)
-                stats.seconds_fields += time.perf_counter() - t1
-                t1 = time.perf_counter()
-                scene_k = realiser.scene_with(e)
-                stats.seconds_facets += time.perf_counter() - t1
-                nadir[k] = realiser.nadir_delay_s(e, track)
-                stack[k] = run(scene_k, k)
-                bar.update(1)
+        for k in range(n):
+            t1 = time.perf_counter()
+            e = realiser.field_m(k)
+            stats.seconds_fields += time.perf_counter() - t1
+            t1 = time.perf_counter()
+            scene_k = realiser.scene_with(e)
+            stats.seconds_facets += time.perf_counter() - t1
+            h = scene_k.window.bilinear_m(track.lon_deg, track.lat_deg)
+            nadir[k] = 2.0 * (track.alt_m - h) / SPEED_OF_LIGHT_M_S
+            stack[k] = run(scene_k, k)
+            bar.update(1)
 
     mean, std, quant = power_statistics(stack)
     nadir_out = presum.group_mean(nadir.T, config.processing.presum)  # (trace, realisation)
@@ -567,106 +524,6 @@ def simulate_dem_error(
     ds["power"].attrs["long_name"] = "mean received echo power over DEM realisations"
     stats.seconds_total = time.perf_counter() - t_start
     return ds
-
-
-#: Memory for one group of the ensemble kernel (the K error fields, each thread's K delay rows per
-#: trace, a chunk's K binned rows): at most this, or a quarter of the memory limit if smaller.
-ENSEMBLE_BUDGET_BYTES = 1 << 30
-#: Traces per thread block of the ensemble kernel (each with K delay rows).
-ENSEMBLE_TRACES_PER_BLOCK = 2
-#: Agreement of the ensemble kernel with the exact path (facets rebuilt per realisation), checked
-#: in tests/test_dem_error.py: power per (trace, sample) within ``power_rel`` of the trace's peak
-#: (the difference is float32 rounding of positions and fields and the variation of the local
-#: vertical between neighbouring cells, millimetres), the same nadir delays.
-ENSEMBLE_TOLERANCE = {"power_rel": 2e-3}
-
-
-def ensemble_group_size(scene, nbins: int, chunk: int, limit_bytes: int | None) -> int:
-    """K, the realisations per pass of the ensemble kernel: as many as :data:`ENSEMBLE_BUDGET_BYTES`
-    (or a quarter of ``limit_bytes``) holds, per realisation the window's error field (float32 per
-    cell), each thread's delay rows (:data:`ENSEMBLE_TRACES_PER_BLOCK` traces of ``nbins`` ×
-    ``simulate.OVERSAMPLE`` sub-bins plus margins, float64) and a chunk's binned power; at least 1."""
-    import numba
-
-    from .simulate import OVERSAMPLE
-
-    ny, nx = scene.facets.grid_shape
-    rows = numba.get_num_threads() * ENSEMBLE_TRACES_PER_BLOCK * (nbins * OVERSAMPLE * 3 // 2) * 8
-    per = ny * nx * 4 + rows + chunk * nbins * 8 * 2
-    budget = ENSEMBLE_BUDGET_BYTES if limit_bytes is None else min(ENSEMBLE_BUDGET_BYTES, limit_bytes // 4)
-    return max(1, int(budget // per))
-
-
-def _run_ensemble(realiser, track, ant_on, bin0, nbins, frames, idx, chunk, group, stack, nadir, stats, bar):
-    """The nominal DEM and every realisation with :func:`cluttersim.kernels_ensemble.accumulate_power_ensemble`
-    in groups of ``group``: fills ``stack`` (N, trace, sample) and ``nadir`` (N, trace); returns the
-    nominal power (trace, sample)."""
-    import numba
-
-    from .kernels_ensemble import accumulate_power_ensemble, row_layout
-    from .simulate import OVERSAMPLE, _compress
-
-    scene = realiser.scene
-    config = scene.config
-    radar = config.radar
-    f = scene.facets
-    ny, nx = f.grid_shape
-    ntr = len(track)
-    n = stack.shape[0]
-    t1 = time.perf_counter()
-    up = realiser.facet_up()
-    stats.seconds_facets += time.perf_counter() - t1
-    p0, p1 = config.surface.kernel_params()
-    weighting = config.kernel_weighting()
-    live = f.tile_radius_m >= 0.0
-    nominal = None
-    members = [-1, *range(n)]  # -1: the DEM without error
-    for g0 in range(0, len(members), group):
-        ks = members[g0 : g0 + group]
-        t1 = time.perf_counter()
-        err = np.zeros((ny * nx, len(ks)), dtype=np.float32)
-        for j, k in enumerate(ks):
-            if k >= 0:
-                e = realiser.field_m(k)
-                err[:, j] = e.ravel()
-                nadir[k] = realiser.nadir_delay_s(e, track)
-        stats.seconds_fields += time.perf_counter() - t1
-        t1 = time.perf_counter()
-        emax = float(np.abs(err).max(initial=0.0))
-        radius = np.where(live, f.tile_radius_m + emax, f.tile_radius_m)
-        slab = f.tile_slab.copy()
-        slab[:, 3] += emax
-        slab[:, 4] -= emax
-        slab[:, 5] += emax
-        max_ext = float(f.tile_extent_m.max(initial=0.0)) + 2.0 * emax
-        _, nrow = row_layout(nbins, OVERSAMPLE, radar.sample_interval_s, max_ext)
-        # NumPy allocates it (huge pages where the kernel allows: far-apart rows, fewer TLB misses)
-        scratch = np.empty((numba.get_num_threads(), ENSEMBLE_TRACES_PER_BLOCK * len(ks) * nrow))
-        stats.seconds_facets += time.perf_counter() - t1
-        powers = np.full((len(ks), ntr, radar.samples), np.nan)
-        t1 = time.perf_counter()
-        for a in range(0, idx.size, chunk):
-            b = min(a + chunk, idx.size)
-            out = np.zeros((b - a, len(ks), nbins))
-            stats.facet_evaluations += accumulate_power_ensemble(
-                ant_on[a:b], np.ascontiguousarray(bin0[a:b]), radar.sample_interval_s, OVERSAMPLE,
-                ENSEMBLE_TRACES_PER_BLOCK, f.tile_centre_m, radius, slab, f.tile_offsets, f.max_tile_facets, max_ext,
-                emax, f.rel_m, f.normal, f.e_col_m, f.e_row_m, f.area_m2, up, f.cell, ny, nx, err,
-                config.surface.law_code, p0, p1, radar.radar_constant_w_m2(), np.ascontiguousarray(frames[a:b]),
-                weighting, scratch, out,
-            )  # fmt: skip
-            for j in range(len(ks)):
-                powers[j, idx[a:b]] = _compress(np.ascontiguousarray(out[:, j]), scene.pulse_weights, scene.pad,
-                                                radar.samples)  # fmt: skip
-        stats.seconds_kernel += time.perf_counter() - t1
-        for j, k in enumerate(ks):
-            p = presum.group_mean(powers[j], config.processing.presum).astype(np.float32)
-            if k < 0:
-                nominal = p
-            else:
-                stack[k] = p
-                bar.update(1)
-    return nominal
 
 
 def power_statistics(stack: np.ndarray, block: int = 64):
