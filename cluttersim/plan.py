@@ -470,14 +470,19 @@ def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *,
 
 def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, out_dir=".", *, engine=None,
              body_radius_m: float | None = None, overwrite: bool = False, progress: bool = False,
-             max_memory_bytes="auto") -> PlanResult:  # fmt: skip
-    """Search (:func:`search`) and write the products (:data:`PLAN_FILES`) into ``out_dir``."""
+             max_memory_bytes="auto", figures=None) -> PlanResult:  # fmt: skip
+    """Search (:func:`search`) and write the products (:data:`PLAN_FILES`) into ``out_dir``; ``figures``
+    (:class:`cluttersim.products.FigureOptions`): the figures' resolution, format (png, pdf, svg: the
+    suffix follows) and the best/worst radargrams' dynamic range (default 60 dB)."""
     from .simulate import simulate
     from .survey import survey_sim_config
 
     t0 = time.perf_counter()
     out_dir = Path(out_dir)
-    paths = {k: out_dir / v for k, v in PLAN_FILES.items()}
+    from .products import figure_name
+
+    fmt = figures.fmt if figures is not None else "png"
+    paths = {k: out_dir / figure_name(v, fmt) for k, v in PLAN_FILES.items()}
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     rows = search(src, plan, sim_config, engine=engine, body_radius_m=body_radius_m, progress=progress,
@@ -489,14 +494,20 @@ def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, 
               for name, row in (("best", result.best), ("worst", result.worst))}  # fmt: skip
     datasets = {name: simulate(src, tr, cfg, body_radius_m=body_radius_m, sources=False,
                                max_memory_bytes=max_memory_bytes) for name, tr in tracks.items()}  # fmt: skip
-    write_plan_products(src, plan, result, tracks, datasets)
+    write_plan_products(src, plan, result, tracks, datasets, figures=figures)
     result.seconds = time.perf_counter() - t0
     return result
 
 
-def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict, datasets: dict) -> None:
-    """plan.csv (ranked), best_track.csv, objective_polar.png, best_worst.png — atomically."""
-    from .planning_plots import plot_best_worst, plot_objective_polar
+def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict, datasets: dict,
+                        figures=None) -> None:  # fmt: skip
+    """plan.csv (ranked), best_track.csv, objective_polar.png, best_worst.png — atomically (``figures``:
+    :class:`cluttersim.products.FigureOptions`)."""
+    from .plots.planning import plot_best_worst, plot_objective_polar
+    from .products import FigureOptions
+
+    figures = figures or FigureOptions()
+    save = {"dpi": figures.dpi, "fmt": figures.fmt}
 
     paths = result.paths
     keys = list(PLAN_FILES)
@@ -531,7 +542,7 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
         plot_objective_polar(hs, vs, labels, tmp["polar"], objective_label=label,
                              best=(b.candidate.heading_deg, value(b)),
                              worst=(wst.candidate.heading_deg, value(wst)),
-                             mirror=plan.headings_deg[1] - plan.headings_deg[0] <= 180.0)  # fmt: skip
+                             mirror=plan.headings_deg[1] - plan.headings_deg[0] <= 180.0, **save)  # fmt: skip
         masks = [plan.target.on_target(src.body, tracks[n].lon_deg, tracks[n].lat_deg) for n in ("best", "worst")]
         window = tuple(float(delay_after_surface_s(d, plan.permittivity)) for d in plan.depth_m)
 
@@ -541,4 +552,5 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
             return f"{name}: heading {c.heading_deg:.1f}°, {c.alt_m / 1e3:g} km — index {row.objective_db:.1f} dB{extra}"
 
         plot_best_worst(datasets["best"], datasets["worst"], tmp["best_worst"], best_title=title("best", b),
-                        worst_title=title("worst", wst), target_traces=masks, depth_window_s=window)  # fmt: skip
+                        worst_title=title("worst", wst), target_traces=masks, depth_window_s=window, **save,
+                        **({"dynamic_range_db": figures.db_range} if figures.db_range is not None else {}))  # fmt: skip

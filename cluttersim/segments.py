@@ -485,7 +485,8 @@ def read_segment_key(path: Path) -> str:
 
 def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, paths: dict, *, body_radius_m=None,
                         overwrite=False, progress=False, sources=True, nadir_strip_m=None, first_return_db=-20.0,
-                        max_memory_bytes="auto", permittivity=3.15, engine=None, on_segment=None) -> SegmentedRun:  # fmt: skip
+                        max_memory_bytes="auto", permittivity=3.15, engine=None, on_segment=None,
+                        figures=None) -> SegmentedRun:  # fmt: skip
     """Simulate a track in segments into a run directory, streaming.
 
     Each finished segment is written at once (atomically) to ``OUT/segments/NNNNN.nc``
@@ -496,7 +497,9 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
     segment. Once all are finished they are joined chunk by chunk into
     ``radargram.nc`` (never the whole radargram in memory), the figures are drawn
     from it (every k-th trace when there are more than the figure can show), and
-    ``OUT/segments/`` is removed.
+    ``OUT/segments/`` is removed. ``figures``: how they are drawn and saved
+    (:class:`cluttersim.products.FigureOptions`: dpi, png/pdf/svg, dB range; the names in
+    ``paths`` carry the format's suffix, :func:`cluttersim.products.run_files`).
 
     ``engine``: None (this process) or a :class:`cluttersim.survey.Engine` with a Dask
     scheduler: the segments run as Dask tasks carrying paths and arrays; the results
@@ -564,7 +567,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
         raise TrackError(f"{track.source}: no trace lies over the DEM {src.path.name}; check lat/lon and the DEM's extent")
     computed = {j.index for j in todo}
     evaluations += sum(_segment_evaluations(path) for i, path in finished.items() if i not in computed)
-    join_segments(src, jobs, finished, plan, paths, evaluations, permittivity=permittivity)
+    join_segments(src, jobs, finished, plan, paths, evaluations, permittivity=permittivity, figures=figures)
     shutil.rmtree(seg_dir, ignore_errors=True)
     return SegmentedRun(len(plan), resumed, len(todo), evaluations, time.perf_counter() - t0, seen)
 
@@ -583,9 +586,10 @@ PICTURE_TRACES = 4000
 
 
 def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet_evaluations: int, *,
-                  permittivity: float = 3.15) -> None:  # fmt: skip
+                  permittivity: float = 3.15, figures=None) -> None:  # fmt: skip
     """Join the finished segments into ``paths['radargram']`` chunk by chunk and draw the
-    figures from it (atomically, all products together)."""
+    figures from it (atomically, all products together; ``figures``:
+    :class:`cluttersim.products.FigureOptions`)."""
     import xarray as xr
 
     from .outputs import atomic_paths
@@ -613,7 +617,7 @@ def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet
             _write_streamed_netcdf(ds, tmp["radargram"])
             with open_radargram_lazy(tmp["radargram"]) as full:
                 write_figures(full, src, {k: v for k, v in tmp.items() if k != "radargram"}, permittivity=permittivity,
-                              max_traces=PICTURE_TRACES)  # fmt: skip
+                              max_traces=PICTURE_TRACES, figures=figures)  # fmt: skip
     finally:
         for d in opened.values():
             d.close()

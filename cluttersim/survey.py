@@ -955,7 +955,7 @@ class SurveySummary:
 def run_survey(
     dem, config: SurveyConfig, sim_config: SimulationConfig | None = None, out_dir=".", *, engine: Engine | None = None,
     body_radius_m: float | None = None, overwrite: bool = False, progress: bool = False,
-    max_memory_bytes: int | str | None = "auto", on_track=None, band: str | None = None,
+    max_memory_bytes: int | str | None = "auto", on_track=None, band: str | None = None, figures=None,
 ) -> SurveySummary:  # fmt: skip
     """Survey a region: simulate every track, write each as it finishes, then the map and table.
 
@@ -976,6 +976,9 @@ def run_survey(
         Called with each TrackResult after its file is written (progress hooks, tests).
     band : str, optional
         The band surveyed with a multi-band radar (``[[band]]`` tables; default the first).
+    figures : cluttersim.products.FigureOptions, optional
+        The map's resolution, format (png, pdf, svg: ``clutter_map.<fmt>``) and colour range
+        (``db_range``: dB spanned around the threshold, :func:`survey_map_range_db`).
 
     Returns
     -------
@@ -985,7 +988,7 @@ def run_survey(
     engine = engine if engine is not None else Engine()
     sim_config = survey_sim_config(sim_config if sim_config is not None else default_config(), band)
     out_dir = Path(out_dir)
-    paths = {k: out_dir / v for k, v in SURVEY_FILES.items()}
+    paths = survey_files(out_dir, figures.fmt if figures is not None else "png")
     check_new(paths.values(), overwrite)
     if engine.uses_dask:
         _dask(engine)  # before any work: say at once if Dask is missing
@@ -1044,7 +1047,7 @@ def run_survey(
             f"window in {truncated} traces; they are evaluated to the window's end (raise [radar] samples)",
             stacklevel=2,
         )
-    write_survey_products(src, config, grid, results, paths)
+    write_survey_products(src, config, grid, results, paths, figures=figures)
     return SurveySummary(paths=paths, tracks=len(planned), resumed=resumed, computed=len(jobs),
                          seconds=time.perf_counter() - t0, warnings=seen_warnings,
                          track_seconds=[done[j.track_id].seconds for j in jobs])  # fmt: skip
@@ -1242,15 +1245,40 @@ def track_rows(body, results, threshold_db: float) -> list[dict]:
     return rows
 
 
-def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid, results, paths) -> None:
+def survey_files(out_dir, fmt: str = "png") -> dict[str, Path]:
+    """Paths of a survey's products (:data:`SURVEY_FILES`), the map figure in format ``fmt``."""
+    from .products import figure_name
+
+    return {k: Path(out_dir) / figure_name(v, fmt) for k, v in SURVEY_FILES.items()}
+
+
+#: The survey map's colour scale by default: this many dB below the threshold and above it.
+SURVEY_MAP_BELOW_DB, SURVEY_MAP_ABOVE_DB = 6.0, 18.0
+
+
+def survey_map_range_db(db_range: float | None) -> tuple[float, float]:
+    """(below, above) the threshold spanned by the survey map's colours: the default
+    (:data:`SURVEY_MAP_BELOW_DB`, :data:`SURVEY_MAP_ABOVE_DB`), or a total of ``db_range`` dB
+    split in the same proportion (a quarter below the threshold)."""
+    if db_range is None:
+        return SURVEY_MAP_BELOW_DB, SURVEY_MAP_ABOVE_DB
+    share = SURVEY_MAP_BELOW_DB / (SURVEY_MAP_BELOW_DB + SURVEY_MAP_ABOVE_DB)
+    return share * db_range, (1.0 - share) * db_range
+
+
+def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid, results, paths,
+                          figures=None) -> None:  # fmt: skip
     """survey.csv, clutter_map.tif (band 1 index dB, band 2 fraction; DEM's CRS, NaN nodata) and
-    clutter_map.png, written together atomically."""
+    clutter_map.png (or .pdf/.svg: ``figures``, :class:`cluttersim.products.FigureOptions`),
+    written together atomically."""
     import rasterio
     from rasterio.crs import CRS as RioCRS
 
     from . import plots
-    from .products import MapFrame
+    from .products import FigureOptions, MapFrame
 
+    figures = figures or FigureOptions()
+    below_db, above_db = survey_map_range_db(figures.db_range)
     index, frac = grid_results(src, grid, results, config.swath_km)
     rows = track_rows(src.body, results, config.threshold_db)
     profile = dict(driver="GTiff", width=grid.width, height=grid.height, count=2, dtype="float32",
@@ -1286,7 +1314,8 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
             title=f"clutter over the subsurface window {depth}\n{src.path.name}",
             label=f"strongest off-nadir clutter at apparent depths {depth}\nrelative to level ground (dB; level "
                   "ground: 0)",
-            swaths=None if config.swath_km == 0 else True,
+            swaths=None if config.swath_km == 0 else True, below_db=below_db, above_db=above_db, dpi=figures.dpi,
+            fmt=figures.fmt,
         )  # fmt: skip
 
 

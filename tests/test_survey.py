@@ -443,3 +443,36 @@ def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
     _assert_identical(_outputs(tmp_path / "here"), _outputs(tmp_path / "file"))
     with pytest.raises(ConfigError, match="either --scheduler or --scheduler-file"):
         Engine(scheduler="local", scheduler_file=str(path))
+
+
+def test_survey_map_follows_the_figure_options(massif, tmp_path):
+    """--figure-format svg writes clutter_map.svg (SVG bytes), --dpi sets the PNG's pixel size, and
+    --db-range sets the map's colour span (a quarter below the threshold): a narrower span saturates
+    more cells, so the two maps differ while the numbers (GeoTIFF, CSV) do not."""
+    from figure_files import figure_format, png_size
+
+    from cluttersim.survey import survey_map_range_db
+
+    assert survey_map_range_db(None) == (6.0, 18.0)
+    assert survey_map_range_db(8.0) == pytest.approx((2.0, 6.0))
+    base = ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
+            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]  # fmt: skip
+    runs = {"svg": ["--figure-format", "svg"], "a": ["--dpi", "50"], "b": ["--dpi", "50", "--db-range", "4"]}
+    for name, extra in runs.items():
+        res = CliRunner().invoke(cli, base + ["--out", str(tmp_path / name), *extra])
+        assert res.exit_code == 0, res.output
+    assert figure_format(tmp_path / "svg" / "clutter_map.svg") == "svg"
+    assert not (tmp_path / "svg" / "clutter_map.png").exists()
+    w120, h120 = _png_size_of_default(massif, tmp_path)
+    w50, h50 = png_size(tmp_path / "a" / "clutter_map.png")
+    assert abs(w50 - w120 * 50 / 120) <= 2 and abs(h50 - h120 * 50 / 120) <= 2
+    assert (tmp_path / "a" / "survey.csv").read_bytes() == (tmp_path / "b" / "survey.csv").read_bytes()
+    assert (tmp_path / "a" / "clutter_map.png").read_bytes() != (tmp_path / "b" / "clutter_map.png").read_bytes()
+
+
+def _png_size_of_default(massif, tmp_path):
+    from figure_files import png_size
+
+    out = tmp_path / "default"
+    run_survey(massif, _small(), radar_config(320), out, engine=Engine(workers=1))
+    return png_size(out / "clutter_map.png")
