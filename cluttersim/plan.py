@@ -80,7 +80,8 @@ class PlanTarget:
 
     def __post_init__(self):
         if not (math.isfinite(self.lon_deg) and -90 <= self.lat_deg <= 90):
-            raise ConfigError(f"target {self.lon_deg} {self.lat_deg}: expected LON LAT in degrees (-90 <= LAT <= 90)")
+            raise ConfigError(f"target lat = {self.lat_deg}, lon = {self.lon_deg}: expected degrees with -90 <= lat <= 90 "
+                              "and a finite lon")
         if not (math.isfinite(self.radius_m) and self.radius_m > 0):
             raise ConfigError(f"target radius_m = {self.radius_m!r}: expected a positive distance in metres")
         if self.polygon is not None and len(self.polygon) < 3:
