@@ -124,14 +124,19 @@ def _init_local_worker(threads: int, parent_pid: int | None = None) -> None:
     numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
 
 
-def run_jobs(jobs, engine: Engine, on_result, task) -> None:
+def run_jobs(jobs, engine: Engine, on_result, task, task_name=None) -> None:
     """Run ``task(job)`` (a picklable module-level function) for every job on the engine, calling
     ``on_result`` with each result as it completes. Jobs need ``track_id``, ``key`` and
-    ``numba_threads`` fields (as :class:`cluttersim.survey.TrackJob`)."""
+    ``numba_threads`` fields (as :class:`cluttersim.survey.TrackJob`); ``task_name(job)`` names
+    each Dask task (default ``cluttersim-survey-<key>-<track_id>``)."""
     if not engine.uses_dask:
         _run_local(jobs, engine.n_workers, on_result, task)
     else:
-        _run_dask(jobs, engine, on_result, task)
+        _run_dask(jobs, engine, on_result, task, task_name or _survey_task_name)
+
+
+def _survey_task_name(job) -> str:
+    return f"cluttersim-survey-{job.key[:16]}-{job.track_id}"
 
 
 def _run_local(jobs, workers: int, on_result, task) -> None:
@@ -241,27 +246,22 @@ def dask_client(engine: Engine):
                 cluster.close()
 
 
-def _run_dask(jobs, engine: Engine, on_result, task) -> None:
+def _run_dask(jobs, engine: Engine, on_result, task, task_name) -> None:
     """Run ``task`` on each job as Dask tasks on a LocalCluster or the cluster behind
     ``engine.scheduler`` (or ``engine.scheduler_file``)."""
     as_completed = _dask(engine).as_completed
     with dask_client(engine) as (client, threads):
         if threads is not None:
             jobs = [dataclasses.replace(j, numba_threads=threads) for j in jobs]
-        _submit_tracks(client, jobs, on_result, as_completed, task)
-
-
-def _submit_tracks(client, jobs, on_result, as_completed, task) -> None:
-    futures = []
-    try:
-        futures = [client.submit(_dask_task, job, task, key=f"cluttersim-survey-{job.key[:16]}-{job.track_id}",
-                                 pure=False) for job in jobs]  # fmt: skip
-        for fut in as_completed(futures):
-            on_result(fut.result())
-    except BaseException:
-        with contextlib.suppress(Exception):
-            client.cancel(futures)
-        raise
+        futures = []
+        try:
+            futures = [client.submit(_dask_task, job, task, key=task_name(job), pure=False) for job in jobs]
+            for fut in as_completed(futures):
+                on_result(fut.result())
+        except BaseException:
+            with _quiet_dask_logs(), contextlib.suppress(Exception):
+                client.cancel(futures)
+            raise
 
 
 @contextlib.contextmanager

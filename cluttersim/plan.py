@@ -41,7 +41,6 @@ default range is 0–180°.
 from __future__ import annotations
 
 import csv
-import dataclasses
 import hashlib
 import json
 import math

@@ -40,7 +40,6 @@ joins them into ``radargram.nc`` chunk by chunk, never holding the whole radargr
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 import hashlib
 import json
@@ -553,7 +552,9 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
             for job in todo:
                 on_result(run_segment(job, src))
         else:
-            _run_dask(todo, engine, on_result)
+            from .engines import run_jobs
+
+            run_jobs(todo, engine, on_result, run_segment, _segment_task_name)
     for w in seen:
         warnings.warn(w, stacklevel=2)
     if not finished:
@@ -639,29 +640,5 @@ def _write_streamed_netcdf(ds, path) -> None:
 # --------------------------------------------------------------------------- Dask
 
 
-def _dask_run_segment(job: SegmentJob) -> SegmentResult:
-    """The Dask task: :func:`run_segment` with Numba's threads shared among the worker's threads
-    (the survey's task wrapper, which only reads ``job.numba_threads``)."""
-    from .survey import _dask_survey_track
-
-    return _dask_survey_track(job, run_segment)
-
-
-def _run_dask(jobs, engine, on_result) -> None:
-    """Run segment jobs as Dask tasks (:func:`cluttersim.survey.dask_client`)."""
-    from .survey import _dask, _quiet_dask_logs, dask_client
-
-    as_completed = _dask(engine).as_completed
-    with dask_client(engine) as (client, threads):
-        if threads is not None:
-            jobs = [dataclasses.replace(j, numba_threads=threads) for j in jobs]
-        futures = []
-        try:
-            futures = [client.submit(_dask_run_segment, job, key=f"cluttersim-segment-{job.key[:16]}-{job.index}",
-                                     pure=False) for job in jobs]  # fmt: skip
-            for fut in as_completed(futures):
-                on_result(fut.result())
-        except BaseException:
-            with _quiet_dask_logs(), contextlib.suppress(Exception):
-                client.cancel(futures)
-            raise
+def _segment_task_name(job: SegmentJob) -> str:
+    return f"cluttersim-segment-{job.key[:16]}-{job.index}"

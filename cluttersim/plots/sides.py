@@ -15,7 +15,7 @@ from .style import (
     SIDE_NO_DATA_COLOUR, SIDE_RIGHT_COLOUR,
 )
 from .radargram_views import (
-    _add_depth_axis, add_distance_axis, _check_permittivity, _check_range, _db_limits, db_limits, _draw_nadir_line,
+    _add_depth_axis, add_distance_axis, _check_permittivity, _check_range, _db_limits, _draw_nadir_line,
     _label_radargram, _radargram_extent, radargram_layers, _trace_by_sample,
 )
 
