@@ -102,23 +102,35 @@ def sigma0_apply(code, cos_inc, p0, p1, num, den, out, n):
 
 
 @numba.njit(inline="always", **_JIT)
+def sigma0_factor(code, p0, p1):
+    """The constant factor of a σ0 law that :func:`sigma0_apply32` leaves out (applied in float64
+    with the radar equation's constants, so that no float32 buffer holds it): 0.5 C ρ for Hagfors'
+    law, σ0 itself for the constant law, 1 for the others."""
+    if code == 3:
+        return 0.5 * p0 * p1
+    if code == 0:
+        return p0
+    return 1.0
+
+
+@numba.njit(inline="always", **_JIT)
 def sigma0_apply32(code, cos_inc, sin2, p0, p1, q, out, n):
-    """out[i] = q[i] σ0(cos_inc[i]) for i < n, float32 buffers: Hagfors' law and the constant law in
-    float32 (8 lanes on AVX2), the other laws in float64 per element. Hagfors' law is
-    :func:`cluttersim.scattering.sigma0_hagfors` written with float32 constants and with sin²θ given
-    (``sin2``, from a cross product): 1 − cos²θ in float32 loses sin²θ near nadir, where
-    σ0 ∝ (cos⁴θ + C sin²θ)^(−3/2) changes fastest (C = 400: 6e-5 relative per 1e-7 of sin²θ)."""
+    """out[i] = q[i] σ0(cos_inc[i]) / :func:`sigma0_factor` for i < n, float32 buffers: Hagfors' law
+    and the constant law in float32 (8 lanes on AVX2), the other laws in float64 per element.
+    Hagfors' law is :func:`cluttersim.scattering.sigma0_hagfors` written with float32 constants and
+    with sin²θ given (``sin2``, from a cross product): 1 − cos²θ in float32 loses sin²θ near nadir,
+    where σ0 ∝ (cos⁴θ + C sin²θ)^(−3/2) changes fastest (C = 400: 6e-5 relative per 1e-7 of
+    sin²θ). (cos⁴θ + C sin²θ) ≥ min(1, C/2), so the float32 quotient stays in range for any C
+    above ~1e-20."""
     if code == 3:
         c = np.float32(p0)
-        k = np.float32(0.5 * p0 * p1)
         for i in range(n):
             cos2 = cos_inc[i] * cos_inc[i]
             v = cos2 * cos2 + c * sin2[i]
-            out[i] = q[i] * k / (v * np.sqrt(v))
+            out[i] = q[i] / (v * np.sqrt(v))
     elif code == 0:
-        k = np.float32(p0)
         for i in range(n):
-            out[i] = q[i] * k
+            out[i] = q[i]
     elif code == 1:
         for i in range(n):
             out[i] = q[i] * _sigma0_lambert(np.float64(cos_inc[i]), p0)
@@ -736,9 +748,12 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
        to the tile centre's distance d (|v|/d ≈ 1, so float32 keeps ~1e-7),
        cos θ, sin²θ (from a cross product: 1 − cos²θ would lose it near
        nadir), the widths, corners (whole numbers below 2²⁴: exact) and
-       q = A / ((r/d)⁴ A B); then σ0 (:func:`sigma0_apply32`) and, with the
-       source record, side row, centre bin and density weight;
-    3. scalar: p = (power_const / d⁴) · q · σ0 in float64 into the rows.
+       q = area / ((r/d)⁴ a b) with a, b the rounded widths; then σ0 without its
+       constant factor (:func:`sigma0_apply32`) and, with the source record, the
+       side row (rel · right against thresholds computed per tile in float64: to
+       a few mm), centre bin and density weight;
+    3. scalar: p = (power_const · factor / d⁴) · q · σ0 / factor in float64
+       (:func:`sigma0_factor`) into the rows.
 
     Integers stay in float32/int32 lanes: AVX2 has packed float → int32
     conversion but none to or from int64, which it scalarised. Against the same
@@ -786,6 +801,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     nrow = nsub + 2 * margin + 2
     if nrow >= 1 << 24:
         raise ValueError("accumulate_power: more than 2**24 sub-bins per delay row (samples x oversample)")
+    power_law = power_const * sigma0_factor(law_code, p0, p1)  # float64: no float32 buffer holds it
     # float32 constants of pass 2 (a float64 operand would make it float64, 4 lanes on AVX2)
     wmax32 = np.float32(wmax)
     spread32 = np.float32(spread_on)
@@ -839,7 +855,7 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                 rowbase = np.uint64(tt * nrows * nrow)  # the trace's first row; bn counts from it
                 inv_d = 1.0 / math.sqrt(cx * cx + cy * cy + cz * cz)
                 inv_d2 = inv_d * inv_d
-                scale = power_const * inv_d2 * inv_d2  # p = scale · q · σ0 with q = A [ok] / ((r/d)⁴ a b)
+                scale = power_law * inv_d2 * inv_d2  # p = scale · q · σ0 / factor, q = area [ok] / ((r/d)⁴ a b)
                 for i in range(n):
                     f = f0u + np.uint64(i)  # unsigned: no negative-index wraparound, so LLVM vectorises
                     vx = cx + rel[0, f]
