@@ -7,7 +7,11 @@ unless ``--case`` says otherwise. Measured in one process after a warm-up run (n
   (wall and CPU time; the median of ``--repeat``);
 * ``simulate_dem_error`` with ``--realisations`` N (one error-free pass included), wall and CPU
   time, split into scene preparation, error fields, facet rebuilding and kernel;
-* the saving: N × (one run) / (the Monte Carlo), in wall and in CPU time.
+* one run with its products written (``simulate_to_dir``: radargram.nc and the PNGs, as the
+  CLI's ``simulate`` does), and the Monte Carlo with its own (``write_dem_error``);
+* the saving: N × (one run) / (the Monte Carlo), in wall and in CPU time, against runs with the
+  source record (the CLI's default) and without it (the Monte Carlo's kernel has none), and with
+  products written on both sides.
 
 Results go to ``benchmarks/results/dem_error-<time>.json`` with the CPU model, its vector
 features and the load average (the machine may be shared: compare CPU-time ratios).
@@ -19,6 +23,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import shutil
 import statistics
 import sys
 import time
@@ -28,18 +33,6 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
 
-def cpu_flags() -> list[str]:
-    """The CPU's vector extensions (from /proc/cpuinfo)."""
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("flags"):
-                flags = line.split(":", 1)[1].split()
-                return sorted(f for f in flags if f.startswith(("avx", "sse4", "fma")))
-    except OSError:
-        pass
-    return []
-
-
 def timed(fn):
     w0, c0 = time.perf_counter(), time.process_time()
     out = fn()
@@ -47,14 +40,18 @@ def timed(fn):
 
 
 def main(argv=None) -> int:
-    from bench_simulate import case_inputs, cpu_model
+    from _common import cpu_model, vector_features, write_results
+    from bench_simulate import case_inputs
 
-    from cluttersim.dem_error import DemErrorConfig, ErrorStats, simulate_dem_error
+    import tempfile
+
+    from cluttersim.dem_error import DemErrorConfig, ErrorStats, dem_error_paths, simulate_dem_error, write_dem_error
+    from cluttersim.products import simulate_to_dir
     from cluttersim.simulate import simulate
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--case", default="small")
-    ap.add_argument("--realisations", type=int, default=16)
+    ap.add_argument("--realisations", type=int, default=32)
     ap.add_argument("--repeat", type=int, default=3)
     args = ap.parse_args(argv)
     dem, track, cfg = case_inputs(args.case)
@@ -62,36 +59,46 @@ def main(argv=None) -> int:
     load0 = os.getloadavg()[0]
     simulate(dem, track, cfg, sources=False, max_memory_bytes=None)  # warm-up: compile or load the kernels
     simulate_dem_error(dem, track, cfg, DemErrorConfig(20.0, 2000.0, realisations=2), max_memory_bytes=None)
-    runs = {"sources": [], "no_sources": []}
+    runs = {"sources": [], "no_sources": [], "products": []}
+    tmp = Path(tempfile.mkdtemp(prefix="bench-dem-error-"))
     for _ in range(args.repeat):
         for key, sources in (("sources", True), ("no_sources", False)):
             _, wall, cpu = timed(lambda s=sources: simulate(dem, track, cfg, sources=s, max_memory_bytes=None))
             runs[key].append((wall, cpu))
+        _, wall, cpu = timed(lambda: simulate_to_dir(dem, track, cfg, tmp / "run", overwrite=True, max_memory_bytes=None))
+        runs["products"].append((wall, cpu))
     stats = ErrorStats()
-    _, mc_wall, mc_cpu = timed(lambda: simulate_dem_error(dem, track, cfg, error, max_memory_bytes=None, stats=stats))
+    ds, mc_wall, mc_cpu = timed(lambda: simulate_dem_error(dem, track, cfg, error, max_memory_bytes=None, stats=stats))
+    paths = dem_error_paths(tmp / "mc")
+    paths["dem_error"].parent.mkdir(exist_ok=True)
+    _, write_wall, write_cpu = timed(lambda: write_dem_error(ds, paths))
+    shutil.rmtree(tmp, ignore_errors=True)
     load1 = os.getloadavg()[0]
     n = args.realisations
     run_wall = statistics.median(w for w, _ in runs["sources"])
     run_cpu = statistics.median(c for _, c in runs["sources"])
     result = {
-        "case": args.case, "realisations": n, "cpu": cpu_model(), "cpu_vector_features": cpu_flags(),
+        "case": args.case, "realisations": n, "cpu": cpu_model(), "cpu_vector_features": vector_features(),
         "cores": os.cpu_count(), "load_average": [load0, load1],
         "run_wall_s": runs["sources"], "run_no_sources_wall_s": runs["no_sources"],
         "run_median_wall_s": run_wall, "run_median_cpu_s": run_cpu,
         "run_no_sources_median_wall_s": statistics.median(w for w, _ in runs["no_sources"]),
+        "run_no_sources_median_cpu_s": statistics.median(c for _, c in runs["no_sources"]),
         "monte_carlo_wall_s": mc_wall, "monte_carlo_cpu_s": mc_cpu,
         "monte_carlo_parts_s": {"scene": stats.seconds_scene, "fields": stats.seconds_fields,
                                 "facets": stats.seconds_facets, "kernel": stats.seconds_kernel},
         "per_realisation_wall_s": mc_wall / (n + 1),
         "saving_wall": n * run_wall / mc_wall, "saving_cpu": n * run_cpu / mc_cpu,
+        "saving_cpu_no_sources": n * statistics.median(c for _, c in runs["no_sources"]) / mc_cpu,
+        "run_products_wall_s": runs["products"], "monte_carlo_write_wall_cpu_s": [write_wall, write_cpu],
+        "saving_cpu_products": n * statistics.median(c for _, c in runs["products"]) / (mc_cpu + write_cpu),
     }  # fmt: skip
-    out = HERE / "results" / f"dem_error-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.parent.mkdir(exist_ok=True)
-    out.write_text(json.dumps(result, indent=1))
+    out = write_results("dem_error", result, indent=1)
     print(json.dumps(result, indent=1))
     print(f"{n} realisations: {mc_wall:.1f} s wall ({mc_cpu:.1f} s CPU); one run {run_wall:.2f} s "
           f"({run_cpu:.2f} s CPU): N runs / Monte Carlo = {result['saving_wall']:.2f} (wall), "
-          f"{result['saving_cpu']:.2f} (CPU); wrote {out}")  # fmt: skip
+          f"{result['saving_cpu']:.2f} (CPU; {result['saving_cpu_no_sources']:.2f} against runs without the source "
+          f"record; {result['saving_cpu_products']:.2f} with products written); wrote {out}")  # fmt: skip
     return 0
 
 

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
-import json
 import os
 import statistics
 import sys
@@ -22,18 +21,8 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from bench_simulate import case_inputs, cpu_model  # noqa: E402
-
-
-def cpu_flags() -> list[str]:
-    """The vector-instruction flags of /proc/cpuinfo (avx*, sse4*, fma)."""
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("flags"):
-                return sorted(f for f in line.split(":", 1)[1].split() if f.startswith(("avx", "sse4", "fma")))
-    except OSError:
-        pass
-    return []
+from _common import cpu_model, vector_features, write_results  # noqa: E402
+from bench_simulate import case_inputs  # noqa: E402
 
 
 def main(argv=None) -> int:
@@ -76,12 +65,10 @@ def main(argv=None) -> int:
         r["cpu_ratio"] = r["cpu_s"] / plain["cpu_s"]
         print(f"{name:>26}: wall {r['wall_s']:.2f} s, CPU {r['cpu_s']:.2f} s ({r['cpu_ratio']:.2f}× plain), "
               f"kernel+convolution {r['kernel_and_convolution_s']:.2f} s")
-    report = {"time": time.strftime("%Y-%m-%dT%H:%M:%S"), "cpu": cpu_model(), "cpu_flags": cpu_flags(),
+    report = {"time": time.strftime("%Y-%m-%dT%H:%M:%S"), "cpu": cpu_model(), "cpu_flags": vector_features(),
               "cores": os.cpu_count(), "load_average": os.getloadavg(), "case": "small", "repeat": args.repeat,
               "results": results}  # fmt: skip
-    out = HERE / "results" / f"levels-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.parent.mkdir(exist_ok=True)
-    out.write_text(json.dumps(report, indent=2))
+    out = write_results("levels", report)
     print(f"wrote {out}")
     return 0
 

@@ -13,9 +13,7 @@ its vector features and the load average.
 from __future__ import annotations
 
 import argparse
-import json
 import os
-import platform
 import statistics
 import sys
 import tempfile
@@ -25,21 +23,10 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_simulate import cpu_model  # noqa: E402
+from _common import machine_info, print_machine, vector_features, write_results  # noqa: E402
 
-RESULTS = Path(__file__).resolve().parent / "results"
 DT = 37.5e-9
 START = 2.0e-3
-
-
-def cpu_flags() -> list[str]:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("flags"):
-                return sorted(f for f in line.split(":", 1)[1].split() if f.startswith(("avx", "sse4", "fma")))
-    except OSError:
-        pass
-    return []
 
 
 def products(d: Path, n_tr: int, n_s: int) -> dict:
@@ -113,9 +100,8 @@ def main(argv=None) -> int:
     args = ap.parse_args(argv)
     from cluttersim.observed import ObservedFormat, load_observed
 
-    machine = {"cpu": cpu_model(), "cpu_vector_features": cpu_flags(), "cores": os.cpu_count(),
-               "python": sys.version.split()[0], "platform": platform.platform(), "load_average_at_start": os.getloadavg()}  # fmt: skip
-    print(f"machine: {machine['cpu']}, {machine['cores']} cores; load average {os.getloadavg()[0]:.2f}")
+    machine = {**machine_info(), "cpu_vector_features": vector_features()}
+    print_machine(machine)
     results = {}
     with tempfile.TemporaryDirectory() as tmp:
         for name, (path, kw) in products(Path(tmp), args.traces, args.samples).items():
@@ -131,10 +117,8 @@ def main(argv=None) -> int:
                              "cpu_s_median": statistics.median(cpus), "bytes": path.stat().st_size}  # fmt: skip
             print(f"{name:34s} median {statistics.median(walls):6.2f} s wall ({min(walls):.2f}-{max(walls):.2f}), "
                   f"{statistics.median(cpus):6.2f} s CPU")  # fmt: skip
-    RESULTS.mkdir(exist_ok=True)
-    out = RESULTS / f"readers-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.write_text(json.dumps({"machine": machine, "traces": args.traces, "samples": args.samples, "repeat": args.repeat,
-                               "load_average_at_end": os.getloadavg(), "results": results}, indent=2))  # fmt: skip
+    out = write_results("readers", {"machine": machine, "traces": args.traces, "samples": args.samples,
+                                    "repeat": args.repeat, "load_average_at_end": os.getloadavg(), "results": results})  # fmt: skip
     print(f"wrote {out}")
     return 0
 

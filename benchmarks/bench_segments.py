@@ -22,10 +22,8 @@ into ``benchmarks/.cache/``.
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import platform
-import resource
 import subprocess
 import sys
 import tempfile
@@ -45,9 +43,9 @@ ALT_M = 3000.0
 
 
 def cpu_features() -> dict:
-    """CPU model, cores and vector extensions (as bench_simulate records them)."""
+    """CPU model, cores and vector extensions (as every benchmark records them: _common.py)."""
     sys.path.insert(0, str(HERE))
-    from bench_simulate import cpu_model, cpu_vector_features
+    from _common import cpu_model, cpu_vector_features
 
     return {"cpu": cpu_model(), "cores": os.cpu_count(), **cpu_vector_features()}
 
@@ -159,9 +157,10 @@ def main(argv=None) -> int:
         r["cpu_ratio_to_first"] = r["cpu_s"] / base["cpu_s"]
     info = {**cpu_features(), "python": platform.python_version(), "date_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
             "dem": f"{N} x {N} cells of {RES_M:g} m", "alt_m": ALT_M, "runs": results}  # fmt: skip
-    out = HERE / "results" / f"segments-{time.strftime('%Y%m%dT%H%M%S', time.gmtime())}.json"
-    out.parent.mkdir(exist_ok=True)
-    out.write_text(json.dumps(info, indent=1))
+    sys.path.insert(0, str(HERE))
+    from _common import write_results
+
+    out = write_results("segments", info, indent=1)
     print(f"wrote {out}")
     return 0
 

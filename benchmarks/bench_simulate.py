@@ -40,6 +40,10 @@ from pathlib import Path
 import numpy as np
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+from _common import cpu_model, cpu_vector_features, vector_features, write_results  # noqa: E402,F401
+
 CACHE = HERE / ".cache"
 MARS_SPHERE = "IAU_2015:49900"
 MARS_RADIUS_M = 3_396_190.0
@@ -275,32 +279,6 @@ def run_worker(args: list[str], env=None) -> dict:
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
-def cpu_model() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
-
-
-def cpu_vector_features() -> dict:
-    """The CPU's vector extensions from /proc/cpuinfo (avx, avx2, fma, avx512*) and its class for
-    the README's tables: "AVX-512" (avx512f), "AVX2" or "other"."""
-    flags: set[str] = set()
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("flags") and ":" in line:
-                flags = set(line.split(":", 1)[1].split())
-                break
-    except OSError:
-        pass
-    vector = sorted(f for f in flags if f.startswith(("avx", "fma", "sse4")))
-    cls = "AVX-512" if "avx512f" in flags else ("AVX2" if "avx2" in flags else "other")
-    return {"vector_flags": vector, "cpu_class": cls}
-
-
 def avx2_code_env(cache_dir: Path) -> dict:
     """Environment that makes Numba generate AVX2 code on an AVX-512 host (the host's features with
     every AVX-512 extension switched off, its own compile cache): what an AVX2-only CPU runs,
@@ -312,18 +290,6 @@ def avx2_code_env(cache_dir: Path) -> dict:
     text = ",".join(("-" if off(k) or not v else "+") + k for k, v in feats.items())
     return {**os.environ, "NUMBA_CPU_NAME": "znver3" if "znver" in ll.get_host_cpu_name() else "haswell",
             "NUMBA_CPU_FEATURES": text, "NUMBA_CACHE_DIR": str(cache_dir)}  # fmt: skip
-
-
-def vector_features() -> list[str]:
-    """The CPU's SIMD flags that matter for the vectorised kernels (from /proc/cpuinfo; empty elsewhere)."""
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("flags"):
-                flags = set(line.split(":", 1)[1].split())
-                return sorted(f for f in flags if f.startswith(("avx", "sse4", "fma")))
-    except OSError:
-        pass
-    return []
 
 
 def main(argv=None) -> int:
@@ -409,10 +375,7 @@ def main(argv=None) -> int:
 
 
 def _write_report(report: dict) -> None:
-    out = HERE / "results" / f"simulate-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.parent.mkdir(exist_ok=True)
-    out.write_text(json.dumps(report, indent=2))
-    print(f"wrote {out}")
+    print(f"wrote {write_results('simulate', report)}")
 
 
 if __name__ == "__main__":

@@ -25,7 +25,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import platform
 import shutil
 import statistics
 import subprocess
@@ -39,7 +38,8 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from bench_simulate import CACHE, CASES, MARS_RADIUS_M, cpu_model, cpu_vector_features, synthetic_dem
+from _common import machine_info, print_machine, write_results  # noqa: E402
+from bench_simulate import CACHE, CASES, MARS_RADIUS_M, synthetic_dem  # noqa: E402
 
 TRACKS = 20
 RADAR_TOML = """[radar]
@@ -110,9 +110,8 @@ def main(argv=None) -> int:
     if args.worker:
         print(json.dumps(worker(args.worker)))
         return 0
-    machine = {"cpu": cpu_model(), "cores": os.cpu_count(), "python": sys.version.split()[0], "platform": platform.platform(),
-               "load_average_at_start": os.getloadavg(), **cpu_vector_features()}  # fmt: skip
-    print(f"machine: {machine['cpu']}, {machine['cores']} cores; load average {os.getloadavg()[0]:.2f} (others share it)")
+    machine = machine_info()
+    print_machine(machine)
     base_env = dict(os.environ)
     one_thread = {**base_env, "NUMBA_NUM_THREADS": "1"}
     configs = [
@@ -139,9 +138,8 @@ def main(argv=None) -> int:
     base = results["1 worker, 1 Numba thread"]["tracks_per_minute"]
     two = results["2 workers, 1 Numba thread each"]["tracks_per_minute"]
     print(f"scaling, 2 workers over 1 worker (1 thread each): {two / base:.2f}x")
-    out = HERE / "results" / f"survey-{time.strftime('%Y%m%dT%H%M%S')}.json"
-    out.parent.mkdir(exist_ok=True)
-    out.write_text(json.dumps({"machine": machine, "tracks": TRACKS, "results": results, "scaling": two / base}, indent=2))
+    out = write_results("survey", {"machine": machine, "tracks": TRACKS, "results": results, "scaling": two / base,
+                                   "load_average_at_end": os.getloadavg()})  # fmt: skip
     print(f"wrote {out}")
     return 0
 

@@ -9,8 +9,9 @@ from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_D
 from cluttersim.readers import ARCHIVE_SUFFIXES
 
 from .options import (
-    band_option, height_datum_options, load_config, max_memory_option, out_dir_option, overwrite_option,
-    permittivity_option, quiet_option, radar_option, track_for_dem,
+    band_option, dem_height_unit_option, dem_in_unit, figure_options_with, height_datum_options, load_config,
+    make_figure_options, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option,
+    radar_option, track_for_dem,
 )
 
 _POSITIVE = click.FloatRange(min=0.0, min_open=True)
@@ -73,6 +74,7 @@ def _odd(ctx, param, value):
 @click.option("--geometry", "geometry_path", type=click.Path(dir_okay=False), default=None,
               help="PDS: a second product (label) whose table holds the geometry and timing.")
 @height_datum_options
+@dem_height_unit_option
 @click.option("--match-tolerance-m", type=_POSITIVE, default=None,
               help="Largest distance to the matched simulated trace, m [default: the simulated trace spacing].")
 @click.option("--max-offset-us", type=_POSITIVE, default=None,
@@ -106,16 +108,19 @@ def _odd(ctx, param, value):
               help="Ionospheric total electron content (el/m², 1e16 = 1 TECU) applied to the simulation before "
                    "comparing: it delays and disperses the echoes as the observed ones were.")
 @click.option("--top", type=click.IntRange(0, 1000), default=5, show_default=True, help="Candidates listed in the summary.")
+@figure_options_with("Largest dynamic range of the side-by-side and overlay figures' shared power scale, dB below "
+                     "the strongest echo [default: 60; the scale stops 5 dB below the observed noise floor]; "
+                     "the difference figure keeps its ±20 dB.")
 @out_dir_option()
 @overwrite_option
 @quiet_option
 def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_radius_m, sample_interval_s,
                 window_start_s, window_start_column, values, file_format, variable, axis_order, raw_dtype, raw_shape,
                 byte_order, raw_offset_bytes, field_map, geometry_path, track_height_datum, dem_height_datum,
-                match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
+                dem_height_unit, match_tolerance_m, max_offset_us, per_trace_offset, offset_window_traces,
                 delay_tolerance_us, pfa, looks, model_tolerance_db, integration_traces, threshold_db,
-                explained_within_db, continuity_traces, permittivity, band, max_memory, tec_el_m2, top, out_dir,
-                overwrite, quiet, list_path):  # fmt: skip
+                explained_within_db, continuity_traces, permittivity, band, max_memory, tec_el_m2, top, dpi,
+                figure_format, db_range, out_dir, overwrite, quiet, list_path):  # fmt: skip
     """Compare an observed radargram with the simulated clutter of its track.
 
     Aligns the observed data in delay (fitting the simulated surface echo's
@@ -123,8 +128,9 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
     sample against the predicted clutter and noise under speckle statistics:
     the improbable ones (p < --pfa) are the candidates. Writes
     OUT/comparison.nc, OUT/candidates.csv, OUT/candidates.geojson,
-    OUT/side_by_side.png, OUT/overlay.png and OUT/difference.png (and, with
-    --dem, the simulation as OUT/radargram.nc); prints a summary. With --list,
+    OUT/side_by_side.png, OUT/overlay.png and OUT/difference.png (--figure-format
+    pdf or svg for vector figures; and, with --dem, the simulation as
+    OUT/radargram.nc); prints a summary. With --list,
     one such folder per row (OUT/NAME/) and a combined OUT/candidates.csv,
     OUT/candidates.geojson and OUT/candidates_map.png.
 
@@ -147,10 +153,11 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         model_tolerance_db=model_tolerance_db, integration_traces=integration_traces, permittivity=permittivity,
         continuity_traces=continuity_traces,
     )  # fmt: skip
+    figures = make_figure_options(dpi, figure_format, db_range)
     if list_path is not None:
         single = {"--observed": observed_path, "--observed-track": track_path, "--sim": sim_path, "--dem": dem_path,
                   "--radar": radar_path, "--sample-interval-s": sample_interval_s, "--window-start-s": window_start_s,
-                  "--window-start-column": window_start_column}  # fmt: skip
+                  "--window-start-column": window_start_column, "--dem-height-unit": dem_height_unit}  # fmt: skip
         given = [k for k, v in single.items() if v is not None]
         if given:
             raise click.UsageError(f"with --list each row names its inputs; drop {', '.join(given)}")
@@ -161,7 +168,8 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
                 click.echo(format_summary(result, top=top))
 
         results, paths = compare_many(list_path, out_dir, settings=settings, overwrite=overwrite, progress=not quiet,
-                                      max_memory_bytes=max_memory, on_result=report, tec_el_m2=tec_el_m2)  # fmt: skip
+                                      max_memory_bytes=max_memory, on_result=report, tec_el_m2=tec_el_m2,
+                                      figures=figures)  # fmt: skip
         if not quiet:
             total = sum(len(r.candidates) for _, r in results)
             click.echo(f"all tracks: {len(results)} compared, {total} candidates")
@@ -172,8 +180,12 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         raise click.UsageError("missing option --observed (or give --list)")
     if (sim_path is None) == (dem_path is None):
         raise click.UsageError("give either --sim RUN_DIR/radargram.nc or --dem DEM (to simulate the observed track)")
-    if (radar_path is not None or body_radius_m is not None) and dem_path is None:
-        raise click.UsageError("--radar and --body-radius-m apply with --dem only (a --sim radargram carries its own)")
+    if (radar_path is not None or body_radius_m is not None or dem_height_unit is not None) and dem_path is None:
+        raise click.UsageError("--radar, --body-radius-m and --dem-height-unit apply with --dem only (a --sim "
+                               "radargram carries its own)")  # fmt: skip
+    dem = dem_path
+    if dem_height_unit is not None:  # the DEM's values read in the declared unit
+        dem = dem_in_unit(dem_path, dem_height_unit, body_radius_m)
     fmt = ObservedFormat(file_format=file_format, values=values, variable=variable, axis_order=axis_order,
                          raw_dtype=raw_dtype, raw_shape=tuple(raw_shape) if raw_shape else None,
                          byte_order=byte_order, raw_offset_bytes=raw_offset_bytes, fields=tuple(field_map),
@@ -215,13 +227,14 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
 
         observed = load_observed(observed, track_path, sample_interval_s, window_start_s=window_start_s,
                                  window_start_column=window_start_column, fmt=fmt)  # fmt: skip
-        src = DemSource.open(dem_path, body_radius_m)
+        src = dem if isinstance(dem, DemSource) else DemSource.open(dem_path, body_radius_m)
         observed = replace(observed, track=track_for_dem(observed.track, src, track_height_datum, dem_height_datum, quiet))
     result, paths = compare_to_dir(
-        observed, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem_path,
+        observed, track_path, sample_interval_s, out_dir, sim=sim_path, dem=dem,
         config=load_config(radar_path) if dem_path else None, body_radius_m=body_radius_m,
         window_start_s=window_start_s, window_start_column=window_start_column, fmt=fmt, settings=settings,
         overwrite=overwrite, progress=not quiet, band=band, max_memory_bytes=max_memory, tec_el_m2=tec_el_m2,
+        figures=figures,
     )  # fmt: skip
     if not quiet:
         click.echo(format_summary(result, top=top))

@@ -106,6 +106,30 @@ def height_datum_options(fn):
     )(fn)  # fmt: skip
 
 
+dem_height_unit_option = click.option(
+    "--dem-height-unit", type=click.Choice(["m", "ft", "us-ft"]), default=None,
+    help="Declare the unit of the DEM's values (ft: 0.3048 m, us-ft: 1200/3937 m) "
+         "[default: its CRS's vertical unit, else metres].",
+)  # fmt: skip
+
+
+def dem_in_unit(dem, dem_height_unit, body_radius_m=None):
+    """The DEM (a path or an open DemSource) as a DemSource whose values are read in the declared unit
+    (``--dem-height-unit``); a usage error if the DEM already states its heights' scale or unit."""
+    import dataclasses
+
+    from cluttersim.datums import HEIGHT_UNITS_M
+    from cluttersim.dem import DemSource
+
+    src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
+    if dem_height_unit is None:
+        return src
+    if src.height_scale_m != 1.0 or src.height_offset_m != 0.0:
+        raise click.UsageError(f"--dem-height-unit: {src.path} already gives its heights' scale or unit "
+                               "(band metadata or a vertical CRS); the option is for DEMs that give none")  # fmt: skip
+    return dataclasses.replace(src, height_scale_m=HEIGHT_UNITS_M[dem_height_unit])
+
+
 def track_for_dem(track, dem_source, track_height_datum, dem_height_datum, quiet):
     """The track in the DEM's vertical reference (prints what was done unless quiet)."""
     from cluttersim.datums import parse_height_datum, track_in_dem_datum
@@ -121,16 +145,30 @@ def track_for_dem(track, dem_source, track_height_datum, dem_height_datum, quiet
     return track
 
 
-def figure_options(fn):
-    """--dpi, --figure-format and --db-range: how the figures are drawn and saved."""
-    fn = click.option("--db-range", "db_range", type=click.FloatRange(min=0.0, min_open=True), default=None,
-                      metavar="DB", help="Dynamic range of the radargram figures, dB below the strongest echo "
-                      "[default: chosen from the data so that the clutter shows].")(fn)  # fmt: skip
-    fn = click.option("--figure-format", "figure_format", type=click.Choice(["png", "pdf", "svg"]), default="png",
-                      show_default=True, help="Format of the figures (pdf and svg are vector graphics).")(fn)  # fmt: skip
-    fn = click.option("--dpi", type=click.FloatRange(min=10, max=2400), default=None,
-                      help="Resolution of the figures, dots per inch [default: 120].")(fn)  # fmt: skip
-    return fn
+#: What --db-range means for the radargram figures (its help by default).
+RADARGRAM_DB_RANGE_HELP = ("Dynamic range of the radargram figures, dB below the strongest echo "
+                           "[default: chosen from the data so that the clutter shows].")
+
+
+def figure_options_with(db_range_help: str = RADARGRAM_DB_RANGE_HELP):
+    """--dpi, --figure-format and --db-range, with what --db-range means for this command's figures.
+    Every command that writes figures takes these three (:func:`make_figure_options` turns them into
+    a :class:`cluttersim.products.FigureOptions`)."""
+
+    def decorate(fn):
+        fn = click.option("--db-range", "db_range", type=click.FloatRange(min=0.0, min_open=True), default=None,
+                          metavar="DB", help=db_range_help)(fn)  # fmt: skip
+        fn = click.option("--figure-format", "figure_format", type=click.Choice(["png", "pdf", "svg"]), default="png",
+                          show_default=True, help="Format of the figures (pdf and svg are vector graphics).")(fn)  # fmt: skip
+        return click.option("--dpi", type=click.FloatRange(min=10, max=2400), default=None,
+                            help="Resolution of the figures, dots per inch (for pdf and svg: of the images inside "
+                                 "them) [default: 120].")(fn)  # fmt: skip
+
+    return decorate
+
+
+#: --dpi, --figure-format and --db-range (the radargram figures' dynamic range).
+figure_options = figure_options_with()
 
 
 def make_figure_options(dpi, figure_format, db_range):

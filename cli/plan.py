@@ -7,17 +7,24 @@ import click
 from cluttersim.plan import PlanConfig, PlanTarget, run_plan
 from cluttersim.survey import Engine
 
-from .options import band_option, load_config, max_memory_option, out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option  # fmt: skip
+from .options import (
+    band_option, deprecated_pair, figure_options_with, load_config, make_figure_options, max_memory_option,
+    out_dir_option, overwrite_option, permittivity_option, pick_coordinates, quiet_option, radar_option,
+)  # fmt: skip
 
 
 @click.command("plan")
 @click.option("--dem", "dem_path", required=True, type=click.Path(dir_okay=False), help="Elevation raster (GeoTIFF...).")
-@click.option("--target", nargs=2, type=float, default=None, metavar="LON LAT",
-              help="Target point, degrees (east longitude); its traces are those within --target-radius-m.")
+@click.option("--target-lat", type=click.FloatRange(-90.0, 90.0), default=None,
+              help="Target point: latitude, degrees north; its traces are those within --target-radius-m.")
+@click.option("--target-lon", type=float, default=None, help="Target point: longitude, degrees east.")
+@click.option("--target", nargs=2, type=float, default=None, metavar="LON LAT", hidden=True,
+              callback=deprecated_pair("--target", ("--target-lat", "--target-lon"), "LON LAT"))
 @click.option("--target-radius-m", type=float, default=1000.0, show_default=True,
               help="Traces whose nadir is this close to the target point are the target's traces, m.")
 @click.option("--target-polygon", type=click.Path(dir_okay=False), default=None,
-              help="Instead of --target: a CSV of polygon vertices (columns lon, lat); its traces are those inside.")
+              help="Instead of --target-lat/--target-lon: a CSV of polygon vertices (columns lon, lat); its traces "
+                   "are those inside.")
 @click.option("--depth-m", nargs=2, type=float, required=True, metavar="MIN MAX",
               help="The target's apparent depth range, m (for --permittivity).")
 @radar_option
@@ -51,12 +58,14 @@ from .options import band_option, load_config, max_memory_option, out_dir_option
               help="Run candidates as Dask tasks: 'local' or tcp://HOST:PORT (needs pip install 'cluttersim[dask]').")
 @band_option
 @max_memory_option
+@figure_options_with("Dynamic range of the best/worst radargram figure, dB below the strongest echo [default: 60].")
 @out_dir_option()
 @overwrite_option
 @quiet_option
-def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_path, platform, alt_m, offset_m,
-             headings_deg, coarse_step_deg, fine_step_deg, track_length_km, trace_spacing_m, permittivity, dem_error,
-             realisations, dem_error_seed, threshold_db, body_radius_m, workers, scheduler, band, max_memory, out_dir, overwrite, quiet):  # fmt: skip
+def plan_cmd(dem_path, target_lat, target_lon, target, target_radius_m, target_polygon, depth_m, radar_path, platform,
+             alt_m, offset_m, headings_deg, coarse_step_deg, fine_step_deg, track_length_km, trace_spacing_m, permittivity, dem_error,
+             realisations, dem_error_seed, threshold_db, body_radius_m, workers, scheduler, band, max_memory, dpi,
+             figure_format, db_range, out_dir, overwrite, quiet):  # fmt: skip
     """Find the track over a target whose radargram has the least clutter in the target's depth window.
 
     Candidate tracks through the target (headings, altitudes and, for airborne lines,
@@ -64,12 +73,14 @@ def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_p
     heading, and scored by the clutter index over the depth window at the target's
     traces (the worst trace; lower is better). Writes into OUT: plan.csv (ranked
     candidates), best_track.csv (ready for cluttersim simulate), objective_polar.png and
-    best_worst.png (the best and worst radargrams side by side). See the README's Planning.
+    best_worst.png (the best and worst radargrams side by side; --figure-format pdf or svg
+    for vector figures). See the README's Planning.
 
     \b
     Example:
-      cluttersim plan --dem site.tif --target 11.95 41.0 --depth-m 50 300 \\
+      cluttersim plan --dem site.tif --target-lat 41.0 --target-lon 11.95 --depth-m 50 300 \\
           --alt-m 300000 --radar radar.toml --out plan1
+    (--target LON LAT still works but is deprecated.)
     """
     from cluttersim.dem_error import DemErrorConfig
     from cluttersim.errors import ConfigError
@@ -78,10 +89,15 @@ def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_p
     if dem_error is not None:
         error = DemErrorConfig.parse_option(dem_error, realisations=realisations, seed=dem_error_seed)
 
-    if (target is None) == (target_polygon is None):
-        raise click.UsageError("give either --target LON LAT or --target-polygon CSV")
-    tgt = (PlanTarget.from_polygon_csv(target_polygon) if target_polygon
-           else PlanTarget(target[0], target[1], radius_m=target_radius_m))  # fmt: skip
+    point_given = target is not None or target_lat is not None or target_lon is not None
+    if point_given == (target_polygon is not None):
+        raise click.UsageError("give either --target-lat and --target-lon, or --target-polygon CSV")
+    if target_polygon is not None:
+        tgt = PlanTarget.from_polygon_csv(target_polygon)
+    else:
+        point = pick_coordinates(target, {"target_lat": target_lat, "target_lon": target_lon}, "--target",
+                                 ("target_lon", "target_lat"))  # fmt: skip
+        tgt = PlanTarget(point["target_lon"], point["target_lat"], radius_m=target_radius_m)
     try:
         plan = PlanConfig(target=tgt, depth_m=tuple(depth_m), altitudes_m=tuple(alt_m), platform=platform,
                           headings_deg=tuple(headings_deg), offsets_m=tuple(offset_m) or (0.0,),
@@ -95,7 +111,8 @@ def plan_cmd(dem_path, target, target_radius_m, target_polygon, depth_m, radar_p
         config = config.for_band(band or config.band_names[0])
     engine = Engine(workers=workers, scheduler=scheduler)
     result = run_plan(dem_path, plan, config, out_dir, engine=engine, body_radius_m=body_radius_m,
-                      overwrite=overwrite, progress=not quiet, max_memory_bytes=max_memory)  # fmt: skip
+                      overwrite=overwrite, progress=not quiet, max_memory_bytes=max_memory,
+                      figures=make_figure_options(dpi, figure_format, db_range))  # fmt: skip
     if not quiet:
         b, w = result.best, result.worst
         click.echo(f"{result.evaluations} candidate tracks scored on {engine.describe()} in {result.seconds:.1f} s")

@@ -7,8 +7,9 @@ import dataclasses
 import click
 
 from .options import (
-    figure_options, height_datum_options, load_config, make_figure_options, max_memory_option, track_for_dem, with_antenna,
-    out_dir_option, overwrite_option, permittivity_option, quiet_option, radar_option,
+    dem_height_unit_option, dem_in_unit, figure_options, height_datum_options, load_config, make_figure_options,
+    max_memory_option, track_for_dem, with_antenna, out_dir_option, overwrite_option, permittivity_option,
+    quiet_option, radar_option,
 )  # fmt: skip
 
 
@@ -31,9 +32,7 @@ from .options import (
 @click.option("--shadowing/--no-shadowing", default=None,
               help="Line-of-sight shadowing by the terrain (overrides [processing] shadowing).")
 @height_datum_options
-@click.option("--dem-height-unit", type=click.Choice(["m", "ft", "us-ft"]), default=None,
-              help="Declare the unit of the DEM's values (ft: 0.3048 m, us-ft: 1200/3937 m) "
-                   "[default: its CRS's vertical unit, else metres].")
+@dem_height_unit_option
 @click.option("--dem-error", "dem_error", default=None, metavar="RMS_M,CORR_M",
               help="DEM-error Monte Carlo: RMS height error and its correlation length, m (overrides the radar "
                    "TOML's [dem_error] rms_m and correlation_m); adds dem_error.nc and dem_error.png.")
@@ -114,19 +113,13 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
     if shadowing is not None:
         config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, shadowing=shadowing))
     if track_height_datum is not None or dem_height_datum is not None or dem_height_unit is not None:
-        from cluttersim.datums import HEIGHT_UNITS_M
-        from cluttersim.dem import DemSource
         from cluttersim.track import Track
 
-        dem_path = DemSource.open(dem_path, body_radius_m)
-        if dem_height_unit is not None:
-            if dem_path.height_scale_m != 1.0 or dem_path.height_offset_m != 0.0:
-                raise click.UsageError(f"--dem-height-unit: {dem_path.path} already gives its heights' scale or unit "
-                                       "(band metadata or a vertical CRS); the option is for DEMs that give none")  # fmt: skip
-            dem_path = dataclasses.replace(dem_path, height_scale_m=HEIGHT_UNITS_M[dem_height_unit])
+        dem_path = dem_in_unit(dem_path, dem_height_unit, body_radius_m)
         track_path = track_for_dem(Track.from_csv(track_path), dem_path, track_height_datum, dem_height_datum, quiet)
     error = _dem_error_config(radar_path, dem_error, realisations, dem_error_seed)
-    error_paths = dem_error_paths(out_dir) if error is not None else {}
+    figures = make_figure_options(dpi, figure_format, db_range)
+    error_paths = dem_error_paths(out_dir, figures.fmt) if error is not None else {}
     check_new(error_paths.values(), overwrite)  # before any work
     summary = {}
     try:
@@ -134,7 +127,7 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
             dem_path, track_path, config, out_dir, body_radius_m=body_radius_m, overwrite=overwrite,
             progress=not quiet, sources=not no_sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
             permittivity=permittivity, max_memory_bytes=max_memory, segment_traces=segment_traces, engine=engine,
-            summary=summary, figures=make_figure_options(dpi, figure_format, db_range),
+            summary=summary, figures=figures,
         )  # fmt: skip
     except KeyboardInterrupt:
         seg_dir = Path(out_dir) / SEGMENTS_DIR
@@ -148,7 +141,7 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
         ds = simulate_dem_error(dem_path, track_path, config, error, body_radius_m=body_radius_m, progress=not quiet,
                                 keep_realisations=True,
                                 max_memory_bytes=max_memory)  # fmt: skip
-        write_dem_error(ds, error_paths)
+        write_dem_error(ds, error_paths, figures=figures)
         paths.update(error_paths)
     if not quiet:
         if summary.get("resumed"):

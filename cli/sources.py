@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import click
 
-from .options import band_option, figure_options, make_figure_options, overwrite_option, permittivity_option, quiet_option
+from .options import (
+    band_option, figure_options_with, make_figure_options, overwrite_option, permittivity_option, quiet_option,
+)
 
 
 @click.command("sources")
@@ -17,7 +19,7 @@ from .options import band_option, figure_options, make_figure_options, overwrite
 @permittivity_option
 @click.option("--dem", "dem_path", type=click.Path(dir_okay=False), help="The run's DEM, if it has moved.")
 @band_option
-@figure_options
+@figure_options_with("Dynamic range of the source map, dB below its strongest cell [default: 50].")
 @overwrite_option
 @quiet_option
 def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivity, dem_path, band, dpi, figure_format,

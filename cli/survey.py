@@ -10,6 +10,8 @@ import click
 from .options import (
     band_option,
     deprecated_pair,
+    figure_options_with,
+    make_figure_options,
     pick_coordinates,
     load_config,
     max_memory_option,
@@ -61,13 +63,15 @@ from .options import (
                    "dask scheduler --scheduler-file, as batch systems hand it to jobs).")
 @band_option
 @max_memory_option
+@figure_options_with("Colour range of the clutter map, dB, a quarter of it below --threshold-db and the rest above "
+                     "[default: 24, from 6 dB below the threshold to 18 dB above].")
 @out_dir_option()
 @overwrite_option
 @quiet_option
 @click.pass_context
 def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacing_km, heading_deg, alt_m, trace_spacing_m,
                tracks_path, radar_path, max_depth_m, permittivity, threshold_db, swath_km, grid_km, body_radius_m, workers,
-               scheduler, scheduler_file, band, max_memory,
+               scheduler, scheduler_file, band, max_memory, dpi, figure_format, db_range,
                out_dir, overwrite, quiet):  # fmt: skip
     """Survey a region: where will off-nadir clutter swamp the subsurface?
 
@@ -76,7 +80,8 @@ def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacin
     off-nadir clutter between the nadir echo and --max-depth-m, relative to the
     nadir echo; see the README) and writes into OUT: tracks/<id>.nc (one per track,
     as each finishes), survey.csv (one row per track), clutter_map.tif (index and
-    fraction on the DEM's CRS) and clutter_map.png. Run the same command again
+    fraction on the DEM's CRS) and clutter_map.png (--figure-format pdf or svg for a
+    vector map). Run the same command again
     after an interruption: finished tracks are not recomputed.
 
     \b
@@ -100,6 +105,7 @@ def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacin
         summary = run_survey(
             dem_path, config, sim_config, out_dir, engine=engine, body_radius_m=body_radius_m, overwrite=overwrite,
             progress=not quiet, max_memory_bytes=max_memory, band=band,
+            figures=make_figure_options(dpi, figure_format, db_range),
         )  # fmt: skip
     except KeyboardInterrupt:
         if ctx.obj and ctx.obj.get("debug"):

@@ -142,7 +142,7 @@ def compare_observed(observed, track, sample_interval_s: float, out_dir, **optio
 
 
 def survey_region(dem, region, out_dir, *, sim_config=None, engine=None, progress: bool = False, overwrite=False,
-                  **survey_options):  # fmt: skip
+                  figures=None, **survey_options):  # fmt: skip
     """Map where over a region off-nadir clutter will hide the subsurface, before flying.
 
     ``region`` = (lon_min, lat_min, lon_max, lat_max) in degrees; the other
@@ -150,7 +150,8 @@ def survey_region(dem, region, out_dir, *, sim_config=None, engine=None, progres
     ``heading_deg``, ``alt_m`` for generated tracks, or ``tracks_path``;
     ``max_depth_m``, ``permittivity``, ``threshold_db``...). Wraps
     :func:`cluttersim.survey.run_survey`; writes ``survey.csv``,
-    ``clutter_map.tif`` and ``clutter_map.png`` into ``out_dir``.
+    ``clutter_map.tif`` and ``clutter_map.png`` into ``out_dir`` (``figures=FigureOptions(dpi=,
+    fmt=, db_range=)`` for another resolution, pdf/svg or colour range).
 
     Examples
     --------
@@ -166,4 +167,5 @@ def survey_region(dem, region, out_dir, *, sim_config=None, engine=None, progres
     workers = survey_options.pop("workers", None)
     engine = engine or Engine(workers=workers)
     config = SurveyConfig(region=tuple(region), **survey_options)
-    return run_survey(dem, config, sim_config, out_dir, engine=engine, progress=progress, overwrite=overwrite)
+    return run_survey(dem, config, sim_config, out_dir, engine=engine, progress=progress, overwrite=overwrite,
+                      figures=figures)

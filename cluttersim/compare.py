@@ -40,7 +40,7 @@ import xarray as xr
 
 from .compare_align import DelayOffset, estimate_delay_offset, fit_windows
 from .compare_detect import (
-    Detections, GainFit, NoiseFloor, candidate_score, clutter_within_tolerance, continuity_fraction,
+    Detections, GainFit, NoiseFloor, SampleVerdicts, candidate_score, clutter_within_tolerance, continuity_fraction,
     detect_unexplained, gain_from_scales, noise_floor, sub_sample_peaks,
 )  # fmt: skip
 from .compare_grid import (
@@ -49,7 +49,7 @@ from .compare_grid import (
 )  # fmt: skip
 from .compare_io import (
     CANDIDATE_COLUMNS, COMPARE_FILES, comparison_dataset, compare_many, format_summary, write_candidates_csv,
-    write_candidates_geojson, write_comparison,
+    with_figure_format, write_candidates_geojson, write_comparison,
 )  # fmt: skip
 from .errors import ConfigError, ObservedDataError
 from .observed import ObservedRadargram
@@ -360,22 +360,14 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
 
 
 @dataclass(frozen=True)
-class SimGridMasks:
-    """The test's outcome carried onto the simulated grid (matched traces × simulated samples).
+class SimGridMasks(SampleVerdicts):
+    """The test's outcome (:class:`~cluttersim.compare_detect.SampleVerdicts`) carried onto the
+    simulated grid (matched traces × simulated samples).
 
     A simulated sample is *detected* / *unexplained* / a *candidate* when any
     observed sample whose aligned delay rounds to it is; ``p_value`` is the
     smallest p-value among them (NaN: no observed sample tested there).
     """
-
-    detected: np.ndarray
-    unexplained: np.ndarray
-    candidate: np.ndarray
-    p_value: np.ndarray
-
-    @property
-    def explained(self) -> np.ndarray:
-        return self.detected & ~self.unexplained
 
     @classmethod
     def from_detections(cls, det: Detections, x, ns: int) -> "SimGridMasks":
@@ -454,6 +446,7 @@ def compare_to_dir(
     observed_path, observed_track, sample_interval_s: float, out_dir, *, sim=None, dem=None, config=None,
     body_radius_m=None, window_start_s=None, window_start_column=None, fmt=None, settings=None,
     overwrite: bool = False, progress: bool = False, band=None, max_memory_bytes="auto", tec_el_m2=None,
+    figures=None,
 ) -> tuple[Comparison, dict[str, Path]]:  # fmt: skip
     """Read an observed radargram, compare it with a simulation and write the products into ``out_dir``.
 
@@ -473,7 +466,8 @@ def compare_to_dir(
 
     Products (:data:`COMPARE_FILES`): ``comparison.nc``, ``candidates.csv``,
     ``candidates.geojson``, ``side_by_side.png``, ``overlay.png``,
-    ``difference.png``. Existing ones are refused before any work unless
+    ``difference.png`` (``figures``, :class:`cluttersim.products.FigureOptions`: their resolution,
+    format (png, pdf, svg: the suffix follows) and dynamic range). Existing ones are refused before any work unless
     ``overwrite``; all are written under temporary names and renamed together
     at the end.
 
@@ -487,7 +481,7 @@ def compare_to_dir(
     if (sim is None) == (dem is None):
         raise ObservedDataError("give either a simulated radargram or a DEM to simulate from, not both")
     out_dir = Path(out_dir)
-    paths = {k: out_dir / v for k, v in COMPARE_FILES.items()}
+    paths = {k: out_dir / v for k, v in with_figure_format(COMPARE_FILES, figures.fmt if figures else "png").items()}
     if dem is not None:
         paths["simulation"] = out_dir / "radargram.nc"
     check_new(paths.values(), overwrite)
@@ -510,7 +504,7 @@ def compare_to_dir(
                                                   progress=progress, max_memory_bytes=max_memory_bytes,
                                                   tec_el_m2=tec_el_m2)  # fmt: skip
     result = compare(observed, sim_ds, settings, progress=progress, sim_source=sim_source)
-    write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None)
+    write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None, figures=figures)
     return result, paths
 
 
@@ -520,6 +514,8 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
     """Simulate the noise-free, incoherent clutter expectation of an observed track on its sampling.
 
     ``tec_el_m2``: through an ionospheric layer of that total electron content (``[ionosphere]``).
+    ``dem``: a path or a :class:`cluttersim.dem.DemSource` (e.g. with a declared height unit,
+    recorded in the result's attributes as ``simulate_to_dir`` does).
     """
     from .config import default_config
     from .simulate import simulate
@@ -541,4 +537,11 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
         config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
     sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
                       max_memory_bytes=max_memory_bytes)  # fmt: skip
-    return sim_ds, f"simulated on the fly from {Path(dem).name}"
+    from .dem import DemSource
+
+    if isinstance(dem, DemSource) and dem.height_scale_m != 1.0:  # a declared unit (--dem-height-unit), recorded
+        from .datums import HEIGHT_UNIT_ATTR  # so that `sources` and `report` read the DEM's heights as simulated
+
+        sim_ds.attrs[HEIGHT_UNIT_ATTR] = dem.height_scale_m
+    name = dem.path.name if isinstance(dem, DemSource) else Path(dem).name
+    return sim_ds, f"simulated on the fly from {name}"

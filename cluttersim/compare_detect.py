@@ -225,38 +225,51 @@ def ratio_p_value(mean_ratio, terms, noise_dof_samples, looks: float) -> np.ndar
 
 
 @dataclass(frozen=True)
-class Detections:
-    """Per-sample outcome on the observed grid (matched traces × observed samples).
+class SampleVerdicts:
+    """The unexplained-echo test's outcome per sample of a grid (see :class:`Detections`; the
+    comparison carries it onto the simulated grid as :class:`cluttersim.compare.SimGridMasks`).
+
+    Attributes
+    ----------
+    detected : ndarray of bool
+        An echo above the noise (p_noise < pfa).
+    unexplained : ndarray of bool
+        More power than clutter and noise explain (p_value < pfa).
+    candidate : ndarray of bool
+        Unexplained and the strongest observed sample within ±one range cell.
+    p_value : ndarray
+        Upper-tail probability of the (integrated) observed power under μ (NaN: not tested).
+    """
+
+    detected: np.ndarray
+    unexplained: np.ndarray
+    candidate: np.ndarray
+    p_value: np.ndarray
+
+    @property
+    def explained(self) -> np.ndarray:
+        """Detected, and explained by clutter and noise."""
+        return self.detected & ~self.unexplained
+
+
+@dataclass(frozen=True)
+class Detections(SampleVerdicts):
+    """Per-sample outcome on the observed grid (matched traces × observed samples):
+    :class:`SampleVerdicts` and what the test computed on the way.
 
     Attributes
     ----------
     predicted : ndarray
         μ: predicted mean power (clutter with tolerances, plus noise).
-    p_value : ndarray
-        Upper-tail probability of the (integrated) observed power under μ.
     p_noise : ndarray
-        The same under noise alone (μ = N).
-    detected : ndarray of bool
-        p_noise < pfa: an echo above the noise.
-    unexplained : ndarray of bool
-        p_value < pfa: more power than clutter and noise explain.
-    candidate : ndarray of bool
-        Unexplained and the strongest observed sample within ±one range cell.
+        The upper-tail probability under noise alone (μ = N).
     clutter : ndarray
         g · max S within the delay tolerance (without the model tolerance), observed units.
     """
 
     predicted: np.ndarray
-    p_value: np.ndarray
     p_noise: np.ndarray
-    detected: np.ndarray
-    unexplained: np.ndarray
-    candidate: np.ndarray
     clutter: np.ndarray
-
-    @property
-    def explained(self) -> np.ndarray:
-        return self.detected & ~self.unexplained
 
 
 def integrate_along_track(values, shifts_fn, half_traces: int) -> tuple[np.ndarray, np.ndarray]:

@@ -33,6 +33,14 @@ COMPARE_FILES = {
 }
 #: File names of a many-track comparison directory (one subdirectory per track besides).
 COMBINED_FILES = {"candidates": "candidates.csv", "geojson": "candidates.geojson", "map": "candidates_map.png"}
+def with_figure_format(files: dict[str, str], fmt: str = "png") -> dict[str, str]:
+    """File names (:data:`COMPARE_FILES`, :data:`COMBINED_FILES`) with the figures in format ``fmt``
+    (png, pdf, svg; :func:`cluttersim.products.figure_name`)."""
+    from .products import figure_name
+
+    return {k: figure_name(v, fmt) for k, v in files.items()}
+
+
 #: Columns of ``candidates.csv``.
 CANDIDATE_COLUMNS = (
     "rank", "trace", "sample", "delay_us", "two_way_delay_us", "lat", "lon", "depth_m", "snr_db", "excess_db",
@@ -157,11 +165,25 @@ def _nan_safe(value: float) -> float:
 
 # --------------------------------------------------------------------------- files
 
+#: Largest dynamic range of the comparison's power figures by default, dB (its floor stops 5 dB
+#: below the observed noise floor when that is higher: :func:`cluttersim.plots.comparison_layers`).
+COMPARISON_DB_RANGE = 60.0
 
-def write_comparison(result, paths: dict[str, Path], sim_ds=None) -> None:
-    """Write a comparison's products atomically to ``paths`` (keys of :data:`COMPARE_FILES`, and ``simulation``)."""
+
+
+def write_comparison(result, paths: dict[str, Path], sim_ds=None, figures=None) -> None:
+    """Write a comparison's products atomically to ``paths`` (keys of :data:`COMPARE_FILES`, and ``simulation``).
+
+    ``figures`` (:class:`cluttersim.products.FigureOptions`): resolution and format of the figures,
+    and ``db_range``, the largest dynamic range of the side-by-side and overlay figures' shared
+    power scale (default :data:`COMPARISON_DB_RANGE`; the difference figure keeps its ±dB scale)."""
     from . import plots
+    from .products import FigureOptions
     from .radargram import save_netcdf, write_netcdf_to
+
+    figures = figures or FigureOptions()
+    save = {"dpi": figures.dpi, "fmt": figures.fmt}
+    db_range = COMPARISON_DB_RANGE if figures.db_range is None else figures.db_range
 
     keys = list(paths)
     with atomic_paths([paths[k] for k in keys]) as temps:
@@ -179,9 +201,11 @@ def write_comparison(result, paths: dict[str, Path], sim_ds=None) -> None:
         ds = result.dataset
         perm = result.settings.permittivity
         cand = result.candidates
-        plots.plot_comparison_side_by_side(ds, tmp["side_by_side"], permittivity=perm)
-        plots.plot_comparison_overlay(ds, tmp["overlay"], candidates=cand, permittivity=perm)
-        plots.plot_comparison_difference(ds, tmp["difference"], candidates=cand, permittivity=perm)
+        plots.plot_comparison_side_by_side(ds, tmp["side_by_side"], permittivity=perm, dynamic_range_db=db_range,
+                                           **save)  # fmt: skip
+        plots.plot_comparison_overlay(ds, tmp["overlay"], candidates=cand, permittivity=perm, dynamic_range_db=db_range,
+                                      **save)  # fmt: skip
+        plots.plot_comparison_difference(ds, tmp["difference"], candidates=cand, permittivity=perm, **save)
 
 
 def write_candidates_csv(candidates: list[dict], path, *, extra_columns=()) -> None:
@@ -384,7 +408,7 @@ def read_track_list(path) -> list[dict]:
 
 
 def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, progress: bool = False,
-                 max_memory_bytes="auto", on_result=None, tec_el_m2=None):  # fmt: skip
+                 max_memory_bytes="auto", on_result=None, tec_el_m2=None, figures=None):  # fmt: skip
     """Compare every track of a list (:func:`read_track_list`) and combine their candidates.
 
     Each row's products go to ``out_dir/<name>/`` (as :func:`~cluttersim.compare.compare_to_dir`);
@@ -392,7 +416,8 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
     column/property first, ranked by score over all tracks) and
     ``candidates_map.png`` (the tracks and their candidates) go to ``out_dir``.
     ``on_result(name, Comparison)`` is called after each track; ``tec_el_m2``
-    applies to every row (see :func:`~cluttersim.compare.compare_to_dir`).
+    applies to every row (see :func:`~cluttersim.compare.compare_to_dir`), and so do
+    ``figures`` (:class:`cluttersim.products.FigureOptions`; the map too).
 
     Returns
     -------
@@ -404,9 +429,10 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
 
     jobs = read_track_list(list_path)
     out_dir = Path(out_dir)
-    combined = {k: out_dir / v for k, v in COMBINED_FILES.items()}
-    check_new(list(combined.values()) + [out_dir / j["name"] / f for j in jobs for f in COMPARE_FILES.values()],
-              overwrite)  # fmt: skip
+    fmt = figures.fmt if figures is not None else "png"
+    combined = {k: out_dir / v for k, v in with_figure_format(COMBINED_FILES, fmt).items()}
+    check_new(list(combined.values()) + [out_dir / j["name"] / f for j in jobs
+                                         for f in with_figure_format(COMPARE_FILES, fmt).values()], overwrite)  # fmt: skip
     configs = {}
     for j in jobs:
         if "radar" in j and j["radar"] not in configs:
@@ -419,7 +445,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
                 dem=j.get("dem"), config=configs.get(j.get("radar")), window_start_s=j.get("window_start_s"),
                 window_start_column=j.get("window_start_column"), fmt=ObservedFormat(values=j["values"]),
                 settings=settings, overwrite=overwrite, progress=progress, max_memory_bytes=max_memory_bytes,
-                tec_el_m2=tec_el_m2,
+                tec_el_m2=tec_el_m2, figures=figures,
             )  # fmt: skip
         except ObservedDataError as exc:
             raise ObservedDataError(f"track {j['name']!r} of {list_path}: {exc}") from None
@@ -434,46 +460,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
         write_candidates_csv(rows, t_csv, extra_columns=("track", "track_rank"))
         write_candidates_geojson(rows, t_json, source=str(list_path),
                                  extra_properties=lambda c: {"track": c["track"], "track_rank": c["track_rank"]})  # fmt: skip
-        plot_candidate_map(results, t_png)
+        from .plots import plot_candidate_map
+
+        plot_candidate_map(results, t_png, dpi=figures.dpi if figures else None, fmt=fmt)
     return results, combined
-
-
-def plot_candidate_map(results, path, *, title: str | None = None) -> Path:
-    """Every track's antenna path and its candidates (colour: score) on a lon/lat map."""
-    from matplotlib import colormaps
-
-    from .plots import _LEGEND_STYLE, _new_figure, _save_atomic
-
-    fig = _new_figure((8.0, 6.5))
-    ax = fig.add_subplot()
-    cmap = colormaps["viridis"]
-    sc = None
-    for name, r in results:
-        ds = r.dataset
-        lon = np.asarray(ds["lon"].values)
-        lat = np.asarray(ds["lat"].values)
-        line, = ax.plot(lon, lat, lw=0.8, color="0.55")
-        ax.annotate(name, (lon[0], lat[0]), fontsize="small", color="0.3")
-        if r.candidates:
-            sc = ax.scatter([c["lon"] for c in r.candidates], [c["lat"] for c in r.candidates],
-                            c=[c["score"] for c in r.candidates], cmap=cmap, vmin=0.0, vmax=1.0, s=14,
-                            edgecolors="k", linewidths=0.3, zorder=3)  # fmt: skip
-    ax.set_xlabel("longitude (°)")
-    ax.set_ylabel("latitude (°)")
-    lats = np.concatenate([np.asarray(r.dataset["lat"].values) for _, r in results])
-    lons = np.concatenate([np.asarray(r.dataset["lon"].values) for _, r in results])
-    coslat = max(math.cos(math.radians(float(np.nanmean(lats)))), 0.05)
-    half = 0.55 * max(float(np.nanmax(lats) - np.nanmin(lats)), float(np.nanmax(lons) - np.nanmin(lons)) * coslat, 1e-3)
-    mid_lat, mid_lon = 0.5 * (np.nanmax(lats) + np.nanmin(lats)), 0.5 * (np.nanmax(lons) + np.nanmin(lons))
-    ax.set_ylim(mid_lat - half, mid_lat + half)
-    ax.set_xlim(mid_lon - half / coslat, mid_lon + half / coslat)
-    ax.set_aspect(1.0 / coslat)
-    ax.ticklabel_format(useOffset=False)
-    n_cand = sum(len(r.candidates) for _, r in results)
-    ax.set_title(title or f"{len(results)} track(s), {n_cand} unexplained echoes at the antenna's nadir", fontsize="medium")
-    if sc is not None:
-        fig.colorbar(sc, ax=ax, label="candidate score", pad=0.01)
-    from matplotlib.lines import Line2D
-
-    ax.legend(handles=[Line2D([], [], color="0.55", lw=0.8, label="observed track")], loc="best", **_LEGEND_STYLE)
-    return _save_atomic(fig, path)

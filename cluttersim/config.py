@@ -33,6 +33,7 @@ from .noise import NoiseConfig
 from .radar import BAND_KEYS, BandConfig, RadarConfig, pulse_power_kernel
 from .scattering import LAWS
 from .subsurface import SubsurfaceConfig
+from .validate import check_sigma0_peak
 
 
 @dataclass(frozen=True)
@@ -91,6 +92,7 @@ class SurfaceConfig:
                 raise ConfigError(f"[surface] {name} = {value!r}: expected a positive number")
             elif name == "n" and not value >= 0:
                 raise ConfigError(f"[surface] n = {value!r}: expected a non-negative exponent")
+        check_sigma0_peak(self.law, full)
         object.__setattr__(self, "params", full)
 
     @property

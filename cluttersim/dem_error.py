@@ -570,19 +570,24 @@ def explained_probability(explained_by, realisations_w, detected) -> tuple[np.nd
 DEM_ERROR_FILES = {"dem_error": "dem_error.nc", "dem_error_png": "dem_error.png"}
 
 
-def dem_error_paths(out_dir) -> dict:
+def dem_error_paths(out_dir, fmt: str = "png") -> dict:
+    """Paths of the DEM-error products in ``out_dir``, the figure in format ``fmt`` (png, pdf, svg)."""
     from pathlib import Path
 
-    return {k: Path(out_dir) / v for k, v in DEM_ERROR_FILES.items()}
+    from .products import figure_name
+
+    return {k: Path(out_dir) / figure_name(v, fmt) for k, v in DEM_ERROR_FILES.items()}
 
 
-def write_dem_error(ds: xr.Dataset, paths: dict) -> None:
+def write_dem_error(ds: xr.Dataset, paths: dict, figures=None) -> None:
     """Write ``dem_error.nc`` (the Dataset of :func:`simulate_dem_error`) and ``dem_error.png``
-    (:func:`cluttersim.planning_plots.plot_dem_error`) atomically."""
+    (:func:`cluttersim.plots.plot_dem_error`; ``figures``,
+    :class:`cluttersim.products.FigureOptions`: dpi, format, dynamic range [default 60 dB]) atomically."""
     from .outputs import atomic_paths
-    from .planning_plots import plot_dem_error
+    from .plots.planning import plot_dem_error
     from .radargram import write_netcdf_to
 
     with atomic_paths([paths["dem_error"], paths["dem_error_png"]]) as (nc, png):
         write_netcdf_to(ds, nc)
-        plot_dem_error(ds, png)
+        dpi, fmt, db_range = (None, None, None) if figures is None else (figures.dpi, figures.fmt, figures.db_range)
+        plot_dem_error(ds, png, dpi=dpi, fmt=fmt, **({"dynamic_range_db": db_range} if db_range is not None else {}))

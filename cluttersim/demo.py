@@ -19,7 +19,7 @@ from .noise import NoiseConfig
 from .radar import BandConfig
 from .dem import DemSource
 from .errors import DemError
-from .products import RUN_FILES, simulate_to_dir
+from .products import FigureOptions, figure_name, run_files, simulate_to_dir
 from .report import REPORT_FILE, write_report
 from .outputs import atomic_paths, check_new, locked_output
 from .radargram import open_radargram
@@ -83,22 +83,29 @@ def demo_config():
 
 
 @locked_output("out_dir")
-def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool = True) -> tuple[dict[str, Path], RunStats]:
-    """Run the demo scenario end to end; returns the product paths and run counters."""
+def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool = True,
+             figures: FigureOptions | None = None) -> tuple[dict[str, Path], RunStats]:  # fmt: skip
+    """Run the demo scenario end to end; returns the product paths and run counters.
+
+    ``figures`` (:class:`cluttersim.products.FigureOptions`): the figures' resolution, format
+    (png, pdf, svg) and dynamic range (default: chosen from the main radargram's data), which
+    every radargram figure of the demo shows."""
+    figures = figures or FigureOptions()
+    save = {"dpi": figures.dpi, "fmt": figures.fmt}
     out_dir = Path(out_dir)
     track_csv = out_dir / "demo_track.csv"
-    focused_png = out_dir / "radargram_focused.png"
-    bands_png = out_dir / "radargram_bands.png"
-    sky_png = out_dir / "radargram_sky_ionosphere.png"
+    focused_png, bands_png, sky_png = (out_dir / figure_name(f"radargram_{view}.png", figures.fmt)
+                                       for view in ("focused", "bands", "sky_ionosphere"))  # fmt: skip
     report_html = out_dir / REPORT_FILE
-    check_new([track_csv, focused_png, bands_png, sky_png, report_html] + [out_dir / f for f in RUN_FILES.values()],
-              overwrite)  # fmt: skip
+    check_new([track_csv, focused_png, bands_png, sky_png, report_html]
+              + [out_dir / f for f in run_files(fmt=figures.fmt).values()], overwrite)  # fmt: skip
     src = DemSource.open(demo_dem_path())
     track = great_circle_track(
         src.body, *DEMO_START_LAT_LON, *DEMO_END_LAT_LON, DEMO_ALT_M, DEMO_SPACING_M, speed_m_s=DEMO_SPEED_M_S
     )
     stats = RunStats()
-    paths = simulate_to_dir(src, track, demo_config(), out_dir, overwrite=True, progress=progress, stats=stats)
+    paths = simulate_to_dir(src, track, demo_config(), out_dir, overwrite=True, progress=progress, stats=stats,
+                            figures=figures)  # fmt: skip
     # the same pass as focused data would show it: clutter ahead of and behind the spacecraft
     # suppressed by along-track processing, clutter beside the track kept
     focused_cfg = dataclasses.replace(
@@ -112,7 +119,7 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
     # the focused view on the raw view's dynamic range: colours are dB below each one's strongest (nadir)
     # echo, so an echo as far below the surface echo has the same colour in both (focusing's weights lower
     # every echo, the nadir one too: one absolute scale would show the focused view almost black)
-    raw_lo, raw_hi = plots.db_limits(open_radargram(paths["radargram"]))
+    raw_lo, raw_hi = plots.db_limits(open_radargram(paths["radargram"]), dynamic_range_db=figures.db_range)
     # the same pass as the instrument records it: galactic noise floor, compression gain, ionosphere
     sky_cfg = dataclasses.replace(demo_config(), noise=DEMO_SKY, processing=DEMO_INSTRUMENT,
                                   ionosphere=IonosphereConfig(tec_el_m2=DEMO_TEC_EL_M2))  # fmt: skip
@@ -123,11 +130,13 @@ def run_demo(out_dir="demo_output", *, overwrite: bool = False, progress: bool =
         plots.plot_radargram(focused, tmp_png, permittivity=3.15, dynamic_range_db=raw_hi - raw_lo,
                              title=f"focused along track (aperture {DEMO_APERTURE_M / 1e3:g} km): clutter ahead/behind "
                                    f"suppressed\n(the {raw_hi - raw_lo:g} dB below the strongest echo shown in "
-                                   "radargram.png)")  # fmt: skip
+                                   f"radargram.{figures.fmt})", **save)  # fmt: skip
         plots.plot_band_radargrams(bands.isel(sample=slice(0, DEMO_BANDS_SAMPLES)), tmp_bands, permittivity=3.15,
-                                   title="the same pass in two frequency bands (first 15 µs of the window)")  # fmt: skip
+                                   dynamic_range_db=figures.db_range,
+                                   title="the same pass in two frequency bands (first 15 µs of the window)", **save)  # fmt: skip
         plots.plot_radargram(sky.isel(sample=slice(0, DEMO_SKY_SAMPLES)), tmp_sky, permittivity=3.15,
-                             title=f"galactic sky noise, processing gains, ionosphere {DEMO_TEC_EL_M2:.0e} el/m²")  # fmt: skip
+                             dynamic_range_db=figures.db_range,
+                             title=f"galactic sky noise, processing gains, ionosphere {DEMO_TEC_EL_M2:.0e} el/m²", **save)  # fmt: skip
     # the page to point at echoes and see where they come from
     write_report(out_dir, report_html, permittivity=3.15, overwrite=True)
     return {**paths, "focused": focused_png, "bands": bands_png, "sky": sky_png, "track": track_csv,

@@ -57,7 +57,7 @@ from .dem import DemSource
 from .errors import ConfigError, TrackError
 from .outputs import atomic_paths, check_new
 from .radar import delay_after_surface_s
-from .track import Track
+from .track import Track, TrackOverDem
 
 #: Products of a plan directory.
 PLAN_FILES = {"table": "plan.csv", "best_track": "best_track.csv", "polar": "objective_polar.png",
@@ -80,7 +80,8 @@ class PlanTarget:
 
     def __post_init__(self):
         if not (math.isfinite(self.lon_deg) and -90 <= self.lat_deg <= 90):
-            raise ConfigError(f"target {self.lon_deg} {self.lat_deg}: expected LON LAT in degrees (-90 <= LAT <= 90)")
+            raise ConfigError(f"target lat = {self.lat_deg}, lon = {self.lon_deg}: expected degrees with -90 <= lat <= 90 "
+                              "and a finite lon")
         if not (math.isfinite(self.radius_m) and self.radius_m > 0):
             raise ConfigError(f"target radius_m = {self.radius_m!r}: expected a positive distance in metres")
         if self.polygon is not None and len(self.polygon) < 3:
@@ -219,24 +220,21 @@ def candidate_track(body, plan: PlanConfig, cand: Candidate, ground_m: float = 0
 
 
 @dataclass(frozen=True)
-class PlanJob:
-    """One candidate for a worker (picklable; the DEM travels as a path)."""
+class PlanJob(TrackOverDem):
+    """One candidate for a worker (:class:`cluttersim.track.TrackOverDem`: DEM path, track arrays,
+    memory limit, threads, key) and the planner's own: the candidate's id, its traces on the
+    target, the configuration and the objective's depth window."""
 
     track_id: str
-    dem_path: str
-    body_radius_m: float | None
-    lat_deg: np.ndarray
-    lon_deg: np.ndarray
-    alt_m: np.ndarray
     on_target: np.ndarray
     sim_config: SimulationConfig
     depth_m: tuple[float, float]
     permittivity: float
     threshold_db: float
-    max_memory_bytes: int | str | None = "auto"
-    numba_threads: int | None = None
-    key: str = ""
     dem_error: object | None = None  # DemErrorConfig: also the probability under DEM error
+
+    def track_name(self) -> str:
+        return self.track_id
 
 
 @dataclass
@@ -418,9 +416,10 @@ def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *,
             tr = candidate_track(body, plan, c, ground)
             mask = plan.target.on_target(body, tr.lon_deg, tr.lat_deg)
             key = hashlib.sha256(json.dumps([c.id, str(src.path.resolve())]).encode()).hexdigest()
-            jobs.append(PlanJob(c.id, str(src.path.resolve()), body_radius_m, tr.lat_deg, tr.lon_deg, tr.alt_m, mask,
-                                sim_config, tuple(plan.depth_m), plan.permittivity, plan.threshold_db,
-                                max_memory_bytes, None, key, plan.dem_error))  # fmt: skip
+            jobs.append(PlanJob(c.id, mask, sim_config, tuple(plan.depth_m), plan.permittivity, plan.threshold_db,
+                                plan.dem_error, dem_path=str(src.path.resolve()), body_radius_m=body_radius_m,
+                                lat_deg=tr.lat_deg, lon_deg=tr.lon_deg, alt_m=tr.alt_m,
+                                max_memory_bytes=max_memory_bytes, key=key))  # fmt: skip
         by_id = {c.id: c for c in cands}
         bar.total = (bar.total or 0) + len(jobs)
         bar.refresh()
@@ -470,14 +469,19 @@ def search(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, *,
 
 def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, out_dir=".", *, engine=None,
              body_radius_m: float | None = None, overwrite: bool = False, progress: bool = False,
-             max_memory_bytes="auto") -> PlanResult:  # fmt: skip
-    """Search (:func:`search`) and write the products (:data:`PLAN_FILES`) into ``out_dir``."""
+             max_memory_bytes="auto", figures=None) -> PlanResult:  # fmt: skip
+    """Search (:func:`search`) and write the products (:data:`PLAN_FILES`) into ``out_dir``; ``figures``
+    (:class:`cluttersim.products.FigureOptions`): the figures' resolution, format (png, pdf, svg: the
+    suffix follows) and the best/worst radargrams' dynamic range (default 60 dB)."""
     from .simulate import simulate
     from .survey import survey_sim_config
 
     t0 = time.perf_counter()
     out_dir = Path(out_dir)
-    paths = {k: out_dir / v for k, v in PLAN_FILES.items()}
+    from .products import figure_name
+
+    fmt = figures.fmt if figures is not None else "png"
+    paths = {k: out_dir / figure_name(v, fmt) for k, v in PLAN_FILES.items()}
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     rows = search(src, plan, sim_config, engine=engine, body_radius_m=body_radius_m, progress=progress,
@@ -489,14 +493,20 @@ def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, 
               for name, row in (("best", result.best), ("worst", result.worst))}  # fmt: skip
     datasets = {name: simulate(src, tr, cfg, body_radius_m=body_radius_m, sources=False,
                                max_memory_bytes=max_memory_bytes) for name, tr in tracks.items()}  # fmt: skip
-    write_plan_products(src, plan, result, tracks, datasets)
+    write_plan_products(src, plan, result, tracks, datasets, figures=figures)
     result.seconds = time.perf_counter() - t0
     return result
 
 
-def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict, datasets: dict) -> None:
-    """plan.csv (ranked), best_track.csv, objective_polar.png, best_worst.png — atomically."""
-    from .planning_plots import plot_best_worst, plot_objective_polar
+def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict, datasets: dict,
+                        figures=None) -> None:  # fmt: skip
+    """plan.csv (ranked), best_track.csv, objective_polar.png, best_worst.png — atomically (``figures``:
+    :class:`cluttersim.products.FigureOptions`)."""
+    from .plots.planning import plot_best_worst, plot_objective_polar
+    from .products import FigureOptions
+
+    figures = figures or FigureOptions()
+    save = {"dpi": figures.dpi, "fmt": figures.fmt}
 
     paths = result.paths
     keys = list(PLAN_FILES)
@@ -531,7 +541,7 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
         plot_objective_polar(hs, vs, labels, tmp["polar"], objective_label=label,
                              best=(b.candidate.heading_deg, value(b)),
                              worst=(wst.candidate.heading_deg, value(wst)),
-                             mirror=plan.headings_deg[1] - plan.headings_deg[0] <= 180.0)  # fmt: skip
+                             mirror=plan.headings_deg[1] - plan.headings_deg[0] <= 180.0, **save)  # fmt: skip
         masks = [plan.target.on_target(src.body, tracks[n].lon_deg, tracks[n].lat_deg) for n in ("best", "worst")]
         window = tuple(float(delay_after_surface_s(d, plan.permittivity)) for d in plan.depth_m)
 
@@ -541,4 +551,5 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
             return f"{name}: heading {c.heading_deg:.1f}°, {c.alt_m / 1e3:g} km — index {row.objective_db:.1f} dB{extra}"
 
         plot_best_worst(datasets["best"], datasets["worst"], tmp["best_worst"], best_title=title("best", b),
-                        worst_title=title("worst", wst), target_traces=masks, depth_window_s=window)  # fmt: skip
+                        worst_title=title("worst", wst), target_traces=masks, depth_window_s=window, **save,
+                        **({"dynamic_range_db": figures.db_range} if figures.db_range is not None else {}))  # fmt: skip

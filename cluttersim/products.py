@@ -31,6 +31,12 @@ RUN_FILES = {
 
 
 
+def figure_name(name: str, fmt: str = "png") -> str:
+    """A product's file name with a figure's ``.png`` suffix turned into format ``fmt``'s (png, pdf,
+    svg); other names unchanged. Every command names its figures so (``radargram.pdf``...)."""
+    return name[: -len(".png")] + f".{fmt}" if name.endswith(".png") else name
+
+
 def run_files(band_names=(), sources: bool = True, fmt: str = "png") -> dict[str, str]:
     """File names of a run directory: :data:`RUN_FILES`, or with several frequency bands one
     radargram figure, one side figure and one elevation figure per band (``radargram_<band>.png``...)
@@ -45,9 +51,7 @@ def run_files(band_names=(), sources: bool = True, fmt: str = "png") -> dict[str
             if stem is not None:
                 for name in band_names:
                     files[f"{key}:{name}"] = stem.replace(".png", f"_{name}.png")
-    if fmt != "png":
-        files = {k: v[: -len(".png")] + f".{fmt}" if v.endswith(".png") else v for k, v in files.items()}
-    return files
+    return {k: figure_name(v, fmt) for k, v in files.items()}
 
 
 @dataclass(frozen=True)
@@ -119,7 +123,7 @@ def simulate_to_dir(
         run = segments.run_segments_to_dir(
             src, track, config, plan, out_dir, paths, body_radius_m=body_radius_m, overwrite=overwrite,
             progress=progress, sources=sources, nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
-            max_memory_bytes=max_memory_bytes, permittivity=permittivity, engine=engine,
+            max_memory_bytes=max_memory_bytes, permittivity=permittivity, engine=engine, figures=figures,
         )  # fmt: skip
         if stats is not None:
             stats.facet_evaluations = run.facet_evaluations

@@ -25,6 +25,7 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -96,6 +97,36 @@ LAWS: dict[str, LawSpec] = {
     "hagfors": LawSpec(3, sigma0_hagfors, ("C", "rho"), (400.0, 0.08)),
     "gaussian": LawSpec(4, sigma0_gaussian, ("rms_slope_deg", "rho"), (3.0, 0.08)),
 }
+
+
+def sigma0_peak(law: str, params: dict) -> tuple[float, float]:
+    """The largest σ0 a law gives over incidences 0–90° and the incidence (degrees) where it does.
+
+    From each law's formula: the constant law everywhere; Lambert and cosine-power (n ≥ 0) at
+    normal incidence, k. Hagfors: with s = sin²θ, v = (1 − s)² + C s is smallest at s = 0 when
+    C ≥ 2 (σ0 = Cρ/2) and at s = 1 − C/2 otherwise, v = C − C²/4, so σ0 = (Cρ/2) v^(−3/2).
+    Gaussian slopes: with u = 1/cos²θ, σ0 = ρ/(2 s²) u² exp(−(u − 1)/(2 s²)) is largest at
+    u = 4 s² when 4 s² > 1 (σ0 = 8 ρ s² exp(−2 + 1/(2 s²))), else at normal incidence (ρ/(2 s²)).
+    """
+    spec = LAWS[law]
+    p = [float(params.get(name, default)) for name, default in zip(spec.params, spec.defaults)]
+    if law == "constant":
+        return p[0], 0.0
+    if law in ("lambert", "cosine"):
+        return p[0], 0.0
+    if law == "hagfors":
+        c, rho = p
+        if c >= 2.0:
+            return 0.5 * c * rho, 0.0
+        v = c - 0.25 * c * c
+        return 0.5 * c * rho / v**1.5, math.degrees(math.asin(math.sqrt(1.0 - 0.5 * c)))
+    if law == "gaussian":
+        s = math.tan(math.radians(p[0]))
+        rho = p[1]
+        if 4.0 * s * s <= 1.0:
+            return rho / (2.0 * s * s), 0.0
+        return 8.0 * rho * s * s * math.exp(-2.0 + 1.0 / (2.0 * s * s)), math.degrees(math.acos(1.0 / (2.0 * s)))
+    raise KeyError(law)
 
 
 def sigma0(law: str, incidence_deg, **params):

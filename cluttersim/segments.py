@@ -55,7 +55,7 @@ import numpy as np
 
 from .dem import DemSource
 from .errors import ClutterSimError, OutputExistsError, TrackError
-from .track import Track
+from .track import Track, TrackOverDem
 
 #: Largest estimated memory of one segment chosen by "auto", bytes (a whole run's peak stays
 #: under ~2 GB with the interpreter, the compiled kernels and the output of one segment).
@@ -199,30 +199,23 @@ def plan_segments(src: DemSource, track: Track, config, *, sources: bool = True,
 
 
 @dataclass(frozen=True)
-class SegmentJob:
-    """One segment's work, small and picklable: the DEM travels as a path, never as pixels."""
+class SegmentJob(TrackOverDem):
+    """One segment's work (:class:`cluttersim.track.TrackOverDem`: DEM path, the segment's arrays,
+    memory limit, threads, resume key) and the segment's own: its place in the whole track, the
+    track's name, the configuration and :func:`cluttersim.simulate.simulate`'s options."""
 
     index: int
     start: int
     stop: int
-    dem_path: str
-    body_radius_m: float | None
-    lat_deg: np.ndarray
-    lon_deg: np.ndarray
-    alt_m: np.ndarray
-    time_s: np.ndarray | None
     track_source: str
     config: object
     sources: bool = True
     nadir_strip_m: float | None = None
     first_return_db: float = -20.0
-    max_memory_bytes: object = "auto"
-    numba_threads: int | None = None
-    key: str = ""
     gain_height_m: float | None = None
 
-    def track(self) -> Track:
-        return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_source)
+    def track_name(self) -> str:
+        return self.track_source
 
 
 @dataclass
@@ -243,9 +236,9 @@ def make_jobs(src: DemSource, track: Track, config, plan, *, body_radius_m=None,
     gain_h = track_gain_height_m(src, track, config, plan)
     for seg in plan:
         t = sub_track(track, seg.start, seg.stop)
-        job = SegmentJob(seg.index, seg.start, seg.stop, str(src.path.resolve()), body_radius_m, t.lat_deg, t.lon_deg,
-                         t.alt_m, t.time_s, track.source, config, sources, nadir_strip_m, first_return_db,
-                         max_memory_bytes, gain_height_m=gain_h)  # fmt: skip
+        job = SegmentJob(seg.index, seg.start, seg.stop, track.source, config, sources, nadir_strip_m, first_return_db,
+                         gain_h, dem_path=str(src.path.resolve()), body_radius_m=body_radius_m, lat_deg=t.lat_deg,
+                         lon_deg=t.lon_deg, alt_m=t.alt_m, time_s=t.time_s, max_memory_bytes=max_memory_bytes)  # fmt: skip
         jobs.append(dataclasses.replace(job, key=segment_key(src, job)))
     return jobs
 
@@ -485,7 +478,8 @@ def read_segment_key(path: Path) -> str:
 
 def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, paths: dict, *, body_radius_m=None,
                         overwrite=False, progress=False, sources=True, nadir_strip_m=None, first_return_db=-20.0,
-                        max_memory_bytes="auto", permittivity=3.15, engine=None, on_segment=None) -> SegmentedRun:  # fmt: skip
+                        max_memory_bytes="auto", permittivity=3.15, engine=None, on_segment=None,
+                        figures=None) -> SegmentedRun:  # fmt: skip
     """Simulate a track in segments into a run directory, streaming.
 
     Each finished segment is written at once (atomically) to ``OUT/segments/NNNNN.nc``
@@ -496,7 +490,9 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
     segment. Once all are finished they are joined chunk by chunk into
     ``radargram.nc`` (never the whole radargram in memory), the figures are drawn
     from it (every k-th trace when there are more than the figure can show), and
-    ``OUT/segments/`` is removed.
+    ``OUT/segments/`` is removed. ``figures``: how they are drawn and saved
+    (:class:`cluttersim.products.FigureOptions`: dpi, png/pdf/svg, dB range; the names in
+    ``paths`` carry the format's suffix, :func:`cluttersim.products.run_files`).
 
     ``engine``: None (this process) or a :class:`cluttersim.survey.Engine` with a Dask
     scheduler: the segments run as Dask tasks carrying paths and arrays; the results
@@ -564,7 +560,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
         raise TrackError(f"{track.source}: no trace lies over the DEM {src.path.name}; check lat/lon and the DEM's extent")
     computed = {j.index for j in todo}
     evaluations += sum(_segment_evaluations(path) for i, path in finished.items() if i not in computed)
-    join_segments(src, jobs, finished, plan, paths, evaluations, permittivity=permittivity)
+    join_segments(src, jobs, finished, plan, paths, evaluations, permittivity=permittivity, figures=figures)
     shutil.rmtree(seg_dir, ignore_errors=True)
     return SegmentedRun(len(plan), resumed, len(todo), evaluations, time.perf_counter() - t0, seen)
 
@@ -583,9 +579,10 @@ PICTURE_TRACES = 4000
 
 
 def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet_evaluations: int, *,
-                  permittivity: float = 3.15) -> None:  # fmt: skip
+                  permittivity: float = 3.15, figures=None) -> None:  # fmt: skip
     """Join the finished segments into ``paths['radargram']`` chunk by chunk and draw the
-    figures from it (atomically, all products together)."""
+    figures from it (atomically, all products together; ``figures``:
+    :class:`cluttersim.products.FigureOptions`)."""
     import xarray as xr
 
     from .outputs import atomic_paths
@@ -613,7 +610,7 @@ def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet
             _write_streamed_netcdf(ds, tmp["radargram"])
             with open_radargram_lazy(tmp["radargram"]) as full:
                 write_figures(full, src, {k: v for k, v in tmp.items() if k != "radargram"}, permittivity=permittivity,
-                              max_traces=PICTURE_TRACES)  # fmt: skip
+                              max_traces=PICTURE_TRACES, figures=figures)  # fmt: skip
     finally:
         for d in opened.values():
             d.close()

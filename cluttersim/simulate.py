@@ -48,7 +48,7 @@ from .radar import (
 from .radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track, wrap_lon_like
-from .validate import check_far_field, check_noise_power, check_power_finite, check_run_arguments
+from .validate import check_far_field, check_noise_power, check_power_bound, check_run_arguments
 
 #: Largest decimated grid (cells per side) used to estimate the terrain's height range.
 _PREVIEW_CELLS = 1024
@@ -82,22 +82,6 @@ class RunStats:
     seconds_total: float = 0.0
 
 
-def _refuse_overflow(fn):
-    """Run without NumPy's overflow warnings and refuse a radargram whose power overflowed, in one
-    line (:func:`~cluttersim.validate.check_power_finite`)."""
-    import functools
-
-    @functools.wraps(fn)
-    def wrapper(*args, **kwargs):
-        with np.errstate(over="ignore"):
-            ds = fn(*args, **kwargs)
-        check_power_finite(ds["power"].values)
-        return ds
-
-    return wrapper
-
-
-@_refuse_overflow
 def simulate(
     dem,
     track,
@@ -572,6 +556,10 @@ def prepare_scene(
             f"({h_nadir[i]:.1f} m); expected the antenna above the surface{altitude_unit_hint(track.alt_m, h_nadir)}"
         )
     check_far_field(track, h_nadir, config)
+    # before any power kernel: radar and surface numbers that could overflow the radargram are refused
+    nearest_m = float(np.nanmin(track.alt_m[on_dem]) - np.nanmax(window.elevation_m))
+    check_power_bound(config, nearest_m, float(np.sum(facets.area_m2, dtype=np.float64)),
+                      max(float(np.sum(w)) for _, w in band_pulses))  # fmt: skip
     nadir_delay = 2.0 * (track.alt_m - h_nadir) / SPEED_OF_LIGHT_M_S
 
     idx = np.flatnonzero(on_dem)

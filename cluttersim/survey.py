@@ -27,8 +27,8 @@ pulse's main lobe (±⌈1/(B Δt)⌉ samples) of t_n. Then
   the threshold T dB relative to the nadir echo;
 * a trace is clutter-prone when I ≥ T.
 
-Engines: the tracks are independent; each job carries the DEM's path (never its
-pixels), the track and the configuration, and the worker reads only the DEM
+Engines (:mod:`cluttersim.engines`): the tracks are independent; each job carries the DEM's
+path (never its pixels), the track and the configuration, and the worker reads only the DEM
 window its track needs. Locally a ``ProcessPoolExecutor`` (spawn context) runs
 them; with a scheduler they are Dask tasks (Dask is imported only then). Numba
 sums every trace in one thread in a fixed order, so the results do not depend
@@ -43,12 +43,8 @@ import csv
 import dataclasses
 import hashlib
 import json
-import logging
 import math
-import os
 import re
-import signal
-import sys
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -56,9 +52,12 @@ from pathlib import Path
 
 import numpy as np
 
+from .clutter_index import clutter_index, level_ground_index_db, swath_half_width_m
 from .config import SimulationConfig, default_config
+from . import engines
 from .dem import DemSource, crs_linear_unit_m
 from .demcrs import vsi_path
+from .engines import Engine, _dask, _quiet_dask_logs, dask_client  # noqa: F401  (names segments and callers use here)
 from .errors import (
     ClutterSimError,
     ConfigError,
@@ -67,8 +66,8 @@ from .errors import (
     TrackError,
 )
 from .outputs import atomic_paths, check_new, hold_interrupts, locked_output
-from .radar import POWER_CONVENTION, apparent_depth_m, delay_after_surface_s, effective_pulse_duration_s
-from .track import Track, great_circle_track, read_track_table
+from .radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
+from .track import Track, TrackOverDem, great_circle_track, read_track_table
 
 #: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
 SURVEY_FILES = {"csv": "survey.csv", "map_tif": "clutter_map.tif", "map_png": "clutter_map.png"}
@@ -78,7 +77,6 @@ _RELIEF_CELLS = 900
 #: Grid cells per region side when no grid resolution is given for CSV tracks.
 _DEFAULT_GRID_CELLS = 100
 #: Scheduler address forms accepted besides "local".
-_SCHEDULER_RE = re.compile(r"^(tcp|tls|inproc|ucx)://[^\s/:]+(:\d{1,5})?$")
 
 
 # --------------------------------------------------------------------------- configuration
@@ -175,53 +173,6 @@ class SurveyConfig:
 def _positive(name, value):
     if not (value is not None and math.isfinite(value) and value > 0):
         raise ConfigError(f"{name} = {value!r}: expected a positive number")
-
-
-@dataclass(frozen=True)
-class Engine:
-    """Where tracks run: ``workers`` local processes, or a Dask ``scheduler``
-    ("local" starts a ``LocalCluster`` of ``workers`` processes; "tcp://HOST:PORT"
-    connects to a running one), or the Dask scheduler whose address is in
-    ``scheduler_file`` (the JSON file ``dask scheduler --scheduler-file`` writes, the
-    usual way batch systems hand the address to jobs)."""
-
-    workers: int | None = None
-    scheduler: str | None = None
-    scheduler_file: str | None = None
-
-    def __post_init__(self):
-        if self.scheduler_file is not None:
-            if self.scheduler is not None:
-                raise ConfigError("give either --scheduler or --scheduler-file, not both")
-            if self.workers is not None:
-                raise ConfigError("workers: the Dask cluster of --scheduler-file has its own workers; give --workers "
-                                  "only with --scheduler local or without a scheduler")  # fmt: skip
-        if self.workers is not None and not (isinstance(self.workers, int) and self.workers >= 1):
-            raise ConfigError(f"workers = {self.workers!r}: expected a whole number >= 1")
-        if self.scheduler is not None and self.scheduler != "local" and not _SCHEDULER_RE.match(self.scheduler):
-            raise ConfigError(
-                f"scheduler {self.scheduler!r}: expected 'local' or an address such as tcp://HOST:PORT"
-            )
-        if self.scheduler not in (None, "local") and self.workers is not None:
-            raise ConfigError("workers: the Dask cluster at the scheduler has its own workers; give --workers only "
-                              "with --scheduler local or without --scheduler")  # fmt: skip
-
-    @property
-    def n_workers(self) -> int:
-        return self.workers or (os.cpu_count() or 1)
-
-    @property
-    def uses_dask(self) -> bool:
-        return self.scheduler is not None or self.scheduler_file is not None
-
-    def describe(self) -> str:
-        if self.scheduler_file is not None:
-            return f"Dask cluster of {self.scheduler_file}"
-        if self.scheduler is None:
-            return f"{self.n_workers} local process{'es' if self.n_workers > 1 else ''}"
-        if self.scheduler == "local":
-            return f"Dask LocalCluster of {self.n_workers} worker{'s' if self.n_workers > 1 else ''}"
-        return f"Dask cluster at {self.scheduler}"
 
 
 # --------------------------------------------------------------------------- tracks
@@ -385,24 +336,17 @@ def track_file_name(track_id: str) -> str:
 
 
 @dataclass(frozen=True)
-class TrackJob:
-    """Everything a worker needs for one track: small and picklable (the DEM travels as a path)."""
+class TrackJob(TrackOverDem):
+    """Everything a worker needs for one track (:class:`cluttersim.track.TrackOverDem`: DEM path,
+    track arrays, memory limit, threads, resume key) and the survey's own: the track's id, the
+    simulation's configuration and the reduction's parameters."""
 
     track_id: str
-    dem_path: str
-    body_radius_m: float | None
-    lat_deg: np.ndarray
-    lon_deg: np.ndarray
-    alt_m: np.ndarray
-    time_s: np.ndarray | None
     sim_config: SimulationConfig
     survey: dict
-    max_memory_bytes: int | str | None = "auto"
-    numba_threads: int | None = None
-    key: str = ""
 
-    def track(self) -> Track:
-        return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_id)
+    def track_name(self) -> str:
+        return self.track_id
 
 
 @dataclass
@@ -422,139 +366,6 @@ class TrackResult:
     seconds: float = 0.0  # the worker's time on this track (simulation and reduction)
     level_db: float = 0.0  # the level-ground index of this track's geometry, subtracted from index_db
     swath_m: float = 0.0  # cross-track half-width of the ground the subsurface window reaches (level ground)
-
-
-def clutter_index(power_w, left_fraction, right_fraction, window_start_s, nadir_delay_s, sample_interval_s: float,
-                  window_s: float, mainlobe_samples: int, threshold_db: float, permittivity: float = 3.15):  # fmt: skip
-    """Per trace: clutter index I (dB), clutter fraction F, apparent depth of the strongest
-    clutter (m) and the nadir surface echo power P_s (W), as defined in the module docstring.
-
-    ``power_w``, ``left_fraction``, ``right_fraction``: (trace, sample); delays absolute
-    two-way, s. Traces without a nadir echo give NaN. Also returns the number of traces
-    whose subsurface window ran past the end of the recording window (truncated there).
-    """
-    p = np.asarray(power_w, dtype=np.float64)
-    side = np.asarray(left_fraction, dtype=np.float64) + np.asarray(right_fraction, dtype=np.float64)
-    ntr, ns = p.shape
-    clutter = p * side
-    strip = p * (1.0 - side)
-    k = np.arange(ns)
-    start = np.asarray(window_start_s, dtype=np.float64)[:, None]
-    nadir = np.asarray(nadir_delay_s, dtype=np.float64)[:, None]
-    t = start + k * sample_interval_s
-    k_nadir = np.rint((nadir - start) / sample_interval_s)
-    with np.errstate(invalid="ignore"):
-        near = np.abs(k - k_nadir) <= mainlobe_samples
-        in_win = (t >= nadir - 0.5 * sample_interval_s) & (t <= nadir + window_s + 0.5 * sample_interval_s)
-        surface = np.max(np.where(near & np.isfinite(strip), strip, -np.inf), axis=1)
-        c_win = np.where(in_win & np.isfinite(clutter), clutter, -np.inf)
-        best = np.argmax(c_win, axis=1)
-        c_max = c_win[np.arange(ntr), best]
-        ok = np.isfinite(surface) & (surface > 0) & np.isfinite(c_max)
-        index_db = np.full(ntr, np.nan)
-        index_db[ok] = 10.0 * np.log10(np.maximum(c_max[ok], 1e-300) / surface[ok])
-        above = clutter >= surface[:, None] * 10.0 ** (threshold_db / 10.0)
-        p_win = np.where(in_win & np.isfinite(p), p, 0.0)
-        total = p_win.sum(axis=1)
-        fraction = np.full(ntr, np.nan)
-        good = ok & (total > 0)
-        fraction[good] = (p_win * above).sum(axis=1)[good] / total[good]
-        depth = np.full(ntr, np.nan)
-        depth[ok] = apparent_depth_m(t[ok, best[ok]] - nadir[ok, 0], permittivity)
-    truncated = int(np.sum(ok & (nadir[:, 0] + window_s > start[:, 0] + (ns - 1) * sample_interval_s)))
-    return index_db, fraction, depth, np.where(ok, surface, np.nan), truncated
-
-
-def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: SimulationConfig, survey: dict) -> float:
-    """The clutter index (raw, dB) that level ground gives in a track's geometry: computed, not tuned.
-
-    The trace with the median height above its nadir terrain and its two
-    neighbours (for the direction of travel) are simulated over a level DEM —
-    a constant height equal to that trace's nadir terrain, on the DEM's own
-    CRS and cell size (so facets are those of the real DEM) — with the same
-    radar, and :func:`clutter_index` is taken at the middle trace. Level ground
-    just outside the nadir strip (the pulse-limited footprint) echoes right
-    after the nadir echo, so this floor is a few dB below 0 for most sounders
-    (about −2.5 dB for the built-in radar 100 km up); the survey reports every
-    index relative to it, so level ground reads 0 dB. Returns NaN if no trace
-    has a nadir echo.
-    """
-    import tempfile
-
-    import rasterio
-    from rasterio.transform import from_origin
-
-    from .constants import SPEED_OF_LIGHT_M_S
-    from .simulate import ground_radius_m, simulate
-
-    clearance = np.asarray(track.alt_m, dtype=np.float64) - np.asarray(h_nadir_m, dtype=np.float64)
-    ok = np.flatnonzero(np.isfinite(clearance) & (clearance > 0))
-    if ok.size == 0:
-        return float("nan")
-    i = int(ok[np.argsort(clearance[ok])[ok.size // 2]])
-    rows = [max(0, i - 1), i, min(len(track) - 1, i + 1)]
-    rows = sorted(set(rows))
-    h0 = float(h_nadir_m[i])
-    radar = config.radar
-    window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
-    if radar.window_start_s == "auto":  # only the subsurface window matters: a shorter recording is enough
-        need = radar.auto_margin_samples + int(math.ceil(window_s / radar.sample_interval_s)) + 4 * radar.mainlobe_samples + 8
-        samples = int(min(radar.samples, max(need, 64)))
-        config = dataclasses.replace(config, radar=dataclasses.replace(radar, samples=samples))
-        radar = config.radar
-    max_range = clearance[i] + 0.5 * SPEED_OF_LIGHT_M_S * (radar.samples * radar.sample_interval_s + 2e-6)
-    if radar.window_start_s != "auto":
-        max_range = 0.5 * SPEED_OF_LIGHT_M_S * (float(radar.window_start_s) + radar.window_length_s)
-    radius = float(ground_radius_m(src.body, np.array([track.alt_m[i]]), np.array([max_range]), h0, h0)[0])
-    cell_x, cell_y = abs(src.transform.a), abs(src.transform.e)
-    x, y = src.lonlat_to_xy(np.array([track.lon_deg[i]]), np.array([track.lat_deg[i]]))
-    x, y = float(np.asarray(x)[0]), float(np.asarray(y)[0])
-    if src.is_geographic:
-        deg = math.degrees(1.0 / src.body.mean_radius_m)
-        half_x = radius * deg / max(math.cos(math.radians(track.lat_deg[i])), 0.05) + 3 * cell_x
-        half_y = radius * deg + 3 * cell_y
-    else:
-        half_x, half_y = radius + 3 * cell_x, radius + 3 * cell_y
-    nx = int(min(6000, 2 * math.ceil(half_x / cell_x) + 1))
-    ny = int(min(6000, 2 * math.ceil(half_y / cell_y) + 1))
-    # on the DEM's own grid lines, so the facets fall across the nadir strip's edge as the real ones do
-    t = src.transform
-    west = t.c + math.floor((x - 0.5 * nx * cell_x - t.c) / cell_x) * cell_x
-    north = t.f - math.floor((t.f - (y + 0.5 * ny * cell_y)) / cell_y) * cell_y
-    sub = Track(track.lat_deg[rows], track.lon_deg[rows], track.alt_m[rows],
-                None if track.time_s is None else track.time_s[rows], source=f"{track.source} (level-ground reference)")  # fmt: skip
-    with tempfile.TemporaryDirectory(prefix="cluttersim-level-") as tmp:
-        path = Path(tmp) / "level.tif"
-        profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32",
-                       transform=from_origin(west, north, cell_x, cell_y))  # fmt: skip
-        if src.crs is not None:
-            from rasterio.crs import CRS as RioCRS
-
-            profile["crs"] = RioCRS.from_wkt(src.crs.to_wkt())
-        with rasterio.open(path, "w", **profile) as out:
-            out.write(np.full((ny, nx), h0, dtype=np.float32), 1)
-        radius_given = None if src.crs is not None else src.body.mean_radius_m
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            ds = simulate(DemSource.open(path, radius_given), sub, config, body_radius_m=radius_given, sources=True,
-                          max_memory_bytes=None)  # fmt: skip
-    index_db, *_ = clutter_index(
-        ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
-        ds["nadir_delay"].values, radar.sample_interval_s, window_s, radar.mainlobe_samples, 0.0, survey["permittivity"],
-    )  # fmt: skip
-    return float(index_db[rows.index(i)])
-
-
-def swath_half_width_m(body, clearance_m, max_depth_m: float, permittivity: float) -> float:
-    """Cross-track distance from nadir of the level ground whose echo arrives at the bottom of the
-    subsurface window: the ground the window reaches, ρ = √(2 h Δr / (1 + h/R)) with
-    Δr = d_max √ε′ the extra range (flat-ground approximation of the law of cosines on a sphere of
-    radius R, valid for Δr ≪ h), for the median clearance h of the track."""
-    h = float(np.nanmedian(np.asarray(clearance_m, dtype=np.float64)))
-    if not (math.isfinite(h) and h > 0):
-        return 0.0
-    dr = max_depth_m * math.sqrt(permittivity)
-    return math.sqrt(2.0 * h * dr / (1.0 + h / body.mean_radius_m))
 
 
 def survey_track(job: TrackJob) -> TrackResult:
@@ -732,207 +543,17 @@ def _legacy_factor(ds, radar) -> float:
 # --------------------------------------------------------------------------- engines
 
 
-def _worker_tqdm_lock() -> None:
-    """Give tqdm a plain thread lock in a worker: by default its first bar creates a multiprocessing
-    lock (a named semaphore) that a worker stopped by terminate() would leak, and Python's resource
-    tracker would then print a warning after the interrupt message."""
-    import threading
-
-    from tqdm import tqdm
-
-    tqdm.set_lock(threading.RLock())
-
-
-def _die_with_parent(parent_pid: int) -> None:
-    """End this worker when the process that started it ends, however it ends (SIGKILL included):
-    the kernel's parent-death signal on Linux (prctl PR_SET_PDEATHSIG), and everywhere a thread
-    that checks once a second whether the parent is still this process's parent."""
-    import ctypes
-    import threading
-
-    if sys.platform.startswith("linux"):
-        with contextlib.suppress(OSError, AttributeError):
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1 (linux/prctl.h)
-
-    def watch():
-        while True:
-            if os.getppid() != parent_pid:
-                os._exit(1)
-            time.sleep(1.0)
-
-    if os.getppid() != parent_pid:  # the parent ended before the signal was set up
-        os._exit(1)
-    threading.Thread(target=watch, name="cluttersim-parent-watch", daemon=True).start()
-
-
-def _init_local_worker(threads: int, parent_pid: int | None = None) -> None:
-    """Worker start-up: die with the parent, leave SIGINT and SIGTERM to it (it stops the pool) and
-    limit Numba's threads."""
-    if parent_pid is not None:
-        _die_with_parent(parent_pid)
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    _worker_tqdm_lock()
-    import numba
-
-    numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
-
-
 def run_jobs(jobs, engine: Engine, on_result, task=None) -> None:
     """Run ``task(job)`` (a picklable module-level function; default :func:`survey_track`) for
-    every job on the engine, calling ``on_result`` with each result as it completes. Jobs need
-    ``track_id``, ``key`` and ``numba_threads`` fields (as :class:`TrackJob`)."""
-    if not engine.uses_dask:
-        _run_local(jobs, engine.n_workers, on_result, task)
-    else:
-        _run_dask(jobs, engine, on_result, task)
-
-
-def _run_local(jobs, workers: int, on_result, task=None) -> None:
-    """Run jobs in ``workers`` spawned processes (in this process when ``workers`` is 1)."""
-    task = task or survey_track
-    if workers == 1 or len(jobs) == 1:
-        for job in jobs:
-            on_result(task(job))
-        return
-    import multiprocessing
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-    from concurrent.futures.process import BrokenProcessPool
-
-    threads = max(1, (os.cpu_count() or 1) // workers)
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-                               initializer=_init_local_worker, initargs=(threads, os.getpid()))  # fmt: skip
-    try:
-        pending = {pool.submit(task, job) for job in jobs}
-        while pending:
-            done, pending = wait(pending, return_when=FIRST_COMPLETED)
-            for fut in done:
-                on_result(fut.result())  # a worker's error is raised here, as it was raised there
-    except BrokenProcessPool:
-        raise ClutterSimError("a survey worker process died (out of memory?); run again to resume") from None
-    except BaseException:
-        _stop_pool(pool)
-        raise
-    pool.shutdown(wait=True)
-
-
-def _stop_pool(pool) -> None:
-    """Cancel queued jobs and end the running workers now (3.11's pool has no terminate)."""
-    procs = list((getattr(pool, "_processes", None) or {}).values())  # a private attribute, hence getattr
-    pool.shutdown(wait=False, cancel_futures=True)
-    for proc in procs:
-        with contextlib.suppress(Exception):
-            proc.terminate()
-    for proc in procs:
-        with contextlib.suppress(Exception):
-            proc.join(timeout=5)
-    with contextlib.suppress(Exception):
-        pool.shutdown(wait=True)  # let the pool's manager thread release its queues and locks
+    every job on the engine (:func:`cluttersim.engines.run_jobs`), calling ``on_result`` with each
+    result as it completes. Jobs need ``track_id``, ``key`` and ``numba_threads`` fields (as
+    :class:`TrackJob`)."""
+    engines.run_jobs(jobs, engine, on_result, task or survey_track)
 
 
 def _dask_survey_track(job: TrackJob, task=None) -> TrackResult:
-    """The Dask task: :func:`survey_track` (or ``task``) with Numba's threads shared among the worker's threads."""
-    _worker_tqdm_lock()
-    if job.numba_threads is None:
-        try:
-            from distributed import get_worker
-
-            nthreads = get_worker().state.nthreads
-        except (ImportError, ValueError, AttributeError):
-            nthreads = 1
-        job = dataclasses.replace(job, numba_threads=max(1, (os.cpu_count() or 1) // max(1, nthreads)))
-    return (task or survey_track)(job)
-
-
-def _engine_option(engine: Engine) -> str:
-    return f"--scheduler-file {engine.scheduler_file}" if engine.scheduler_file else f"--scheduler {engine.scheduler}"
-
-
-def _dask(engine: Engine):
-    """The ``distributed`` module, or a ConfigError saying how to install it."""
-    try:
-        import distributed
-    except ImportError:
-        raise ConfigError(
-            f"{_engine_option(engine)}: Dask is not installed; install it with pip install 'cluttersim[dask]'"
-        ) from None
-    return distributed
-
-
-@contextlib.contextmanager
-def dask_client(engine: Engine):
-    """``(client, numba_threads)`` for an engine's Dask cluster: a LocalCluster of ``engine.workers``
-    processes (``numba_threads``: cores / workers), the scheduler at ``engine.scheduler``, or the one
-    named in ``engine.scheduler_file`` (``numba_threads`` None: each task divides its worker's
-    cores). Closed (and a LocalCluster stopped) on exit."""
-    distributed = _dask(engine)
-    Client, LocalCluster = distributed.Client, distributed.LocalCluster
-    cluster = None
-    threads = None
-    if engine.scheduler_file is not None and not Path(engine.scheduler_file).is_file():
-        raise ConfigError(f"--scheduler-file {engine.scheduler_file}: file not found; expected the JSON file written "
-                          "by dask scheduler --scheduler-file")  # fmt: skip
-    try:
-        if engine.scheduler == "local":
-            n = engine.n_workers
-            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
-                                   silence_logs=logging.CRITICAL)  # errors reach the user as one line, below
-            client = Client(cluster)
-            threads = max(1, (os.cpu_count() or 1) // n)
-        elif engine.scheduler_file is not None:
-            client = Client(scheduler_file=engine.scheduler_file, timeout="20s")
-        else:
-            client = Client(engine.scheduler, timeout="20s")
-    except (OSError, TimeoutError, ValueError, KeyError) as exc:
-        if cluster is not None:
-            cluster.close()
-        raise ClutterSimError(f"{_engine_option(engine)}: cannot reach the Dask scheduler ({exc})") from None
-    try:
-        yield client, threads
-    finally:
-        with _quiet_dask_logs(), contextlib.suppress(Exception):
-            client.close()
-            if cluster is not None:
-                cluster.close()
-
-
-def _run_dask(jobs, engine: Engine, on_result, task=None) -> None:
-    """Run jobs as Dask tasks on a LocalCluster or the cluster behind ``engine.scheduler`` (or
-    ``engine.scheduler_file``); ``task`` replaces :func:`survey_track` (the planner's hook)."""
-    as_completed = _dask(engine).as_completed
-    with dask_client(engine) as (client, threads):
-        if threads is not None:
-            jobs = [dataclasses.replace(j, numba_threads=threads) for j in jobs]
-        _submit_tracks(client, jobs, on_result, as_completed, task)
-
-
-def _submit_tracks(client, jobs, on_result, as_completed, task=None) -> None:
-    futures = []
-    try:
-        futures = [client.submit(_dask_survey_track, job, task, key=f"cluttersim-survey-{job.key[:16]}-{job.track_id}",
-                                 pure=False) for job in jobs]  # fmt: skip
-        for fut in as_completed(futures):
-            on_result(fut.result())
-    except BaseException:
-        with contextlib.suppress(Exception):
-            client.cancel(futures)
-        raise
-
-
-@contextlib.contextmanager
-def _quiet_dask_logs():
-    """Closing a LocalCluster logs a warning per worker it has to kill: not the user's concern."""
-    loggers = [logging.getLogger(name) for name in ("distributed", "distributed.nanny", "distributed.worker",
-                                                     "distributed.worker.state_machine")]
-    levels = [lg.level for lg in loggers]
-    for lg in loggers:
-        lg.setLevel(logging.ERROR)
-    try:
-        yield
-    finally:
-        for lg, level in zip(loggers, levels):
-            lg.setLevel(level)
+    """The Dask task of :mod:`cluttersim.engines` running :func:`survey_track` (or ``task``)."""
+    return engines._dask_task(job, task or survey_track)
 
 
 # --------------------------------------------------------------------------- the survey
@@ -955,7 +576,7 @@ class SurveySummary:
 def run_survey(
     dem, config: SurveyConfig, sim_config: SimulationConfig | None = None, out_dir=".", *, engine: Engine | None = None,
     body_radius_m: float | None = None, overwrite: bool = False, progress: bool = False,
-    max_memory_bytes: int | str | None = "auto", on_track=None, band: str | None = None,
+    max_memory_bytes: int | str | None = "auto", on_track=None, band: str | None = None, figures=None,
 ) -> SurveySummary:  # fmt: skip
     """Survey a region: simulate every track, write each as it finishes, then the map and table.
 
@@ -976,6 +597,9 @@ def run_survey(
         Called with each TrackResult after its file is written (progress hooks, tests).
     band : str, optional
         The band surveyed with a multi-band radar (``[[band]]`` tables; default the first).
+    figures : cluttersim.products.FigureOptions, optional
+        The map's resolution, format (png, pdf, svg: ``clutter_map.<fmt>``) and colour range
+        (``db_range``: dB spanned around the threshold, :func:`survey_map_range_db`).
 
     Returns
     -------
@@ -985,7 +609,7 @@ def run_survey(
     engine = engine if engine is not None else Engine()
     sim_config = survey_sim_config(sim_config if sim_config is not None else default_config(), band)
     out_dir = Path(out_dir)
-    paths = {k: out_dir / v for k, v in SURVEY_FILES.items()}
+    paths = survey_files(out_dir, figures.fmt if figures is not None else "png")
     check_new(paths.values(), overwrite)
     if engine.uses_dask:
         _dask(engine)  # before any work: say at once if Dask is missing
@@ -1008,8 +632,9 @@ def run_survey(
             done[st.track_id] = previous
             continue
         t = st.track
-        jobs.append(TrackJob(st.track_id, str(src.path.resolve()), body_radius_m, t.lat_deg, t.lon_deg, t.alt_m,
-                             t.time_s, sim_config, config.reduction(), max_memory_bytes, None, key))  # fmt: skip
+        jobs.append(TrackJob(st.track_id, sim_config, config.reduction(), dem_path=str(src.path.resolve()),
+                             body_radius_m=body_radius_m, lat_deg=t.lat_deg, lon_deg=t.lon_deg, alt_m=t.alt_m,
+                             time_s=t.time_s, max_memory_bytes=max_memory_bytes, key=key))  # fmt: skip
     _remove_stale_temporaries(track_dir)
     resumed = len(done)
     seen_warnings: list[str] = []
@@ -1030,10 +655,7 @@ def run_survey(
                 on_track(result)
 
         if jobs:  # tracks/ is made by the first track written (atomic_paths): nothing if none finishes
-            if not engine.uses_dask:
-                _run_local(jobs, engine.n_workers, on_result)
-            else:
-                _run_dask(jobs, engine, on_result)
+            run_jobs(jobs, engine, on_result)
     for w in seen_warnings:
         warnings.warn(f"survey: {w}", stacklevel=2)
     results = [done[st.track_id] for st in sorted(planned, key=lambda s: s.track_id)]
@@ -1044,7 +666,7 @@ def run_survey(
             f"window in {truncated} traces; they are evaluated to the window's end (raise [radar] samples)",
             stacklevel=2,
         )
-    write_survey_products(src, config, grid, results, paths)
+    write_survey_products(src, config, grid, results, paths, figures=figures)
     return SurveySummary(paths=paths, tracks=len(planned), resumed=resumed, computed=len(jobs),
                          seconds=time.perf_counter() - t0, warnings=seen_warnings,
                          track_seconds=[done[j.track_id].seconds for j in jobs])  # fmt: skip
@@ -1242,15 +864,40 @@ def track_rows(body, results, threshold_db: float) -> list[dict]:
     return rows
 
 
-def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid, results, paths) -> None:
+def survey_files(out_dir, fmt: str = "png") -> dict[str, Path]:
+    """Paths of a survey's products (:data:`SURVEY_FILES`), the map figure in format ``fmt``."""
+    from .products import figure_name
+
+    return {k: Path(out_dir) / figure_name(v, fmt) for k, v in SURVEY_FILES.items()}
+
+
+#: The survey map's colour scale by default: this many dB below the threshold and above it.
+SURVEY_MAP_BELOW_DB, SURVEY_MAP_ABOVE_DB = 6.0, 18.0
+
+
+def survey_map_range_db(db_range: float | None) -> tuple[float, float]:
+    """(below, above) the threshold spanned by the survey map's colours: the default
+    (:data:`SURVEY_MAP_BELOW_DB`, :data:`SURVEY_MAP_ABOVE_DB`), or a total of ``db_range`` dB
+    split in the same proportion (a quarter below the threshold)."""
+    if db_range is None:
+        return SURVEY_MAP_BELOW_DB, SURVEY_MAP_ABOVE_DB
+    share = SURVEY_MAP_BELOW_DB / (SURVEY_MAP_BELOW_DB + SURVEY_MAP_ABOVE_DB)
+    return share * db_range, (1.0 - share) * db_range
+
+
+def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid, results, paths,
+                          figures=None) -> None:  # fmt: skip
     """survey.csv, clutter_map.tif (band 1 index dB, band 2 fraction; DEM's CRS, NaN nodata) and
-    clutter_map.png, written together atomically."""
+    clutter_map.png (or .pdf/.svg: ``figures``, :class:`cluttersim.products.FigureOptions`),
+    written together atomically."""
     import rasterio
     from rasterio.crs import CRS as RioCRS
 
     from . import plots
-    from .products import MapFrame
+    from .products import FigureOptions, MapFrame
 
+    figures = figures or FigureOptions()
+    below_db, above_db = survey_map_range_db(figures.db_range)
     index, frac = grid_results(src, grid, results, config.swath_km)
     rows = track_rows(src.body, results, config.threshold_db)
     profile = dict(driver="GTiff", width=grid.width, height=grid.height, count=2, dtype="float32",
@@ -1286,7 +933,8 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
             title=f"clutter over the subsurface window {depth}\n{src.path.name}",
             label=f"strongest off-nadir clutter at apparent depths {depth}\nrelative to level ground (dB; level "
                   "ground: 0)",
-            swaths=None if config.swath_km == 0 else True,
+            swaths=None if config.swath_km == 0 else True, below_db=below_db, above_db=above_db, dpi=figures.dpi,
+            fmt=figures.fmt,
         )  # fmt: skip
 
 

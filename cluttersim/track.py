@@ -109,6 +109,32 @@ class Track:
                 writer.writerow(row)
 
 
+@dataclass(frozen=True, kw_only=True)
+class TrackOverDem:
+    """A track over a DEM as a worker process or a Dask task receives it: small and picklable, the
+    DEM travels as its path (never its pixels), the track as arrays. The fields every such job
+    shares; :class:`cluttersim.survey.TrackJob`, :class:`cluttersim.segments.SegmentJob` and
+    :class:`cluttersim.plan.PlanJob` extend it with their own (keyword-only here, so theirs
+    keep their places)."""
+
+    dem_path: str
+    body_radius_m: float | None  # the sphere radius given for a DEM without CRS, else None
+    lat_deg: np.ndarray
+    lon_deg: np.ndarray
+    alt_m: np.ndarray
+    time_s: np.ndarray | None = None
+    max_memory_bytes: int | str | None = "auto"  # as cluttersim.simulate.simulate takes it
+    numba_threads: int | None = None  # the worker limits Numba's threads to this (results do not depend on it)
+    key: str = ""  # the resume key of the job's output
+
+    def track_name(self) -> str:
+        """The name the track carries in messages (each job kind says which)."""
+        return "track"
+
+    def track(self) -> Track:
+        return Track(self.lat_deg, self.lon_deg, self.alt_m, self.time_s, source=self.track_name())
+
+
 def read_track_table(path, extra_columns: tuple[str, ...] = ()) -> tuple[list[str], list[list[str]]]:
     """The lower-cased header names and the data rows of a track CSV, checked to have the
     columns lat, lon, alt and ``extra_columns``."""

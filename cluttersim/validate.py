@@ -24,6 +24,14 @@ MAX_ABS_HEIGHT_RADII = 1.5
 #: Largest transmitted power accepted, W (the most powerful radar transmitters are in the
 #: megawatt range: common practice; 1 GW leaves room for any sounder).
 MAX_TRANSMIT_POWER_W = 1e9
+#: Largest σ0 (linear) a [surface] law may reach at any incidence. Natural surfaces stay below
+#: some +30 to +40 dB even at normal incidence on the smoothest ground (from memory; a rough
+#: figure, common practice); 60 dB leaves a wide margin.
+MAX_SIGMA0 = 1e6
+#: Largest power per sample (W) the radar equation may bound a run by before it runs: a tenth of
+#: float32's largest value (3.4e38), for the antenna pattern's two-way peak (a dipole's D0² ≈ 2.7)
+#: and the aperture's weights, which the bound leaves out.
+MAX_POWER_BOUND_W = 3.4e37
 #: Longitudes accepted in tracks, degrees (either −180..180 or 0..360 conventions, and a track
 #: continuing past either end; beyond a full turn it is a typing or unit error).
 MAX_ABS_LONGITUDE_DEG = 360.0
@@ -110,18 +118,57 @@ def check_far_field(track, h_nadir_m, config) -> None:
         )
 
 
-def check_power_finite(power_w) -> None:
-    """Refuse a radargram whose power overflowed (float32 holds up to 3.4e38 W): values that large
-    come from radar, surface or noise numbers far outside any instrument's (ConfigError)."""
+def check_sigma0_peak(law: str, params: dict) -> None:
+    """Refuse a [surface] law whose largest σ0 over incidence (:func:`cluttersim.scattering.sigma0_peak`)
+    exceeds :data:`MAX_SIGMA0`, naming the key(s) that set it (ConfigError, when the config is read)."""
     from .errors import ConfigError
+    from .scattering import LAWS, sigma0_peak
 
-    with np.errstate(invalid="ignore"):
-        overflow = np.isinf(power_w)
-    if overflow.any():
-        raise ConfigError(
-            f"{int(overflow.sum())} simulated samples overflow (power beyond 3.4e38 W): expected radar numbers of a real "
-            "instrument; check transmit_power_w, antenna_gain_dbi, the [surface] law's parameters and [noise]"
-        )
+    peak, incidence_deg = sigma0_peak(law, params)
+    if math.isfinite(peak) and peak <= MAX_SIGMA0:
+        return
+    keys = LAWS[law].params
+    if law in ("constant", "lambert", "cosine"):
+        given = f"{keys[0]} = {params[keys[0]]!r}"
+    else:
+        given = ", ".join(f"{k} = {params[k]!r}" for k in keys) + f" give σ0 = {peak:.3g} at {incidence_deg:.3g}° incidence,"
+    raise ConfigError(
+        f"[surface] {given} (law {law!r}): expected a backscatter coefficient of at most {MAX_SIGMA0:g} "
+        f"({10 * math.log10(MAX_SIGMA0):.0f} dB)"
+    )
+
+
+def check_power_bound(config, nearest_m: float, area_m2: float, pulse_sum: float) -> None:
+    """Refuse, before the power kernel runs, radar and surface numbers that could overflow a float32
+    radargram (ConfigError naming the keys).
+
+    The bound: every facet's echo is Pt G² λ² σ0 A / ((4π)³ R⁴) (the radar equation), so no sample
+    exceeds Pt G² λ² σ0_max ΣA / ((4π)³ R_min⁴) times the pulse response's sum (``pulse_sum``);
+    ``nearest_m`` is a lower bound of R_min (the antenna's height above the window's highest cell,
+    at least one wavelength), ``area_m2`` the facets' total area. It must stay below
+    :data:`MAX_POWER_BOUND_W`.
+    """
+    from .errors import ConfigError
+    from .scattering import sigma0_peak
+
+    sigma0_max, _ = sigma0_peak(config.surface.law, config.surface.params)
+    worst = None
+    for name, cfg in config.per_band():
+        radar = cfg.radar
+        r = max(float(nearest_m) if math.isfinite(nearest_m) else 0.0, radar.wavelength_m)
+        bound = radar.radar_constant_w_m2() * sigma0_max * float(area_m2) * float(pulse_sum) / r**4
+        if worst is None or not bound <= worst[0]:
+            worst = (bound, name, radar, r)
+    bound, name, radar, r = worst
+    if math.isfinite(bound) and bound <= MAX_POWER_BOUND_W:
+        return
+    where = f" (band {name})" if name else ""
+    raise ConfigError(
+        f"[radar] transmit_power_w = {radar.transmit_power_w:g}, antenna_gain_dbi = {radar.antenna_gain_dbi:g}, "
+        f"center_frequency_hz = {radar.center_frequency_hz:g}{where} with [surface] σ0 up to {sigma0_max:.3g} allow "
+        f"{bound:.3g} W per sample from ground {r:.3g} m away: expected at most {MAX_POWER_BOUND_W:g} W "
+        "(a float32 radargram's range); check those keys"
+    )
 
 
 def check_noise_power(config) -> None:

@@ -31,3 +31,26 @@ def test_demo_writes_products_and_shows_off_nadir_clutter(tmp_path):
         assert p[t, int(nadir_sample) + lag] > 0
     again = CliRunner().invoke(cli, ["demo", "--out", str(out)])
     assert again.exit_code == 2 and "--overwrite" in again.output
+
+
+def test_demo_figures_follow_the_figure_options(tmp_path, monkeypatch):
+    """demo --figure-format pdf writes every figure as PDF (bytes, not names) and names them so in its
+    printout; --dpi sets the PNGs' pixel size and --db-range the colour scale of every radargram view
+    (a narrower range draws more of it black: darker). On a short stretch of the demo pass."""
+    from cluttersim import demo
+    from figure_files import assert_all_in_format, mean_brightness, png_size
+
+    monkeypatch.setattr(demo, "DEMO_START_LAT_LON", (11.9, 41.0))
+    monkeypatch.setattr(demo, "DEMO_END_LAT_LON", (12.0, 41.0))
+    names = ("radargram", "radargram_sides", "radargram_elevation", "radargram_focused", "radargram_bands",
+             "radargram_sky_ionosphere", "track_map")  # fmt: skip
+    res = CliRunner().invoke(cli, ["demo", "--out", str(tmp_path / "pdf"), "--figure-format", "pdf"])
+    assert res.exit_code == 0, res.output
+    assert_all_in_format([tmp_path / "pdf" / f"{n}.pdf" for n in names], "pdf")
+    assert not list((tmp_path / "pdf").glob("*.png")) and "radargram_focused.pdf" in res.output
+    for db in ("15", "80"):
+        res = CliRunner().invoke(cli, ["demo", "--out", str(tmp_path / db), "-q", "--dpi", "60", "--db-range", db])
+        assert res.exit_code == 0, res.output
+    assert png_size(tmp_path / "15" / "radargram.png") == (600, 300)  # 10 × 5 in at 60 dpi
+    for name in ("radargram", "radargram_focused", "radargram_bands", "radargram_sky_ionosphere"):
+        assert mean_brightness(tmp_path / "15" / f"{name}.png") < mean_brightness(tmp_path / "80" / f"{name}.png") - 0.02, name

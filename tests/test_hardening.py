@@ -32,9 +32,9 @@ from cluttersim.dem import DemSource
 from cluttersim.errors import DemError, OutputLockedError
 from cluttersim.track import great_circle_track
 from cluttersim.validate import height_limit_m
+from cli_helpers import CLUTTERSIM, interrupt_when, one_line, region_args
 from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, utm_grid, write_geotiff, write_utm
 
-CLUTTERSIM = Path(sys.executable).parent / "cluttersim"
 ROOT = Path(__file__).resolve().parents[1]
 TRACK = "lat,lon,alt\n0,0,100000\n0.1,0,100000\n"
 
@@ -69,11 +69,6 @@ def _leftovers(out):
     return sorted(str(p.relative_to(out)) for p in out.rglob("*")) if out.exists() else []
 
 
-def _one_line(res, code):
-    assert res.exit_code == code, res.output
-    assert "Traceback" not in res.output
-    lines = res.output.strip().splitlines()
-    return lines
 
 
 def _simulate_args(d, extra, out):
@@ -130,8 +125,8 @@ CASES = {
                                   "[noise] gives a noise power of 1.38e+284 W: expected at most 1e+09 W (k T B F: check "
                                   "noise_temperature_k and the noise figure)"),
     "sigma0 1e300": (lambda d, o: _simulate_args(d, ["--radar", _file(d, "s.toml", "[surface]\nlaw = 'constant'\nsigma0 = 1e300\n")], o), 1,
-                     "4096 simulated samples overflow (power beyond 3.4e38 W): expected radar numbers of a real "
-                     "instrument; check transmit_power_w, antenna_gain_dbi, the [surface] law's parameters and [noise]"),
+                     "{d}/s.toml: [surface] sigma0 = 1e+300 (law 'constant'): expected a backscatter coefficient of at "
+                     "most 1e+06 (60 dB)"),
     # item 10 and issue 17 item 7: tracks
     "decimal commas": (lambda d, o: _simulate_args(d, ["--track", _file(d, "comma.csv", "lat,lon,alt\n11,8,41.0,300000\n")], o), 1,
                        "{d}/comma.csv: row 1 has 4 fields, the header 3: expected one value per column ('.' as the decimal "
@@ -202,7 +197,7 @@ def test_bad_input_table(d, run, case, tmp_path):
     args = [str(a) for a in make(d, out)]  # writes the case's input files
     before = _leftovers(d)
     res = CliRunner().invoke(cli, args)
-    lines = _one_line(res, code)
+    lines = one_line(res, code)
     expected = message.format(d=d)
     if code == 2 and not expected.startswith(str(d)):  # click's usage error: a usage line, a hint, then the error
         assert lines[-1] == "Error: " + expected, res.output
@@ -289,7 +284,7 @@ def test_no_space_left_is_one_line_and_nothing_is_left(d, run, tmp_path, monkeyp
                     str(run / "radargram.nc"), "--sample-interval-s", "37.5e-9", "--window-start-s", _start(d), "--out", str(out), "-q"],
     }[command]  # fmt: skip
     res = CliRunner().invoke(cli, args)
-    lines = _one_line(res, 1)
+    lines = one_line(res, 1)
     assert len(lines) == 1 and lines[0].startswith("cluttersim: error: no space left on the device while writing "), res.output
     written = {"simulate": out / "radargram.nc", "track": out / "t.csv", "compare": out / "comparison.nc"}.get(command)
     if written is not None:
@@ -331,10 +326,10 @@ def test_read_only_file_system(d, tmp_path):
         pytest.skip("cannot mount a tmpfs here (not root?)")
     try:
         res = CliRunner().invoke(cli, _simulate_args(d, [], mnt / "run"))
-        assert _one_line(res, 1) == [f"cluttersim: error: {mnt}/run: cannot write (read-only file system)"]
+        assert one_line(res, 1) == [f"cluttersim: error: {mnt}/run: cannot write (read-only file system)"]
         res = CliRunner().invoke(cli, ["track", "--start-lat", "11.7", "--start-lon", "0", "--end-lat", "11.8", "--end-lon", "0", "--alt-m", "1000",
                                        "--spacing-m", "100", "--body-radius-m", "3e6", "--out", str(mnt / "t.csv")])  # fmt: skip
-        assert _one_line(res, 1) == [f"cluttersim: error: {mnt}/t.csv: cannot write (read-only file system)"]
+        assert one_line(res, 1) == [f"cluttersim: error: {mnt}/t.csv: cannot write (read-only file system)"]
     finally:
         subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
 
@@ -412,21 +407,9 @@ def test_sigterm_is_handled_like_sigint(tmp_path):
     dem, track = _big_scene(tmp_path)
     out = tmp_path / "run"
     err_path = tmp_path / "stderr.txt"
-    with open(err_path, "w") as err:
-        proc = subprocess.Popen([str(CLUTTERSIM), "simulate", "--dem", str(dem), "--track", str(track), "--out", str(out)],
-                                stdout=subprocess.DEVNULL, stderr=err)  # fmt: skip
-        try:
-            deadline = time.monotonic() + 120
-            while "simulating" not in err_path.read_text() and proc.poll() is None:
-                assert time.monotonic() < deadline, "the simulation never started"
-                time.sleep(0.1)
-            assert proc.poll() is None, "finished before it could be stopped: make the scene bigger"
-            proc.send_signal(signal.SIGTERM)
-            rc = proc.wait(timeout=60)
-        finally:
-            if proc.poll() is None:
-                proc.kill()
-    text = err_path.read_text()
+    rc, text = interrupt_when(["simulate", "--dem", dem, "--track", track, "--out", out],
+                              lambda: "simulating" in err_path.read_text(), signal.SIGTERM, err_path, too_soon="the scene",
+                              poll_s=0.1)  # fmt: skip
     assert rc == 130, text
     assert "cluttersim: interrupted; no output was written" in text and "Traceback" not in text
     assert _leftovers(out) == []
@@ -439,7 +422,7 @@ def _loaded(pid, library):
         return False
 
 
-def test_interrupt_during_start_up_is_one_line(tmp_path, d):
+def test_interrupt_during_start_up_isone_line(tmp_path, d):
     """SIGINT as soon as NumPy is loaded (the imports of the command have begun: they take a second
     or two), and again a little later: whatever it interrupts, one line, exit 130. (An interrupt
     before Python's own start-up has run, within a few ms, is Python's to report.)"""
@@ -501,13 +484,8 @@ def _region(massif):
     return [lon0, lat0, lon1, lat1]
 
 
-def _region_args(region):
-    lon0, lat0, lon1, lat1 = region
-    return [str(v) for v in ("--lat-min", lat0, "--lat-max", lat1, "--lon-min", lon0, "--lon-max", lon1)]
-
-
 def _survey_args(massif, out, *extra):
-    return ["survey", "--dem", str(massif), *_region_args(_region(massif)), "--spacing-km", "2", "--alt-m", "1e5",
+    return ["survey", "--dem", str(massif), *region_args(_region(massif)), "--spacing-km", "2", "--alt-m", "1e5",
             "--trace-spacing-m", "700", "--max-depth-m", "300", "--out", str(out), *map(str, extra)]  # fmt: skip
 
 
@@ -558,7 +536,7 @@ def test_a_second_run_into_a_locked_directory_stops_naming_the_owner(d, massif, 
         assert holder.stdout.readline().strip() == "locked"
         for args in (_simulate_args(d, [], out), _survey_args(massif, out, "--workers", "1", "-q")):
             res = CliRunner().invoke(cli, args)
-            assert _one_line(res, 2) == [f"cluttersim: error: {out}: in use by another cluttersim run (pid {holder.pid}); "
+            assert one_line(res, 2) == [f"cluttersim: error: {out}: in use by another cluttersim run (pid {holder.pid}); "
                                          "wait for it to end or choose another --out"]  # fmt: skip
         assert sorted(p.name for p in out.iterdir()) == [outputs.LOCK_NAME]
         with pytest.raises(OutputLockedError):
@@ -602,7 +580,7 @@ def test_survey_resume_key_follows_the_dem_content(massif, tmp_path):
     (out / "clutter_map.tif").unlink()
     (out / "clutter_map.png").unlink()
     res = CliRunner().invoke(cli, args)
-    lines = _one_line(res, 2)
+    lines = one_line(res, 2)
     assert len(lines) == 1 and "made by a survey with other arguments (DEM, radar, window or track)" in lines[0]
 
 
@@ -708,7 +686,7 @@ def test_report_refuses_a_comparison_paired_with_another_run(d, run, tmp_path):
     _file(tmp_path, "t2.csv", "lat,lon,alt\n0,0,102000\n0.1,0,102000\n")
     assert CliRunner().invoke(cli, _simulate_args(d, ["--track", tmp_path / "t2.csv"], other)).exit_code == 0
     res = CliRunner().invoke(cli, ["report", str(cmp_dir), "--sim", str(other / "radargram.nc"), "-q"])
-    lines = _one_line(res, 1)
+    lines = one_line(res, 1)
     assert len(lines) == 1 and lines[0].startswith(f"cluttersim: error: {other}/radargram.nc: trace 0 has window_start ")
     assert lines[0].endswith("expected the simulated radargram of that comparison")
     assert not (cmp_dir / "report.html").exists()
@@ -726,7 +704,7 @@ def test_a_tiny_sample_interval_is_refused_before_the_pulse_is_allocated(d, tmp_
     monkeypatch.setattr(sim_module, "pulse_power_kernel", never)
     radar = _file(tmp_path, "dt.toml", "[radar]\nsample_interval_s = 1e-12\n")
     res = CliRunner().invoke(cli, _simulate_args(d, ["--radar", radar, "--max-memory", "4GB"], tmp_path / "o"))
-    lines = _one_line(res, 1)
+    lines = one_line(res, 1)
     assert len(lines) == 1 and lines[0].startswith("cluttersim: error: this run needs about "), res.output
     assert "more than 4.0 GB, the limit given (--max-memory)" in lines[0]
 
@@ -743,7 +721,7 @@ def test_compare_checks_the_observed_array_against_max_memory_before_reading_it(
     res = CliRunner().invoke(cli, ["compare", "--observed", str(big), "--observed-track", str(d / "t.csv"), "--sim",
                                    str(run / "radargram.nc"), "--sample-interval-s", "37.5e-9", "--window-start-s", "6e-4",
                                    "--max-memory", "1GB", "--out", str(tmp_path / "cmp"), "-q"])  # fmt: skip
-    assert _one_line(res, 1) == [
+    assert one_line(res, 1) == [
         f"cluttersim: error: {big}: the observed array (2 x 50,000,000 values) needs about 2.8 GB to compare; more than "
         "1.0 GB, the limit given (--max-memory). Cut it into shorter pieces along the track, or raise --max-memory"
     ]
@@ -768,6 +746,6 @@ def test_a_huge_sparse_dem_is_refused_from_its_metadata(tmp_path, monkeypatch):
     monkeypatch.setattr(DemSource, "read", never)
     res = CliRunner().invoke(cli, ["simulate", "--dem", str(path), "--track", str(track), "--max-memory", "8GB",
                                    "--out", str(tmp_path / "o"), "-q"])  # fmt: skip
-    lines = _one_line(res, 1)
+    lines = one_line(res, 1)
     assert len(lines) == 1 and lines[0].startswith("cluttersim: error: this run needs about "), res.output
     assert _leftovers(tmp_path / "o") == []

@@ -217,10 +217,10 @@ def test_plan_command_and_bad_input(massif, tmp_path):
                                                             "best_worst.png"}  # fmt: skip
     both = CliRunner().invoke(cli, base + ["--target-polygon", str(poly), "--target", "1", "2", "--out", str(tmp_path / "q")])
     assert both.exit_code == 2 and "either --target" in both.output
-    bad = CliRunner().invoke(cli, [*base[:4], "300", "50", *base[6:], "--target", str(t.lon_deg), str(t.lat_deg),
-                                   "--out", str(tmp_path / "r")])  # fmt: skip
+    bad = CliRunner().invoke(cli, [*base[:4], "300", "50", *base[6:], "--target-lat", str(t.lat_deg), "--target-lon",
+                                   str(t.lon_deg), "--out", str(tmp_path / "r")])  # fmt: skip
     assert bad.exit_code == 1 and "depth 300.0 50.0" in bad.output and len(bad.output.strip().splitlines()) == 1
-    off = CliRunner().invoke(cli, base + ["--target", "0", "0", "--out", str(tmp_path / "s")])
+    off = CliRunner().invoke(cli, base + ["--target-lat", "0", "--target-lon", "0", "--out", str(tmp_path / "s")])
     assert off.exit_code == 1 and "not on the DEM" in off.output
     assert not (tmp_path / "q").exists() and not (tmp_path / "r").exists() and not (tmp_path / "s").exists()
 
@@ -240,3 +240,36 @@ def test_airborne_search_scores_every_altitude_and_offset(massif, tmp_path):
 
     best = Track.from_csv(result.paths["best_track"])
     np.testing.assert_allclose(best.alt_m, 3000.0, atol=1e-6)  # the plain under the target is at 0 m
+
+
+def test_plan_named_target_options_the_old_spelling_and_figure_options(massif, tmp_path):
+    """--target-lat/--target-lon (named as the other commands' coordinates) plan the same tracks as the
+    deprecated --target LON LAT, which still works with a deprecation message; the figures follow
+    --figure-format (bytes, not just names) and --dpi (PNG size: 13 × 5.5 in for best_worst)."""
+    from click.testing import CliRunner
+
+    from cli.main import cli
+    from figure_files import assert_all_in_format, png_size
+
+    path, _, plan, *_ = massif
+    radar = tmp_path / "radar.toml"
+    radar.write_text('[radar]\nsamples = 256\n[antenna]\npattern = "gaussian"\nbeamwidth_along_deg = 8.0\n'
+                     'beamwidth_across_deg = 80.0\n')  # fmt: skip
+    t = plan.target
+    base = ["plan", "--dem", str(path), "--depth-m", "50", "300", "--alt-m", "25000", "--radar", str(radar),
+            "--coarse-step-deg", "90", "--fine-step-deg", "90", "--track-length-km", "2", "--workers", "1", "-q"]  # fmt: skip
+    named = CliRunner().invoke(cli, base + ["--target-lat", repr(t.lat_deg), "--target-lon", repr(t.lon_deg),
+                                            "--figure-format", "svg", "--out", str(tmp_path / "named")])  # fmt: skip
+    assert named.exit_code == 0, named.output
+    assert "deprecated" not in named.output
+    assert_all_in_format([tmp_path / "named" / f for f in ("objective_polar.svg", "best_worst.svg")], "svg")
+    old = CliRunner().invoke(cli, base + ["--target", repr(t.lon_deg), repr(t.lat_deg), "--dpi", "50",
+                                          "--out", str(tmp_path / "old")])  # fmt: skip
+    assert old.exit_code == 0, old.output
+    assert "--target LON LAT is deprecated" in old.output and "--target-lat --target-lon" in old.output
+    assert (tmp_path / "named" / "plan.csv").read_text() == (tmp_path / "old" / "plan.csv").read_text()
+    assert png_size(tmp_path / "old" / "best_worst.png") == (650, 275)
+    both = CliRunner().invoke(cli, base + ["--target", "1", "2", "--target-lat", "2", "--out", str(tmp_path / "x")])
+    assert both.exit_code == 2 and "not both" in both.output
+    half = CliRunner().invoke(cli, base + ["--target-lat", "2", "--out", str(tmp_path / "y")])
+    assert half.exit_code == 2 and "missing --target-lon" in half.output

@@ -446,3 +446,26 @@ def test_plot_echo_sources(tmp_path):
     with pytest.raises(ValueError, match="antenna_xy"):
         plot_echo_sources(elevation, extent, [41.0], [12.0], (41.0,), cells, shares, tmp_path / "x.png")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["echo.png", "none.png", "zoom.png"]
+
+
+def test_every_name_of_the_plots_package_is_reachable_from_cluttersim_plots():
+    """The figures live in cluttersim/plots/<concern>.py; notebooks and the library call plots.*: every
+    name a submodule defines is re-exported by the package, and planning_plots keeps its old names."""
+    import importlib
+    import inspect
+    import pkgutil
+
+    import cluttersim.planning_plots as old_path
+    import cluttersim.plots as plots
+
+    modules = [m.name for m in pkgutil.iter_modules(plots.__path__)]
+    assert {"style", "radargram_views", "sides", "comparison", "maps", "planning"} <= set(modules)
+    for name in modules:
+        module = importlib.import_module(f"cluttersim.plots.{name}")
+        own = [k for k, v in vars(module).items() if not k.startswith("__")
+               and (getattr(v, "__module__", module.__name__) == module.__name__ or k.isupper())
+               and not inspect.ismodule(v)]  # fmt: skip
+        missing = [k for k in own if getattr(plots, k, None) is not getattr(module, k)]
+        assert not missing, f"cluttersim.plots.{name} defines {missing}, not re-exported by cluttersim.plots"
+    for name in ("plot_dem_error", "plot_objective_polar", "plot_best_worst"):
+        assert getattr(old_path, name) is getattr(plots, name)

@@ -279,3 +279,35 @@ def test_dask_runs_are_bit_identical_to_the_local_segmented_run(airborne, tmp_pa
                     assert a[var].values.tobytes() == b[var].values.tobytes(), (name, var)
     res = CliRunner().invoke(cli, base + ["--scheduler-file", str(tmp_path / "none.json"), "--out", str(tmp_path / "x")])
     assert res.exit_code == 1 and "none.json: file not found" in res.output, res.output
+
+
+def test_streamed_run_writes_its_figures_in_the_chosen_format(airborne, tmp_path):
+    """A segmented run's figures follow the figure options as a one-piece run's do: --figure-format pdf
+    writes PDF bytes (not PNG bytes under a .pdf name), the library call svg, and --dpi sets the PNG size."""
+    from click.testing import CliRunner
+
+    from cli.main import cli
+    from cluttersim.products import FigureOptions, run_files
+    from figure_files import assert_all_in_format, png_size
+
+    d, dem, track = airborne
+    track.to_csv(tmp_path / "track.csv")
+    radar = tmp_path / "radar.toml"
+    radar.write_text('[radar]\nsamples = 200\n[surface]\nlaw = "hagfors"\nC = 300.0\nrho = 0.1\n')
+    figures = [k for k in run_files() if k != "radargram"]
+    for fmt, extra in (("pdf", ["--figure-format", "pdf"]), ("png", ["--dpi", "40"])):
+        out = tmp_path / fmt
+        res = CliRunner().invoke(cli, ["simulate", "--dem", str(dem), "--track", str(tmp_path / "track.csv"),
+                                       "--radar", str(radar), "--segment-traces", "16", "--out", str(out), "-q",
+                                       *extra])  # fmt: skip
+        assert res.exit_code == 0, res.output
+        assert not (out / "segments").exists()  # streamed, then joined
+        assert_all_in_format([out / run_files(fmt=fmt)[k] for k in figures], fmt)
+    assert png_size(tmp_path / "png" / "radargram.png") == (400, 200)  # 10 × 5 in at 40 dpi
+    out = tmp_path / "lib"
+    paths = {k: out / v for k, v in run_files(fmt="svg").items()}
+    src = DemSource.open(dem)
+    with pytest.warns(UserWarning):
+        segments.run_segments_to_dir(src, track, config(), plan_segments(src, track, config(), segment_traces=16), out,
+                                     paths, figures=FigureOptions(fmt="svg"))  # fmt: skip
+    assert_all_in_format([paths[k] for k in figures], "svg")

@@ -11,17 +11,14 @@ import math
 import signal
 import subprocess
 import sys
-import time
-from pathlib import Path
 
 import numpy as np
 import pyproj
 import pytest
 import rasterio
-from click.testing import CliRunner
+from cli_helpers import CLUTTERSIM, interrupt_when, invoke, one_line, region_args
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, utm_grid, write_utm
 
-from cli.main import cli
 from cluttersim import SurfaceConfig, default_config
 from cluttersim.body import Body
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
@@ -34,8 +31,6 @@ from cluttersim.survey import (
     read_track_result,
     run_survey,
 )
-
-CLUTTERSIM = Path(sys.executable).parent / "cluttersim"
 
 ALT_M = 100e3
 MASSIF_H_M = 1000.0
@@ -96,12 +91,6 @@ def survey_run(massif, tmp_path_factory):
     summary = run_survey(massif, config, radar_config(), out, engine=Engine(workers=1))
     return out, summary
 
-
-
-def region_args(region):
-    """The named region options (--lat-min ...) of a (lon_min, lat_min, lon_max, lat_max) box, as strings."""
-    lon0, lat0, lon1, lat1 = region
-    return [str(v) for v in ("--lat-min", lat0, "--lat-max", lat1, "--lon-min", lon0, "--lon-max", lon1)]
 
 # --------------------------------------------------------------------------- the clutter index
 
@@ -304,9 +293,8 @@ def test_interrupted_survey_resumes_without_recomputing(massif, tmp_path):
     # other arguments: the finished tracks are refused, not silently mixed in
     for p in out.glob("*.*"):
         p.unlink()
-    res = CliRunner().invoke(cli, ["survey", "--dem", str(massif), *region_args(_small().region),
-                                   "--spacing-km", "6", "--alt-m", str(ALT_M), "--trace-spacing-m", "1400",
-                                   "--max-depth-m", "250", "--out", str(out), "-q"])  # fmt: skip
+    res = _survey(["--dem", massif, *region_args(_small().region), "--spacing-km", 6, "--alt-m", ALT_M,
+                   "--trace-spacing-m", 1400, "--max-depth-m", 250, "--out", out, "-q"])  # fmt: skip
     assert res.exit_code == 2, res.output
     assert "made by a survey with other arguments" in res.output
 
@@ -315,24 +303,11 @@ def test_sigint_stops_the_survey_and_a_restart_resumes(massif, tmp_path):
     """SIGINT to `cluttersim survey` with two worker processes once a track is written: exit 130, one
     line, no temporary file and no map; the same command again finishes only the other tracks."""
     out = tmp_path / "out"
-    args = [str(CLUTTERSIM), "survey", "--dem", str(massif), *region_args(region_km(-27, -20, 27, 20)),
-            "--spacing-km", "3", "--alt-m", str(ALT_M), "--trace-spacing-m", "700", "--max-depth-m", "300",
-            "--workers", "2", "--out", str(out)]  # fmt: skip
-    err_path = tmp_path / "stderr.txt"
-    with open(err_path, "w") as err:
-        proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=err)
-        try:
-            deadline = time.monotonic() + 120
-            while not list((out / "tracks").glob("*.nc")) and proc.poll() is None:
-                assert time.monotonic() < deadline, "no track finished"
-                time.sleep(0.05)
-            assert proc.poll() is None, "finished before it could be interrupted: make the survey bigger"
-            proc.send_signal(signal.SIGINT)
-            rc = proc.wait(timeout=60)
-        finally:
-            if proc.poll() is None:
-                proc.kill()
-    text = err_path.read_text()
+    args = ["survey", "--dem", str(massif), *region_args(region_km(-27, -20, 27, 20)), "--spacing-km", "3",
+            "--alt-m", str(ALT_M), "--trace-spacing-m", "700", "--max-depth-m", "300", "--workers", "2",
+            "--out", str(out)]  # fmt: skip
+    rc, text = interrupt_when(args, lambda: bool(list((out / "tracks").glob("*.nc"))), signal.SIGINT,
+                              tmp_path / "stderr.txt", too_soon="the survey")  # fmt: skip
     assert rc == 130, text
     assert "Traceback" not in text and "Warning" not in text  # e.g. no leaked-semaphore warning from stopped workers
     lines = [ln for ln in text.splitlines() if ln.startswith("cluttersim:")]
@@ -342,7 +317,7 @@ def test_sigint_stops_the_survey_and_a_restart_resumes(massif, tmp_path):
     assert not (out / "clutter_map.tif").exists() and not (out / "survey.csv").exists()
     kept = {p.name: p.stat().st_mtime_ns for p in (out / "tracks").glob("*.nc")}
     assert 1 <= len(kept) < 19
-    done = subprocess.run(args + ["-q"], capture_output=True, text=True, timeout=300)
+    done = subprocess.run([str(CLUTTERSIM), *args, "-q"], capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
     assert {p.name: p.stat().st_mtime_ns for p in (out / "tracks").glob("*.nc") if p.name in kept} == kept
     assert len(list((out / "tracks").glob("*.nc"))) == 19
@@ -353,7 +328,7 @@ def test_sigint_stops_the_survey_and_a_restart_resumes(massif, tmp_path):
 
 
 def _survey(args):
-    return CliRunner().invoke(cli, ["survey", *map(str, args)])
+    return invoke("survey", *args)
 
 
 @pytest.mark.parametrize(
@@ -374,9 +349,8 @@ def _survey(args):
 )
 def test_bad_input_is_one_line_with_its_exit_code(massif, tmp_path, extra, code, words):
     res = _survey(["--dem", massif, *extra, "--out", tmp_path / "o", "-q"])
-    assert res.exit_code == code, res.output
-    assert words in res.output
-    assert res.output.count("\n") == 1 and res.output.startswith("cluttersim: error: ")
+    (line,) = one_line(res, code)
+    assert words in line and line.startswith("cluttersim: error: ")
     assert not (tmp_path / "o").exists()
 
 
@@ -443,3 +417,36 @@ def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
     _assert_identical(_outputs(tmp_path / "here"), _outputs(tmp_path / "file"))
     with pytest.raises(ConfigError, match="either --scheduler or --scheduler-file"):
         Engine(scheduler="local", scheduler_file=str(path))
+
+
+def test_survey_map_follows_the_figure_options(massif, tmp_path):
+    """--figure-format svg writes clutter_map.svg (SVG bytes), --dpi sets the PNG's pixel size, and
+    --db-range sets the map's colour span (a quarter below the threshold): a narrower span saturates
+    more cells, so the two maps differ while the numbers (GeoTIFF, CSV) do not."""
+    from figure_files import figure_format, png_size
+
+    from cluttersim.survey import survey_map_range_db
+
+    assert survey_map_range_db(None) == (6.0, 18.0)
+    assert survey_map_range_db(8.0) == pytest.approx((2.0, 6.0))
+    base = ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
+            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]  # fmt: skip
+    runs = {"svg": ["--figure-format", "svg"], "a": ["--dpi", "50"], "b": ["--dpi", "50", "--db-range", "4"]}
+    for name, extra in runs.items():
+        res = invoke(*base, "--out", tmp_path / name, *extra)
+        assert res.exit_code == 0, res.output
+    assert figure_format(tmp_path / "svg" / "clutter_map.svg") == "svg"
+    assert not (tmp_path / "svg" / "clutter_map.png").exists()
+    w120, h120 = _png_size_of_default(massif, tmp_path)
+    w50, h50 = png_size(tmp_path / "a" / "clutter_map.png")
+    assert abs(w50 - w120 * 50 / 120) <= 2 and abs(h50 - h120 * 50 / 120) <= 2
+    assert (tmp_path / "a" / "survey.csv").read_bytes() == (tmp_path / "b" / "survey.csv").read_bytes()
+    assert (tmp_path / "a" / "clutter_map.png").read_bytes() != (tmp_path / "b" / "clutter_map.png").read_bytes()
+
+
+def _png_size_of_default(massif, tmp_path):
+    from figure_files import png_size
+
+    out = tmp_path / "default"
+    run_survey(massif, _small(), radar_config(320), out, engine=Engine(workers=1))
+    return png_size(out / "clutter_map.png")

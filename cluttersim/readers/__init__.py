@@ -77,6 +77,18 @@ class ProductContent:
     notes: tuple[str, ...]
 
 
+def infer_axis_order(shape: tuple[int, int], per_trace_lengths, default: str) -> str:
+    """The orientation of a 2-D echo array from the lengths of the product's per-trace vectors:
+    ``traces-samples`` when only its first axis has such a length, ``samples-traces`` when only
+    its second has, else ``default`` (the format's usual layout)."""
+    a, b = shape
+    if a in per_trace_lengths and b not in per_trace_lengths:
+        return "traces-samples"
+    if b in per_trace_lengths and a not in per_trace_lengths:
+        return "samples-traces"
+    return default
+
+
 def format_for_suffix(suffix: str) -> str | None:
     for name, suffixes in ARCHIVE_SUFFIXES.items():
         if suffix.lower() in suffixes:

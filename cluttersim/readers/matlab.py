@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import ObservedDataError
-from . import Lookup
+from . import Lookup, infer_axis_order
 from .fields import DEFAULT_NAMES, missing_field
 
 _HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
@@ -97,17 +97,11 @@ def read_matlab(path, file_format: str, mapping: dict, *, geometry=None, axis_or
         v = np.squeeze(value)
         if v.ndim <= 1:
             lookup.add(name, v if v.ndim == 1 else float(v.real))
-    n_fast, n_tr = matrix.shape
     # the traces lie along the axis as long as the latitude vector (else: as any vector)
     lat_names = (mapping["lat"].name,) if "lat" in mapping else DEFAULT_NAMES["matlab"]["lat"]
     lat = next((lookup.get(n) for n in lat_names if lookup.get(n) is not None), None)
     lengths = {np.asarray(lat[1]).size} if lat is not None else {np.asarray(v).size for v, _ in lookup.entries.values()}
-    if axis_order is None:
-        if n_tr in lengths and n_fast not in lengths:
-            axis_order = "samples-traces"
-        elif n_fast in lengths and n_tr not in lengths:
-            axis_order = "traces-samples"
-        else:
-            axis_order = "samples-traces"  # the layout's fast time × traces
+    if axis_order is None:  # default: the layout's fast time × traces
+        axis_order = infer_axis_order(matrix.shape, lengths, "samples-traces")
     values = matrix.T if axis_order == "samples-traces" else matrix
     return lookup, np.asarray(values)

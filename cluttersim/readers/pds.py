@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import ObservedDataError
-from . import Lookup
+from . import Lookup, infer_axis_order
 from .fields import DEFAULT_NAMES, missing_field
 
 
@@ -182,14 +182,8 @@ def read_pds(path, file_format: str, mapping: dict, *, geometry=None, axis_order
         _fill(lookup, gpath, "", gdata, gobjects)
         rows |= {len(t) for t in gobjects.values() if hasattr(t, "columns")}
         lookup.source = f"{path} (+ {gpath.name})"
-    a, b = values.shape
     if axis_order is None:
-        if a in rows and b not in rows:
-            axis_order = "traces-samples"
-        elif b in rows and a not in rows:
-            axis_order = "samples-traces"
-        else:
-            axis_order = "samples-traces" if kind == "array" else "traces-samples"
+        axis_order = infer_axis_order(values.shape, rows, "samples-traces" if kind == "array" else "traces-samples")
     if axis_order == "samples-traces":
         values = values.T
     # the echo column's own pieces are no geometry
