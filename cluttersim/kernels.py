@@ -102,6 +102,89 @@ def sigma0_apply(code, cos_inc, p0, p1, num, den, out, n):
 
 
 @numba.njit(inline="always", **_JIT)
+def sigma0_factor(code, p0, p1):
+    """The constant factor of a σ0 law that :func:`sigma0_apply32` leaves out (applied in float64
+    with the radar equation's constants, so that no float32 buffer holds it): 0.5 C ρ for Hagfors'
+    law, σ0 itself for the constant law, 1 for the others."""
+    if code == 3:
+        return 0.5 * p0 * p1
+    if code == 0:
+        return p0
+    return 1.0
+
+
+@numba.njit(inline="always", **_JIT)
+def sigma0_apply32(code, cos_inc, sin2, p0, p1, q, out, n):
+    """out[i] = q[i] σ0(cos_inc[i]) / :func:`sigma0_factor` for i < n, float32 buffers: Hagfors' law
+    and the constant law in float32 (8 lanes on AVX2), the other laws in float64 per element.
+    Hagfors' law is :func:`cluttersim.scattering.sigma0_hagfors` written with float32 constants and
+    with sin²θ given (``sin2``, from a cross product): 1 − cos²θ in float32 loses sin²θ near nadir,
+    where σ0 ∝ (cos⁴θ + C sin²θ)^(−3/2) changes fastest (C = 400: 6e-5 relative per 1e-7 of
+    sin²θ). (cos⁴θ + C sin²θ) ≥ min(1, C/2), so the float32 quotient stays in range for any C
+    above ~1e-20."""
+    if code == 3:
+        c = np.float32(p0)
+        for i in range(n):
+            cos2 = cos_inc[i] * cos_inc[i]
+            v = cos2 * cos2 + c * sin2[i]
+            out[i] = q[i] / (v * np.sqrt(v))
+    elif code == 0:
+        for i in range(n):
+            out[i] = q[i]
+    elif code == 1:
+        for i in range(n):
+            out[i] = q[i] * _sigma0_lambert(np.float64(cos_inc[i]), p0)
+    elif code == 2:
+        for i in range(n):
+            out[i] = q[i] * _sigma0_cosine(np.float64(cos_inc[i]), p0, p1)
+    else:
+        for i in range(n):
+            out[i] = q[i] * _sigma0_gaussian(np.float64(cos_inc[i]), p0, p1)
+
+
+@numba.njit(inline="always", **_JIT)
+def _facet_terms32(ux, uy, uz, inv_d, rel, xw, xf, normal, e_col, e_row, area, f, k_sub, wmax, spread, nsub, margin):
+    """Pass 2 of :func:`accumulate_power` for facet ``f``, in float32: from its offset from the
+    antenna v = c + rel[:, f] over the tile centre's distance d (``ux, uy, uz`` = c/d, ``inv_d`` = 1/d;
+    |v|/d ≈ 1 to within the tile's size over d, so float32 keeps its direction and range to ~1e-7
+    relative) and its position on the sub-bin grid (from the float64 range) as a whole number
+    ``xw`` and fraction ``xf`` (both clamped into the row's margins): cos θ (at least 1e-6), sin²θ,
+    q = A [front-facing and reaching the window] / ((r/d)⁴ a b), the first corner (clamped to
+    [−margin, nsub]) and the widths a ≥ b of :func:`trapezoid_kinks` (times ``spread``: 0 puts all
+    of the power in the sub-bin of the centre). Whole numbers below 2²⁴ are exact in float32, so the
+    corners are those of the float64 position to within its last float32 rounding (~1e-7 sub-bin)."""
+    half = np.float32(0.5)
+    one = np.float32(1.0)
+    zero = np.float32(0.0)
+    vx = ux + rel[0, f] * inv_d
+    vy = uy + rel[1, f] * inv_d
+    vz = uz + rel[2, f] * inv_d
+    r2n = vx * vx + vy * vy + vz * vz  # (r / d)²
+    inv_r = one / np.sqrt(r2n)  # d / r
+    nx = normal[0, f]
+    ny = normal[1, f]
+    nz = normal[2, f]
+    cos_inc = -(vx * nx + vy * ny + vz * nz) * inv_r
+    sx = vy * nz - vz * ny  # v × n: sin²θ to float32 precision at every angle
+    sy = vz * nx - vx * nz
+    sz = vx * ny - vy * nx
+    sin2 = (sx * sx + sy * sy + sz * sz) * (inv_r * inv_r)
+    wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) * (inv_r * k_sub)
+    wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) * (inv_r * k_sub)
+    wa = wa if wa < wmax else wmax  # nan too: the kinks stay inside the row whatever the input
+    wb = wb if wb < wmax else wmax
+    x = xw + xf
+    h = half * (wa + wb)
+    ok = (cos_inc > zero) & (x + h > zero) & (x - h < nsub)
+    a = max(one, np.floor(max(wa, wb) * spread + half))
+    b = max(one, np.floor(min(wa, wb) * spread + half))
+    n1 = xw + np.floor(xf - half * (a + b) + one)
+    n1 = min(max(n1, -margin), nsub)
+    q = area[f] / (r2n * r2n * (a * b)) if ok else zero
+    return max(cos_inc, np.float32(1e-6)), sin2, q, n1, a, b
+
+
+@numba.njit(inline="always", **_JIT)
 def pattern_gain_two_way(params, frame, ux, uy, uz):
     """Two-way antenna pattern G(û)² toward unit direction û, in a trace's frame (rows: along-track,
     right, down). ``params`` = (code, dipole axis row, along beamwidth rad, across beamwidth rad,
@@ -428,16 +511,6 @@ def trapezoid_kinks(x, wa, wb):
     return math.floor(x - 0.5 * (a + b) + 1.0), a, b
 
 
-@numba.njit(inline="always", **_JIT)
-def trapezoid_kinks_float(x, wa, wb):
-    """:func:`trapezoid_kinks` with the integers held as float64 (whole numbers, exact): the
-    vectorised loop of :func:`accumulate_power` then needs no float64 ↔ int64 conversion,
-    which AVX2 lacks as a packed instruction (it has float64 → int32, used for the buffers)."""
-    a = max(1.0, np.floor(max(wa, wb) + 0.5))  # np.floor: a float (math.floor gives an int)
-    b = max(1.0, np.floor(min(wa, wb) + 0.5))
-    return np.floor(x - 0.5 * (a + b) + 1.0), a, b
-
-
 @numba.njit(**_JIT)
 def integrate_row(row, start, oversample, out_row):
     """out_row[k] += Σ over the ``oversample`` sub-bins of bin k of the twice-summed second-difference
@@ -467,6 +540,15 @@ def _deposit_kinks(dd, k, a, b, w):
     dd[k + b] -= w
     dd[k + a] -= w
     dd[k + a + b] += w
+
+
+@numba.njit(inline="always", **_JIT)
+def _keep_densest(best_val, best_idx, k, density, f):
+    """Bin ``k`` keeps facet ``f`` if its power density is the largest it has seen (an update that is
+    rarely taken once a bin has seen a few facets, so the branch is predictable)."""
+    if density > best_val[k]:
+        best_val[k] = density
+        best_idx[k] = f
 
 
 @numba.njit(inline="always", **_JIT)
@@ -656,13 +738,28 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     block per thread; within a block each tile's facets are read once and used
     for every trace of the block while they sit in cache, tiles in order of
     range (:func:`tiles_in_range_order`). Per (tile, trace) vectorised passes
-    compute range, incidence, σ0, power and the sub-bin corners of every facet
-    into small buffers, then a branch-free scalar pass adds the four slope
-    changes per facet. The vectorised passes keep the corners and widths as
-    whole float64 numbers (:func:`trapezoid_kinks_float`) and store them as int32:
-    AVX2 has packed float64 → int32 conversion but none to or from int64, which
-    it scalarised (12 of the 190 instructions per 4 facets of the main loop were
-    scalar conversions, with 30 more moving lanes; 115 instructions after).
+    fill small buffers, then a branch-free scalar pass adds the four slope
+    changes per facet:
+
+    1. float64 (4 lanes on AVX2): the range and the facet's position on the
+       sub-bin grid, stored as a whole number and a fraction in float32 — the
+       delay keeps float64 precision (the fraction to ~1e-7 sub-bin);
+    2. float32 (8 lanes; :func:`_facet_terms32`): direction and range relative
+       to the tile centre's distance d (|v|/d ≈ 1, so float32 keeps ~1e-7),
+       cos θ, sin²θ (from a cross product: 1 − cos²θ would lose it near
+       nadir), the widths, corners (whole numbers below 2²⁴: exact) and
+       q = area / ((r/d)⁴ a b) with a, b the rounded widths; then σ0 without its
+       constant factor (:func:`sigma0_apply32`) and, with the source record, the
+       side row (rel · right against thresholds computed per tile in float64: to
+       a few mm), centre bin and density weight;
+    3. scalar: p = (power_const · factor / d⁴) · q · σ0 / factor in float64
+       (:func:`sigma0_factor`) into the rows.
+
+    Integers stay in float32/int32 lanes: AVX2 has packed float → int32
+    conversion but none to or from int64, which it scalarised. Against the same
+    discretisation in float64 (tests/test_kernel_variants.py): totals per trace
+    to ~1e-7, bins to 1e-4 of the peak (a corner within ~1e-6 sub-bin of a
+    rounding edge may move by one sub-bin), the median bin to ~3e-8.
 
     ``out`` has shape (ntrace, nside, nbins) and is accumulated into; row 0 is
     the total power. With ``nside == 3`` (the source record) a facet is in the
@@ -702,6 +799,20 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
     margin = int(ext_sub) + 8
     wmax = 0.5 * (margin - 8)
     nrow = nsub + 2 * margin + 2
+    if nrow >= 1 << 24:
+        raise ValueError("accumulate_power: more than 2**24 sub-bins per delay row (samples x oversample)")
+    power_law = power_const * sigma0_factor(law_code, p0, p1)  # float64: no float32 buffer holds it
+    # float32 constants of pass 2 (a float64 operand would make it float64, 4 lanes on AVX2)
+    wmax32 = np.float32(wmax)
+    spread32 = np.float32(spread_on)
+    nsub32 = np.float32(nsub)
+    margin32 = np.float32(margin)
+    ovf32 = np.float32(ovf)
+    inv_ov32 = np.float32(inv_ov)
+    nb32 = np.float32(nb)
+    half32 = np.float32(0.5)
+    one32 = np.float32(1.0)
+    zero32 = np.float32(0.0)
     nblk = (nt + traces_per_block - 1) // traces_per_block
     counts = np.zeros(nblk, dtype=np.int64)
     for blk in numba.prange(nblk):
@@ -711,18 +822,23 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
         dd = np.zeros(nbt * nrows * nrow)  # second differences on the sub-bin grid, rows by trace (and side)
         best_val = np.zeros((nbt, nb + 1 if attribute else 0))  # per bin, + 1 discarded bin
         best_idx = np.full((nbt, nb + 1 if attribute else 0), -1, dtype=np.int64)
-        fb = np.empty((3, max_tile))  # cos θ, numerator and denominator of the power
-        bp = np.empty(max_tile)
-        # int32 (float64 → int32 is one packed instruction on AVX2 and AVX-512, float64 → int64 only
-        # on AVX-512): first corner + margin (≥ 0) within the trace's row, widths, centre bin, side row
+        # pass 1 (float64, the range): per facet its position on the sub-bin grid, clamped into the row's
+        # margins, as a whole number and a fraction (float32; read by pass 2)
+        gp = np.empty(max_tile, dtype=np.float32)
+        gq = np.empty(max_tile, dtype=np.float32)
+        # pass 2 (float32): cos θ, power / (σ0 · scale), the corners (first + margin, widths), centre bin,
+        # side row and density weight; then p / scale with σ0 (sigma0_apply32)
+        bc = np.empty(max_tile, dtype=np.float32)
+        bw = np.empty(max_tile, dtype=np.float32)
+        bq = np.empty(max_tile, dtype=np.float32)
+        bp = np.empty(max_tile, dtype=np.float32)
         bn = np.zeros(max_tile, dtype=np.int32)
         ba = np.zeros(max_tile, dtype=np.int32)
         bb = np.zeros(max_tile, dtype=np.int32)
-        bd = np.empty(max_tile)
+        bd = np.zeros(max_tile, dtype=np.float32)
         bk = np.zeros(max_tile, dtype=np.int32)
-        bs = np.zeros(max_tile, dtype=np.int32)
         marginf = 1.0 * margin
-        nsubf = 1.0 * nsub
+        hi_f = 1.0 * (nsub + margin)
         n_eval = 0
         for q in range(order.shape[0]):
             m = order[q]
@@ -737,35 +853,71 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                     continue
                 x0 = bin0_s[t] * half_c * inv_sub_m
                 rowbase = np.uint64(tt * nrows * nrow)  # the trace's first row; bn counts from it
+                inv_d = 1.0 / math.sqrt(cx * cx + cy * cy + cz * cz)
+                inv_d2 = inv_d * inv_d
+                scale = power_law * inv_d2 * inv_d2  # p = scale · q · σ0 / factor, q = area [ok] / ((r/d)⁴ a b)
                 for i in range(n):
                     f = f0u + np.uint64(i)  # unsigned: no negative-index wraparound, so LLVM vectorises
                     vx = cx + rel[0, f]
                     vy = cy + rel[1, f]
                     vz = cz + rel[2, f]
                     r2 = vx * vx + vy * vy + vz * vz
-                    inv_r = 1.0 / math.sqrt(r2)
-                    cos_inc = -(vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f]) * inv_r
-                    wa = abs(vx * e_col[0, f] + vy * e_col[1, f] + vz * e_col[2, f]) * inv_r * inv_sub_m
-                    wb = abs(vx * e_row[0, f] + vy * e_row[1, f] + vz * e_row[2, f]) * inv_r * inv_sub_m
-                    wa = wa if wa < wmax else wmax  # nan too: the kinks stay inside the row whatever the input
-                    wb = wb if wb < wmax else wmax
-                    x = r2 * inv_r * inv_sub_m - x0
-                    half = 0.5 * (wa + wb)
-                    ok = (cos_inc > 0.0) & (x + half > 0.0) & (x - half < nsub)
-                    # corners clamped into the row's margins: only facets outside the window (p = 0) move
+                    x = math.sqrt(r2) * inv_sub_m - x0
+                    # clamped into the row's margins: only facets outside the window (p = 0) move
                     # (written so that a nan position lands on the margin too)
-                    xc = x if x > -1.0 * margin else -1.0 * margin
-                    xc = xc if xc < 1.0 * (nsub + margin) else 1.0 * (nsub + margin)
-                    # centre spreading: widths 0, so A = B = 1 and the first corner floor(x); no branch on
-                    # the mode here, it would stop the vectorisation (as do more output buffers)
-                    n1, a, b = trapezoid_kinks_float(xc, wa * spread_on, wb * spread_on)
-                    bn[i] = np.int32(min(max(n1, -marginf), nsubf) + marginf)
+                    xc = x if x > -marginf else -marginf
+                    xc = xc if xc < hi_f else hi_f
+                    xw = np.floor(xc)
+                    gp[i] = np.float32(xw)  # a whole number below 2²⁴: exact in float32
+                    gq[i] = np.float32(xc - xw)
+                k_sub = np.float32(inv_sub_m)
+                ux = np.float32(cx * inv_d)
+                uy = np.float32(cy * inv_d)
+                uz = np.float32(cz * inv_d)
+                inv_d32 = np.float32(inv_d)
+                for i in range(n):  # vectorised (8 lanes on AVX2): the facet terms
+                    f = f0u + np.uint64(i)
+                    cs, s2, qq, n1, a, b = _facet_terms32(ux, uy, uz, inv_d32, rel, gp[i], gq[i], normal, e_col, e_row,
+                                                          area, f, k_sub, wmax32, spread32, nsub32, margin32)  # fmt: skip
+                    bc[i] = cs
+                    bw[i] = s2
+                    bq[i] = qq
+                    bn[i] = np.int32(n1 + margin32)
                     ba[i] = np.int32(a)
                     bb[i] = np.int32(b)
-                    fb[0, i] = max(cos_inc, 1e-6)
-                    fb[1, i] = power_const * area[f] if ok else 0.0
-                    fb[2, i] = r2 * r2 * (a * b)  # slope change w = p / (A B)
-                sigma0_apply(law_code, fb[0], p0, p1, fb[1], fb[2], bp, n)
+                if attribute:
+                    # side thresholds on rel · right (float32, within mm): cross = (c + rel) · right
+                    rx = right_unit[t, 0]
+                    ry = right_unit[t, 1]
+                    rz = right_unit[t, 2]
+                    c_cross = cx * rx + cy * ry + cz * rz
+                    s_hi = np.float32(strip_half_m[t] - c_cross)
+                    s_lo = np.float32(-strip_half_m[t] - c_cross)
+                    rx32 = np.float32(rx)
+                    ry32 = np.float32(ry)
+                    rz32 = np.float32(rz)
+                    nrow32 = np.int32(nrow)
+                    for i in range(n):  # vectorised (8 lanes on AVX2): side, centre bin and density weight
+                        f = f0u + np.uint64(i)
+                        cross = rel[0, f] * rx32 + rel[1, f] * ry32 + rel[2, f] * rz32
+                        # the row of the facet's side (left 0, right 1, nadir strip 2), added to its corner
+                        side = nrow32 if cross > s_hi else (np.int32(0) if cross < s_lo else np.int32(2) * nrow32)
+                        nm = bn[i]
+                        bn[i] = nm + side
+                        # the facet's centre from its trapezoid (first corner + (A+B)/2 − 1/2 sub-bins:
+                        # within half a sub-bin of its centre delay, :func:`trapezoid_kinks`); its bin,
+                        # floor(j / ov) for the sub-bin j = int(x) (int() truncates toward 0), written
+                        # (j + 1/2) / ov so that it needs no division; nb when outside (whole and half
+                        # numbers below 2²⁴: exact in float32)
+                        a = np.float32(ba[i])
+                        b = np.float32(bb[i])
+                        xk = (np.float32(nm) - margin32) + half32 * (a + b - one32)
+                        k = np.floor((np.trunc(xk) + half32) * inv_ov32)
+                        bk[i] = np.int32(k) if (k >= zero32) & (k < nb32) else np.int32(nb)
+                        # density: power per sample of delay extent, p / max(A / ov, 1) with the extent A
+                        # (the wider width, rounded); p / (A B) is deposited, so the weight is A B / max(A / ov, 1)
+                        bd[i] = b * min(a, ovf32)
+                sigma0_apply32(law_code, bc, bw, p0, p1, bq, bp, n)
                 if antenna[0] != 0.0 or antenna[5] != 0.0:  # an antenna pattern or along-track processing
                     for i in range(n):
                         f = f0u + np.uint64(i)
@@ -784,55 +936,30 @@ def accumulate_power(ant, right_unit, strip_half_m, bin0_s, dt_s, oversample, tr
                                                    nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max,
                                                    nadir_rc[t, 2], nadir_rc[t, 3]):  # fmt: skip
                                 bp[i] = 0.0
+                n_tile = 0
+                for i in range(n):  # vectorised: the evaluations (facets with power)
+                    n_tile += bp[i] != zero32
+                n_eval += n_tile
                 if attribute:
-                    rx = right_unit[t, 0]
-                    ry = right_unit[t, 1]
-                    rz = right_unit[t, 2]
-                    strip = strip_half_m[t]
-                    nrow32 = np.int32(nrow)
-                    for i in range(n):  # vectorised: side, centre bin and density weight of every facet
-                        f = f0u + np.uint64(i)
-                        cross = (cx + rel[0, f]) * rx + (cy + rel[1, f]) * ry + (cz + rel[2, f]) * rz
-                        # the row of the facet's side: left 0, right 1, nadir strip 2
-                        bs[i] = nrow32 if cross > strip else (np.int32(0) if cross < -strip else np.int32(2) * nrow32)
-                        # the facet's centre from its trapezoid (first corner + (A+B)/2 − 1/2 sub-bins:
-                        # within half a sub-bin of its centre delay, :func:`trapezoid_kinks`); its bin,
-                        # floor(j / ov) for the sub-bin j = int(x) (int() truncates toward 0), written
-                        # (j + 1/2) / ov so that it needs no division; nb when outside
-                        a = 1.0 * ba[i]
-                        b = 1.0 * bb[i]
-                        x = (1.0 * bn[i] - marginf) + 0.5 * (a + b - 1.0)
-                        k = np.floor((np.trunc(x) + 0.5) * inv_ov)  # np.trunc: int() without the conversion
-                        bk[i] = np.int32(k) if (k >= 0) & (k < nb) else np.int32(nb)
-                        # density: power per sample of delay extent, p / max(A / ov, 1) with the extent A
-                        # (the wider width, rounded); bp holds p / (A B), so the weight is A B / max(A / ov, 1)
-                        bd[i] = b * min(a, ovf)
                     bv = best_val[tt]
                     bf = best_idx[tt]
-                    # one scalar pass: the facet's side row and the densest facet per bin (an update that
-                    # is rarely taken once a bin has seen a few facets, so the branch is predictable)
-                    for i in range(n):
-                        p = bp[i]
-                        n_eval += p != 0.0
-                        k0 = rowbase + np.uint64(bn[i] + bs[i])
-                        if centre:
-                            dd[k0] += p
-                        else:
-                            _deposit_kinks(dd, k0, np.uint64(ba[i]), np.uint64(bb[i]), p)
-                        density = p * bd[i]
-                        kb = np.uint64(bk[i])
-                        if density > bv[kb]:
-                            bv[kb] = density
-                            bf[kb] = f0 + i
+                    # one scalar pass: the deposit into the facet's side row and the densest facet per bin
+                    if centre:
+                        for i in range(n):
+                            p = scale * bp[i]
+                            dd[rowbase + np.uint64(bn[i])] += p
+                            _keep_densest(bv, bf, np.uint64(bk[i]), p * bd[i], f0 + i)
+                    else:
+                        for i in range(n):
+                            p = scale * bp[i]
+                            _deposit_kinks(dd, rowbase + np.uint64(bn[i]), np.uint64(ba[i]), np.uint64(bb[i]), p)
+                            _keep_densest(bv, bf, np.uint64(bk[i]), p * bd[i], f0 + i)
                 elif centre:
                     for i in range(n):
-                        p = bp[i]
-                        n_eval += p != 0.0
-                        dd[rowbase + np.uint64(bn[i])] += p
+                        dd[rowbase + np.uint64(bn[i])] += scale * bp[i]
                 else:
                     for i in range(n):
-                        n_eval += bp[i] != 0.0
-                        _deposit_kinks(dd, rowbase + np.uint64(bn[i]), np.uint64(ba[i]), np.uint64(bb[i]), bp[i])
+                        _deposit_kinks(dd, rowbase + np.uint64(bn[i]), np.uint64(ba[i]), np.uint64(bb[i]), scale * bp[i])
         side_bins = np.zeros((3, nb if attribute else 0))  # left, right, nadir strip of one trace
         for tt in range(nbt):
             t = ta + tt

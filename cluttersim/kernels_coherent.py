@@ -31,7 +31,7 @@ import numpy as np
 
 from . import physical_optics
 from .constants import SPEED_OF_LIGHT_M_S
-from .kernels import SIDE_LEFT, SIDE_NADIR, SIDE_RIGHT, direction_weight, hidden_from_antenna
+from .kernels import SIDE_LEFT, SIDE_NADIR, SIDE_RIGHT, _tile_reaches_window, direction_weight, hidden_from_antenna
 
 _JIT = dict(cache=True, nogil=True, error_model="numpy")
 
@@ -133,7 +133,7 @@ def deposit_trapezoid(dd, base, x, wa_cells, wb_cells, delta_m, q, amp, p0d, p1d
 
 @numba.njit(parallel=True, **_JIT)
 def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_sample, tile_centre, tile_radius,
-                        tile_offsets, rel, normal, e_col, e_row, area, wavenumber, amp_const, rms_height_m, inv_radius_m, frames,
+                        tile_slab, tile_offsets, rel, normal, e_col, e_row, area, wavenumber, amp_const, rms_height_m, inv_radius_m, frames,
                         weighting, shadow_heights, facet_cell, nadir_rc, ant_h, h_max, max_extent_m, out):  # fmt: skip
     """Complex specular echo per delay cell: ``out[t, m]`` += Σ over facets of the field
     (:mod:`cluttersim.physical_optics`) falling in cell m of trace t.
@@ -162,7 +162,8 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
     nside = out.shape[1]
     ngrid = out.shape[2]
     q = 2.0 * wavenumber
-    delta_m = half_c * dt_s / cells_per_sample
+    cell_s = dt_s / cells_per_sample
+    delta_m = half_c * cell_s
     inv_delta = 1.0 / delta_m
     shadowing = shadow_heights.shape[0] > 1
     grid_nx = shadow_heights.shape[1]
@@ -181,11 +182,9 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
             rad = tile_radius[m]
             if rad < 0.0:
                 continue
-            cx = tile_centre[m, 0] - ant[t, 0]
-            cy = tile_centre[m, 1] - ant[t, 1]
-            cz = tile_centre[m, 2] - ant[t, 2]
-            d = math.sqrt(cx * cx + cy * cy + cz * cz)
-            if d - rad > r_hi or d + rad < r_lo:
+            # the tile's bounding sphere, then its slab, against the grid's range interval
+            cx, cy, cz, reaches = _tile_reaches_window(tile_centre, tile_slab, m, ant, t, rad, bin0_s, ngrid, cell_s)
+            if not reaches:
                 continue
             for f in range(tile_offsets[m], tile_offsets[m + 1]):
                 vx = cx + rel[0, f]

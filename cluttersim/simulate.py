@@ -816,7 +816,7 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
         n_eval += kernels_coherent.accumulate_specular(
             np.ascontiguousarray(ant_m[a:b], dtype=np.float64), np.ascontiguousarray(right_unit[a:b], dtype=np.float64),
             np.ascontiguousarray(strip_half_m[a:b], dtype=np.float64), np.ascontiguousarray(bin0_s[a:b], dtype=np.float64),
-            radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,
+            radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_slab, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,
             f.e_row_m, f.area_m2, 2.0 * math.pi / radar.wavelength_m, complex(amp), float(surface.rms_height_m or 0.0),
             1.0 / scene.src.body.mean_radius_m, np.ascontiguousarray(frames[a:b], dtype=np.float64),
             config.kernel_weighting(), *shadow_inputs(scene, traces[a:b]), float(f.tile_extent_m.max(initial=0.0)), cells,

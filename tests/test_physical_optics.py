@@ -122,7 +122,8 @@ def test_kernel_cells_sum_to_the_closed_form(offset_sides, tilt_deg, side_rf):
     f32 = lambda v: np.asarray(v, np.float32).reshape(3, 1)  # noqa: E731
     kernels_coherent.accumulate_specular(
         ant[None, :], np.zeros((1, 3)), np.zeros(1), np.array([2 * (r - 2 * side) / C]), DT_S, cells_per_sample,
-        c[None, :], np.array([3.0 * side]), np.array([0, 1]), f32([0, 0, 0]), f32(n), f32(ea), f32(eb),
+        c[None, :], np.array([3.0 * side]), np.array([[0.0, 0.0, 1.0, 1e30, -1e30, 1e30]]),  # slab: no bound
+        np.array([0, 1]), f32([0, 0, 0]), f32(n), f32(ea), f32(eb),
         np.array([np.linalg.norm(np.cross(ea, eb))], np.float32), K, 1.0 + 0j, 0.0, 0.0, np.zeros((1, 3, 3)),
         np.zeros(8), np.zeros((1, 1), np.float32), np.zeros(1, np.int32), np.zeros((1, 2)), np.zeros(1), 0.0,
         float(side), out,
