@@ -66,3 +66,31 @@ def utm_track(east_m, north_m, alt_m):
 def to_utm(lon_deg, lat_deg):
     tr = pyproj.Transformer.from_crs("EPSG:4326", UTM, always_xy=True)
     return tr.transform(np.asarray(lon_deg, float), np.asarray(lat_deg, float))
+
+
+#: A small radar for the hill scene (:func:`hill_scene`): 256 samples of 37.5 ns, Hagfors' law.
+HILL_RADAR_TOML = """
+[radar]
+samples = 256
+sample_interval_s = 37.5e-9
+window_start_s = "auto"
+[surface]
+law = "hagfors"
+C = 300.0
+rho = 0.1
+"""
+
+
+def hill_scene(d):
+    """A small plain with one hill east of the track (invented test scene) in directory ``d``:
+    (d, DEM path, track CSV path, radar TOML path); 9 traces 250 km up."""
+    n = 200
+    lon = np.linspace(-1, 1, n)
+    z = 800.0 * np.exp(-((lon[None, :] - 0.25) ** 2 + np.linspace(1, -1, n)[:, None] ** 2) / 0.01)
+    dem = write_geotiff(d / "dem.tif", z, -1.0, 1.0, 0.01)
+    track = d / "track.csv"
+    rows = "\n".join(f"{lat:.4f},0.0,250000,{i * 1.5:.1f}" for i, lat in enumerate(np.linspace(-0.2, 0.2, 9)))
+    track.write_text("lat,lon,alt,time\n" + rows + "\n")
+    radar = d / "radar.toml"
+    radar.write_text(HILL_RADAR_TOML)
+    return d, dem, track, radar

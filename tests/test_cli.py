@@ -6,33 +6,15 @@ import xarray as xr
 from click.testing import CliRunner
 
 from cli.main import cli
-from scenes import write_geotiff
+from scenes import HILL_RADAR_TOML, hill_scene, write_geotiff
 
-RADAR = """
-[radar]
-samples = 256
-sample_interval_s = 37.5e-9
-window_start_s = "auto"
-[surface]
-law = "hagfors"
-C = 300.0
-rho = 0.1
-"""
+RADAR = HILL_RADAR_TOML
 
 
 @pytest.fixture()
 def scene(tmp_path):
-    """A small plain with one hill east of the track (invented test scene)."""
-    n = 200
-    lon = np.linspace(-1, 1, n)
-    z = 800.0 * np.exp(-((lon[None, :] - 0.25) ** 2 + np.linspace(1, -1, n)[:, None] ** 2) / 0.01)
-    dem = write_geotiff(tmp_path / "dem.tif", z, -1.0, 1.0, 0.01)
-    track = tmp_path / "track.csv"
-    rows = "\n".join(f"{lat:.4f},0.0,250000,{i * 1.5:.1f}" for i, lat in enumerate(np.linspace(-0.2, 0.2, 9)))
-    track.write_text("lat,lon,alt,time\n" + rows + "\n")
-    radar = tmp_path / "radar.toml"
-    radar.write_text(RADAR)
-    return tmp_path, dem, track, radar
+    """A small plain with one hill east of the track (:func:`scenes.hill_scene`)."""
+    return hill_scene(tmp_path)
 
 
 def run(args):

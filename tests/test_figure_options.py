@@ -16,18 +16,9 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim.constants import SPEED_OF_LIGHT_M_S as C
 from figure_files import assert_all_in_format, mean_brightness, png_size
-from scenes import write_geotiff
+from scenes import HILL_RADAR_TOML, hill_scene, write_geotiff
 
-RADAR = """
-[radar]
-samples = 256
-sample_interval_s = 37.5e-9
-window_start_s = "auto"
-[surface]
-law = "hagfors"
-C = 300.0
-rho = 0.1
-"""
+RADAR = HILL_RADAR_TOML
 FIGURES = ("radargram", "radargram_sides", "radargram_elevation", "track_map")
 #: Figure sizes in inches (cluttersim.plots.RADARGRAM_FIGSIZE_IN, COMPARISON_FIGSIZE_IN) at the default 120 dpi.
 RADARGRAM_PX_120 = (1200, 600)
@@ -40,18 +31,8 @@ def run(args):
 
 @pytest.fixture(scope="module")
 def scene(tmp_path_factory):
-    """A small plain with one hill east of the track (invented test scene, as tests/test_cli.py)."""
-    d = tmp_path_factory.mktemp("figures")
-    n = 200
-    lon = np.linspace(-1, 1, n)
-    z = 800.0 * np.exp(-((lon[None, :] - 0.25) ** 2 + np.linspace(1, -1, n)[:, None] ** 2) / 0.01)
-    dem = write_geotiff(d / "dem.tif", z, -1.0, 1.0, 0.01)
-    track = d / "track.csv"
-    rows = "\n".join(f"{lat:.4f},0.0,250000,{i * 1.5:.1f}" for i, lat in enumerate(np.linspace(-0.2, 0.2, 9)))
-    track.write_text("lat,lon,alt,time\n" + rows + "\n")
-    radar = d / "radar.toml"
-    radar.write_text(RADAR)
-    return d, dem, track, radar
+    """A small plain with one hill east of the track (:func:`scenes.hill_scene`)."""
+    return hill_scene(tmp_path_factory.mktemp("figures"))
 
 
 def simulate(scene, name, *extra):
