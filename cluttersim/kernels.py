@@ -81,27 +81,6 @@ def geodetic_to_ecef_array(lat_deg, lon_deg, h_m, a_m, e2, out):
 
 
 @numba.njit(inline="always", **_JIT)
-def sigma0_apply(code, cos_inc, p0, p1, num, den, out, n):
-    """out[i] = num[i] σ0(cos_inc[i]) / den[i] for i < n, one loop per law so each vectorises
-    (written as one expression so that fast-math merges the law's division with this one)."""
-    if code == 3:
-        for i in range(n):
-            out[i] = num[i] * _sigma0_hagfors(cos_inc[i], p0, p1) / den[i]
-    elif code == 0:
-        for i in range(n):
-            out[i] = num[i] * p0 / den[i]
-    elif code == 1:
-        for i in range(n):
-            out[i] = num[i] * _sigma0_lambert(cos_inc[i], p0) / den[i]
-    elif code == 2:
-        for i in range(n):
-            out[i] = num[i] * _sigma0_cosine(cos_inc[i], p0, p1) / den[i]
-    else:
-        for i in range(n):
-            out[i] = num[i] * _sigma0_gaussian(cos_inc[i], p0, p1) / den[i]
-
-
-@numba.njit(inline="always", **_JIT)
 def sigma0_factor(code, p0, p1):
     """The constant factor of a σ0 law that :func:`sigma0_apply32` leaves out (applied in float64
     with the radar equation's constants, so that no float32 buffer holds it): 0.5 C ρ for Hagfors'
