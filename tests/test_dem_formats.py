@@ -194,3 +194,38 @@ def test_vsizip_dem_path(reference, tmp_path):
     missing = CliRunner().invoke(cli, ["simulate", "--dem", f"/vsizip/{tmp_path / 'dem.zip'}/nothere.tif", "--track",
                                        str(tmp_path / "t.csv"), "--out", str(tmp_path / "run2"), "-q"])  # fmt: skip
     assert missing.exit_code == 1 and "nothere.tif" in missing.output and "Traceback" not in missing.output
+
+
+def test_decimated_read_of_a_tiled_compressed_dem_picks_the_nearest_cells_under_a_megabyte_cache(tmp_path, monkeypatch):
+    """A decimated read (the track map's relief, the window preview) of a tiled, deflated GeoTIFF (the
+    layout of the demo DEM) returns, for output cell i, the source cell floor((i + 1/2) · w / n) of each
+    axis: GDAL's nearest-neighbour rule (common practice, GDAL's RasterIO with a buffer smaller than the
+    window). It runs under a GDAL block cache of mebibytes: rasterio hands GDAL_CACHEMAX to GDAL in bytes
+    (its Env docstring's example: ``GDAL_CACHEMAX=128000000``), and a cache of 64 bytes, smaller than
+    one block, made GDAL decompress each block once per output row (seconds instead of milliseconds)."""
+    from rasterio.env import getenv, hasenv
+
+    z = (np.arange(300 * 400, dtype=np.float32).reshape(300, 400) % 977.0) + 100.0
+    path = tmp_path / "tiled.tif"
+    prof = {**profile("GTiff"), "width": 400, "height": 300, "tiled": True, "blockxsize": 64, "blockysize": 64,
+            "compress": "deflate"}  # fmt: skip
+    with rasterio.open(path, "w", **prof) as ds:
+        ds.write(z, 1)
+    seen = []
+    real_open = rasterio.open
+
+    def recording_open(*args, **kwargs):
+        if hasenv():  # the reads (opening the DEM's header runs outside an Env)
+            seen.append(getenv().get("GDAL_CACHEMAX"))
+        return real_open(*args, **kwargs)
+
+    monkeypatch.setattr(rasterio, "open", recording_open)
+    src = DemSource.open(path)
+    window = rasterio.windows.Window(3, 7, 391, 287)
+    out = src.read_decimated(window, 100)
+    ny, nx = out.elevation_m.shape
+    assert (ny, nx) == (287 // 4, 391 // 4)
+    rows = 7 + np.floor((np.arange(ny) + 0.5) * 287 / ny).astype(int)
+    cols = 3 + np.floor((np.arange(nx) + 0.5) * 391 / nx).astype(int)
+    np.testing.assert_array_equal(out.elevation_m, z[np.ix_(rows, cols)])
+    assert seen and all(v is not None and int(v) >= 2**20 for v in seen), seen
