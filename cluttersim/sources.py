@@ -135,7 +135,13 @@ def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
     and so are the delay spreading and the pulse compression, so the ratio of
     the weighted to the unweighted side rows is the centroid per sample.
 
-    Costs about three runs of ``simulate`` with the source record; not for
+    The unweighted pass is the run's own: when the recorded power is the diffuse clutter alone
+    (no specular reflection, no receiver noise, no presumming: :func:`_recorded_side_power`),
+    each side's power is read from the Dataset (``power`` × ``left_fraction`` /
+    ``right_fraction``, float32: the centroids agree with a third kernel pass to a few 1e-7 of the
+    weights, centimetres) and only the two weighted passes run. Otherwise all three run.
+
+    Costs two or three runs of ``simulate``'s kernel with the source record; not for
     coherent-mode runs (no sides).
     """
     from .simulate import _compress, binned_power
@@ -152,7 +158,10 @@ def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
     lon_ref = float(np.median(lon_f))
     lon_off = (np.asarray(lon_f) - lon_ref + 180.0) % 360.0 - 180.0
     lon0 = float(lon_off.min())
-    weights = {"one": None, "lat": np.asarray(lat_f) - lat0 + 1.0, "lon": lon_off - lon0 + 1.0}
+    recorded = _recorded_side_power(run)
+    weights = {"lat": np.asarray(lat_f) - lat0 + 1.0, "lon": lon_off - lon0 + 1.0}
+    if recorded is None:
+        weights = {"one": None, **weights}
     scenes = {k: scene if w is None else replace(scene, facets=replace(f, area_m2=(f.area_m2 * w).astype(f.area_m2.dtype)))
               for k, w in weights.items()}  # fmt: skip
     idx, pad = scene.idx, scene.pad
@@ -181,7 +190,7 @@ def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
                                             frames[a:b], rows)  # fmt: skip
                 comp[k] = {s: _compress(binned[:, row], scene.pulse_weights, pad, samples) for s, row in sides.items()}
             for s in sides:
-                p = comp["one"][s]
+                p = comp["one"][s] if recorded is None else recorded[s][rows]
                 with np.errstate(invalid="ignore", divide="ignore"):
                     ok = p > 1e-30 * max(float(np.max(p, initial=0.0)), 1e-300)
                     lat = np.where(ok, comp["lat"][s] / np.where(ok, p, 1.0) - 1.0 + lat0, np.nan)
@@ -191,6 +200,31 @@ def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
                 out_lon[s][rows] = lon
             bar.update(b - a)
     return SideCentroids(lat=out_lat, lon=out_lon)
+
+
+def _recorded_side_power(run: Run) -> dict | None:
+    """Each side's power (W, float64 (trace, sample)) as the run recorded it, when that is the
+    unweighted pass of :func:`side_centroids`: the diffuse clutter alone, split by the kernel's
+    side rows and range-compressed (``power`` × ``left_fraction``, ``right_fraction``). None when
+    the recorded power holds more (specular reflection, receiver noise) or was presummed."""
+    ds = run.ds
+    try:  # the configuration as run (load_run rebuilds a presummed run's scene with presum = 1)
+        recorded = SimulationConfig.from_dict(json.loads(ds.attrs["cluttersim_config"]))
+    except (KeyError, ValueError, ConfigError):
+        return None
+    cfg = run.config
+    if (cfg.surface.specular or recorded.surface.specular or cfg.noise is not None or recorded.noise is not None
+            or recorded.processing.presum != 1 or "noise_power" in ds):  # fmt: skip
+        return None
+    if any(name not in ds for name in ("power", "left_fraction", "right_fraction")):
+        return None
+    if ds["power"].sizes.get("trace") != len(run.scene.track) or ds["power"].sizes.get("sample") != cfg.radar.samples:
+        return None
+    power = np.asarray(ds["power"].transpose("trace", "sample").values, dtype=np.float64)
+    # NaN shares (no power) and NaN power: no power, as the kernel's pass gives there
+    return {side: np.nan_to_num(power * np.asarray(ds[f"{side}_fraction"].transpose("trace", "sample").values,
+                                                   dtype=np.float64), nan=0.0)
+            for side in ("left", "right")}  # fmt: skip
 
 
 # --------------------------------------------------------------------------- depth-window map
