@@ -66,6 +66,7 @@ from .errors import ClutterSimError, ConfigError, DemError
 from .outputs import atomic_paths, check_new
 from . import palette
 from .plots import hillshade_intensity, power_db
+from .plots.style import PNG_COMPRESS_LEVEL
 
 #: Default file name of the report (in the run directory).
 REPORT_FILE = "report.html"
@@ -304,7 +305,8 @@ def png_data_uri(rgb: np.ndarray) -> str:
     from PIL import Image  # Pillow: a dependency of matplotlib
 
     buf = io.BytesIO()
-    Image.fromarray(np.ascontiguousarray(rgb), mode="RGB").save(buf, format="PNG", optimize=False, compress_level=6)
+    Image.fromarray(np.ascontiguousarray(rgb), mode="RGB").save(buf, format="PNG", optimize=False,
+                                                                compress_level=PNG_COMPRESS_LEVEL)  # fmt: skip
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -887,7 +889,7 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
     centroids : bool
         Mark each side's power-weighted source centre on the map
         (:func:`cluttersim.sources.side_centroids`: rebuilds the run's scene from
-        its DEM and runs the kernel three more times).
+        its DEM and runs the kernel two or three more times).
     progress : bool
         Show a progress bar while the centroids are computed.
     """
@@ -916,7 +918,8 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
         from .sources import load_run, side_centroids
 
         try:
-            cents = side_centroids(load_run(inputs.sim_path.parent, dem=dem_path, band=band), progress=progress)
+            run = load_run(inputs.sim_path.parent, dem=dem_path, band=band, ds=ds)  # the radargram read once
+            cents = side_centroids(run, progress=progress)
         except ClutterSimError as exc:
             import warnings
 

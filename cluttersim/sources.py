@@ -46,14 +46,15 @@ class Run:
         return self.scene.config
 
 
-def load_run(run_dir, dem=None, band: str | None = None) -> Run:
+def load_run(run_dir, dem=None, band: str | None = None, ds: xr.Dataset | None = None) -> Run:
     """Open ``RUN_DIR/radargram.nc`` and rebuild its scene from the DEM it was made from.
 
     ``dem`` overrides the DEM path recorded in the run (e.g. after moving files);
-    ``band`` picks one band of a multi-band run (default: the first).
+    ``band`` picks one band of a multi-band run (default: the first); ``ds``: that radargram
+    already opened (:func:`cluttersim.radargram.open_radargram`, the band picked), not read again.
     """
     run_dir = Path(run_dir)
-    ds = open_radargram(run_dir / "radargram.nc", band=band)
+    ds = open_radargram(run_dir / "radargram.nc", band=band) if ds is None else ds
     try:
         config = SimulationConfig.from_dict(json.loads(ds.attrs["cluttersim_config"]))
         # the scene (DEM window, padding) of a multi-band run is that of all its bands

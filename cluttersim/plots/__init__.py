@@ -37,6 +37,7 @@ from .style import (  # noqa: F401
     NO_DATA_COLOUR,
     _note_below,
     OVERLAY_COLOUR,
+    PNG_COMPRESS_LEVEL,
     power_db,
     RADARGRAM_CMAP,
     RADARGRAM_FIGSIZE_IN,
@@ -50,6 +51,7 @@ from .style import (  # noqa: F401
     TERRAIN_CMAP,
     TRACK_COLOUR,
     TRACK_MAP_FIGSIZE_IN,
+    _write_png,
 )
 from .radargram_views import (  # noqa: F401
     _add_depth_axis,

@@ -141,12 +141,45 @@ def save_figure(fig: Figure, path, *, dpi: float | None = None, fmt: str | None 
         FigureCanvasAgg(fig)
     tmp = path.with_name(path.name + ".tmp")
     try:
-        fig.savefig(tmp, format=fmt, dpi=dpi)
+        if fmt == "png":
+            _write_png(fig, tmp, dpi)
+        else:
+            fig.savefig(tmp, format=fmt, dpi=dpi)
         os.replace(tmp, path)
     finally:
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
     return path
+
+
+#: zlib level of the PNG figures: 4 encodes them about twice as fast as level 6 (PIL's and
+#: matplotlib's default; the encoding was a fifth to a half of a figure's cost) for 2–8 % more bytes.
+PNG_COMPRESS_LEVEL = 4
+
+
+def _write_png(fig: Figure, path, dpi: float) -> None:
+    """Render ``fig`` at ``dpi`` once and write it as a PNG.
+
+    The file is that of ``fig.savefig(path, dpi=dpi)`` but for its compression: the same Agg
+    draw (constrained layout included) at the same resolution, RGBA, the resolution (pHYs) and
+    the Software text of matplotlib's own PNGs; without savefig's extra layout-only draw, and
+    encoded at :data:`PNG_COMPRESS_LEVEL`.
+    """
+    import matplotlib
+    from PIL import Image, PngImagePlugin
+
+    canvas = fig.canvas
+    old_dpi = fig.dpi
+    try:
+        fig.dpi = dpi
+        canvas.draw()
+        rgba = np.asarray(canvas.buffer_rgba())
+        info = PngImagePlugin.PngInfo()
+        info.add_text("Software", f"Matplotlib version{matplotlib.__version__}, https://matplotlib.org/")
+        Image.fromarray(np.ascontiguousarray(rgba)).save(path, format="png", compress_level=PNG_COMPRESS_LEVEL,
+                                                         dpi=(dpi, dpi), pnginfo=info)  # fmt: skip
+    finally:
+        fig.dpi = old_dpi
 
 
 def _save_atomic(fig: Figure, path) -> Path:
