@@ -163,7 +163,8 @@ def _write_png(fig: Figure, path, dpi: float) -> None:
     The file is that of ``fig.savefig(path, dpi=dpi)`` but for its compression: the same Agg
     draw (constrained layout included) at the same resolution, RGBA, the resolution (pHYs) and
     the Software text of matplotlib's own PNGs; without savefig's extra layout-only draw, and
-    encoded at :data:`PNG_COMPRESS_LEVEL`.
+    encoded at :data:`PNG_COMPRESS_LEVEL`. The figure's own face colour is drawn (matplotlib's
+    ``savefig.facecolor``/``savefig.transparent`` rc settings are not consulted).
     """
     import matplotlib
     from PIL import Image, PngImagePlugin
