@@ -18,7 +18,15 @@ apparent depth ``depth_min`` are left out (outside the nadir echo's main lobe), 
 ends at ``depth_max`` (apparent depths for the real permittivity ε′). The candidate's
 objective is the largest index over the target's traces (those whose nadir lies within
 ``target_radius_m`` of the target point, or inside the target polygon): the worst case at
-the target, lower is better. A candidate that has no trace on the target scores +inf. With ``PlanConfig.dem_error`` the
+the target, lower is better. A candidate that has no trace on the target scores +inf.
+
+Why the raw index and not the survey map's index relative to level ground: an echo from the
+target competes with every surface echo arriving at its delay, the off-nadir returns of level
+ground included, and both are scaled by the same nadir surface echo. Level ground's share
+changes with the geometry (altitude, offset) that the search varies, so subtracting it would
+rank an altitude where level ground alone already hides the target as well as one where
+nothing does. The survey map subtracts it for another question (where does *topography* add
+clutter); here it is only a reference (README, Planning). With ``PlanConfig.dem_error`` the
 candidates are ranked instead by the probability, over DEM realisations
 (:mod:`cluttersim.dem_error`, simulated on the target's traces only), that the objective reaches
 ``threshold_db`` (ties broken by the error-free objective).
