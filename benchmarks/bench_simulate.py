@@ -126,7 +126,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
 
     import numba
 
-    from cluttersim import kernels, kernels_coherent
+    from cluttersim import kernels
     from cluttersim.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
@@ -143,7 +143,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
             kernel_cpu[0] += time.process_time() - c0
 
     kernels.accumulate_power = timed_kernel
-    compiled_spec = kernels_coherent.accumulate_specular
+    compiled_spec = kernels.accumulate_specular
     specular_cpu = [0.0]
 
     def timed_specular(*args):
@@ -153,7 +153,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
         finally:
             specular_cpu[0] += time.process_time() - c0
 
-    kernels_coherent.accumulate_specular = timed_specular
+    kernels.accumulate_specular = timed_specular
     dem, track, cfg = case_inputs(name, shadowing, coherent, specular)
     runs = []
     write_s = []
@@ -172,7 +172,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
             write_s.append(time.perf_counter() - t1)
             runs.append((time.perf_counter() - t0, st, time.process_time() - c0, kernel_cpu[0], specular_cpu[0]))
     kernels.accumulate_power = compiled
-    kernels_coherent.accumulate_specular = compiled_spec
+    kernels.accumulate_specular = compiled_spec
     warm = runs[1:]
     kernel = statistics.median(r[1].seconds_kernel for r in warm)
     kernel_cpu_s = statistics.median(r[3] for r in warm)

@@ -27,7 +27,7 @@ from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
-from . import __version__, kernels, kernels_coherent, memory, physical_optics, presum
+from . import __version__, kernels, memory, physical_optics, presum
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
 from .dem import DemSource, DemWindow, warn_holes
@@ -782,7 +782,7 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
     """The specular (physical-optics) echo of some traces, range-compressed: complex (n, nside, nbins)
     at the (padded) sample centres, and the number of (sub-)facet evaluations.
 
-    ``kernels_coherent.accumulate_specular`` deposits every facet's field on a grid of
+    ``kernels.accumulate_specular`` deposits every facet's field on a grid of
     :data:`SPECULAR_CELLS_PER_SAMPLE` cells per sample; the cells are convolved with the
     compressed pulse's amplitude response h, normalised to max |h| = 1 (a point target, or
     a mirror, reads its radar-equation power at its peak sample), through the ionosphere if
@@ -813,7 +813,7 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
     for a in range(0, n, SPECULAR_TRACES_PER_CALL):  # the fine grid is 9× a trace: a few traces at a time
         b = min(a + SPECULAR_TRACES_PER_CALL, n)
         cells = np.zeros((b - a, nside, nbins * k), dtype=np.complex128)
-        n_eval += kernels_coherent.accumulate_specular(
+        n_eval += kernels.accumulate_specular(
             np.ascontiguousarray(ant_m[a:b], dtype=np.float64), np.ascontiguousarray(right_unit[a:b], dtype=np.float64),
             np.ascontiguousarray(strip_half_m[a:b], dtype=np.float64), np.ascontiguousarray(bin0_s[a:b], dtype=np.float64),
             radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_slab, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,

@@ -11,7 +11,7 @@ import pytest
 from scenes import MARS_RADIUS_M, UTM, UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_geotiff, write_utm
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
-from cluttersim import kernels_coherent
+from cluttersim import kernels
 from cluttersim.antenna import AntennaConfig
 from cluttersim.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
@@ -120,7 +120,7 @@ def test_kernel_cells_sum_to_the_closed_form(offset_sides, tilt_deg, side_rf):
     cells_per_sample, nb = 9, 400
     out = np.zeros((1, 1, nb * cells_per_sample), dtype=np.complex128)
     f32 = lambda v: np.asarray(v, np.float32).reshape(3, 1)  # noqa: E731
-    kernels_coherent.accumulate_specular(
+    kernels.accumulate_specular(
         ant[None, :], np.zeros((1, 3)), np.zeros(1), np.array([2 * (r - 2 * side) / C]), DT_S, cells_per_sample,
         c[None, :], np.array([3.0 * side]), np.array([[0.0, 0.0, 1.0, 1e30, -1e30, 1e30]]),  # slab: no bound
         np.array([0, 1]), f32([0, 0, 0]), f32(n), f32(ea), f32(eb),

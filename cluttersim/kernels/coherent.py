@@ -1,4 +1,7 @@
-"""Compiled kernel of the specular (physical-optics) field: facets → complex echo on a delay grid.
+"""Compiled kernels of the coherent field: facets → complex echo on a delay grid.
+
+:func:`accumulate_complex` sums every facet's field with a random phase per facet (the coherent
+mode of the diffuse model); :func:`accumulate_specular` is the specular (physical-optics) field.
 
 See :mod:`cluttersim.physical_optics` for the physics. Here each front-facing facet
 (or sub-facet, :func:`cluttersim.physical_optics.subdivisions`) is deposited as its
@@ -29,11 +32,11 @@ import math
 import numba
 import numpy as np
 
-from . import physical_optics
-from .constants import SPEED_OF_LIGHT_M_S
-from .kernels import SIDE_LEFT, SIDE_NADIR, SIDE_RIGHT, _tile_reaches_window, direction_weight, hidden_from_antenna
-
-_JIT = dict(cache=True, nogil=True, error_model="numpy")
+from .. import physical_optics
+from ..constants import SPEED_OF_LIGHT_M_S
+from .common import _JIT, SIDE_LEFT, SIDE_NADIR, SIDE_RIGHT
+from .tiling import _tile_reaches_window, hidden_from_antenna
+from .weights import direction_weight, sigma0_by_code
 
 _subdivisions = numba.njit(inline="always", **_JIT)(physical_optics.subdivisions)
 
@@ -273,5 +276,96 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
                 s2 += s1
                 ph = q * (r_lo + mm * delta_m)
                 out[t, side, mm] += s2 * complex(math.cos(ph), -math.sin(ph))
+        counts[t] = n_eval
+    return counts.sum()
+
+
+@numba.njit(inline="always", **_JIT)
+def facet_uniform(f, seed):
+    """A uniform number in [0, 1) fixed by facet index and seed (splitmix64 hash; Steele,
+    Lea & Flood 2014, OOPSLA): the same facet keeps its random phase on every trace."""
+    z = np.uint64(f) * np.uint64(0x9E3779B97F4A7C15) + np.uint64(seed) * np.uint64(0xD1B54A32D192ED03)
+    z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+    z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    z = z ^ (z >> np.uint64(31))
+    return float(z >> np.uint64(11)) * (1.0 / 9007199254740992.0)
+
+
+@numba.njit(parallel=True, **_JIT)
+def accumulate_complex(ant, bin0_s, dt_s, oversample, tile_centre, tile_radius, tile_offsets, rel, normal, area,
+                       law_code, p0, p1, power_const, frames, weighting, shadow_heights, facet_cell, nadir_rc, ant_h,
+                       h_max, wavenumber, random_phase, seed, out_re, out_im):  # fmt: skip
+    """Coherent sum of facet echoes as complex impulses on a grid of ``oversample`` points per sample.
+
+    Each front-facing facet is a point scatterer at its centre: amplitude √P
+    with P the radar-equation power of :func:`accumulate_power` (σ0, area, R⁻⁴,
+    antenna pattern and aperture weight, shadowing) and two-way phase
+    −(4π/λ) R (``wavenumber`` = 4π/λ), plus, if ``random_phase``, a uniform phase
+    fixed per facet (:func:`facet_uniform`) for sub-facet roughness. The
+    impulse at delay grid position x is shared linearly between the two
+    nearest grid points; range compression (convolution with the pulse
+    response) is done by the caller. Grid point j of trace t is the delay
+    bin0_s[t] + j dt / oversample. Returns the number of facet evaluations.
+    """
+    half_c = 0.5 * SPEED_OF_LIGHT_M_S
+    nt = ant.shape[0]
+    ngrid = out_re.shape[1]
+    shadowing = shadow_heights.shape[0] > 1
+    grid_nx = shadow_heights.shape[1]
+    inv_grid_m = oversample / (half_c * dt_s)
+    counts = np.zeros(nt, dtype=np.int64)
+    for t in numba.prange(nt):
+        r_lo = bin0_s[t] * half_c
+        r_hi = r_lo + ngrid / inv_grid_m
+        x0 = r_lo * inv_grid_m
+        n_eval = 0
+        for m in range(tile_radius.shape[0]):
+            rad = tile_radius[m]
+            if rad < 0.0:
+                continue
+            cx = tile_centre[m, 0] - ant[t, 0]
+            cy = tile_centre[m, 1] - ant[t, 1]
+            cz = tile_centre[m, 2] - ant[t, 2]
+            d = math.sqrt(cx * cx + cy * cy + cz * cz)
+            if d - rad > r_hi or d + rad < r_lo:
+                continue
+            for f in range(tile_offsets[m], tile_offsets[m + 1]):
+                vx = cx + rel[0, f]
+                vy = cy + rel[1, f]
+                vz = cz + rel[2, f]
+                r2 = vx * vx + vy * vy + vz * vz
+                r = math.sqrt(r2)
+                x = r * inv_grid_m - x0
+                if not (x >= 0.0 and x < ngrid - 1):  # nan too
+                    continue
+                inv_r = 1.0 / r
+                cos_inc = -(vx * normal[0, f] + vy * normal[1, f] + vz * normal[2, f]) * inv_r
+                if cos_inc <= 0.0:
+                    continue
+                p = power_const * sigma0_by_code(law_code, cos_inc, p0, p1) * area[f] / (r2 * r2)
+                p *= direction_weight(weighting, frames[t], vx, vy, vz, inv_r)
+                if shadowing and p > 0.0:
+                    cell = facet_cell[f]
+                    rr = cell // grid_nx
+                    cc = cell - rr * grid_nx
+                    if hidden_from_antenna(shadow_heights, float(rr), float(cc), shadow_heights[rr, cc],
+                                           nadir_rc[t, 0], nadir_rc[t, 1], ant_h[t], h_max,
+                                           nadir_rc[t, 2], nadir_rc[t, 3]):  # fmt: skip
+                        continue
+                if p <= 0.0:
+                    continue
+                n_eval += 1
+                phase = -wavenumber * r
+                if random_phase:
+                    phase += 2.0 * math.pi * facet_uniform(f, seed)
+                amp = math.sqrt(p)
+                j = int(x)
+                w1 = x - j
+                re = amp * math.cos(phase)
+                im = amp * math.sin(phase)
+                out_re[t, j] += (1.0 - w1) * re
+                out_im[t, j] += (1.0 - w1) * im
+                out_re[t, j + 1] += w1 * re
+                out_im[t, j + 1] += w1 * im
         counts[t] = n_eval
     return counts.sum()
