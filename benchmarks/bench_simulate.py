@@ -127,7 +127,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
     import numba
 
     from cluttersim import kernels
-    from cluttersim.radargram import write_netcdf_to
+    from cluttersim.io.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
     if spreading == "centre":  # the module (the package's `simulate` is the function)
@@ -215,7 +215,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
 
 def worker_reference() -> dict:
     """Kernel vs NumPy reference per trace on the medium case's scene (a few traces of it)."""
-    from cluttersim.dem import DemSource
+    from cluttersim.io.dem import DemSource
     from cluttersim.reference import reference_binned_power
     from cluttersim.simulate import binned_power, prepare_scene
 

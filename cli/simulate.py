@@ -92,7 +92,7 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
         click.echo(f"simulating {track_path} over {dem_path} into {out_dir}/", err=True)
     from cluttersim.products import simulate_to_dir
     from cluttersim.dem_error import dem_error_paths, simulate_dem_error, write_dem_error
-    from cluttersim.outputs import check_new
+    from cluttersim.io.outputs import check_new
     from cluttersim.segments import SEGMENTS_DIR
     from cluttersim.survey import Engine
 

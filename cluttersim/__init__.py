@@ -22,11 +22,11 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree wi
 _EXPORTS = {
     "Body": "body",
     "SimulationConfig": "config", "SurfaceConfig": "config", "default_config": "config",
-    "DemSource": "dem",
+    "DemSource": "io.dem",
     "ClutterSimError": "errors", "ConfigError": "errors", "DemError": "errors", "GeometryError": "errors",
     "ObservedDataError": "errors", "TrackError": "errors",
     "RadarConfig": "radar",
-    "open_radargram": "radargram", "write_netcdf": "radargram",
+    "open_radargram": "io.radargram", "write_netcdf": "io.radargram",
     "simulate": "simulate",
     "Track": "track", "great_circle_track": "track",
     "simulate_to_dir": "api", "echo_sources": "api", "write_report": "api", "compare_observed": "api",

@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 
 from .config import SimulationConfig
-from .dem import DemSource, DemWindow
+from .io.dem import DemSource, DemWindow
 from .radar import apparent_depth_m, delay_after_surface_s
 from .track import Track
 

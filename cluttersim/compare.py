@@ -52,8 +52,8 @@ from .compare_io import (
     with_figure_format, write_candidates_geojson, write_comparison,
 )  # fmt: skip
 from .errors import ConfigError, ObservedDataError
-from .observed import ObservedRadargram
-from .outputs import check_new, locked_output
+from .io.observed import ObservedRadargram
+from .io.outputs import check_new, locked_output
 from .radar import apparent_depth_m
 
 __all__ = [
@@ -189,7 +189,7 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
     Parameters
     ----------
     observed : ObservedRadargram
-        From :func:`cluttersim.observed.load_observed`.
+        From :func:`cluttersim.io.observed.load_observed`.
     sim_ds : xarray.Dataset
         A cluttersim radargram over (about) the same track: the noise-free,
         incoherent expectation of the clutter (else :class:`ObservedDataError`,
@@ -475,8 +475,8 @@ def compare_to_dir(
     -------
     (Comparison, dict of Path)
     """
-    from .observed import load_observed
-    from .radargram import open_radargram
+    from .io.observed import load_observed
+    from .io.radargram import open_radargram
 
     if (sim is None) == (dem is None):
         raise ObservedDataError("give either a simulated radargram or a DEM to simulate from, not both")
@@ -514,7 +514,7 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
     """Simulate the noise-free, incoherent clutter expectation of an observed track on its sampling.
 
     ``tec_el_m2``: through an ionospheric layer of that total electron content (``[ionosphere]``).
-    ``dem``: a path or a :class:`cluttersim.dem.DemSource` (e.g. with a declared height unit,
+    ``dem``: a path or a :class:`cluttersim.io.dem.DemSource` (e.g. with a declared height unit,
     recorded in the result's attributes as ``simulate_to_dir`` does).
     """
     from .config import default_config
@@ -537,10 +537,10 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
         config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
     sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
                       max_memory_bytes=max_memory_bytes)  # fmt: skip
-    from .dem import DemSource
+    from .io.dem import DemSource
 
     if isinstance(dem, DemSource) and dem.height_scale_m != 1.0:  # a declared unit (--dem-height-unit), recorded
-        from .datums import HEIGHT_UNIT_ATTR  # so that `sources` and `report` read the DEM's heights as simulated
+        from .io.datums import HEIGHT_UNIT_ATTR  # so that `sources` and `report` read the DEM's heights as simulated
 
         sim_ds.attrs[HEIGHT_UNIT_ATTR] = dem.height_scale_m
     name = dem.path.name if isinstance(dem, DemSource) else Path(dem).name

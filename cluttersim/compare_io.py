@@ -20,7 +20,7 @@ import xarray as xr
 from scipy import special
 
 from .errors import ObservedDataError
-from .outputs import atomic_paths, check_new
+from .io.outputs import atomic_paths, check_new
 
 #: File names of a comparison directory.
 COMPARE_FILES = {
@@ -179,7 +179,7 @@ def write_comparison(result, paths: dict[str, Path], sim_ds=None, figures=None) 
     power scale (default :data:`COMPARISON_DB_RANGE`; the difference figure keeps its ±dB scale)."""
     from . import plots
     from .products import FigureOptions
-    from .radargram import save_netcdf, write_netcdf_to
+    from .io.radargram import save_netcdf, write_netcdf_to
 
     figures = figures or FigureOptions()
     save = {"dpi": figures.dpi, "fmt": figures.fmt}
@@ -342,7 +342,7 @@ def read_track_list(path) -> list[dict]:
     ``radar`` (with ``dem``) and ``values`` (``power``, ``amplitude`` or ``db``;
     default power). Every row is checked before any comparison runs.
     """
-    from .observed import VALUE_KINDS
+    from .io.observed import VALUE_KINDS
 
     path = Path(path)
     try:
@@ -425,7 +425,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
     """
     from .compare import compare_to_dir
     from .config import SimulationConfig
-    from .observed import ObservedFormat
+    from .io.observed import ObservedFormat
 
     jobs = read_track_list(list_path)
     out_dir = Path(out_dir)

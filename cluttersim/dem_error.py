@@ -49,7 +49,7 @@ import xarray as xr
 from . import kernels, memory, presum
 from .config import SimulationConfig, SurfaceConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
-from .dem import DemSource, DemWindow
+from .io.dem import DemSource, DemWindow
 from .errors import ConfigError, DemError, MemoryLimitError
 from .facets import _fill_holes, _lonlat_trig
 from .track import Track
@@ -360,7 +360,7 @@ def simulate_dem_error(
     Returns
     -------
     xarray.Dataset
-        The radargram layout (:func:`cluttersim.radargram.build_dataset`, on the error-free
+        The radargram layout (:func:`cluttersim.io.radargram.build_dataset`, on the error-free
         run's recording windows) with ``power`` the mean over realisations and
         ``power_q05``, ``power_q50``, ``power_q95``, ``power_std`` (W), ``power_nominal`` (the
         error-free DEM, with the sub-cell roughness if any), per trace ``nadir_delay_mean`` and ``nadir_delay_std`` over the
@@ -371,7 +371,7 @@ def simulate_dem_error(
     from .antenna import trace_frames
     from .attribution import right_unit_vectors
     from .radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
-    from .radargram import build_dataset, flatten_config_attrs
+    from .io.radargram import build_dataset, flatten_config_attrs
     from .simulate import _compress, binned_power, prepare_scene
 
     t_start = time.perf_counter()
@@ -513,7 +513,7 @@ def simulate_dem_error(
         "dem_path": str(src.path.resolve()),
         **body.to_attrs(),
         "title": "cluttersim DEM-error Monte Carlo (power: mean over realisations)",
-        "power_convention": POWER_CONVENTION,  # the scale of simulate()'s power (cluttersim.radargram)
+        "power_convention": POWER_CONVENTION,  # the scale of simulate()'s power (cluttersim.io.radargram)
         "power_convention_text": POWER_CONVENTION_TEXT,
         **{f"dem_error_{k}": v for k, v in error.to_dict().items()},
         "dem_error_covariance": "rms_m^2 exp(-(r/correlation_m)^2)",
@@ -583,9 +583,9 @@ def write_dem_error(ds: xr.Dataset, paths: dict, figures=None) -> None:
     """Write ``dem_error.nc`` (the Dataset of :func:`simulate_dem_error`) and ``dem_error.png``
     (:func:`cluttersim.plots.plot_dem_error`; ``figures``,
     :class:`cluttersim.products.FigureOptions`: dpi, format, dynamic range [default 60 dB]) atomically."""
-    from .outputs import atomic_paths
+    from .io.outputs import atomic_paths
     from .plots.planning import plot_dem_error
-    from .radargram import write_netcdf_to
+    from .io.radargram import write_netcdf_to
 
     with atomic_paths([paths["dem_error"], paths["dem_error_png"]]) as (nc, png):
         write_netcdf_to(ds, nc)

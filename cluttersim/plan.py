@@ -52,9 +52,9 @@ from pathlib import Path
 import numpy as np
 
 from .config import SimulationConfig, default_config
-from .dem import DemSource
+from .io.dem import DemSource
 from .errors import ConfigError, TrackError
-from .outputs import atomic_paths, check_new
+from .io.outputs import atomic_paths, check_new
 from .radar import delay_after_surface_s
 from .track import Track, TrackOverDem
 

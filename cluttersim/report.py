@@ -63,7 +63,7 @@ import numpy as np
 
 from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ClutterSimError, ConfigError, DemError
-from .outputs import atomic_paths, check_new
+from .io.outputs import atomic_paths, check_new
 from . import palette
 from .plots import hillshade_intensity, power_db
 
@@ -346,7 +346,7 @@ REQUIRED_VARIABLES = ("window_start", "lat", "lon", "alt", "nadir_delay", "on_de
 
 
 def _open_sim(path, band):
-    from .radargram import open_radargram
+    from .io.radargram import open_radargram
 
     ds = open_radargram(path, band=band)
     for name in REQUIRED_VARIABLES:
@@ -881,7 +881,7 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
         The simulated radargram, if not the run's own (for a comparison: the
         one it was compared with, when it has moved).
     band : optional
-        Passed to :func:`cluttersim.radargram.open_radargram` when given.
+        Passed to :func:`cluttersim.io.radargram.open_radargram` when given.
     max_columns, max_rows : int
         Size of the embedded pointing grid before samples are grouped in blocks.
     centroids : bool
@@ -891,8 +891,8 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
     progress : bool
         Show a progress bar while the centroids are computed.
     """
-    from .datums import with_recorded_height_unit
-    from .dem import DemSource
+    from .io.datums import with_recorded_height_unit
+    from .io.dem import DemSource
 
     if not (isinstance(permittivity, (int, float)) and math.isfinite(permittivity) and permittivity >= 1):
         raise ConfigError(f"permittivity {permittivity}: expected a real relative permittivity >= 1")

@@ -52,7 +52,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .dem import DemSource
+from .io.dem import DemSource
 from .errors import ClutterSimError, OutputExistsError, TrackError
 from .track import Track, TrackOverDem
 
@@ -353,7 +353,7 @@ def empty_segment(template, job: SegmentJob):
 def _whole_track_distance(ds):
     """The along-track ``distance`` coordinate counted from the whole track's first trace (each
     segment counts from its own)."""
-    from .radargram import with_trace_coordinates
+    from .io.radargram import with_trace_coordinates
 
     if "distance" not in ds.variables:
         return ds
@@ -499,8 +499,8 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
     """
     from tqdm.auto import tqdm
 
-    from .radargram import write_netcdf_to
-    from .outputs import hold_interrupts
+    from .io.radargram import write_netcdf_to
+    from .io.outputs import hold_interrupts
     from .survey import _remove_stale_temporaries
 
     t0 = time.perf_counter()
@@ -537,7 +537,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
                 path = seg_dir / segment_file_name(job.index)
                 with hold_interrupts():
                     seg_dir.mkdir(parents=True, exist_ok=True)
-                    from .outputs import atomic_paths
+                    from .io.outputs import atomic_paths
 
                     with atomic_paths([path]) as (tmp,):
                         write_netcdf_to(res.dataset, tmp)
@@ -586,9 +586,9 @@ def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet
     :class:`cluttersim.products.FigureOptions`)."""
     import xarray as xr
 
-    from .outputs import atomic_paths
+    from .io.outputs import atomic_paths
     from .products import write_figures
-    from .radargram import open_radargram_lazy
+    from .io.radargram import open_radargram_lazy
 
     opened = {i: xr.open_dataset(p, engine="h5netcdf", chunks={}) for i, p in finished.items()}
     try:
@@ -619,10 +619,10 @@ def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet
 
 def _write_streamed_netcdf(ds, path) -> None:
     """Write a dask-backed radargram chunk by chunk: the (trace, sample) arrays deflated with the
-    shuffle filter in chunks of :data:`JOIN_CHUNK_TRACES` traces, as :func:`cluttersim.radargram.write_netcdf_to`."""
+    shuffle filter in chunks of :data:`JOIN_CHUNK_TRACES` traces, as :func:`cluttersim.io.radargram.write_netcdf_to`."""
     import dask
 
-    from .radargram import _DEFLATE_LEVEL, _DEFLATED
+    from .io.radargram import _DEFLATE_LEVEL, _DEFLATED
 
     encoding = {}
     for name in _DEFLATED:

@@ -30,7 +30,7 @@ from tqdm.auto import tqdm
 from . import __version__, kernels, memory, physical_optics, presum
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
-from .dem import DemSource, DemWindow, warn_holes
+from .io.dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
 from .noise import add_complex_noise, add_noise_by_pulse
@@ -45,7 +45,7 @@ from .radar import (
     pulse_limited_radius_m,
     pulse_power_kernel,
 )
-from .radargram import build_dataset, flatten_config_attrs, stack_bands
+from .io.radargram import build_dataset, flatten_config_attrs, stack_bands
 from .subsurface import subsurface_variables
 from .track import Track, wrap_lon_like
 from .validate import check_far_field, check_noise_power, check_power_bound, check_run_arguments
@@ -147,7 +147,7 @@ def simulate(
     Returns
     -------
     xarray.Dataset
-        The radargram (see :mod:`cluttersim.radargram` for the variables). With
+        The radargram (see :mod:`cluttersim.io.radargram` for the variables). With
         ``config.noise``, seeded noise (:func:`cluttersim.noise.add_noise`) is added
         to ``power`` after the source record is made; with ``config.subsurface``,
         the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).

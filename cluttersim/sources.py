@@ -23,12 +23,12 @@ from . import kernels
 from .antenna import trace_frames
 from .attribution import right_unit_vectors
 from .config import SimulationConfig
-from .datums import with_recorded_height_unit
-from .dem import DemSource
+from .io.datums import with_recorded_height_unit
+from .io.dem import DemSource
 from .errors import ClutterSimError, ConfigError
 from .radar import apparent_depth_m, delay_after_surface_s
 from .products import MapFrame
-from .radargram import open_radargram
+from .io.radargram import open_radargram
 from .simulate import Scene, prepare_scene, scene_for_band, shadow_inputs
 from .track import Track
 
@@ -376,7 +376,7 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False, figu
     from rasterio.crs import CRS as RioCRS
 
     from . import plots
-    from .outputs import atomic_paths, check_new
+    from .io.outputs import atomic_paths, check_new
 
     from .products import FigureOptions
 
@@ -411,7 +411,7 @@ def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False, 
     """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory
     (``figures``: dpi and format, :class:`cluttersim.products.FigureOptions`)."""
     from . import plots
-    from .outputs import atomic_paths, check_new
+    from .io.outputs import atomic_paths, check_new
     from .products import FigureOptions
 
     figures = figures or FigureOptions()

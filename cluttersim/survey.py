@@ -55,8 +55,8 @@ import numpy as np
 from .clutter_index import clutter_index, level_ground_index_db, swath_half_width_m
 from .config import SimulationConfig, default_config
 from . import engines
-from .dem import DemSource, crs_linear_unit_m
-from .demcrs import vsi_path
+from .io.dem import DemSource, crs_linear_unit_m
+from .io.demcrs import vsi_path
 from .engines import Engine, _dask, _quiet_dask_logs, dask_client  # noqa: F401  (names segments and callers use here)
 from .errors import (
     ClutterSimError,
@@ -65,7 +65,7 @@ from .errors import (
     OutputExistsError,
     TrackError,
 )
-from .outputs import atomic_paths, check_new, hold_interrupts, locked_output
+from .io.outputs import atomic_paths, check_new, hold_interrupts, locked_output
 from .radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
 from .track import Track, TrackOverDem, great_circle_track, read_track_table
 
@@ -498,7 +498,7 @@ def write_track_result(result: TrackResult, path) -> Path:
                "truncated_windows": result.truncated, "power_convention": POWER_CONVENTION,
                "level_ground_index_db": result.level_db, "swath_half_width_m": result.swath_m},
     )  # fmt: skip
-    from .radargram import save_netcdf
+    from .io.radargram import save_netcdf
 
     with atomic_paths([path]) as (tmp,):
         save_netcdf(ds, tmp)
@@ -511,7 +511,7 @@ def read_track_result(path, radar=None) -> TrackResult:
     A file without ``power_convention`` predates the level convention
     (:data:`cluttersim.radar.POWER_CONVENTION`): its clutter index and fraction are
     ratios of powers and read as they are; its ``surface_power`` is rescaled by
-    τ_eff/Δt of ``radar`` (:func:`cluttersim.radargram.to_current_convention`) when
+    τ_eff/Δt of ``radar`` (:func:`cluttersim.io.radargram.to_current_convention`) when
     the radar is given."""
     import xarray as xr
 

@@ -10,7 +10,7 @@ from cli.main import cli
 from cluttersim import Body, SimulationConfig, great_circle_track, simulate
 from cluttersim.errors import ClutterSimError, ConfigError
 from cluttersim.radar import effective_pulse_duration_s
-from cluttersim.radargram import open_radargram, select_band, write_netcdf
+from cluttersim.io.radargram import open_radargram, select_band, write_netcdf
 from scenes import MARS_RADIUS_M, flat_geographic
 
 C = 299_792_458.0  # SI definition

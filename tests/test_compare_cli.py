@@ -12,7 +12,7 @@ from click.testing import CliRunner
 from rasterio.transform import from_origin
 
 from cli.main import cli
-from cluttersim.observed import ObservedFormat, load_observed
+from cluttersim.io.observed import ObservedFormat, load_observed
 from cluttersim.products import simulate_to_dir
 from test_compare import DT, NTRACE, hill_scene, observe
 

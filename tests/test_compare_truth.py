@@ -39,7 +39,7 @@ def hill(tmp_path_factory):
 def demo_section():
     """42 traces of the demo pass over the site's centre (default radar, 300 km up), 768 samples."""
     from cluttersim.demo import DEMO_ALT_M, DEMO_SPEED_M_S, demo_dem_path
-    from cluttersim.dem import DemSource
+    from cluttersim.io.dem import DemSource
 
     src = DemSource.open(demo_dem_path())
     track = great_circle_track(src.body, 11.9, 41.0, 12.25, 41.0, DEMO_ALT_M, 500.0, speed_m_s=DEMO_SPEED_M_S)

@@ -19,8 +19,8 @@ from click.testing import CliRunner
 
 from cli.main import cli
 from cluttersim import Track
-from cluttersim.datums import HeightDatum, parse_height_datum, track_in_dem_datum, use_system_proj_data
-from cluttersim.dem import DemSource
+from cluttersim.io.datums import HeightDatum, parse_height_datum, track_in_dem_datum, use_system_proj_data
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import TrackError
 from scenes import write_geotiff
 from test_geometry_edges import config

@@ -14,7 +14,7 @@ from cluttersim import (
     great_circle_track,
     kernels,
 )
-from cluttersim.dem import DemSource
+from cluttersim.io.dem import DemSource
 from cluttersim.radar import RadarConfig, pulse_power_kernel
 from cluttersim.reference import reference_binned_power
 from cluttersim.simulate import binned_power, prepare_scene
@@ -101,7 +101,7 @@ def test_netcdf_chunks_compressed_in_parallel_read_back_exactly(tmp_path, shape)
     import h5py
     import xarray as xr
 
-    from cluttersim.radargram import write_netcdf_to
+    from cluttersim.io.radargram import write_netcdf_to
 
     rng = np.random.default_rng(5)
     dims = ("band", "trace", "sample")[-len(shape) :]

@@ -20,7 +20,7 @@ from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_grid,
 from cluttersim import SurfaceConfig, default_config
 from cluttersim.body import Body
 from cluttersim.clutter_index import LevelGround, level_ground_index_db, level_index_db, level_scene
-from cluttersim.dem import DemSource
+from cluttersim.io.dem import DemSource
 from cluttersim.simulate import simulate
 from cluttersim.track import great_circle_track
 

@@ -68,7 +68,7 @@ def brute(massif):
 def massif_cells_seen(path, plan, heading_deg, east, north, elev):
     """Massif cells (above 100 m: the massif itself, not its low skirt, whose echo does not stand out
     from the plain's) in the depth window and inside the Fresnel strip of some target trace."""
-    from cluttersim.dem import DemSource
+    from cluttersim.io.dem import DemSource
     from cluttersim.plan import Candidate
 
     src = DemSource.open(path)

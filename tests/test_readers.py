@@ -21,7 +21,7 @@ import pytest
 from click.testing import CliRunner
 
 from cli.main import cli
-from cluttersim.observed import ObservedFormat, load_observed
+from cluttersim.io.observed import ObservedFormat, load_observed
 from test_compare import DT, NTRACE
 from test_compare_cli import SAMPLES, files  # noqa: F401  (the module's fixture)
 
@@ -307,7 +307,7 @@ def test_segy_headers_give_track_and_timing(files, tmp_path):
 
 def test_radius_without_a_body_is_explained(tmp_path):
     from cluttersim.errors import ObservedDataError
-    from cluttersim.readers import radius_to_height
+    from cluttersim.io.readers import radius_to_height
 
     with pytest.raises(ObservedDataError, match="give --dem"):
         radius_to_height(np.zeros(2), np.zeros(2), np.full(2, 3.4e6), None, "x.xml")

@@ -6,7 +6,7 @@ from scenes import MARS_RADIUS_M, write_geotiff
 from scipy.ndimage import convolve1d
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track
-from cluttersim.dem import DemSource
+from cluttersim.io.dem import DemSource
 from cluttersim.radar import RadarConfig
 from cluttersim.reference import reference_binned_power, spread_exact
 from cluttersim.simulate import binned_power, prepare_scene

@@ -16,7 +16,7 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim import memory
-from cluttersim.dem import DemSource
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import MemoryLimitError
 from cluttersim.radar import RadarConfig
 from cluttersim.simulate import prepare_scene

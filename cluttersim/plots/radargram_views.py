@@ -13,7 +13,7 @@ from matplotlib.patheffects import withStroke
 
 from ..overlays import draw_noise_floor, draw_predicted_subsurface
 from ..radar import apparent_depth_m, delay_after_surface_s
-from ..radargram import thin_traces
+from ..io.radargram import thin_traces
 from .style import (
     _figure_for, _finish, _LEGEND_STYLE, _new_figure, NO_DATA_COLOUR, _note_below, OVERLAY_COLOUR, power_db,
     RADARGRAM_CMAP, RADARGRAM_FIGSIZE_IN, save_figure,
@@ -37,7 +37,7 @@ class RadargramLayers:
         Nadir surface delay on the y axis, NaN where unknown; None if not drawn.
     trace_step : int
         Traces of the radargram per column (a long radargram is drawn from every k-th
-        trace, :func:`cluttersim.radargram.thin_traces`); the x axis counts the radargram's traces.
+        trace, :func:`cluttersim.io.radargram.thin_traces`); the x axis counts the radargram's traces.
     """
 
     image_db: np.ndarray
@@ -201,7 +201,7 @@ def plot_radargram(
         Dims ``trace``, ``sample``; ``power`` (trace, sample) in W, NaN for no
         data; coordinate ``delay`` (sample) in s after the window start;
         ``window_start`` and ``nadir_delay`` (trace) absolute two-way delays
-        in s (NaN allowed). See :mod:`cluttersim.radargram`.
+        in s (NaN allowed). See :mod:`cluttersim.io.radargram`.
     path : str or Path, optional
         Save the figure there (atomically; format from ``fmt`` or the suffix)
         and return the path. Without it nothing is written.
@@ -252,13 +252,13 @@ def plot_radargram(
 
 def plot_band_radargrams(ds, path=None, *, ax=None, dynamic_range_db: float | None = None, title: str | None = None,
                          permittivity: float | None = None, distance_axis: bool = True, dpi=None, fmt=None):  # fmt: skip
-    """Draw each band of a multi-band radargram (``band`` dimension, :mod:`cluttersim.radargram`)
+    """Draw each band of a multi-band radargram (``band`` dimension, :mod:`cluttersim.io.radargram`)
     as one panel of a column, each with its own colour scale (the bands' power levels differ by
     their radar constants), titled with its centre frequency and bandwidth.
 
     ``ax``: a sequence of one Axes per band (default: a new Figure). Returns the Figure, the
     given axes, or ``path`` (as :func:`plot_radargram`)."""
-    from ..radargram import band_names, select_band
+    from ..io.radargram import band_names, select_band
 
     _check_permittivity(permittivity)
     names = band_names(ds)

@@ -33,7 +33,7 @@ import signal
 import threading
 from pathlib import Path
 
-from .errors import ClutterSimError, OutputError, OutputExistsError, OutputLockedError
+from ..errors import ClutterSimError, OutputError, OutputExistsError, OutputLockedError
 
 #: Name of the lock file :func:`lock_directory` keeps in an output directory while a run writes.
 LOCK_NAME = ".cluttersim-lock"

@@ -19,7 +19,7 @@ import numpy as np
 import pyproj
 from affine import Affine
 
-from .errors import DemError
+from ..errors import DemError
 
 _EQC_METHODS = ("equidistant cylindrical", "equirectangular", "simple cylindrical", "plate carree")
 

@@ -71,7 +71,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from .errors import ClutterSimError
+from ..errors import ClutterSimError
 from .outputs import atomic_paths, check_new
 
 
@@ -155,7 +155,7 @@ def with_trace_coordinates(ds: xr.Dataset, body=None) -> xr.Dataset:
     draws the radargram.
     """
     if body is None and "body_semi_major_m" in ds.attrs:
-        from .body import Body
+        from ..body import Body
 
         body = Body(str(ds.attrs.get("body_name", "body")), float(ds.attrs["body_semi_major_m"]),
                     float(ds.attrs.get("body_semi_minor_m", ds.attrs["body_semi_major_m"])))  # fmt: skip
@@ -221,7 +221,7 @@ def select_band(ds: xr.Dataset, band: str | None = None, *, source="radargram") 
     configuration and ``band`` the band's name. A single-band radargram is
     returned as it is when ``band`` is None.
     """
-    from .config import SimulationConfig
+    from ..config import SimulationConfig
 
     names = band_names(ds)
     if not names:
@@ -331,7 +331,7 @@ def write_file_image(image: io.BytesIO, path) -> None:
     HDF5 is never the one writing to disk: a write error there (a full disk) leaves
     its file object in a state that crashes the interpreter at exit, whereas an
     OSError from ``write`` is an ordinary exception (see
-    :func:`cluttersim.outputs.atomic_paths`).
+    :func:`cluttersim.io.outputs.atomic_paths`).
     """
     try:
         with open(path, "wb") as fh:
@@ -461,7 +461,7 @@ def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
     as they were (they had no spherical divergence then). A file without the radar
     attributes (not written by cluttersim) is returned unchanged.
     """
-    from .radar import LEGACY_POWER_CONVENTION, POWER_CONVENTION, effective_pulse_duration_s
+    from ..radar import LEGACY_POWER_CONVENTION, POWER_CONVENTION, effective_pulse_duration_s
 
     convention = ds.attrs.get("power_convention", LEGACY_POWER_CONVENTION)
     if convention == POWER_CONVENTION:

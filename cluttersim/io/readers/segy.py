@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import ObservedDataError
+from ...errors import ObservedDataError
 from . import Lookup
 
 #: Header fields made available by name, with the unit SEG-Y rev 1 gives them.
@@ -44,7 +44,7 @@ def _scaled(raw: np.ndarray, scalar: np.ndarray) -> np.ndarray:
 
 
 def read_segy(path, file_format: str, mapping: dict, *, geometry=None, axis_order=None):
-    """The :class:`~cluttersim.readers.Lookup` and the (trace, sample) echoes of a SEG-Y file."""
+    """The :class:`~cluttersim.io.readers.Lookup` and the (trace, sample) echoes of a SEG-Y file."""
     try:
         import segyio
     except ImportError:

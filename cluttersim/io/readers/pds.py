@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import ObservedDataError
+from ...errors import ObservedDataError
 from . import Lookup, infer_axis_order
 from .fields import DEFAULT_NAMES, missing_field
 
@@ -162,7 +162,7 @@ def _fill(lookup: Lookup, path: Path, file_format: str, data, objects: dict) -> 
 
 
 def read_pds(path, file_format: str, mapping: dict, *, geometry=None, axis_order=None):
-    """The :class:`~cluttersim.readers.Lookup` and the (trace, sample) echoes of a PDS3/PDS4 product."""
+    """The :class:`~cluttersim.io.readers.Lookup` and the (trace, sample) echoes of a PDS3/PDS4 product."""
     path = Path(path)
     data = _open(path)
     objects = _objects(data, path)

@@ -37,7 +37,7 @@ import math
 import re
 from dataclasses import dataclass
 
-from ..errors import ObservedDataError
+from ...errors import ObservedDataError
 
 #: The fields of an observed product and their default unit kind.
 FIELD_KINDS = {

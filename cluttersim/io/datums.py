@@ -30,7 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 import pyproj
 
-from .errors import DemError, TrackError
+from ..errors import DemError, TrackError
 
 #: Named geoids and their EPSG vertical CRS (heights above that geoid, metres).
 GEOIDS = {"EGM96": "EPSG:5773", "EGM2008": "EPSG:3855", "EGM84": "EPSG:5798"}
@@ -156,7 +156,7 @@ def split_compound(crs: pyproj.CRS) -> tuple[pyproj.CRS, HeightDatum | None, flo
 
     A compound CRS (horizontal + vertical) gives its vertical CRS as the DEM's
     height datum, and that CRS's axis unit (e.g. the foot, 0.3048 m; applied to the
-    heights by :func:`cluttersim.dem.vertical_scaling`). Ellipsoidal 3-D CRSs give
+    heights by :func:`cluttersim.io.dem.vertical_scaling`). Ellipsoidal 3-D CRSs give
     the ellipsoid.
     """
     if crs.is_compound:
@@ -175,7 +175,7 @@ def track_in_dem_datum(track, dem, track_datum: HeightDatum | None, dem_datum: H
     """The track with its altitudes moved into the DEM's vertical reference, and a note saying what was done.
 
     alt_DEM = alt + N_track − N_DEM (module docstring). ``dem`` is a
-    :class:`~cluttersim.dem.DemSource`; ``dem_datum`` overrides (declares) its
+    :class:`~cluttersim.io.dem.DemSource`; ``dem_datum`` overrides (declares) its
     vertical reference. ``track_datum`` None: the track is already in the DEM's
     reference (nothing changes).
     """

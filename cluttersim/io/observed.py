@@ -43,12 +43,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import ObservedDataError, TrackError
+from ..errors import ObservedDataError, TrackError
 from .readers import ARCHIVE_SUFFIXES
-from .track import Track
+from ..track import Track
 
 #: File formats and the suffixes that select them (the archive formats, which carry their own
-#: track and timing, are read by :mod:`cluttersim.readers`).
+#: track and timing, are read by :mod:`cluttersim.io.readers`).
 FORMAT_SUFFIXES = {
     "netcdf": (".nc", ".nc4", ".cdf", ".h5", ".hdf5", ".he5"),
     "npy": (".npy",),
@@ -98,7 +98,7 @@ class ObservedFormat:
         Header bytes to skip at the start of a raw file.
     fields : tuple of str
         Archive formats: ``FIELD=NAME[:UNIT]`` overrides of the field mapping
-        (:mod:`cluttersim.readers.fields`).
+        (:mod:`cluttersim.io.readers.fields`).
     geometry : str or None
         PDS: a second product (label) whose tables hold the geometry.
     """
@@ -312,7 +312,7 @@ def _load_archive(path: Path, track, sample_interval_s, window_start_s, window_s
 def body_for_observed(sim=None, dem=None, body_radius_m=None):
     """The body of a comparison, for products that give radii: the sphere ``body_radius_m``,
     else the DEM's CRS, else the simulated radargram's attributes; None if none is known."""
-    from .body import Body
+    from ..body import Body
 
     if body_radius_m is not None:
         return Body.sphere(body_radius_m)

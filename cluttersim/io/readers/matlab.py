@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import ObservedDataError
+from ...errors import ObservedDataError
 from . import Lookup, infer_axis_order
 from .fields import DEFAULT_NAMES, missing_field
 
@@ -77,7 +77,7 @@ def _variables_v73(path: Path) -> dict:
 
 
 def read_matlab(path, file_format: str, mapping: dict, *, geometry=None, axis_order=None):
-    """The :class:`~cluttersim.readers.Lookup` and the (trace, sample) echoes of a MATLAB file."""
+    """The :class:`~cluttersim.io.readers.Lookup` and the (trace, sample) echoes of a MATLAB file."""
     path = Path(path)
     if not path.exists():
         raise ObservedDataError(f"{path}: MATLAB file not found")

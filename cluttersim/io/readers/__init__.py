@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import ObservedDataError
+from ...errors import ObservedDataError
 from .fields import FIELD_KINDS, FieldSpec, candidates, missing_field, parse_field_map, shift_unit_is_time, unit_factor
 
 #: Archive formats and the suffixes that select them.

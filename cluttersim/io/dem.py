@@ -20,11 +20,11 @@ import rasterio
 from affine import Affine
 from rasterio.windows import Window
 
-from .body import Body
+from ..body import Body
 from .datums import HeightDatum, split_compound
 from .demcrs import as_geographic, check_not_radii, vsi_path
-from .errors import DemError
-from .validate import height_limit_m
+from ..errors import DemError
+from ..validate import height_limit_m
 
 
 #: GDAL block cache during a read, MB.
