@@ -71,7 +71,7 @@ def with_antenna(config, pattern=None, axis=None, beamwidths_deg=None):
     """The config with command-line overrides of its [antenna] table."""
     import dataclasses
 
-    from cluttersim.antenna import AntennaConfig
+    from cluttersim.physics.antenna import AntennaConfig
 
     changes = {}
     if pattern is not None:

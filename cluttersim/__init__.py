@@ -20,12 +20,12 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree wi
 
 #: Public name → module that defines it (imported on first access).
 _EXPORTS = {
-    "Body": "body",
+    "Body": "physics.body",
     "SimulationConfig": "config", "SurfaceConfig": "config", "default_config": "config",
     "DemSource": "io.dem",
     "ClutterSimError": "errors", "ConfigError": "errors", "DemError": "errors", "GeometryError": "errors",
     "ObservedDataError": "errors", "TrackError": "errors",
-    "RadarConfig": "radar",
+    "RadarConfig": "physics.radar",
     "open_radargram": "io.radargram", "write_netcdf": "io.radargram",
     "simulate": "simulate",
     "Track": "track", "great_circle_track": "track",

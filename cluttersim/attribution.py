@@ -11,14 +11,14 @@ vertical, the right-hand unit vector is r̂ = v̂ × û (flying north, right is
 east). A facet at position P seen from the antenna A lies on the right when
 (P − A)·r̂ > w, on the left when it is < −w, and in the nadir strip otherwise;
 w defaults to the pulse-limited footprint radius
-(:func:`cluttersim.radar.pulse_limited_radius_m`).
+(:func:`cluttersim.physics.radar.pulse_limited_radius_m`).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from .body import Body
+from .physics.body import Body
 from .track import Track
 
 

@@ -21,7 +21,7 @@ import numpy as np
 
 from .config import SimulationConfig
 from .io.dem import DemSource, DemWindow
-from .radar import apparent_depth_m, delay_after_surface_s
+from .physics.radar import apparent_depth_m, delay_after_surface_s
 from .track import Track
 
 

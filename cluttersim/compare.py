@@ -54,7 +54,7 @@ from .compare_io import (
 from .errors import ConfigError, ObservedDataError
 from .io.observed import ObservedRadargram
 from .io.outputs import check_new, locked_output
-from .radar import apparent_depth_m
+from .physics.radar import apparent_depth_m
 
 __all__ = [
     "CANDIDATE_COLUMNS", "COMPARE_FILES", "CompareSettings", "Comparison", "DelayOffset", "Detections", "GainFit",
@@ -462,7 +462,7 @@ def compare_to_dir(
     ``tec_el_m2`` puts an ionospheric layer of that total electron content
     between the simulation and the observation: the on-the-fly simulation
     runs through it (``[ionosphere]``), a given ``sim`` is dispersed by
-    :func:`cluttersim.ionosphere.disperse_radargram`.
+    :func:`cluttersim.physics.ionosphere.disperse_radargram`.
 
     Products (:data:`COMPARE_FILES`): ``comparison.nc``, ``candidates.csv``,
     ``candidates.geojson``, ``side_by_side.png``, ``overlay.png``,
@@ -495,7 +495,7 @@ def compare_to_dir(
         sim_ds = open_radargram(sim, band=band)
         sim_source = str(sim)
         if tec_el_m2:
-            from .ionosphere import disperse_radargram
+            from .physics.ionosphere import disperse_radargram
 
             sim_ds = disperse_radargram(sim_ds, tec_el_m2)
             sim_source += f" through TEC {tec_el_m2:.3g} el/m²"
@@ -532,7 +532,7 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
                      radar=replace(config.radar, sample_interval_s=observed.sample_interval_s,
                                    samples=max(observed.n_samples, 2)))  # fmt: skip
     if tec_el_m2:
-        from .ionosphere import IonosphereConfig
+        from .physics.ionosphere import IonosphereConfig
 
         config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
     sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,

@@ -24,7 +24,7 @@ import numpy as np
 import xarray as xr
 from scipy.spatial import cKDTree
 
-from .body import Body
+from .physics.body import Body
 from .errors import ObservedDataError
 
 # --------------------------------------------------------------------------- 1. trace matching

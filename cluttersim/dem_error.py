@@ -368,9 +368,9 @@ def simulate_dem_error(
     """
     from tqdm.auto import tqdm
 
-    from .antenna import trace_frames
+    from .physics.antenna import trace_frames
     from .attribution import right_unit_vectors
-    from .radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
+    from .physics.radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
     from .io.radargram import build_dataset, flatten_config_attrs
     from .simulate import _compress, binned_power, prepare_scene
 
@@ -435,7 +435,7 @@ def simulate_dem_error(
         raise ConfigError("[dem_error] side shares per realisation need [processing] presum = 1")
     strip = None
     if sides:
-        from .radar import pulse_limited_radius_m
+        from .physics.radar import pulse_limited_radius_m
 
         alt = np.nan_to_num(track.alt_m - scene.h_nadir_m)[idx]
         strip = pulse_limited_radius_m(alt, radar.bandwidth_hz, body.mean_radius_m) * np.ones(idx.size)

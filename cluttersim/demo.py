@@ -12,11 +12,11 @@ import importlib.util
 from pathlib import Path
 
 from . import plots
-from .aperture import ProcessingConfig
+from .physics.aperture import ProcessingConfig
 from .config import default_config
-from .ionosphere import IonosphereConfig
-from .noise import NoiseConfig
-from .radar import BandConfig
+from .physics.ionosphere import IonosphereConfig
+from .physics.noise import NoiseConfig
+from .physics.radar import BandConfig
 from .io.dem import DemSource
 from .errors import DemError
 from .products import FigureOptions, figure_name, run_files, simulate_to_dir

@@ -2,7 +2,7 @@
 
 Drawn by :func:`cluttersim.plots.plot_radargram` when the Dataset has the
 variables (``noise_power`` from the ``[noise]`` table, ``predicted_subsurface_delay``
-from the ``[subsurface]`` table; see :mod:`cluttersim.noise`, :mod:`cluttersim.subsurface`).
+from the ``[subsurface]`` table; see :mod:`cluttersim.physics.noise`, :mod:`cluttersim.physics.subsurface`).
 """
 
 from __future__ import annotations

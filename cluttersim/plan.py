@@ -55,7 +55,7 @@ from .config import SimulationConfig, default_config
 from .io.dem import DemSource
 from .errors import ConfigError, TrackError
 from .io.outputs import atomic_paths, check_new
-from .radar import delay_after_surface_s
+from .physics.radar import delay_after_surface_s
 from .track import Track, TrackOverDem
 
 #: Products of a plan directory.

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .body import Body
+from .physics.body import Body
 from .constants import SPEED_OF_LIGHT_M_S
 from .io.dem import DemSource, crs_linear_unit_m
 from .io.outputs import atomic_paths, check_new, locked_output

@@ -41,7 +41,7 @@ after a byte shuffle, quantised as :class:`Quantiser` describes:
 Side: the largest of the left share, the right share and the nadir-strip share
 1 − left − right (:mod:`cluttersim.attribution`). Apparent depth below the
 trace's own nadir surface: d = c (τ − τ_nadir) / (2 √ε′)
-(:func:`cluttersim.radar.apparent_depth_m`).
+(:func:`cluttersim.physics.radar.apparent_depth_m`).
 """
 
 from __future__ import annotations
@@ -748,7 +748,7 @@ def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max
     """The report page of a run as one HTML string (see the module docstring); ``centroids``
     (:func:`cluttersim.sources.side_centroids` of the simulated run) marks each side's centre."""
     from .products import track_map_data
-    from .radar import apparent_depth_m
+    from .physics.radar import apparent_depth_m
 
     apparent_depth_m(0.0, permittivity)  # validates ε′ (ConfigError)
     ds = inputs.sim

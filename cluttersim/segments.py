@@ -14,7 +14,7 @@ is kept per trace:
 * the recording window start ("auto") is each trace's own earliest echo;
 * presum groups never straddle a segment: segment sizes are multiples of ``presum``;
 * receiver noise is seeded per pulse by its index in the whole track
-  (:func:`cluttersim.noise.add_noise_by_pulse`);
+  (:func:`cluttersim.physics.noise.add_noise_by_pulse`);
 * the platform speed of a Doppler-focused aperture comes from the whole track, and so
   does the height at which an aperture's integration gain (the noise level with
   ``prf_hz``) is taken: the track's median height above the nadir surface

@@ -8,8 +8,8 @@ Data flow::
                                       kernels.accumulate_power (chunks of traces, progress)
                                       ──► convolution with the compressed pulse ──► Dataset
 
-The physics lives in :mod:`cluttersim.kernels` (per facet), :mod:`cluttersim.radar`
-and :mod:`cluttersim.scattering`; this module only decides what to compute.
+The physics lives in :mod:`cluttersim.kernels` (per facet), :mod:`cluttersim.physics.radar`
+and :mod:`cluttersim.physics.scattering`; this module only decides what to compute.
 """
 
 from __future__ import annotations
@@ -27,16 +27,17 @@ from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
-from . import __version__, kernels, memory, physical_optics, presum
+from . import __version__, kernels, memory, presum
+from .physics import physical_optics
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
 from .io.dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
-from .noise import add_complex_noise, add_noise_by_pulse
-from .antenna import trace_frames
+from .physics.noise import add_complex_noise, add_noise_by_pulse
+from .physics.antenna import trace_frames
 from .attribution import first_return, right_unit_vectors, side_fractions
-from .radar import (
+from .physics.radar import (
     POWER_CONVENTION,
     POWER_CONVENTION_TEXT,
     noise_bandwidth_factor,
@@ -46,7 +47,7 @@ from .radar import (
     pulse_power_kernel,
 )
 from .io.radargram import build_dataset, flatten_config_attrs, stack_bands
-from .subsurface import subsurface_variables
+from .physics.subsurface import subsurface_variables
 from .track import Track, wrap_lon_like
 from .validate import check_far_field, check_noise_power, check_power_bound, check_run_arguments
 
@@ -136,7 +137,7 @@ def simulate(
         else segments of the size that reads the fewest DEM cells; None: one piece.
     first_pulse : int
         Index of this track's first pulse in a longer track it is a segment of (the
-        per-pulse noise seeds, :func:`cluttersim.noise.add_noise_by_pulse`).
+        per-pulse noise seeds, :func:`cluttersim.physics.noise.add_noise_by_pulse`).
     require_echo : bool
         Raise :class:`GeometryError` when no sample receives surface power (a segment
         of a longer track may have none).
@@ -148,9 +149,9 @@ def simulate(
     -------
     xarray.Dataset
         The radargram (see :mod:`cluttersim.io.radargram` for the variables). With
-        ``config.noise``, seeded noise (:func:`cluttersim.noise.add_noise`) is added
+        ``config.noise``, seeded noise (:func:`cluttersim.physics.noise.add_noise`) is added
         to ``power`` after the source record is made; with ``config.subsurface``,
-        the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).
+        the predicted interface echo (:func:`cluttersim.physics.subsurface.predict_subsurface`).
     """
     t_start = time.perf_counter()
     check_run_arguments(first_return_db=first_return_db, nadir_strip_m=nadir_strip_m)
@@ -358,7 +359,7 @@ class _BandRun:
         """Mean noise power per sample of one pulse on the ``power`` scale (W): the input noise
         (:meth:`NoiseConfig.noise_power_w`) times the range window's equivalent noise bandwidth
         B τ_eff, divided by the processing gains of ``[processing]`` (range compression τB and the
-        aperture's integration gain), which the echo does not get (see :mod:`cluttersim.noise`)."""
+        aperture's integration gain), which the echo does not get (see :mod:`cluttersim.physics.noise`)."""
         noise = self.scene.config.noise
         if noise is None:
             return None
@@ -367,7 +368,7 @@ class _BandRun:
 
     def processing_gain(self) -> float:
         """Range-compression gain τB times the aperture's integration gain at the track's median
-        height above the nadir surface (:class:`~cluttersim.aperture.ProcessingConfig`); 1 without
+        height above the nadir surface (:class:`~cluttersim.physics.aperture.ProcessingConfig`); 1 without
         ``pulse_length_s`` and ``prf_hz``."""
         proc = self.scene.config.processing
         gain = proc.range_compression_gain(self.radar.bandwidth_hz)
@@ -667,7 +668,7 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
     ``ant_m`` (n, 3) are antenna positions relative to ``scene.facets.origin_m``
     and bin k of trace t covers [bin0_s[t] + k dt, bin0_s[t] + (k+1) dt).
     ``frames`` (n, 3, 3) are the traces' along/right/down frames
-    (:func:`cluttersim.antenna.trace_frames`), needed for antenna patterns and
+    (:func:`cluttersim.physics.antenna.trace_frames`), needed for antenna patterns and
     apertures; ``traces`` their indices in the track, needed for shadowing.
     Returns ``(binned, best_facet, evaluations)``: binned (n, 1 or 3, nbins) W —
     row 0 the total, rows 1 and 2 the left and right shares when ``sources``.
@@ -707,7 +708,7 @@ COHERENT_OVERSAMPLE = 8
 
 def pulse_amplitude_grid(radar, oversample: int, ionosphere=None) -> np.ndarray:
     """Compressed-pulse complex amplitude h sampled every dt/oversample, peak-normalised (max|h| = 1
-    without an ionosphere; :func:`cluttersim.radar.pulse_amplitude_response`): a complex field
+    without an ionosphere; :func:`cluttersim.physics.radar.pulse_amplitude_response`): a complex field
     deposited in a bin and convolved with it reads its power at its peak sample (the ``power``
     convention), and random-phase facets average to the incoherent mode's power."""
     offsets, _ = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window,
@@ -786,7 +787,7 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
     :data:`SPECULAR_CELLS_PER_SAMPLE` cells per sample; the cells are convolved with the
     compressed pulse's amplitude response h, normalised to max |h| = 1 (a point target, or
     a mirror, reads its radar-equation power at its peak sample), through the ionosphere if
-    any (:func:`cluttersim.radar.pulse_amplitude_response`). With ``right_unit``
+    any (:func:`cluttersim.physics.radar.pulse_amplitude_response`). With ``right_unit``
     (n, 3) and ``strip_half_m`` (n,) the rows are the nadir strip, left and right sides
     (:data:`cluttersim.kernels.SIDE_NADIR`...), else one row. Γ is the surface's
     (``[surface] permittivity``) unless ``reflection_coefficient`` is given.

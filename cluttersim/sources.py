@@ -20,13 +20,13 @@ import xarray as xr
 from tqdm.auto import tqdm
 
 from . import kernels
-from .antenna import trace_frames
+from .physics.antenna import trace_frames
 from .attribution import right_unit_vectors
 from .config import SimulationConfig
 from .io.datums import with_recorded_height_unit
 from .io.dem import DemSource
 from .errors import ClutterSimError, ConfigError
-from .radar import apparent_depth_m, delay_after_surface_s
+from .physics.radar import apparent_depth_m, delay_after_surface_s
 from .products import MapFrame
 from .io.radargram import open_radargram
 from .simulate import Scene, prepare_scene, scene_for_band, shadow_inputs
@@ -218,7 +218,7 @@ def depth_window_map(run: Run, depth_min_m: float, depth_max_m: float, permittiv
     """Map the terrain that echoes into apparent depths [min, max) below the nadir surface.
 
     For each trace the delay window is nadir_delay + 2 d √ε′ / c for d in the
-    depth range (the depth convention of :func:`cluttersim.radar.apparent_depth_m`):
+    depth range (the depth convention of :func:`cluttersim.physics.radar.apparent_depth_m`):
     the ground that would masquerade as subsurface at those depths.
     """
     _check_depths(depth_min_m, depth_max_m, permittivity)

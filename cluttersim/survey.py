@@ -17,7 +17,7 @@ sample k, L_k and R_k the shares of it from left and right of the track
 and P_k (1 − L_k − R_k) the power from the nadir strip. Let t_n be the nadir
 surface delay and W the samples whose delays lie in the subsurface window
 [t_n, t_n + 2 d_max √ε′ / c] (apparent depths 0..d_max in a medium of real
-permittivity ε′, :func:`cluttersim.radar.delay_after_surface_s`). The nadir
+permittivity ε′, :func:`cluttersim.physics.radar.delay_after_surface_s`). The nadir
 surface echo power P_s is the largest nadir-strip power within the compressed
 pulse's main lobe (±⌈1/(B Δt)⌉ samples) of t_n. Then
 
@@ -66,7 +66,7 @@ from .errors import (
     TrackError,
 )
 from .io.outputs import atomic_paths, check_new, hold_interrupts, locked_output
-from .radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
+from .physics.radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
 from .track import Track, TrackOverDem, great_circle_track, read_track_table
 
 #: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
@@ -509,7 +509,7 @@ def read_track_result(path, radar=None) -> TrackResult:
     """Read a file written by :func:`write_track_result`.
 
     A file without ``power_convention`` predates the level convention
-    (:data:`cluttersim.radar.POWER_CONVENTION`): its clutter index and fraction are
+    (:data:`cluttersim.physics.radar.POWER_CONVENTION`): its clutter index and fraction are
     ratios of powers and read as they are; its ``surface_power`` is rescaled by
     τ_eff/Δt of ``radar`` (:func:`cluttersim.io.radargram.to_current_convention`) when
     the radar is given."""

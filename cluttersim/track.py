@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .body import Body
+from .physics.body import Body
 from .errors import TrackError
 from .validate import check_longitudes, check_trace_steps
 

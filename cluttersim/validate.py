@@ -119,10 +119,10 @@ def check_far_field(track, h_nadir_m, config) -> None:
 
 
 def check_sigma0_peak(law: str, params: dict) -> None:
-    """Refuse a [surface] law whose largest σ0 over incidence (:func:`cluttersim.scattering.sigma0_peak`)
+    """Refuse a [surface] law whose largest σ0 over incidence (:func:`cluttersim.physics.scattering.sigma0_peak`)
     exceeds :data:`MAX_SIGMA0`, naming the key(s) that set it (ConfigError, when the config is read)."""
     from .errors import ConfigError
-    from .scattering import LAWS, sigma0_peak
+    from .physics.scattering import LAWS, sigma0_peak
 
     peak, incidence_deg = sigma0_peak(law, params)
     if math.isfinite(peak) and peak <= MAX_SIGMA0:
@@ -149,7 +149,7 @@ def check_power_bound(config, nearest_m: float, area_m2: float, pulse_sum: float
     :data:`MAX_POWER_BOUND_W`.
     """
     from .errors import ConfigError
-    from .scattering import sigma0_peak
+    from .physics.scattering import sigma0_peak
 
     sigma0_max, _ = sigma0_peak(config.surface.law, config.surface.params)
     worst = None

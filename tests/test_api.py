@@ -73,13 +73,13 @@ def test_radargram_opens_with_coordinates_a_scientist_expects(tmp_path):
 
 
 def test_radar_template_parses_and_names_every_key(tmp_path):
-    from cluttersim.antenna import AntennaConfig
-    from cluttersim.aperture import ProcessingConfig
+    from cluttersim.physics.antenna import AntennaConfig
+    from cluttersim.physics.aperture import ProcessingConfig
     from cluttersim.config import SimulationConfig
-    from cluttersim.noise import NoiseConfig
-    from cluttersim.radar import BAND_KEYS, RadarConfig
-    from cluttersim.scattering import LAWS
-    from cluttersim.subsurface import SubsurfaceConfig
+    from cluttersim.physics.noise import NoiseConfig
+    from cluttersim.physics.radar import BAND_KEYS, RadarConfig
+    from cluttersim.physics.scattering import LAWS
+    from cluttersim.physics.subsurface import SubsurfaceConfig
     from cluttersim.template import template_keys
 
     for kind in ("orbital", "airborne"):
@@ -91,7 +91,7 @@ def test_radar_template_parses_and_names_every_key(tmp_path):
         if kind == "orbital":
             assert config == cluttersim.default_config()  # the built-in radar's values
     keys = template_keys()
-    from cluttersim.ionosphere import IonosphereConfig
+    from cluttersim.physics.ionosphere import IonosphereConfig
 
     tables = {"radar": RadarConfig, "noise": NoiseConfig, "subsurface": SubsurfaceConfig, "antenna": AntennaConfig,
               "processing": ProcessingConfig, "ionosphere": IonosphereConfig}  # fmt: skip
@@ -176,7 +176,7 @@ def test_geometry_errors_give_the_extents_and_the_unit_hint(tmp_path):
 
 
 def test_survey_says_it_ignores_noise_and_subsurface():
-    from cluttersim.noise import NoiseConfig
+    from cluttersim.physics.noise import NoiseConfig
     from cluttersim.survey import survey_sim_config
 
     config = dataclasses.replace(cluttersim.default_config(), noise=NoiseConfig(noise_figure_db=3.0))

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.radar import RadarConfig, apparent_depth_m, delay_after_surface_s, pulse_limited_radius_m
+from cluttersim.physics.radar import RadarConfig, apparent_depth_m, delay_after_surface_s, pulse_limited_radius_m
 from scenes import UTM_X0_M, UTM_Y0_M, to_utm, utm_grid, utm_track, write_utm
 
 C = 299_792_458.0  # SI definition

@@ -18,11 +18,11 @@ import pytest
 from matplotlib import cbook
 
 from cluttersim import simulate
-from cluttersim.body import Body
+from cluttersim.physics.body import Body
 from cluttersim.compare import CompareSettings, compare
 from cluttersim.compare_grid import bandwidth_of
 from cluttersim.config import SimulationConfig, SurfaceConfig, default_config
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.track import great_circle_track
 from compare_truth import GAIN_DB, identical, layer, observe, surface_peak
 from scenes import write_geotiff

@@ -7,7 +7,7 @@ import pyproj
 import pytest
 from rasterio.windows import Window
 
-from cluttersim.body import Body
+from cluttersim.physics.body import Body
 from cluttersim.io.dem import DemSource
 from cluttersim.facets import build_facets
 from cluttersim.track import great_circle_track

@@ -11,7 +11,7 @@ import pytest
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, Track, great_circle_track, simulate
 from cluttersim.io.dem import DemSource
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.simulate import RunStats
 from scenes import MARS_RADIUS_M, MARS_SPHERE, write_geotiff
 

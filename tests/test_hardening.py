@@ -27,7 +27,7 @@ from rasterio.transform import from_origin
 
 from cli.main import cli
 from cluttersim.io import outputs
-from cluttersim.body import Body
+from cluttersim.physics.body import Body
 from cluttersim.io.dem import DemSource
 from cluttersim.errors import DemError, OutputLockedError
 from cluttersim.track import great_circle_track

@@ -18,7 +18,7 @@ from rasterio.transform import from_origin
 from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_grid, utm_track, write_utm
 
 from cluttersim import SurfaceConfig, default_config
-from cluttersim.body import Body
+from cluttersim.physics.body import Body
 from cluttersim.clutter_index import LevelGround, level_ground_index_db, level_index_db, level_scene
 from cluttersim.io.dem import DemSource
 from cluttersim.simulate import simulate

@@ -12,10 +12,10 @@ from scenes import MARS_RADIUS_M, UTM, UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, 
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim import kernels
-from cluttersim.antenna import AntennaConfig
-from cluttersim.aperture import ProcessingConfig
+from cluttersim.physics.antenna import AntennaConfig
+from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
-from cluttersim.physical_optics import (
+from cluttersim.physics.physical_optics import (
     coherent_power_fraction,
     facet_integral,
     facet_integral_brute_force,
@@ -23,7 +23,7 @@ from cluttersim.physical_optics import (
     normal_reflection_coefficient,
     subdivisions,
 )
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 
 C = 299_792_458.0  # SI definition
 LAMBDA_M = C / 20e6  # the default radar's 20 MHz

@@ -24,7 +24,7 @@ import pytest
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, utm_grid, write_utm
 
 from cluttersim import default_config
-from cluttersim.antenna import AntennaConfig
+from cluttersim.physics.antenna import AntennaConfig
 from cluttersim.errors import ConfigError
 from cluttersim.plan import PlanConfig, PlanTarget, candidate_track, run_plan, search, target_height_m
 from cluttersim.survey import Engine
@@ -159,7 +159,7 @@ def test_airborne_offsets_and_bad_geometry(massif):
     with pytest.raises(ConfigError, match="fine-step-deg"):
         dataclasses.replace(plan, fine_step_deg=60.0)
     air = dataclasses.replace(plan, platform="airborne", altitudes_m=(3000.0,), offsets_m=(-400.0, 400.0))
-    from cluttersim.body import Body
+    from cluttersim.physics.body import Body
     from cluttersim.plan import Candidate
 
     body = Body.from_crs(pyproj.CRS(UTM))

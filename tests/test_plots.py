@@ -34,7 +34,7 @@ from cluttersim.plots import (
     side_colours,
     SIDE_BRIGHTNESS_GAMMA,
 )
-from cluttersim.radar import apparent_depth_m
+from cluttersim.physics.radar import apparent_depth_m
 
 NTRACE, NSAMPLE = 50, 200
 SAMPLE_INTERVAL_S = 50e-9

@@ -18,7 +18,7 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim import SimulationConfig, SurfaceConfig
 from cluttersim.products import simulate_to_dir
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.report import GridShape, Quantiser, pack_array, strongest_in_blocks, unpack_array, write_report
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_track
 from test_attribution import AIRBORNE, dome_scene

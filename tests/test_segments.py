@@ -7,12 +7,12 @@ import pytest
 import xarray as xr
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.aperture import ProcessingConfig
+from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.io.dem import DemSource
 from cluttersim.errors import OutputExistsError
-from cluttersim.noise import NoiseConfig
+from cluttersim.physics.noise import NoiseConfig
 from cluttersim.products import simulate_to_dir
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.io.radargram import open_radargram
 from cluttersim import segments
 from cluttersim.segments import plan_segments

@@ -20,7 +20,7 @@ from cli_helpers import CLUTTERSIM, interrupt_when, invoke, one_line, region_arg
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, utm_grid, write_utm
 
 from cluttersim import SurfaceConfig, default_config
-from cluttersim.body import Body
+from cluttersim.physics.body import Body
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
 from cluttersim.survey import (
     Engine,

@@ -20,7 +20,7 @@ import rasterio
 from affine import Affine
 from rasterio.windows import Window
 
-from ..body import Body
+from ..physics.body import Body
 from .datums import HeightDatum, split_compound
 from .demcrs import as_geographic, check_not_radii, vsi_path
 from ..errors import DemError

@@ -312,7 +312,7 @@ def _load_archive(path: Path, track, sample_interval_s, window_start_s, window_s
 def body_for_observed(sim=None, dem=None, body_radius_m=None):
     """The body of a comparison, for products that give radii: the sphere ``body_radius_m``,
     else the DEM's CRS, else the simulated radargram's attributes; None if none is known."""
-    from ..body import Body
+    from ..physics.body import Body
 
     if body_radius_m is not None:
         return Body.sphere(body_radius_m)

@@ -34,7 +34,7 @@ With the source record (the default) also:
 =========================  ==============  ====  ===========================================
 
 The ``power_convention`` attribute names the level convention
-(:data:`cluttersim.radar.POWER_CONVENTION`: a point target reads its
+(:data:`cluttersim.physics.radar.POWER_CONVENTION`: a point target reads its
 radar-equation power at its peak sample, a diffuse surface
 Pt G² λ² σ0 A_τ / ((4π)³ R⁴) with A_τ the area within c τ_eff / 2, whatever
 the sample interval). Files written before it existed have no such attribute:
@@ -42,10 +42,10 @@ the sample interval). Files written before it existed have no such attribute:
 τ_eff / Δt (:func:`to_current_convention`).
 
 With a ``[noise]`` table, ``noise_power`` (scalar, W): the mean noise power
-added to every sample, on the same scale (:mod:`cluttersim.noise`). With a ``[subsurface]``
+added to every sample, on the same scale (:mod:`cluttersim.physics.noise`). With a ``[subsurface]``
 table, ``predicted_subsurface_delay`` (trace, s, absolute),
 ``predicted_subsurface_power`` and ``predicted_surface_power`` (trace, W)
-(:mod:`cluttersim.subsurface`).
+(:mod:`cluttersim.physics.subsurface`).
 
 With ``[[band]]`` tables in the radar TOML (several frequency bands in one
 run) the file has a third dimension ``band`` (coordinate: the band names, with
@@ -88,7 +88,7 @@ def build_dataset(
     body=None,
 ) -> xr.Dataset:
     """Assemble the radargram Dataset (see module docstring for the contract); ``body`` (a
-    :class:`~cluttersim.body.Body`) gives the along-track ``distance`` coordinate."""
+    :class:`~cluttersim.physics.body.Body`) gives the along-track ``distance`` coordinate."""
     ntrace, nsample = power_w.shape
     trace_vars = {
         "window_start": (window_start_s, "s", "absolute two-way delay of sample 0"),
@@ -155,7 +155,7 @@ def with_trace_coordinates(ds: xr.Dataset, body=None) -> xr.Dataset:
     draws the radargram.
     """
     if body is None and "body_semi_major_m" in ds.attrs:
-        from ..body import Body
+        from ..physics.body import Body
 
         body = Body(str(ds.attrs.get("body_name", "body")), float(ds.attrs["body_semi_major_m"]),
                     float(ds.attrs.get("body_semi_minor_m", ds.attrs["body_semi_major_m"])))  # fmt: skip
@@ -448,7 +448,7 @@ def open_radargram(path, band: str | None = None, *, lazy: bool | None = None) -
 def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
     """A single-band radargram on the current ``power`` scale.
 
-    Files with ``power_convention`` = :data:`~cluttersim.radar.POWER_CONVENTION` are
+    Files with ``power_convention`` = :data:`~cluttersim.physics.radar.POWER_CONVENTION` are
     returned as they are. Files without the attribute were written with power per
     delay sample (the facet power spread over bins of Δt, convolved with a pulse
     kernel summing to 1): a diffuse echo of power density ρ per unit delay read ρ Δt
@@ -461,7 +461,7 @@ def to_current_convention(ds: xr.Dataset, *, source="radargram") -> xr.Dataset:
     as they were (they had no spherical divergence then). A file without the radar
     attributes (not written by cluttersim) is returned unchanged.
     """
-    from ..radar import LEGACY_POWER_CONVENTION, POWER_CONVENTION, effective_pulse_duration_s
+    from ..physics.radar import LEGACY_POWER_CONVENTION, POWER_CONVENTION, effective_pulse_duration_s
 
     convention = ds.attrs.get("power_convention", LEGACY_POWER_CONVENTION)
     if convention == POWER_CONVENTION:

@@ -3,8 +3,8 @@
 :func:`accumulate_complex` sums every facet's field with a random phase per facet (the coherent
 mode of the diffuse model); :func:`accumulate_specular` is the specular (physical-optics) field.
 
-See :mod:`cluttersim.physical_optics` for the physics. Here each front-facing facet
-(or sub-facet, :func:`cluttersim.physical_optics.subdivisions`) is deposited as its
+See :mod:`cluttersim.physics.physical_optics` for the physics. Here each front-facing facet
+(or sub-facet, :func:`cluttersim.physics.physical_optics.subdivisions`) is deposited as its
 range distribution — a trapezoid whose widths are the projections |e_a·û|, |e_b·û|
 of its edges on the line of sight — times its complex amplitude and the carrier
 e^{−j2kr}, integrated *exactly* over each cell of a fine delay grid. Summed over the
@@ -32,7 +32,7 @@ import math
 import numba
 import numpy as np
 
-from .. import physical_optics
+from ..physics import physical_optics
 from ..constants import SPEED_OF_LIGHT_M_S
 from .common import _JIT, SIDE_LEFT, SIDE_NADIR, SIDE_RIGHT
 from .tiling import _tile_reaches_window, hidden_from_antenna
@@ -139,13 +139,13 @@ def accumulate_specular(ant, right_unit, strip_half_m, bin0_s, dt_s, cells_per_s
                         tile_slab, tile_offsets, rel, normal, e_col, e_row, area, wavenumber, amp_const, rms_height_m, inv_radius_m, frames,
                         weighting, shadow_heights, facet_cell, nadir_rc, ant_h, h_max, max_extent_m, out):  # fmt: skip
     """Complex specular echo per delay cell: ``out[t, m]`` += Σ over facets of the field
-    (:mod:`cluttersim.physical_optics`) falling in cell m of trace t.
+    (:mod:`cluttersim.physics.physical_optics`) falling in cell m of trace t.
 
     Cell m of trace t covers the two-way delays bin0_s[t] + [m, m+1) dt / ``cells_per_sample``.
     A facet (or sub-facet s of A_s = A/n²) at range R_s, direction û_s and incidence θ_s
     contributes ``amp_const`` · √χ · √w · cos θ_s A_s / R_s² spread as its range trapezoid
     times e^{−j2kR} (``wavenumber`` = k), with χ = exp(−(2k σh cos θ)²) the coherent share
-    (:func:`cluttersim.physical_optics.coherent_power_fraction`, σh = ``rms_height_m`` at the
+    (:func:`cluttersim.physics.physical_optics.coherent_power_fraction`, σh = ``rms_height_m`` at the
     facet's centre incidence). Sub-facets follow the body's curvature (``inv_radius_m`` =
     1/Rp; 0 for flat facets): a DEM facet is the tangent plane at its cell, and over a facet
     as wide as the Fresnel zone the reference surface's own curvature decides how much of the

@@ -12,7 +12,7 @@ from .common import _JIT
 
 @numba.njit(**_JIT)
 def geodetic_to_ecef(lat_deg, lon_deg, h_m, a_m, e2):
-    """Geodetic → body-fixed Cartesian (see :meth:`cluttersim.body.Body.geodetic_to_ecef_m`)."""
+    """Geodetic → body-fixed Cartesian (see :meth:`cluttersim.physics.body.Body.geodetic_to_ecef_m`)."""
     lat = math.radians(lat_deg)
     lon = math.radians(lon_deg)
     s = math.sin(lat)

@@ -9,7 +9,7 @@ import math
 import numba
 import numpy as np
 
-from .. import scattering
+from ..physics import scattering
 from .common import _JIT
 
 
@@ -22,7 +22,7 @@ _sigma0_gaussian = numba.njit(inline="always", **_JIT)(scattering.sigma0_gaussia
 
 @numba.njit(inline="always", **_JIT)
 def sigma0_by_code(code, cos_inc, p0, p1):
-    """σ0 of the law with numeric ``code`` (see :data:`cluttersim.scattering.LAWS`), one value."""
+    """σ0 of the law with numeric ``code`` (see :data:`cluttersim.physics.scattering.LAWS`), one value."""
     if code == 3:
         return _sigma0_hagfors(cos_inc, p0, p1)
     if code == 0:
@@ -50,7 +50,7 @@ def sigma0_factor(code, p0, p1):
 def sigma0_apply32(code, cos_inc, sin2, p0, p1, q, out, n):
     """out[i] = q[i] σ0(cos_inc[i]) / :func:`sigma0_factor` for i < n, float32 buffers: Hagfors' law
     and the constant law in float32 (8 lanes on AVX2), the other laws in float64 per element.
-    Hagfors' law is :func:`cluttersim.scattering.sigma0_hagfors` written with float32 constants and
+    Hagfors' law is :func:`cluttersim.physics.scattering.sigma0_hagfors` written with float32 constants and
     with sin²θ given (``sin2``, from a cross product): 1 − cos²θ in float32 loses sin²θ near nadir,
     where σ0 ∝ (cos⁴θ + C sin²θ)^(−3/2) changes fastest (C = 400: 6e-5 relative per 1e-7 of
     sin²θ). (cos⁴θ + C sin²θ) ≥ min(1, C/2), so the float32 quotient stays in range for any C
@@ -79,7 +79,7 @@ def sigma0_apply32(code, cos_inc, sin2, p0, p1, q, out, n):
 def pattern_gain_two_way(params, frame, ux, uy, uz):
     """Two-way antenna pattern G(û)² toward unit direction û, in a trace's frame (rows: along-track,
     right, down). ``params`` = (code, dipole axis row, along beamwidth rad, across beamwidth rad,
-    dipole peak directivity); see :mod:`cluttersim.antenna` for the formulas."""
+    dipole peak directivity); see :mod:`cluttersim.physics.antenna` for the formulas."""
     code = params[0]
     if code == 1.0:
         ax = int(params[1])
@@ -103,7 +103,7 @@ def direction_weight(params, frame, vx, vy, vz, inv_r):
     """Weight of a facet at offset v from the antenna: the two-way antenna pattern
     (:func:`pattern_gain_two_way`, params[0:5]) times the along-track processing weight
     (params[5:8] = aperture code, aperture length (code 3: the resolution δ; code 1: table steps
-    per unit u), wavelength, then for code 1 the unfocused response table; :mod:`cluttersim.aperture`)."""
+    per unit u), wavelength, then for code 1 the unfocused response table; :mod:`cluttersim.physics.aperture`)."""
     ux = vx * inv_r
     uy = vy * inv_r
     uz = vz * inv_r

@@ -12,7 +12,7 @@ from matplotlib.patches import Patch
 from matplotlib.patheffects import withStroke
 
 from ..overlays import draw_noise_floor, draw_predicted_subsurface
-from ..radar import apparent_depth_m, delay_after_surface_s
+from ..physics.radar import apparent_depth_m, delay_after_surface_s
 from ..io.radargram import thin_traces
 from .style import (
     _figure_for, _finish, _LEGEND_STYLE, _new_figure, NO_DATA_COLOUR, _note_below, OVERLAY_COLOUR, power_db,
@@ -219,7 +219,7 @@ def plot_radargram(
     permittivity : float, optional
         Real relative permittivity ε′ ≥ 1. If given, a second y axis on the
         right shows the apparent depth below the nadir surface,
-        :func:`cluttersim.radar.apparent_depth_m` of the delay after the
+        :func:`cluttersim.physics.radar.apparent_depth_m` of the delay after the
         median nadir delay (see :func:`plot_side_radargram`).
     distance_axis : bool
         With a ``distance`` coordinate (or lat/lon), an along-track distance
@@ -362,7 +362,7 @@ def elevation_layers(ds, permittivity: float = 3.15, height_step_m: float | None
     Each sample's height assumes the echo came from straight below the antenna:
     above the nadir surface h = alt − c τ / 2 (free space), below it
     h = h_s − c (τ − τ_n) / (2 √ε′) (the apparent depth of
-    :func:`cluttersim.radar.apparent_depth_m`), with τ the absolute two-way
+    :func:`cluttersim.physics.radar.apparent_depth_m`), with τ the absolute two-way
     delay, τ_n the nadir delay and h_s = alt − c τ_n / 2 the nadir surface
     height. Off-nadir clutter therefore appears at the height it would have
     if it were below the antenna — the way an analyst reads such a view.
@@ -511,9 +511,9 @@ def nadir_reference_us(layers: RadargramLayers) -> tuple[float, float] | None:
 def depth_axis_functions(surface_us: float, permittivity: float):
     """Forward and inverse maps between the delay axis (µs) and apparent depth (m).
 
-    depth_m = :func:`~cluttersim.radar.apparent_depth_m` ((delay_us −
+    depth_m = :func:`~cluttersim.physics.radar.apparent_depth_m` ((delay_us −
     surface_us) · 1e-6 s, ε′), and its inverse through
-    :func:`~cluttersim.radar.delay_after_surface_s`; for
+    :func:`~cluttersim.physics.radar.delay_after_surface_s`; for
     ``Axes.secondary_yaxis(functions=...)``.
 
     Parameters

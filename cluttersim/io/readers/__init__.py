@@ -107,7 +107,7 @@ def read_product(path, file_format: str, *, field_map=(), geometry=None, axis_or
     field_map : ``FIELD=NAME[:UNIT]`` strings (see :mod:`.fields`)
     geometry : optional second product (a PDS label) whose tables hold the geometry
     axis_order : ``traces-samples`` or ``samples-traces`` to override the array's orientation
-    body : :class:`~cluttersim.body.Body`, needed when the product gives radii
+    body : :class:`~cluttersim.physics.body.Body`, needed when the product gives radii
     sample_interval_s, window_start_given, track_given : what the user gives instead
         (those fields are then not required from the product)
     """

@@ -140,5 +140,5 @@ def sigma0(law: str, incidence_deg, **params):
 def fresnel_reflectivity_normal(permittivity: float) -> float:
     """Normal-incidence Fresnel power reflectivity ρ = ((1 − √ε)/(1 + √ε))² of a
     half-space of real relative permittivity ε (e.g. Born & Wolf, *Principles of
-    Optics*, §1.5.3): :func:`cluttersim.subsurface.fresnel_power_reflectivity` from vacuum."""
+    Optics*, §1.5.3): :func:`cluttersim.physics.subsurface.fresnel_power_reflectivity` from vacuum."""
     return float(fresnel_power_reflectivity(1.0, permittivity))

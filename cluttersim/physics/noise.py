@@ -20,10 +20,10 @@ ionosphere, so without its low-frequency cut-off); outside that range a
 warning is given (below 2 MHz the galactic spectrum flattens and is absorbed).
 
 cluttersim's ``power`` is the compressed receiver output referred to its input
-(:data:`cluttersim.radar.POWER_CONVENTION`); on that scale the noise per sample
+(:data:`cluttersim.physics.radar.POWER_CONVENTION`); on that scale the noise per sample
 is P_n times the range window's equivalent noise bandwidth B τ_eff (1 for no
 window, 1.5 for Hann: its processing loss, [5]_), divided by the processing
-gains switched on in ``[processing]`` (:mod:`cluttersim.aperture`): the echo
+gains switched on in ``[processing]`` (:mod:`cluttersim.physics.aperture`): the echo
 stays at its radar-equation level and the noise drops, so power / noise is the
 output signal-to-noise ratio (Skolnik 2001, ch. 2).
 
@@ -56,8 +56,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .constants import BOLTZMANN_J_K
-from .errors import ConfigError
+from ..constants import BOLTZMANN_J_K
+from ..errors import ConfigError
 
 #: Standard reference temperature of a noise figure, K (IEEE; Friis 1944).
 REFERENCE_TEMPERATURE_K = 290.0

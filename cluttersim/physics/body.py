@@ -13,8 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 import pyproj
 
-from . import kernels
-from .errors import DemError
+from .. import kernels
+from ..errors import DemError
 
 
 @dataclass(frozen=True)

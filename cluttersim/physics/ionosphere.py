@@ -46,8 +46,8 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy.constants import electron_mass, elementary_charge, epsilon_0
 
-from .constants import SPEED_OF_LIGHT_M_S
-from .errors import ConfigError
+from ..constants import SPEED_OF_LIGHT_M_S
+from ..errors import ConfigError
 
 #: The constant of the ionospheric refractive index n ≈ 1 − K N / f², K = e²/(8π² ε0 m_e) ≈ 40.3 m³ s⁻²
 #: (Davies 1990); computed from CODATA constants (scipy.constants).
@@ -146,7 +146,7 @@ def disperse_radargram(ds, tec_el_m2: float, collision_frequency_hz: float = 0.0
 
     The radargram's ``power`` was compressed with the undisturbed pulse; without the
     power per delay bin behind it, each trace is convolved with the dispersed pulse's
-    power response |h_iono(kΔt)|² (:func:`cluttersim.radar.pulse_power_kernel`) normalised
+    power response |h_iono(kΔt)|² (:func:`cluttersim.physics.radar.pulse_power_kernel`) normalised
     to a sum of 1. A phase-only layer keeps ∫|h|², so a diffuse echo keeps its level and
     a point echo's peak drops by max|h_iono|² when the dispersion is much wider than the
     pulse (1/B); for a weak layer this smears the echo by one pulse width more than a
@@ -157,7 +157,7 @@ def disperse_radargram(ds, tec_el_m2: float, collision_frequency_hz: float = 0.0
 
     from scipy.ndimage import convolve1d
 
-    from .config import SimulationConfig
+    from ..config import SimulationConfig
     from .radar import pulse_power_kernel
 
     layer = IonosphereConfig(tec_el_m2=float(tec_el_m2), collision_frequency_hz=float(collision_frequency_hz))

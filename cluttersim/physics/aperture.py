@@ -50,7 +50,7 @@ from dataclasses import asdict, dataclass, replace
 import numpy as np
 from scipy.special import fresnel
 
-from .errors import ConfigError
+from ..errors import ConfigError
 
 #: Aperture mode → kernel code.
 APERTURES = {"none": 0, "unfocused": 1, "focused": 2}

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .constants import SPEED_OF_LIGHT_M_S
+from ..constants import SPEED_OF_LIGHT_M_S
 from .scattering import LAWS
 
 

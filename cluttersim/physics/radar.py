@@ -23,9 +23,9 @@ from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
-from .constants import SPEED_OF_LIGHT_M_S
-from .errors import ConfigError
-from .validate import MAX_TRANSMIT_POWER_W
+from ..constants import SPEED_OF_LIGHT_M_S
+from ..errors import ConfigError
+from ..validate import MAX_TRANSMIT_POWER_W
 
 #: Raised-cosine window coefficients a0 in w(f) = a0 + (1 − a0) cos(2πf/B), |f| ≤ B/2 ([3]_).
 RANGE_WINDOWS = {"none": 1.0, "hann": 0.5, "hamming": 0.54}
@@ -154,9 +154,9 @@ def pulse_amplitude_response(t_s, bandwidth_hz: float, window: str = "hann", cen
     """Complex amplitude response h(t) of the range-compressed pulse, normalised to max|h| = 1.
 
     Without an ionosphere this is :func:`compressed_pulse_amplitude` (real, peak 1 at t = 0).
-    With ``ionosphere`` (:class:`cluttersim.ionosphere.IonosphereConfig`) the pulse's spectrum
+    With ``ionosphere`` (:class:`cluttersim.physics.ionosphere.IonosphereConfig`) the pulse's spectrum
     is multiplied by the layer's two-way transfer function H(f) at RF frequency f = f_c + ν
-    (:func:`cluttersim.ionosphere.two_way_transfer`):
+    (:func:`cluttersim.physics.ionosphere.two_way_transfer`):
 
         h(t) = ∫ w(ν) H(f_c + ν) e^(i2πνt) dν / ∫ w(ν) dν,
 

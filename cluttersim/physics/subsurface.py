@@ -23,11 +23,11 @@ antenna's height above the nadir surface:
   ([5]_): 0.74 dB for Mars at 300 km, 1.4 dB for the Moon. The interface uses
   its image range R_eff (paraxial; the interface's radius Rp − d ≈ Rp);
 * the antenna's pattern gain toward nadir multiplies G (a horizontal half-wave
-  dipole's peak directivity, 1.64, :meth:`cluttersim.antenna.AntennaConfig.nadir_pattern_gain`).
+  dipole's peak directivity, 1.64, :meth:`cluttersim.physics.antenna.AntennaConfig.nadir_pattern_gain`).
 
 The predicted powers are the peak powers of specular echoes with no
 processing gain, on cluttersim's ``power`` scale
-(:data:`cluttersim.radar.POWER_CONVENTION`: a point-like specular echo reads
+(:data:`cluttersim.physics.radar.POWER_CONVENTION`: a point-like specular echo reads
 its received power at its peak sample); a rough interface or surface returns
 less. The ratio subsurface/surface is the robust number.
 
@@ -57,8 +57,8 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from .constants import SPEED_OF_LIGHT_M_S
-from .errors import ConfigError
+from ..constants import SPEED_OF_LIGHT_M_S
+from ..errors import ConfigError
 from .radar import delay_after_surface_s
 
 #: dB per neper of power ratio: 10 log10(e²) = 20 log10(e) ≈ 8.686.

@@ -29,7 +29,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy.special import sici
 
-from .errors import ConfigError
+from ..errors import ConfigError
 
 #: Pattern name → kernel code.
 PATTERNS = {"isotropic": 0, "dipole": 1, "gaussian": 2}
