@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.compare import CompareSettings, compare_many, compare_to_dir, format_summary
+from cluttersim.analysis.compare import CompareSettings, compare_many, compare_to_dir, format_summary
 from cluttersim.io.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
 from cluttersim.io.readers import ARCHIVE_SUFFIXES
 

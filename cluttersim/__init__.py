@@ -35,8 +35,13 @@ _EXPORTS = {
     "FigureOptions": "products",
     "radar_template": "template",
 }  # fmt: skip
-#: Submodules reachable as attributes of the package.
-_SUBMODULES = ("api", "compare", "survey", "sources", "report", "plots", "palette", "examples", "template", "products")
+#: Submodules reachable as attributes of the package → their module (``cluttersim.compare`` is
+#: :mod:`cluttersim.analysis.compare`).
+_SUBMODULES = {
+    "api": "api", "compare": "analysis.compare", "survey": "analysis.survey", "sources": "analysis.sources",
+    "report": "report", "plots": "plots", "palette": "palette", "examples": "examples", "template": "template",
+    "products": "products",
+}  # fmt: skip
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
 
@@ -47,7 +52,7 @@ def __getattr__(name):
         globals()[name] = value
         return value
     if name in _SUBMODULES:
-        return import_module(f".{name}", __name__)
+        return import_module(f".{_SUBMODULES[name]}", __name__)
     raise AttributeError(f"module 'cluttersim' has no attribute {name!r}")
 
 

@@ -218,8 +218,8 @@ class SimulationConfig:
                     f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise], "
                     "[subsurface], [ionosphere], [dem_error] and [[band]]"
                 )
-        if "dem_error" in data:  # read by cluttersim.dem_error.DemErrorConfig.from_toml; checked here
-            from .dem_error import DemErrorConfig
+        if "dem_error" in data:  # read by cluttersim.analysis.dem_error.DemErrorConfig.from_toml; checked here
+            from .analysis.dem_error import DemErrorConfig
 
             DemErrorConfig.from_dict(data["dem_error"])
         radar_data = data.get("radar", {})

@@ -96,9 +96,9 @@ def simulate_to_dir(
     ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
     and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
 
-    A track that needs segments (:func:`cluttersim.segments.plan_segments`), or any
-    track with a Dask ``engine`` (:class:`cluttersim.survey.Engine`), is streamed:
-    :func:`cluttersim.segments.run_segments_to_dir` writes each finished segment to
+    A track that needs segments (:func:`cluttersim.analysis.segments.plan_segments`), or any
+    track with a Dask ``engine`` (:class:`cluttersim.analysis.survey.Engine`), is streamed:
+    :func:`cluttersim.analysis.segments.run_segments_to_dir` writes each finished segment to
     ``OUT/segments/`` (resumed after an interruption) and joins them into
     ``radargram.nc`` without holding the whole radargram. ``summary``, if given, is
     filled with ``segments``, ``resumed`` and ``computed``.
@@ -111,7 +111,7 @@ def simulate_to_dir(
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
-    from . import segments
+    from .analysis import segments
     from .config import default_config
 
     config = config if config is not None else default_config()

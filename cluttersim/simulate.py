@@ -36,7 +36,7 @@ from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
 from .physics.noise import add_complex_noise, add_noise_by_pulse
 from .physics.antenna import trace_frames
-from .attribution import first_return, right_unit_vectors, side_fractions
+from .analysis.attribution import first_return, right_unit_vectors, side_fractions
 from .physics.radar import (
     POWER_CONVENTION,
     POWER_CONVENTION_TEXT,
@@ -131,9 +131,9 @@ def simulate(
         (:func:`cluttersim.memory.estimate_memory_bytes`) exceeds this; "auto":
         80 % of the available memory; None: no check.
     segment_traces : int, "auto" or None
-        Pulses per segment (:mod:`cluttersim.segments`): a long track is simulated in
+        Pulses per segment (:mod:`cluttersim.analysis.segments`): a long track is simulated in
         segments, each with its own DEM window, so memory is bounded by one segment.
-        "auto": one piece when the whole track fits :data:`cluttersim.segments.SEGMENT_BUDGET_BYTES`,
+        "auto": one piece when the whole track fits :data:`cluttersim.analysis.segments.SEGMENT_BUDGET_BYTES`,
         else segments of the size that reads the fewest DEM cells; None: one piece.
     first_pulse : int
         Index of this track's first pulse in a longer track it is a segment of (the
@@ -167,7 +167,7 @@ def simulate(
     if len(track) < proc.presum:
         raise TrackError(f"{track.source}: {len(track)} pulses, fewer than [processing] presum = {proc.presum}")
     if segment_traces is not None:
-        from . import segments
+        from .analysis import segments
 
         plan = segments.plan_segments(src, track, config, sources=sources, segment_traces=segment_traces,
                                       max_memory_bytes=max_memory_bytes)  # fmt: skip
@@ -486,7 +486,7 @@ def prepare_scene(
     """Read the DEM window a track needs, build its facets and each trace's recording window.
 
     ``range_margin_m`` widens the DEM window as if every window reached that much farther
-    (the DEM-error Monte Carlo, :mod:`cluttersim.dem_error`, raises terrain by up to it).
+    (the DEM-error Monte Carlo, :mod:`cluttersim.analysis.dem_error`, raises terrain by up to it).
 
     Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
     below the terrain, or windows that cannot hold any surface echo, and

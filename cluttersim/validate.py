@@ -73,7 +73,7 @@ def central_angle_deg(lat1, lon1, lat2, lon2):
 
 def check_trace_steps(lat_deg, lon_deg, source: str) -> None:
     """Refuse consecutive traces more than :data:`MAX_TRACE_STEP_DEG` apart (TrackError). Traces at
-    the same position are allowed (a hovering platform); :func:`cluttersim.attribution.right_unit_vectors`
+    the same position are allowed (a hovering platform); :func:`cluttersim.analysis.attribution.right_unit_vectors`
     gives them the direction of travel of the nearest moving trace, with a warning."""
     lat = np.asarray(lat_deg, dtype=np.float64)
     lon = np.asarray(lon_deg, dtype=np.float64)

@@ -23,7 +23,7 @@ import math
 import numpy as np
 from scipy.interpolate import CubicSpline
 
-from cluttersim.compare_grid import bandwidth_of
+from cluttersim.analysis.compare_grid import bandwidth_of
 from cluttersim.io.observed import ObservedRadargram
 
 C = 299_792_458.0  # m/s, SI definition

@@ -10,7 +10,7 @@ import pytest
 from cluttersim import SimulationConfig, SurfaceConfig
 from cluttersim.products import simulate_to_dir
 from cluttersim.physics.radar import RadarConfig
-from cluttersim.sources import load_run, side_centroids
+from cluttersim.analysis.sources import load_run, side_centroids
 from scenes import UTM_X0_M, UTM_Y0_M, to_utm, utm_track
 from test_attribution import AIRBORNE, C, dome_scene
 

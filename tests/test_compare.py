@@ -18,12 +18,12 @@ from scipy.interpolate import CubicSpline
 from scipy.optimize import brentq
 
 from cluttersim import Track, simulate
-from cluttersim.compare import CompareSettings, body_of, compare, compare_to_dir, match_traces
-from cluttersim.compare_detect import (
+from cluttersim.analysis.compare import CompareSettings, body_of, compare, compare_to_dir, match_traces
+from cluttersim.analysis.compare_detect import (
     NoiseFloor, candidate_score, continuity_fraction, detect_unexplained, gamma_looks_sf, noise_floor,
     parabolic_peak_offset, ratio_p_value,
 )  # fmt: skip
-from cluttersim.compare_grid import cubic_convolution, resample_bin_mean_power
+from cluttersim.analysis.compare_grid import cubic_convolution, resample_bin_mean_power
 from cluttersim.io.observed import ObservedRadargram
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 from test_attribution import AIRBORNE, config

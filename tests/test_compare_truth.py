@@ -19,8 +19,8 @@ from matplotlib import cbook
 
 from cluttersim import simulate
 from cluttersim.physics.body import Body
-from cluttersim.compare import CompareSettings, compare
-from cluttersim.compare_grid import bandwidth_of
+from cluttersim.analysis.compare import CompareSettings, compare
+from cluttersim.analysis.compare_grid import bandwidth_of
 from cluttersim.config import SimulationConfig, SurfaceConfig, default_config
 from cluttersim.physics.radar import RadarConfig
 from cluttersim.track import great_circle_track

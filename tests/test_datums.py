@@ -188,7 +188,7 @@ def test_declared_height_unit_feet(tmp_path):
     delay, _ = simulate_cli(tmp_path, dem, "--dem-height-unit", "ft")
     np.testing.assert_allclose(delay, 2 * (H_TRACK - 304.8) / C, rtol=0, atol=2e-11)
     # the run records the declared unit: its scene rebuilt later (sources, report) has the same heights
-    from cluttersim.sources import load_run
+    from cluttersim.analysis.sources import load_run
 
     run = load_run(tmp_path / "run0")
     assert np.nanmax(np.abs(run.scene.window.elevation_m - 304.8)) < 1e-9

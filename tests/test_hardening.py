@@ -564,7 +564,7 @@ def test_the_lock_is_reentrant_and_leaves_nothing(tmp_path):
 
 def test_survey_resume_key_follows_the_dem_content(massif, tmp_path):
     """Same path, same size, one pixel changed: the finished tracks are not reused."""
-    from cluttersim.survey import dem_digest
+    from cluttersim.analysis.survey import dem_digest
 
     dem = tmp_path / "dem.tif"
     dem.write_bytes(massif.read_bytes())
@@ -625,7 +625,7 @@ def test_unknown_vertical_unit_is_refused(tmp_path):
 
 def test_survey_grid_on_a_crs_in_feet_has_cells_of_grid_km(tmp_path):
     """EPSG:2229 (California zone 5, US survey feet): --grid-km 1 gives 1000 m cells, 3280.8 ft."""
-    from cluttersim.survey import SurveyConfig, SurveyGrid
+    from cluttersim.analysis.survey import SurveyConfig, SurveyGrid
 
     crs = pyproj.CRS("EPSG:2229")
     x0, y0 = 6_500_000.0, 1_900_000.0  # ft

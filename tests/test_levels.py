@@ -260,7 +260,7 @@ def test_a_survey_track_file_without_the_convention_is_rescaled(tmp_path):
     surface_power is rescaled by τ_eff/Δt = 4 for the default radar (1.5/(10 MHz × 37.5 ns))."""
     import xarray as xr
 
-    from cluttersim.survey import TrackResult, read_track_result, write_track_result
+    from cluttersim.analysis.survey import TrackResult, read_track_result, write_track_result
 
     res = TrackResult(track_id="a", lat_deg=np.zeros(3), lon_deg=np.zeros(3), index_db=np.array([-3.0, 0.0, 2.0]),
                       fraction=np.zeros(3), depth_m=np.zeros(3), surface_power_w=np.full(3, 2e-13), truncated=0,

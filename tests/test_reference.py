@@ -126,7 +126,7 @@ def _kernel_matches_reference_with_frames(src, track, cfg):
     along-track processing need them): total power per trace to 1e-5. Returns the reference's
     binned power and that of the same radar without pattern or processing."""
     from cluttersim.physics.antenna import trace_frames
-    from cluttersim.attribution import right_unit_vectors
+    from cluttersim.analysis.attribution import right_unit_vectors
 
     scene = prepare_scene(src, track, cfg)
     dt = cfg.radar.sample_interval_s

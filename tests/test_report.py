@@ -272,7 +272,7 @@ def test_a_5000_trace_report_stays_under_30_mb(tmp_path):
 
 def make_comparison(d):
     """A comparison directory: the hill scene of tests/test_compare.py observed with a reflector 40 m deep."""
-    from cluttersim.compare import compare_to_dir
+    from cluttersim.analysis.compare import compare_to_dir
     from test_compare import DT, hill_scene, observe
 
     dem, track, cfg = hill_scene(d)

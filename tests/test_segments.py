@@ -14,8 +14,8 @@ from cluttersim.physics.noise import NoiseConfig
 from cluttersim.products import simulate_to_dir
 from cluttersim.physics.radar import RadarConfig
 from cluttersim.io.radargram import open_radargram
-from cluttersim import segments
-from cluttersim.segments import plan_segments
+from cluttersim.analysis import segments
+from cluttersim.analysis.segments import plan_segments
 from scenes import UTM_X0_M, UTM_Y0_M, utm_track, write_utm
 
 N_CELLS, RES_M = 240, 50.0  # 12 km square, 50 m cells

@@ -156,7 +156,7 @@ def test_cli_run_with_noise_and_subsurface_tables_round_trips(tmp_path):
     from click.testing import CliRunner
 
     from cli.main import cli
-    from cluttersim.sources import load_run
+    from cluttersim.analysis.sources import load_run
     from scenes import write_geotiff
 
     dem = write_geotiff(tmp_path / "dem.tif", np.zeros((100, 100)), -0.5, 0.5, 0.01)

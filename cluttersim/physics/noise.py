@@ -241,7 +241,7 @@ def add_noise_by_pulse(power_w, noise_power_w_: float, seed_words: tuple[int, ..
     row's index in the whole track (``first_pulse`` + row).
 
     Each pulse's noise is then fixed by its place in the track alone, whatever part of the
-    track a run computes: a track simulated in segments (:mod:`cluttersim.segments`), on any
+    track a run computes: a track simulated in segments (:mod:`cluttersim.analysis.segments`), on any
     number of workers, gets the noise of the same track simulated in one piece.
     """
     power = np.asarray(power_w)

@@ -11,7 +11,7 @@ from matplotlib import colormaps
 from matplotlib.patches import Patch
 from matplotlib.patheffects import withStroke
 
-from ..overlays import draw_noise_floor, draw_predicted_subsurface
+from .overlays import draw_noise_floor, draw_predicted_subsurface
 from ..physics.radar import apparent_depth_m, delay_after_surface_s
 from ..io.radargram import thin_traces
 from .style import (
@@ -229,7 +229,7 @@ def plot_radargram(
 
     If ``ds`` has ``noise_power`` its level is marked on the colour bar, and if
     it has ``predicted_subsurface_delay`` that delay is drawn as a line
-    (:mod:`cluttersim.overlays`).
+    (:mod:`cluttersim.plots.overlays`).
 
     Returns
     -------

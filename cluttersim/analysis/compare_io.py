@@ -1,6 +1,6 @@
 """Products of a comparison: ``comparison.nc``, the candidate table (CSV, GeoJSON), figures, summary; many tracks at once.
 
-Part of the comparison (:mod:`cluttersim.compare`). GeoJSON follows RFC 7946
+Part of the comparison (:mod:`cluttersim.analysis.compare`). GeoJSON follows RFC 7946
 ([1]_): points as [longitude, latitude] in degrees, longitudes in −180…180.
 
 References
@@ -19,8 +19,8 @@ import numpy as np
 import xarray as xr
 from scipy import special
 
-from .errors import ObservedDataError
-from .io.outputs import atomic_paths, check_new
+from ..errors import ObservedDataError
+from ..io.outputs import atomic_paths, check_new
 
 #: File names of a comparison directory.
 COMPARE_FILES = {
@@ -36,7 +36,7 @@ COMBINED_FILES = {"candidates": "candidates.csv", "geojson": "candidates.geojson
 def with_figure_format(files: dict[str, str], fmt: str = "png") -> dict[str, str]:
     """File names (:data:`COMPARE_FILES`, :data:`COMBINED_FILES`) with the figures in format ``fmt``
     (png, pdf, svg; :func:`cluttersim.products.figure_name`)."""
-    from .products import figure_name
+    from ..products import figure_name
 
     return {k: figure_name(v, fmt) for k, v in files.items()}
 
@@ -177,9 +177,9 @@ def write_comparison(result, paths: dict[str, Path], sim_ds=None, figures=None) 
     ``figures`` (:class:`cluttersim.products.FigureOptions`): resolution and format of the figures,
     and ``db_range``, the largest dynamic range of the side-by-side and overlay figures' shared
     power scale (default :data:`COMPARISON_DB_RANGE`; the difference figure keeps its ±dB scale)."""
-    from . import plots
-    from .products import FigureOptions
-    from .io.radargram import save_netcdf, write_netcdf_to
+    from .. import plots
+    from ..products import FigureOptions
+    from ..io.radargram import save_netcdf, write_netcdf_to
 
     figures = figures or FigureOptions()
     save = {"dpi": figures.dpi, "fmt": figures.fmt}
@@ -342,7 +342,7 @@ def read_track_list(path) -> list[dict]:
     ``radar`` (with ``dem``) and ``values`` (``power``, ``amplitude`` or ``db``;
     default power). Every row is checked before any comparison runs.
     """
-    from .io.observed import VALUE_KINDS
+    from ..io.observed import VALUE_KINDS
 
     path = Path(path)
     try:
@@ -411,12 +411,12 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
                  max_memory_bytes="auto", on_result=None, tec_el_m2=None, figures=None):  # fmt: skip
     """Compare every track of a list (:func:`read_track_list`) and combine their candidates.
 
-    Each row's products go to ``out_dir/<name>/`` (as :func:`~cluttersim.compare.compare_to_dir`);
+    Each row's products go to ``out_dir/<name>/`` (as :func:`~cluttersim.analysis.compare.compare_to_dir`);
     the combined ``candidates.csv`` and ``candidates.geojson`` (a ``track``
     column/property first, ranked by score over all tracks) and
     ``candidates_map.png`` (the tracks and their candidates) go to ``out_dir``.
     ``on_result(name, Comparison)`` is called after each track; ``tec_el_m2``
-    applies to every row (see :func:`~cluttersim.compare.compare_to_dir`), and so do
+    applies to every row (see :func:`~cluttersim.analysis.compare.compare_to_dir`), and so do
     ``figures`` (:class:`cluttersim.products.FigureOptions`; the map too).
 
     Returns
@@ -424,8 +424,8 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
     (list of (name, Comparison), dict of Path)
     """
     from .compare import compare_to_dir
-    from .config import SimulationConfig
-    from .io.observed import ObservedFormat
+    from ..config import SimulationConfig
+    from ..io.observed import ObservedFormat
 
     jobs = read_track_list(list_path)
     out_dir = Path(out_dir)
@@ -460,7 +460,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
         write_candidates_csv(rows, t_csv, extra_columns=("track", "track_rank"))
         write_candidates_geojson(rows, t_json, source=str(list_path),
                                  extra_properties=lambda c: {"track": c["track"], "track_rank": c["track_rank"]})  # fmt: skip
-        from .plots import plot_candidate_map
+        from ..plots import plot_candidate_map
 
         plot_candidate_map(results, t_png, dpi=figures.dpi if figures else None, fmt=fmt)
     return results, combined

@@ -1,5 +1,5 @@
-"""The clutter index of a trace and its level-ground reference (used by :mod:`cluttersim.survey`
-and :mod:`cluttersim.plan`; the definitions are in :mod:`cluttersim.survey`'s docstring).
+"""The clutter index of a trace and its level-ground reference (used by :mod:`cluttersim.analysis.survey`
+and :mod:`cluttersim.analysis.plan`; the definitions are in :mod:`cluttersim.analysis.survey`'s docstring).
 
 * :func:`clutter_index`: per trace, the clutter index I, clutter fraction F, apparent depth of the
   strongest clutter and the nadir surface echo power, from a radargram with its source record;
@@ -19,10 +19,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .config import SimulationConfig
-from .io.dem import DemSource, DemWindow
-from .physics.radar import apparent_depth_m, delay_after_surface_s
-from .track import Track
+from ..config import SimulationConfig
+from ..io.dem import DemSource, DemWindow
+from ..physics.radar import apparent_depth_m, delay_after_surface_s
+from ..track import Track
 
 
 @dataclass(frozen=True)
@@ -110,8 +110,8 @@ def level_scene(src: DemSource, track: Track, h_nadir_m, config: SimulationConfi
     trace is above its nadir terrain."""
     from affine import Affine
 
-    from .constants import SPEED_OF_LIGHT_M_S
-    from .simulate import ground_radius_m
+    from ..constants import SPEED_OF_LIGHT_M_S
+    from ..simulate import ground_radius_m
 
     clearance = np.asarray(track.alt_m, dtype=np.float64) - np.asarray(h_nadir_m, dtype=np.float64)
     ok = np.flatnonzero(np.isfinite(clearance) & (clearance > 0))
@@ -177,7 +177,7 @@ def level_ground_index_db(src: DemSource, track: Track, h_nadir_m, config: Simul
     the built-in radar 100 km up); the survey reports every index relative to it,
     so level ground reads 0 dB. Returns NaN if no trace has a nadir echo.
     """
-    from .simulate import simulate
+    from ..simulate import simulate
 
     scene = level_scene(src, track, h_nadir_m, config, survey)
     if scene is None:

@@ -27,7 +27,7 @@ pulse's main lobe (±⌈1/(B Δt)⌉ samples) of t_n. Then
   the threshold T dB relative to the nadir echo;
 * a trace is clutter-prone when I ≥ T.
 
-Engines (:mod:`cluttersim.engines`): the tracks are independent; each job carries the DEM's
+Engines (:mod:`cluttersim.analysis.engines`): the tracks are independent; each job carries the DEM's
 path (never its pixels), the track and the configuration, and the worker reads only the DEM
 window its track needs. Locally a ``ProcessPoolExecutor`` (spawn context) runs
 them; with a scheduler they are Dask tasks (Dask is imported only then). Numba
@@ -53,21 +53,21 @@ from pathlib import Path
 import numpy as np
 
 from .clutter_index import clutter_index, level_ground_index_db, swath_half_width_m
-from .config import SimulationConfig, default_config
+from ..config import SimulationConfig, default_config
 from . import engines
-from .io.dem import DemSource, crs_linear_unit_m
-from .io.demcrs import vsi_path
+from ..io.dem import DemSource, crs_linear_unit_m
+from ..io.demcrs import vsi_path
 from .engines import Engine, _dask, _quiet_dask_logs, dask_client  # noqa: F401  (names segments and callers use here)
-from .errors import (
+from ..errors import (
     ClutterSimError,
     ConfigError,
     DemError,
     OutputExistsError,
     TrackError,
 )
-from .io.outputs import atomic_paths, check_new, hold_interrupts, locked_output
-from .physics.radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
-from .track import Track, TrackOverDem, great_circle_track, read_track_table
+from ..io.outputs import atomic_paths, check_new, hold_interrupts, locked_output
+from ..physics.radar import POWER_CONVENTION, delay_after_surface_s, effective_pulse_duration_s
+from ..track import Track, TrackOverDem, great_circle_track, read_track_table
 
 #: File names of a survey directory (per-track results go to ``tracks/<id>.nc``).
 SURVEY_FILES = {"csv": "survey.csv", "map_tif": "clutter_map.tif", "map_png": "clutter_map.png"}
@@ -376,7 +376,7 @@ def survey_track(job: TrackJob) -> TrackResult:
     """
     import numba
 
-    from .simulate import simulate
+    from ..simulate import simulate
 
     t0 = time.perf_counter()
     if job.numba_threads is not None:
@@ -392,7 +392,7 @@ def survey_track(job: TrackJob) -> TrackResult:
     survey = job.survey
     window_s = float(delay_after_surface_s(survey["max_depth_m"], survey["permittivity"]))
     mainlobe = radar.mainlobe_samples
-    from .constants import SPEED_OF_LIGHT_M_S
+    from ..constants import SPEED_OF_LIGHT_M_S
 
     h_nadir = np.asarray(ds["alt"].values, dtype=np.float64) - 0.5 * SPEED_OF_LIGHT_M_S * ds["nadir_delay"].values
     level_db = 0.0
@@ -498,7 +498,7 @@ def write_track_result(result: TrackResult, path) -> Path:
                "truncated_windows": result.truncated, "power_convention": POWER_CONVENTION,
                "level_ground_index_db": result.level_db, "swath_half_width_m": result.swath_m},
     )  # fmt: skip
-    from .io.radargram import save_netcdf
+    from ..io.radargram import save_netcdf
 
     with atomic_paths([path]) as (tmp,):
         save_netcdf(ds, tmp)
@@ -545,14 +545,14 @@ def _legacy_factor(ds, radar) -> float:
 
 def run_jobs(jobs, engine: Engine, on_result, task=None) -> None:
     """Run ``task(job)`` (a picklable module-level function; default :func:`survey_track`) for
-    every job on the engine (:func:`cluttersim.engines.run_jobs`), calling ``on_result`` with each
+    every job on the engine (:func:`cluttersim.analysis.engines.run_jobs`), calling ``on_result`` with each
     result as it completes. Jobs need ``track_id``, ``key`` and ``numba_threads`` fields (as
     :class:`TrackJob`)."""
     engines.run_jobs(jobs, engine, on_result, task or survey_track)
 
 
 def _dask_survey_track(job: TrackJob, task=None) -> TrackResult:
-    """The Dask task of :mod:`cluttersim.engines` running :func:`survey_track` (or ``task``)."""
+    """The Dask task of :mod:`cluttersim.analysis.engines` running :func:`survey_track` (or ``task``)."""
     return engines._dask_task(job, task or survey_track)
 
 
@@ -866,7 +866,7 @@ def track_rows(body, results, threshold_db: float) -> list[dict]:
 
 def survey_files(out_dir, fmt: str = "png") -> dict[str, Path]:
     """Paths of a survey's products (:data:`SURVEY_FILES`), the map figure in format ``fmt``."""
-    from .products import figure_name
+    from ..products import figure_name
 
     return {k: Path(out_dir) / figure_name(v, fmt) for k, v in SURVEY_FILES.items()}
 
@@ -893,8 +893,8 @@ def write_survey_products(src: DemSource, config: SurveyConfig, grid: SurveyGrid
     import rasterio
     from rasterio.crs import CRS as RioCRS
 
-    from . import plots
-    from .products import FigureOptions, MapFrame
+    from .. import plots
+    from ..products import FigureOptions, MapFrame
 
     figures = figures or FigureOptions()
     below_db, above_db = survey_map_range_db(figures.db_range)

@@ -1,6 +1,6 @@
 """Comparison grids: pairing observed with simulated traces, resampling in delay, surface windows.
 
-Part of the comparison (:mod:`cluttersim.compare`): :func:`match_traces` pairs
+Part of the comparison (:mod:`cluttersim.analysis.compare`): :func:`match_traces` pairs
 each observed trace with the nearest simulated trace (in time when both tracks
 have it, else in position); :func:`resample_bin_mean_power` averages a power
 trace over the bins of another delay grid (for display and ``comparison.nc``);
@@ -24,8 +24,8 @@ import numpy as np
 import xarray as xr
 from scipy.spatial import cKDTree
 
-from .physics.body import Body
-from .errors import ObservedDataError
+from ..physics.body import Body
+from ..errors import ObservedDataError
 
 # --------------------------------------------------------------------------- 1. trace matching
 

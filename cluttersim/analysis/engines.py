@@ -22,7 +22,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from .errors import ClutterSimError, ConfigError
+from ..errors import ClutterSimError, ConfigError
 
 _SCHEDULER_RE = re.compile(r"^(tcp|tls|inproc|ucx)://[^\s/:]+(:\d{1,5})?$")
 
@@ -127,7 +127,7 @@ def _init_local_worker(threads: int, parent_pid: int | None = None) -> None:
 def run_jobs(jobs, engine: Engine, on_result, task, task_name=None) -> None:
     """Run ``task(job)`` (a picklable module-level function) for every job on the engine, calling
     ``on_result`` with each result as it completes. Jobs need ``track_id``, ``key`` and
-    ``numba_threads`` fields (as :class:`cluttersim.survey.TrackJob`); ``task_name(job)`` names
+    ``numba_threads`` fields (as :class:`cluttersim.analysis.survey.TrackJob`); ``task_name(job)`` names
     each Dask task (default ``cluttersim-survey-<key>-<track_id>``)."""
     if not engine.uses_dask:
         _run_local(jobs, engine.n_workers, on_result, task)

@@ -1,13 +1,13 @@
 """Delay alignment of an observed radargram with a simulated one, from the surface echo alone.
 
-Part of the comparison (:mod:`cluttersim.compare`). The observed data are
+Part of the comparison (:mod:`cluttersim.analysis.compare`). The observed data are
 modelled, sample by sample on their own grid, as a shifted, scaled copy of the
 simulated surface echo on a noise floor,
 
     o_k ≈ α_i · S_i(t_k − τ) + β_i,
 
 where S_i is the simulated power of trace i evaluated between its samples by
-cubic convolution (:func:`cluttersim.compare_grid.cubic_convolution`), τ the
+cubic convolution (:func:`cluttersim.analysis.compare_grid.cubic_convolution`), τ the
 timing offset (observed later than simulated: positive), α_i the trace's power
 scale and β_i its noise level. Only the leading edge and the peak of the
 surface echo enter, with a quiet lead-in before them where the model predicts
@@ -70,7 +70,7 @@ from scipy.ndimage import median_filter
 from tqdm.auto import tqdm
 
 from .compare_grid import cubic_convolution
-from .errors import ObservedDataError
+from ..errors import ObservedDataError
 
 #: σ of a normal distribution per median absolute deviation (Rousseeuw & Croux 1993).
 MAD_TO_SIGMA = 1.4826

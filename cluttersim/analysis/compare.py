@@ -2,20 +2,20 @@
 
 Steps (each in a module of its own, units in the names):
 
-1. :func:`~cluttersim.compare_grid.match_traces` pairs each observed trace with
+1. :func:`~cluttersim.analysis.compare_grid.match_traces` pairs each observed trace with
    the nearest simulated trace (in time when both tracks have it, else in
    position); pairs farther apart than a tolerance stay unmatched and are reported.
-2. :func:`~cluttersim.compare_align.estimate_delay_offset` fits the shifted,
+2. :func:`~cluttersim.analysis.compare_align.estimate_delay_offset` fits the shifted,
    scaled simulated surface echo (leading edge and peak only) to the observed
    samples: the timing offset with a jackknife uncertainty, and the power
    scale per trace (the gain).
-3. :func:`~cluttersim.compare_detect.noise_floor` estimates the observed
+3. :func:`~cluttersim.analysis.compare_detect.noise_floor` estimates the observed
    noise from the samples before the surface echo.
-4. :func:`~cluttersim.compare_detect.detect_unexplained` tests every observed
+4. :func:`~cluttersim.analysis.compare_detect.detect_unexplained` tests every observed
    sample against the predicted clutter-plus-noise power under speckle
    statistics: the unexplained ones, at a false-alarm probability per sample,
    are the candidates, ranked by a score.
-5. :mod:`cluttersim.compare_io` writes ``comparison.nc``, ``candidates.csv``,
+5. :mod:`cluttersim.analysis.compare_io` writes ``comparison.nc``, ``candidates.csv``,
    ``candidates.geojson`` and the figures; :func:`compare_many` runs a list of
    tracks into one table and map.
 
@@ -51,10 +51,10 @@ from .compare_io import (
     CANDIDATE_COLUMNS, COMPARE_FILES, comparison_dataset, compare_many, format_summary, write_candidates_csv,
     with_figure_format, write_candidates_geojson, write_comparison,
 )  # fmt: skip
-from .errors import ConfigError, ObservedDataError
-from .io.observed import ObservedRadargram
-from .io.outputs import check_new, locked_output
-from .physics.radar import apparent_depth_m
+from ..errors import ConfigError, ObservedDataError
+from ..io.observed import ObservedRadargram
+from ..io.outputs import check_new, locked_output
+from ..physics.radar import apparent_depth_m
 
 __all__ = [
     "CANDIDATE_COLUMNS", "COMPARE_FILES", "CompareSettings", "Comparison", "DelayOffset", "Detections", "GainFit",
@@ -361,7 +361,7 @@ def compare(observed: ObservedRadargram, sim_ds: xr.Dataset, settings: CompareSe
 
 @dataclass(frozen=True)
 class SimGridMasks(SampleVerdicts):
-    """The test's outcome (:class:`~cluttersim.compare_detect.SampleVerdicts`) carried onto the
+    """The test's outcome (:class:`~cluttersim.analysis.compare_detect.SampleVerdicts`) carried onto the
     simulated grid (matched traces × simulated samples).
 
     A simulated sample is *detected* / *unexplained* / a *candidate* when any
@@ -475,8 +475,8 @@ def compare_to_dir(
     -------
     (Comparison, dict of Path)
     """
-    from .io.observed import load_observed
-    from .io.radargram import open_radargram
+    from ..io.observed import load_observed
+    from ..io.radargram import open_radargram
 
     if (sim is None) == (dem is None):
         raise ObservedDataError("give either a simulated radargram or a DEM to simulate from, not both")
@@ -485,7 +485,7 @@ def compare_to_dir(
     if dem is not None:
         paths["simulation"] = out_dir / "radargram.nc"
     check_new(paths.values(), overwrite)
-    from .memory import check_observed_memory
+    from ..memory import check_observed_memory
 
     check_observed_memory(observed_path, max_memory_bytes, file_format=fmt.file_format if fmt else None,
                           raw_shape=fmt.raw_shape if fmt else None, variable=fmt.variable if fmt else None)  # fmt: skip
@@ -495,7 +495,7 @@ def compare_to_dir(
         sim_ds = open_radargram(sim, band=band)
         sim_source = str(sim)
         if tec_el_m2:
-            from .physics.ionosphere import disperse_radargram
+            from ..physics.ionosphere import disperse_radargram
 
             sim_ds = disperse_radargram(sim_ds, tec_el_m2)
             sim_source += f" through TEC {tec_el_m2:.3g} el/m²"
@@ -517,8 +517,8 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
     ``dem``: a path or a :class:`cluttersim.io.dem.DemSource` (e.g. with a declared height unit,
     recorded in the result's attributes as ``simulate_to_dir`` does).
     """
-    from .config import default_config
-    from .simulate import simulate
+    from ..config import default_config
+    from ..simulate import simulate
 
     config = config or default_config()
     if config.bands:
@@ -532,15 +532,15 @@ def simulate_expectation(dem, observed: ObservedRadargram, config=None, *, body_
                      radar=replace(config.radar, sample_interval_s=observed.sample_interval_s,
                                    samples=max(observed.n_samples, 2)))  # fmt: skip
     if tec_el_m2:
-        from .physics.ionosphere import IonosphereConfig
+        from ..physics.ionosphere import IonosphereConfig
 
         config = replace(config, ionosphere=IonosphereConfig(tec_el_m2=float(tec_el_m2)))
     sim_ds = simulate(dem, observed.track, config, body_radius_m=body_radius_m, progress=progress,
                       max_memory_bytes=max_memory_bytes)  # fmt: skip
-    from .io.dem import DemSource
+    from ..io.dem import DemSource
 
     if isinstance(dem, DemSource) and dem.height_scale_m != 1.0:  # a declared unit (--dem-height-unit), recorded
-        from .io.datums import HEIGHT_UNIT_ATTR  # so that `sources` and `report` read the DEM's heights as simulated
+        from ..io.datums import HEIGHT_UNIT_ATTR  # so that `sources` and `report` read the DEM's heights as simulated
 
         sim_ds.attrs[HEIGHT_UNIT_ATTR] = dem.height_scale_m
     name = dem.path.name if isinstance(dem, DemSource) else Path(dem).name

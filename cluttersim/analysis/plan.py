@@ -12,7 +12,7 @@ target are simulated and scored, coarse to fine::
     all results ──► ranked table (plan.csv), best track (best_track.csv), polar plot of the
                     objective vs heading, best and worst radargrams side by side
 
-Objective. For each trace, the clutter index of :func:`cluttersim.survey.clutter_index`
+Objective. For each trace, the clutter index of :func:`cluttersim.analysis.survey.clutter_index`
 evaluated over the target's depth window only: samples between the nadir echo and the
 apparent depth ``depth_min`` are left out (outside the nadir echo's main lobe), the window
 ends at ``depth_max`` (apparent depths for the real permittivity ε′). The candidate's
@@ -20,7 +20,7 @@ objective is the largest index over the target's traces (those whose nadir lies 
 ``target_radius_m`` of the target point, or inside the target polygon): the worst case at
 the target, lower is better. A candidate that has no trace on the target scores +inf. With ``PlanConfig.dem_error`` the
 candidates are ranked instead by the probability, over DEM realisations
-(:mod:`cluttersim.dem_error`, simulated on the target's traces only), that the objective reaches
+(:mod:`cluttersim.analysis.dem_error`, simulated on the target's traces only), that the objective reaches
 ``threshold_db`` (ties broken by the error-free objective).
 
 What makes headings differ. A trace's ranges to the terrain do not depend on the direction
@@ -51,12 +51,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .config import SimulationConfig, default_config
-from .io.dem import DemSource
-from .errors import ConfigError, TrackError
-from .io.outputs import atomic_paths, check_new
-from .physics.radar import delay_after_surface_s
-from .track import Track, TrackOverDem
+from ..config import SimulationConfig, default_config
+from ..io.dem import DemSource
+from ..errors import ConfigError, TrackError
+from ..io.outputs import atomic_paths, check_new
+from ..physics.radar import delay_after_surface_s
+from ..track import Track, TrackOverDem
 
 #: Products of a plan directory.
 PLAN_FILES = {"table": "plan.csv", "best_track": "best_track.csv", "polar": "objective_polar.png",
@@ -251,7 +251,7 @@ class CandidateResult:
 
 
 def depth_window_index_db(ds, depth_m, permittivity: float, threshold_db: float = 0.0) -> np.ndarray:
-    """Per trace, :func:`cluttersim.survey.clutter_index` over the apparent depths ``depth_m`` =
+    """Per trace, :func:`cluttersim.analysis.survey.clutter_index` over the apparent depths ``depth_m`` =
     (min, max) only: power between the nadir echo's main lobe and the minimum depth is left out."""
     return index_in_depth_window_db(
         ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,
@@ -286,7 +286,7 @@ def index_in_depth_window_db(power_w, left_fraction, right_fraction, window_star
 def clutter_probability(dem, track: Track, on_target, sim_config, error, depth_m, permittivity: float,
                         threshold_db: float, body_radius_m=None, max_memory_bytes="auto") -> tuple[float, float]:
     """The probability under DEM error that the objective reaches ``threshold_db``, and its binomial
-    standard error: the share of realisations (:func:`cluttersim.dem_error.simulate_dem_error`, on the
+    standard error: the share of realisations (:func:`cluttersim.analysis.dem_error.simulate_dem_error`, on the
     target's traces only) whose largest depth-window index over those traces is ≥ the threshold."""
     from .dem_error import simulate_dem_error
 
@@ -320,7 +320,7 @@ def plan_candidate(job: PlanJob) -> CandidateResult:
     """Simulate one candidate (:func:`cluttersim.simulate.simulate`, source record on) and score it."""
     import numba
 
-    from .simulate import simulate
+    from ..simulate import simulate
 
     t0 = time.perf_counter()
     if job.numba_threads is not None:
@@ -472,12 +472,12 @@ def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, 
     """Search (:func:`search`) and write the products (:data:`PLAN_FILES`) into ``out_dir``; ``figures``
     (:class:`cluttersim.products.FigureOptions`): the figures' resolution, format (png, pdf, svg: the
     suffix follows) and the best/worst radargrams' dynamic range (default 60 dB)."""
-    from .simulate import simulate
+    from ..simulate import simulate
     from .survey import survey_sim_config
 
     t0 = time.perf_counter()
     out_dir = Path(out_dir)
-    from .products import figure_name
+    from ..products import figure_name
 
     fmt = figures.fmt if figures is not None else "png"
     paths = {k: out_dir / figure_name(v, fmt) for k, v in PLAN_FILES.items()}
@@ -501,8 +501,8 @@ def write_plan_products(src, plan: PlanConfig, result: PlanResult, tracks: dict,
                         figures=None) -> None:  # fmt: skip
     """plan.csv (ranked), best_track.csv, objective_polar.png, best_worst.png — atomically (``figures``:
     :class:`cluttersim.products.FigureOptions`)."""
-    from .plots.planning import plot_best_worst, plot_objective_polar
-    from .products import FigureOptions
+    from ..plots.planning import plot_best_worst, plot_objective_polar
+    from ..products import FigureOptions
 
     figures = figures or FigureOptions()
     save = {"dpi": figures.dpi, "fmt": figures.fmt}

@@ -52,9 +52,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .io.dem import DemSource
-from .errors import ClutterSimError, OutputExistsError, TrackError
-from .track import Track, TrackOverDem
+from ..io.dem import DemSource
+from ..errors import ClutterSimError, OutputExistsError, TrackError
+from ..track import Track, TrackOverDem
 
 #: Largest estimated memory of one segment chosen by "auto", bytes (a whole run's peak stays
 #: under ~2 GB with the interpreter, the compiled kernels and the output of one segment).
@@ -92,8 +92,8 @@ def sub_track(track: Track, start: int, stop: int) -> Track:
 def _estimate(cells: int, pulses: int, config, sources: bool) -> int:
     import numba
 
-    from . import memory
-    from .simulate import OVERSAMPLE, TRACES_PER_BLOCK
+    from .. import memory
+    from ..simulate import OVERSAMPLE, TRACES_PER_BLOCK
 
     bands = max(1, len(config.band_names))
     pad = 64  # a pulse's padding is a few samples; a generous bound
@@ -109,7 +109,7 @@ def _reach_m(src: DemSource, track: Track, config, on_dem) -> np.ndarray:
     beside the track may reach further; each segment's own read finds its exact window)."""
     import rasterio
 
-    from .simulate import _max_range_m, ground_radius_m
+    from ..simulate import _max_range_m, ground_radius_m
 
     idx = np.flatnonzero(on_dem)
     pick = idx[np.unique(np.linspace(0, idx.size - 1, min(_PLAN_SAMPLES, idx.size)).astype(int))]
@@ -136,7 +136,7 @@ def plan_segments(src: DemSource, track: Track, config, *, sources: bool = True,
     or None (one segment). Pulses left over after the last full presum group are dropped
     from the plan (presumming drops them too).
     """
-    from . import memory
+    from .. import memory
 
     presum = config.processing.presum
     ntr = (len(track) // presum) * presum
@@ -158,7 +158,7 @@ def plan_segments(src: DemSource, track: Track, config, *, sources: bool = True,
         limit = memory.parse_size(limit)
     if limit is not None:
         budget = min(budget, int(limit))
-    from .simulate import _window_for_radius
+    from ..simulate import _window_for_radius
 
     rows, cols = src.lonlat_to_rowcol(track.lon_deg, track.lat_deg)
     on_dem = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
@@ -266,7 +266,7 @@ def track_gain_height_m(src: DemSource, track: Track, config, plan) -> float | N
 
 def segment_key(src: DemSource, job: SegmentJob) -> str:
     """A digest of everything that shapes a segment's result: the DEM (its path and a digest of its
-    content, :func:`cluttersim.survey.dem_digest`, as the survey keys its tracks), the
+    content, :func:`cluttersim.analysis.survey.dem_digest`, as the survey keys its tracks), the
     configuration and options, the segment's place in the track and its positions."""
     from .survey import dem_digest
 
@@ -284,7 +284,7 @@ def segment_key(src: DemSource, job: SegmentJob) -> str:
 def run_segment(job: SegmentJob, src: DemSource | None = None) -> SegmentResult:
     """Simulate one segment (in this process or a worker): its radargram with the trace
     coordinate numbered along the whole track."""
-    from .simulate import RunStats, simulate
+    from ..simulate import RunStats, simulate
 
     t0 = time.perf_counter()
     if job.numba_threads is not None:
@@ -317,7 +317,7 @@ def empty_segment(template, job: SegmentJob):
     (another segment): NaN everywhere but the antenna positions (and times), on_dem 0."""
     import xarray as xr
 
-    from .presum import presum_track
+    from ..presum import presum_track
 
     presum = job.config.processing.presum
     with warnings.catch_warnings():
@@ -353,7 +353,7 @@ def empty_segment(template, job: SegmentJob):
 def _whole_track_distance(ds):
     """The along-track ``distance`` coordinate counted from the whole track's first trace (each
     segment counts from its own)."""
-    from .io.radargram import with_trace_coordinates
+    from ..io.radargram import with_trace_coordinates
 
     if "distance" not in ds.variables:
         return ds
@@ -370,7 +370,7 @@ def simulate_in_segments(src: DemSource, track: Track, config, plan, *, body_rad
     import xarray as xr
     from tqdm.auto import tqdm
 
-    from .simulate import RunStats
+    from ..simulate import RunStats
 
     t0 = time.perf_counter()
     stats = stats if stats is not None else RunStats()
@@ -493,14 +493,14 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
     (:class:`cluttersim.products.FigureOptions`: dpi, png/pdf/svg, dB range; the names in
     ``paths`` carry the format's suffix, :func:`cluttersim.products.run_files`).
 
-    ``engine``: None (this process) or a :class:`cluttersim.survey.Engine` with a Dask
+    ``engine``: None (this process) or a :class:`cluttersim.analysis.survey.Engine` with a Dask
     scheduler: the segments run as Dask tasks carrying paths and arrays; the results
     are the same bytes as in this process.
     """
     from tqdm.auto import tqdm
 
-    from .io.radargram import write_netcdf_to
-    from .io.outputs import hold_interrupts
+    from ..io.radargram import write_netcdf_to
+    from ..io.outputs import hold_interrupts
     from .survey import _remove_stale_temporaries
 
     t0 = time.perf_counter()
@@ -537,7 +537,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
                 path = seg_dir / segment_file_name(job.index)
                 with hold_interrupts():
                     seg_dir.mkdir(parents=True, exist_ok=True)
-                    from .io.outputs import atomic_paths
+                    from ..io.outputs import atomic_paths
 
                     with atomic_paths([path]) as (tmp,):
                         write_netcdf_to(res.dataset, tmp)
@@ -586,9 +586,9 @@ def join_segments(src: DemSource, jobs, finished: dict, plan, paths: dict, facet
     :class:`cluttersim.products.FigureOptions`)."""
     import xarray as xr
 
-    from .io.outputs import atomic_paths
-    from .products import write_figures
-    from .io.radargram import open_radargram_lazy
+    from ..io.outputs import atomic_paths
+    from ..products import write_figures
+    from ..io.radargram import open_radargram_lazy
 
     opened = {i: xr.open_dataset(p, engine="h5netcdf", chunks={}) for i, p in finished.items()}
     try:
@@ -622,7 +622,7 @@ def _write_streamed_netcdf(ds, path) -> None:
     shuffle filter in chunks of :data:`JOIN_CHUNK_TRACES` traces, as :func:`cluttersim.io.radargram.write_netcdf_to`."""
     import dask
 
-    from .io.radargram import _DEFLATE_LEVEL, _DEFLATED
+    from ..io.radargram import _DEFLATE_LEVEL, _DEFLATED
 
     encoding = {}
     for name in _DEFLATED:

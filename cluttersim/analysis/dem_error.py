@@ -33,7 +33,7 @@ populations: variances add, common practice): Hagfors' C = 1/s² becomes
 
 The probability that an observed sample is explained by surface clutter
 (:func:`explained_probability`) is the share of realisations under which the
-comparison's test (:func:`cluttersim.compare.compare`) calls it explained.
+comparison's test (:func:`cluttersim.analysis.compare.compare`) calls it explained.
 """
 
 from __future__ import annotations
@@ -46,13 +46,13 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from . import kernels, memory, presum
-from .config import SimulationConfig, SurfaceConfig, default_config
-from .constants import SPEED_OF_LIGHT_M_S
-from .io.dem import DemSource, DemWindow
-from .errors import ConfigError, DemError, MemoryLimitError
-from .facets import _fill_holes, _lonlat_trig
-from .track import Track
+from .. import kernels, memory, presum
+from ..config import SimulationConfig, SurfaceConfig, default_config
+from ..constants import SPEED_OF_LIGHT_M_S
+from ..io.dem import DemSource, DemWindow
+from ..errors import ConfigError, DemError, MemoryLimitError
+from ..facets import _fill_holes, _lonlat_trig
+from ..track import Track
 
 #: Quantiles (fractions) reported per (trace, sample).
 QUANTILES = (0.05, 0.50, 0.95)
@@ -326,7 +326,7 @@ class _Realiser:
 
 def _tile_cells(facets) -> int:
     """The tile side (cells) the facets were built with, from their tile count and grid shape."""
-    from .facets import TILE_CELLS
+    from ..facets import TILE_CELLS
 
     ny, nx = facets.grid_shape
     ntile = facets.tile_offsets.size - 1
@@ -368,11 +368,11 @@ def simulate_dem_error(
     """
     from tqdm.auto import tqdm
 
-    from .physics.antenna import trace_frames
+    from ..physics.antenna import trace_frames
     from .attribution import right_unit_vectors
-    from .physics.radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
-    from .io.radargram import build_dataset, flatten_config_attrs
-    from .simulate import _compress, binned_power, prepare_scene
+    from ..physics.radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
+    from ..io.radargram import build_dataset, flatten_config_attrs
+    from ..simulate import _compress, binned_power, prepare_scene
 
     t_start = time.perf_counter()
     stats = stats if stats is not None else ErrorStats()
@@ -435,7 +435,7 @@ def simulate_dem_error(
         raise ConfigError("[dem_error] side shares per realisation need [processing] presum = 1")
     strip = None
     if sides:
-        from .physics.radar import pulse_limited_radius_m
+        from ..physics.radar import pulse_limited_radius_m
 
         alt = np.nan_to_num(track.alt_m - scene.h_nadir_m)[idx]
         strip = pulse_limited_radius_m(alt, radar.bandwidth_hz, body.mean_radius_m) * np.ones(idx.size)
@@ -453,7 +453,7 @@ def simulate_dem_error(
             power[idx[a:b]] = total
             if sides and k is not None:
                 from .attribution import side_fractions
-                from .kernels import SIDE_LEFT, SIDE_RIGHT
+                from ..kernels import SIDE_LEFT, SIDE_RIGHT
 
                 left = _compress(binned[:, SIDE_LEFT], scene.pulse_weights, pad, radar.samples)
                 right = _compress(binned[:, SIDE_RIGHT], scene.pulse_weights, pad, radar.samples)
@@ -550,7 +550,7 @@ def explained_probability(explained_by, realisations_w, detected) -> tuple[np.nd
     ``explained_by(power_w)`` is the comparison's rule applied with one realisation's simulated
     power (``realisations_w[k]``, (trace, sample) on the simulation's grid) in place of the
     simulation: a boolean array over the observed samples (the comparison,
-    :func:`cluttersim.compare.compare`, aligns, scales and tests exactly as it does for the mean).
+    :func:`cluttersim.analysis.compare.compare`, aligns, scales and tests exactly as it does for the mean).
     p is the fraction of the N realisations under which a sample is explained, NaN where the
     sample is not ``detected`` (no echo above the noise). Its Monte Carlo standard error is the
     binomial √(p(1 − p)/N).
@@ -574,7 +574,7 @@ def dem_error_paths(out_dir, fmt: str = "png") -> dict:
     """Paths of the DEM-error products in ``out_dir``, the figure in format ``fmt`` (png, pdf, svg)."""
     from pathlib import Path
 
-    from .products import figure_name
+    from ..products import figure_name
 
     return {k: Path(out_dir) / figure_name(v, fmt) for k, v in DEM_ERROR_FILES.items()}
 
@@ -583,9 +583,9 @@ def write_dem_error(ds: xr.Dataset, paths: dict, figures=None) -> None:
     """Write ``dem_error.nc`` (the Dataset of :func:`simulate_dem_error`) and ``dem_error.png``
     (:func:`cluttersim.plots.plot_dem_error`; ``figures``,
     :class:`cluttersim.products.FigureOptions`: dpi, format, dynamic range [default 60 dB]) atomically."""
-    from .io.outputs import atomic_paths
-    from .plots.planning import plot_dem_error
-    from .io.radargram import write_netcdf_to
+    from ..io.outputs import atomic_paths
+    from ..plots.planning import plot_dem_error
+    from ..io.radargram import write_netcdf_to
 
     with atomic_paths([paths["dem_error"], paths["dem_error_png"]]) as (nc, png):
         write_netcdf_to(ds, nc)

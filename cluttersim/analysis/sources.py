@@ -19,18 +19,18 @@ import numpy as np
 import xarray as xr
 from tqdm.auto import tqdm
 
-from . import kernels
-from .physics.antenna import trace_frames
+from .. import kernels
+from ..physics.antenna import trace_frames
 from .attribution import right_unit_vectors
-from .config import SimulationConfig
-from .io.datums import with_recorded_height_unit
-from .io.dem import DemSource
-from .errors import ClutterSimError, ConfigError
-from .physics.radar import apparent_depth_m, delay_after_surface_s
-from .products import MapFrame
-from .io.radargram import open_radargram
-from .simulate import Scene, prepare_scene, scene_for_band, shadow_inputs
-from .track import Track
+from ..config import SimulationConfig
+from ..io.datums import with_recorded_height_unit
+from ..io.dem import DemSource
+from ..errors import ClutterSimError, ConfigError
+from ..physics.radar import apparent_depth_m, delay_after_surface_s
+from ..products import MapFrame
+from ..io.radargram import open_radargram
+from ..simulate import Scene, prepare_scene, scene_for_band, shadow_inputs
+from ..track import Track
 
 
 @dataclass
@@ -138,7 +138,7 @@ def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
     Costs about three runs of ``simulate`` with the source record; not for
     coherent-mode runs (no sides).
     """
-    from .simulate import _compress, binned_power
+    from ..simulate import _compress, binned_power
 
     scene = run.scene
     cfg = scene.config
@@ -375,10 +375,10 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False, figu
     import rasterio
     from rasterio.crs import CRS as RioCRS
 
-    from . import plots
-    from .io.outputs import atomic_paths, check_new
+    from .. import plots
+    from ..io.outputs import atomic_paths, check_new
 
-    from .products import FigureOptions
+    from ..products import FigureOptions
 
     figures = figures or FigureOptions()
     stem = f"sources_{_depth_tag(smap.depth_min_m, smap.depth_max_m, smap.permittivity)}{_band_tag(run)}"
@@ -410,9 +410,9 @@ def write_source_map(run: Run, smap: SourceMap, *, overwrite: bool = False, figu
 def write_echo_answer(run: Run, answer: EchoAnswer, *, overwrite: bool = False, figures=None) -> Path:
     """Write a small map of the cells behind one echo as ``echo_t<N>_<delay>us.png`` in the run directory
     (``figures``: dpi and format, :class:`cluttersim.products.FigureOptions`)."""
-    from . import plots
-    from .io.outputs import atomic_paths, check_new
-    from .products import FigureOptions
+    from .. import plots
+    from ..io.outputs import atomic_paths, check_new
+    from ..products import FigureOptions
 
     figures = figures or FigureOptions()
     path = run.run_dir / f"echo_t{answer.trace}_{answer.delay_s * 1e6:.3f}us{_band_tag(run)}.{figures.fmt}"

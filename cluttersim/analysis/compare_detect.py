@@ -1,6 +1,6 @@
 """Noise floor, power scale and the statistical test for echoes surface clutter does not explain.
 
-Part of the comparison (:mod:`cluttersim.compare`). Everything here works on
+Part of the comparison (:mod:`cluttersim.analysis.compare`). Everything here works on
 the observed samples themselves (no resampling: averaging neighbouring
 samples would change their statistics) with the simulated power evaluated at
 their aligned delays.
@@ -50,7 +50,7 @@ import numpy as np
 from scipy import special
 from scipy.ndimage import maximum_filter1d
 
-from .errors import ObservedDataError
+from ..errors import ObservedDataError
 
 #: σ of a normal distribution per median absolute deviation ([4]_).
 MAD_TO_SIGMA = 1.4826
@@ -103,7 +103,7 @@ def noise_floor(observed, noise_mask, predicted=None) -> NoiseFloor:
     With ``predicted`` (the gain-matched simulated power at each sample), its
     mean over the same samples is subtracted: what the simulation itself puts
     before the surface (pulse sidelobes) is not noise. Noise-free data then
-    give a floor of 0 (see :func:`cluttersim.compare.input_warnings`).
+    give a floor of 0 (see :func:`cluttersim.analysis.compare.input_warnings`).
 
     ``noise_mask`` (n, m) marks the samples the model says hold noise alone
     (before the surface echo). If no trace has :data:`MIN_NOISE_SAMPLES` of
@@ -227,7 +227,7 @@ def ratio_p_value(mean_ratio, terms, noise_dof_samples, looks: float) -> np.ndar
 @dataclass(frozen=True)
 class SampleVerdicts:
     """The unexplained-echo test's outcome per sample of a grid (see :class:`Detections`; the
-    comparison carries it onto the simulated grid as :class:`cluttersim.compare.SimGridMasks`).
+    comparison carries it onto the simulated grid as :class:`cluttersim.analysis.compare.SimGridMasks`).
 
     Attributes
     ----------

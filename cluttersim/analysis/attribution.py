@@ -18,8 +18,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .physics.body import Body
-from .track import Track
+from ..physics.body import Body
+from ..track import Track
 
 
 def right_unit_vectors(body: Body, track: Track) -> np.ndarray:
