@@ -25,7 +25,7 @@ This is the Fourier transform of the facet's range distribution (a trapezoid, th
 projection of the parallelogram on the line of sight) at the two-way wavenumber 2k,
 which is how the kernel deposits it: as a trapezoid in delay multiplied by the
 carrier e^{−j2kr}, integrated exactly over each delay cell
-(:mod:`cluttersim.kernels_coherent`). Shared edges of neighbouring facets then
+(:mod:`cluttersim.kernels.coherent`). Shared edges of neighbouring facets then
 cancel in delay as well as in sum, as they do on a continuous surface.
 
 The linear phase is not enough for facets comparable to or larger than the Fresnel
@@ -136,7 +136,7 @@ def facet_integral(ant, centre, normal, e_a, e_b, wavenumber_rad_m: float, n: in
     Sum over n × n sub-parallelograms (n = 0: :func:`subdivisions`) of the closed form with the
     range linearised about each sub-facet's centre ([4]_): A_s cos θ_s / R_s² e^{−j2kR_s}
     sinc(k e_a·û_s / n) sinc(k e_b·û_s / n). Facets seen from behind give 0. This is the CW value;
-    the kernel spreads the same field over delay (:mod:`cluttersim.kernels_coherent`).
+    the kernel spreads the same field over delay (:mod:`cluttersim.kernels.coherent`).
 
     With ``body_radius_m`` the facet is bent onto the body's curvature (a DEM facet is the
     tangent plane at its cell): a sub-facet at in-plane offset o drops by |o|²/(2Rp) along the
