@@ -50,7 +50,7 @@ def main(argv=None) -> int:
 
     import tempfile
 
-    from cluttersim.dem_error import DemErrorConfig, ErrorStats, dem_error_paths, simulate_dem_error, write_dem_error
+    from cluttersim.analysis.dem_error import DemErrorConfig, ErrorStats, dem_error_paths, simulate_dem_error, write_dem_error
     from cluttersim.products import simulate_to_dir
     from cluttersim.simulate import simulate
 
