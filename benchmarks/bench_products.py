@@ -82,10 +82,25 @@ class Timer:
         return lambda: setattr(module, attr, inner)
 
 
+def _module(*names: str):
+    """The first of these modules that imports (the package's layout since 2026-12-03, then the
+    flat one before it, so that the same benchmark measures older commits too)."""
+    import importlib
+
+    for name in names[:-1]:
+        try:
+            return importlib.import_module(name)
+        except ModuleNotFoundError:
+            pass
+    return importlib.import_module(names[-1])
+
+
 def instrument(timer: Timer) -> list:
     """Time the library functions each product is made by (where their callers look them up)."""
-    from cluttersim import plots, products, sources
+    from cluttersim import plots, products
     from cluttersim.plots import style
+
+    sources = _module("cluttersim.analysis.sources", "cluttersim.sources")
 
     return [
         timer.wrap(products, "write_netcdf_to", "netcdf"),
@@ -102,8 +117,9 @@ def instrument(timer: Timer) -> list:
 
 def one_round(dem, track, cfg, out: Path, timer: Timer) -> None:
     """Simulate, write the run directory and its report into ``out`` (emptied first)."""
-    from cluttersim.dem import DemSource
     from cluttersim.products import RUN_FILES, run_files, write_run
+
+    DemSource = _module("cluttersim.io.dem", "cluttersim.dem").DemSource
     from cluttersim.report import write_report
     from cluttersim.simulate import simulate
 

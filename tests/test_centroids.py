@@ -9,8 +9,8 @@ import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig
 from cluttersim.products import simulate_to_dir
-from cluttersim.radar import RadarConfig
-from cluttersim.sources import load_run, side_centroids
+from cluttersim.physics.radar import RadarConfig
+from cluttersim.analysis.sources import load_run, side_centroids
 from scenes import UTM_X0_M, UTM_Y0_M, to_utm, utm_track
 from test_attribution import AIRBORNE, C, dome_scene
 
@@ -50,7 +50,7 @@ def test_side_centres_over_a_level_plane_are_the_centres_of_the_ring_outside_the
 def _centroids_with_three_passes(run, monkeypatch):
     """side_centroids with its unweighted pass run by the kernel, as before the run's own side power
     was used for it."""
-    from cluttersim import sources
+    from cluttersim.analysis import sources
 
     with monkeypatch.context() as m:
         m.setattr(sources, "_recorded_side_power", lambda run: None)
@@ -64,7 +64,7 @@ def test_centroids_from_the_recorded_side_power_equal_those_of_a_third_kernel_pa
     the float32 storage of power and shares (relative 6e-8 each, common practice: IEEE 754 single
     precision), which moves a centre by ~1e-7 of its weight (~1e-7°, 1 cm) — below one step of the
     float32 output (~4e-6° at these latitudes); allowed: 2 steps. Where a side has no power both give NaN."""
-    from cluttersim.sources import _recorded_side_power
+    from cluttersim.analysis.sources import _recorded_side_power
 
     dem = dome_scene(tmp_path)
     track = utm_track(np.full(9, UTM_X0_M - 200.0), UTM_Y0_M + np.linspace(-300, 300, 9), ALT_M)
@@ -88,8 +88,8 @@ def test_centroids_from_the_recorded_side_power_equal_those_of_a_third_kernel_pa
 def test_centroids_run_the_unweighted_pass_when_the_recorded_power_holds_more(tmp_path):
     """With specular reflection or receiver noise in the recorded power, its side shares are not those of
     the diffuse kernel pass: the centroids then run that pass themselves."""
-    from cluttersim.noise import NoiseConfig
-    from cluttersim.sources import _recorded_side_power
+    from cluttersim.physics.noise import NoiseConfig
+    from cluttersim.analysis.sources import _recorded_side_power
 
     dem = dome_scene(tmp_path)
     track = utm_track(np.full(5, UTM_X0_M - 200.0), UTM_Y0_M + np.linspace(-100, 100, 5), ALT_M)
