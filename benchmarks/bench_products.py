@@ -82,17 +82,18 @@ class Timer:
         return lambda: setattr(module, attr, inner)
 
 
-def _module(*names: str):
-    """The first of these modules that imports (the package's layout since 2026-12-03, then the
-    flat one before it, so that the same benchmark measures older commits too)."""
+def _module(new: str, old: str):
+    """Module ``new`` in the package's layout since 2026-12-03 (subpackages), else ``old`` (the flat
+    layout before it), so that the same benchmark measures older commits too. Chosen by the files
+    of the ``cluttersim`` imported (an editable install's finder may otherwise resolve ``new`` in
+    another tree)."""
     import importlib
 
-    for name in names[:-1]:
-        try:
-            return importlib.import_module(name)
-        except ModuleNotFoundError:
-            pass
-    return importlib.import_module(names[-1])
+    import cluttersim
+
+    sub = new.split(".")[1]
+    layout_new = (Path(cluttersim.__file__).parent / sub / "__init__.py").exists()
+    return importlib.import_module(new if layout_new else old)
 
 
 def instrument(timer: Timer) -> list:
