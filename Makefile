@@ -33,6 +33,7 @@ bench: $(VENV)/.installed
 	$(BIN)/python benchmarks/bench_simulate.py
 	$(BIN)/python benchmarks/bench_survey.py
 	$(BIN)/python benchmarks/bench_levels.py
+	$(BIN)/python benchmarks/bench_products.py
 
 clean:
 	rm -rf $(VENV) demo_output .pytest_cache
