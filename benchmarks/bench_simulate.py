@@ -10,7 +10,7 @@ second in total, per thread and per CPU-second of the kernel (``process_time``
 over its threads: on a shared machine the wall time depends on what else
 runs, this much less), the load average, peak resident memory, with the source
 record on and off, and with the benchmark-only centre-binned kernel variant
-(``simulate.DELAY_SPREADING``: each facet's power in the bin of its centre, a
+(``signals.DELAY_SPREADING``: each facet's power in the bin of its centre, a
 bound on what the delay spreading costs). Then:
 
 * the NumPy reference (:mod:`cluttersim.physics.reference`, no culling, no
@@ -119,7 +119,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
     recorded (``time.process_time``, all threads): on a shared machine the wall
     time of a 2-thread kernel depends on what else runs, its CPU time much less.
     ``spreading="centre"`` runs the benchmark-only centre-binned kernel variant
-    (``simulate.DELAY_SPREADING``). ``specular``: the surface also reflects specularly
+    (``signals.DELAY_SPREADING``). ``specular``: the surface also reflects specularly
     (``[surface] permittivity``; the physical-optics kernel, timed on its own).
     """
     import importlib
@@ -131,7 +131,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
     from cluttersim.simulate import RunStats, simulate
 
     if spreading == "centre":  # the module (the package's `simulate` is the function)
-        importlib.import_module("cluttersim.simulate").DELAY_SPREADING = kernels.SPREAD_CENTRE
+        importlib.import_module("cluttersim.signals").DELAY_SPREADING = kernels.SPREAD_CENTRE
     compiled = kernels.accumulate_power
     kernel_cpu = [0.0]
 
@@ -217,7 +217,8 @@ def worker_reference() -> dict:
     """Kernel vs NumPy reference per trace on the medium case's scene (a few traces of it)."""
     from cluttersim.io.dem import DemSource
     from cluttersim.physics.reference import reference_binned_power
-    from cluttersim.simulate import binned_power, prepare_scene
+    from cluttersim.scene import prepare_scene
+    from cluttersim.signals import binned_power
 
     dem, track, cfg = case_inputs("medium")
     scene = prepare_scene(DemSource.open(dem), track, cfg)

@@ -3,7 +3,7 @@
 A run is stopped with a :class:`~cluttersim.errors.MemoryLimitError` that gives the
 estimate and what to change, instead of being killed by the operating system half
 way. The estimate is made once the DEM window is known and before it is read at
-full resolution (see :func:`cluttersim.simulate.read_track_window`).
+full resolution (see :func:`cluttersim.scene.read_track_window`).
 
 Bytes per item (measured on this code, see ``tests/test_robustness.py``):
 

@@ -17,7 +17,8 @@ from .constants import SPEED_OF_LIGHT_M_S
 from .io.dem import DemSource, crs_linear_unit_m
 from .io.outputs import atomic_paths, check_new, locked_output
 from .io.radargram import band_names, select_band, thin_traces, write_netcdf_to
-from .simulate import _window_for_radius, ground_radius_m, simulate
+from .scene import _window_for_radius, ground_radius_m
+from .simulate import simulate
 from .track import Track, great_circle_track
 
 #: File names of a simulation run directory.

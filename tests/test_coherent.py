@@ -10,7 +10,7 @@ from cluttersim import kernels
 from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
 from cluttersim.physics.radar import RadarConfig
-from cluttersim.simulate import detect_coherent
+from cluttersim.signals import detect_coherent
 from scenes import MARS_RADIUS_M, write_geotiff
 
 C = 299_792_458.0  # SI definition

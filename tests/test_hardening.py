@@ -697,12 +697,12 @@ def test_report_refuses_a_comparison_paired_with_another_run(d, run, tmp_path):
 
 
 def test_a_tiny_sample_interval_is_refused_before_the_pulse_is_allocated(d, tmp_path, monkeypatch):
-    sim_module = sys.modules["cluttersim.simulate"]  # the module (the package exports the function by that name)
+    import cluttersim.config as config_module  # SimulationConfig.pulse_kernel computes a run's pulse with it
 
     def never(*args, **kwargs):
         raise AssertionError("the pulse response was computed before the memory check")
 
-    monkeypatch.setattr(sim_module, "pulse_power_kernel", never)
+    monkeypatch.setattr(config_module, "pulse_power_kernel", never)
     radar = _file(tmp_path, "dt.toml", "[radar]\nsample_interval_s = 1e-12\n")
     res = CliRunner().invoke(cli, _simulate_args(d, ["--radar", radar, "--max-memory", "4GB"], tmp_path / "o"))
     lines = one_line(res, 1)

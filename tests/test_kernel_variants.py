@@ -17,9 +17,10 @@ from cluttersim import (
 from cluttersim.io.dem import DemSource
 from cluttersim.physics.radar import RadarConfig, pulse_power_kernel
 from cluttersim.physics.reference import reference_binned_power
-from cluttersim.simulate import binned_power, prepare_scene
+from cluttersim.scene import prepare_scene
+from cluttersim.signals import binned_power
 
-simulate_module = importlib.import_module("cluttersim.simulate")  # the module (the package exports a function of that name)
+signals_module = importlib.import_module("cluttersim.signals")
 
 
 @pytest.mark.parametrize("length", [1, 9, 87])
@@ -41,7 +42,7 @@ def test_pulse_compression_matches_scipy_on_the_pulse_response():
     pad = len(weights) // 2
     binned = np.random.default_rng(3).random((4, 512 + 2 * pad))
     expected = convolve1d(binned, weights, axis=-1, mode="constant")[:, pad : pad + 512]
-    np.testing.assert_allclose(simulate_module._compress(binned, weights, pad, 512), expected, rtol=1e-12, atol=1e-18)
+    np.testing.assert_allclose(signals_module._compress(binned, weights, pad, 512), expected, rtol=1e-12, atol=1e-18)
 
 
 @pytest.fixture(scope="module")
@@ -68,9 +69,9 @@ def test_centre_binned_variant_keeps_each_traces_total_power(small_scene, monkey
     trapezoids) to the share that straddles the window's edges (within 1e-3; the trapezoids, whose
     corners are on a 1/32-sample grid, within 1e-4)."""
     scene, cfg, ant, bin0, nbins = small_scene
-    monkeypatch.setattr(simulate_module, "DELAY_SPREADING", kernels.SPREAD_CENTRE)
+    monkeypatch.setattr(signals_module, "DELAY_SPREADING", kernels.SPREAD_CENTRE)
     centre, _, n_centre = binned_power(scene, ant, bin0, nbins)
-    monkeypatch.setattr(simulate_module, "DELAY_SPREADING", kernels.SPREAD_TRAPEZOID)
+    monkeypatch.setattr(signals_module, "DELAY_SPREADING", kernels.SPREAD_TRAPEZOID)
     spread, _, n_spread = binned_power(scene, ant, bin0, nbins)
     ref = reference_binned_power(scene.facets, ant[:2], bin0[:2], cfg.radar.sample_interval_s, nbins, cfg)
     assert n_centre == n_spread  # the same facets are evaluated
@@ -136,7 +137,7 @@ def _float64_discretisation(scene, cfg, ant, bin0, nbins, right=None, strip=None
     from cluttersim.physics.scattering import sigma0_hagfors
 
     f = scene.facets
-    ov = simulate_module.OVERSAMPLE
+    ov = signals_module.OVERSAMPLE
     pos = f.positions_m(np.arange(f.rel_m.shape[1]))
     normal, e_col, e_row = (a.T.astype(np.float64) for a in (f.normal, f.e_col_m, f.e_row_m))
     area = f.area_m2.astype(np.float64)

@@ -9,7 +9,8 @@ from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track
 from cluttersim.io.dem import DemSource
 from cluttersim.physics.radar import RadarConfig
 from cluttersim.physics.reference import reference_binned_power, spread_exact
-from cluttersim.simulate import binned_power, prepare_scene
+from cluttersim.scene import prepare_scene
+from cluttersim.signals import binned_power
 
 
 def test_spread_exact_box_and_trapezoid_by_hand():

@@ -19,7 +19,7 @@ from cluttersim import memory
 from cluttersim.io.dem import DemSource
 from cluttersim.errors import MemoryLimitError
 from cluttersim.physics.radar import RadarConfig
-from cluttersim.simulate import prepare_scene
+from cluttersim.scene import prepare_scene
 from scenes import MARS_RADIUS_M, write_geotiff
 
 CLUTTERSIM = Path(sys.executable).parent / "cluttersim"

@@ -111,7 +111,7 @@ def level_scene(src: DemSource, track: Track, h_nadir_m, config: SimulationConfi
     from affine import Affine
 
     from ..constants import SPEED_OF_LIGHT_M_S
-    from ..simulate import ground_radius_m
+    from ..scene import ground_radius_m
 
     clearance = np.asarray(track.alt_m, dtype=np.float64) - np.asarray(h_nadir_m, dtype=np.float64)
     ok = np.flatnonzero(np.isfinite(clearance) & (clearance > 0))

@@ -11,7 +11,7 @@ power::
         error field e_k (spectral synthesis on the window) ─► heights + e_k
         ─► ECEF grid (kernels.grid_to_ecef) ─► facets rebuilt in place (same tiles and cells;
            positions, normals, edges, areas and the tiles' culling bounds recomputed exactly)
-        ─► simulate.binned_power (no source record) ─► pulse convolution ─► power_k
+        ─► signals.binned_power (no source record) ─► pulse convolution ─► power_k
     mean, std and quantiles over k ─► Dataset (radargram layout: ``power`` is the mean)
 
 The recording windows are those of the error-free run (so the products share its
@@ -372,7 +372,8 @@ def simulate_dem_error(
     from .attribution import right_unit_vectors
     from ..physics.radar import POWER_CONVENTION, POWER_CONVENTION_TEXT
     from ..io.radargram import build_dataset, flatten_config_attrs
-    from ..simulate import _compress, binned_power, prepare_scene
+    from ..scene import prepare_scene
+    from ..signals import _compress, binned_power
 
     t_start = time.perf_counter()
     stats = stats if stats is not None else ErrorStats()

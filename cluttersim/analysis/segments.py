@@ -2,7 +2,7 @@
 
 A track is cut into *segments* of consecutive pulses. Each segment is simulated by
 :func:`cluttersim.simulate.simulate` on its own: its own DEM window (the ground its
-traces' recording windows can reach, :func:`cluttersim.simulate.read_track_window`),
+traces' recording windows can reach, :func:`cluttersim.scene.read_track_window`),
 its own facets, freed before the next segment. Everything a trace's result depends
 on is that trace's own geometry and the facets within its reach, so a segmented run
 equals the one-window run up to float32 rounding of the facets' positions, which are
@@ -93,7 +93,7 @@ def _estimate(cells: int, pulses: int, config, sources: bool) -> int:
     import numba
 
     from .. import memory
-    from ..simulate import OVERSAMPLE, TRACES_PER_BLOCK
+    from ..signals import OVERSAMPLE, TRACES_PER_BLOCK
 
     bands = max(1, len(config.band_names))
     pad = 64  # a pulse's padding is a few samples; a generous bound
@@ -109,7 +109,7 @@ def _reach_m(src: DemSource, track: Track, config, on_dem) -> np.ndarray:
     beside the track may reach further; each segment's own read finds its exact window)."""
     import rasterio
 
-    from ..simulate import _max_range_m, ground_radius_m
+    from ..scene import _max_range_m, ground_radius_m
 
     idx = np.flatnonzero(on_dem)
     pick = idx[np.unique(np.linspace(0, idx.size - 1, min(_PLAN_SAMPLES, idx.size)).astype(int))]
@@ -158,7 +158,7 @@ def plan_segments(src: DemSource, track: Track, config, *, sources: bool = True,
         limit = memory.parse_size(limit)
     if limit is not None:
         budget = min(budget, int(limit))
-    from ..simulate import _window_for_radius
+    from ..scene import _window_for_radius
 
     rows, cols = src.lonlat_to_rowcol(track.lon_deg, track.lat_deg)
     on_dem = (rows >= -0.5) & (rows <= src.height - 0.5) & (cols >= -0.5) & (cols <= src.width - 0.5)
@@ -246,7 +246,7 @@ def track_gain_height_m(src: DemSource, track: Track, config, plan) -> float | N
     """The whole track's median height above the nadir surface when an aperture's integration
     gain needs it (``prf_hz`` > 0 with an aperture), else None: the nadir heights of each
     segment from a small read around its nadir points, bilinear as in
-    :func:`cluttersim.simulate.prepare_scene`."""
+    :func:`cluttersim.scene.prepare_scene`."""
     proc = config.processing
     if not (proc.prf_hz > 0 and proc.aperture != "none"):
         return None

@@ -2,7 +2,7 @@
 
 Both questions are answered from a finished run directory: the DEM window,
 facets and recording windows are rebuilt exactly as the simulation built them
-(:func:`cluttersim.simulate.prepare_scene`) and a compiled kernel
+(:func:`cluttersim.scene.prepare_scene`) and a compiled kernel
 (:func:`cluttersim.kernels.facet_power_in_windows`) sums each facet's power
 into the delay window asked for. Delay windows refer to a facet's own delay
 extent; the compressed pulse's spreading is not applied here.
@@ -29,7 +29,8 @@ from ..errors import ClutterSimError, ConfigError
 from ..physics.radar import apparent_depth_m, delay_after_surface_s
 from ..products import MapFrame
 from ..io.radargram import open_radargram
-from ..simulate import Scene, prepare_scene, scene_for_band, shadow_inputs
+from ..scene import Scene, prepare_scene, scene_for_band
+from ..signals import shadow_inputs
 from ..track import Track
 
 
@@ -145,7 +146,7 @@ def side_centroids(run: Run, *, progress: bool = False) -> SideCentroids:
     Costs two or three runs of ``simulate``'s kernel with the source record; not for
     coherent-mode runs (no sides).
     """
-    from ..simulate import _compress, binned_power
+    from ..signals import _compress, binned_power
 
     scene = run.scene
     cfg = scene.config

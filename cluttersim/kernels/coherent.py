@@ -35,7 +35,7 @@ import numpy as np
 from ..physics import physical_optics
 from ..constants import SPEED_OF_LIGHT_M_S
 from .common import _JIT, SIDE_LEFT, SIDE_NADIR, SIDE_RIGHT
-from .tiling import _tile_reaches_window, hidden_from_antenna
+from .tiling import _tile_reaches_window, _tile_sphere_reaches, hidden_from_antenna
 from .weights import direction_weight, sigma0_by_code
 
 _subdivisions = numba.njit(inline="always", **_JIT)(physical_optics.subdivisions)
@@ -323,11 +323,8 @@ def accumulate_complex(ant, bin0_s, dt_s, oversample, tile_centre, tile_radius, 
             rad = tile_radius[m]
             if rad < 0.0:
                 continue
-            cx = tile_centre[m, 0] - ant[t, 0]
-            cy = tile_centre[m, 1] - ant[t, 1]
-            cz = tile_centre[m, 2] - ant[t, 2]
-            d = math.sqrt(cx * cx + cy * cy + cz * cz)
-            if d - rad > r_hi or d + rad < r_lo:
+            cx, cy, cz, _, reaches = _tile_sphere_reaches(tile_centre, m, ant, t, rad, r_lo, r_hi)
+            if not reaches:
                 continue
             for f in range(tile_offsets[m], tile_offsets[m + 1]):
                 vx = cx + rel[0, f]

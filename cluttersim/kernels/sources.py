@@ -12,7 +12,7 @@ import numpy as np
 from ..constants import SPEED_OF_LIGHT_M_S
 from .common import _JIT
 from .spreading import trapezoid_cdf
-from .tiling import hidden_from_antenna
+from .tiling import _tile_sphere_reaches, hidden_from_antenna
 from .weights import direction_weight, sigma0_by_code
 
 
@@ -90,11 +90,8 @@ def facet_power_in_windows(ant, lo_s, hi_s, dt_s, tile_centre, tile_radius, tile
         for t in range(ant.shape[0]):
             r_lo = lo_s[t] * half_c
             r_hi = hi_s[t] * half_c
-            cx = tile_centre[m, 0] - ant[t, 0]
-            cy = tile_centre[m, 1] - ant[t, 1]
-            cz = tile_centre[m, 2] - ant[t, 2]
-            d = math.sqrt(cx * cx + cy * cy + cz * cz)
-            if d - rad > r_hi or d + rad < r_lo:
+            cx, cy, cz, _, reaches = _tile_sphere_reaches(tile_centre, m, ant, t, rad, r_lo, r_hi)
+            if not reaches:
                 continue
             lo = lo_s[t] / dt_s
             hi = hi_s[t] / dt_s

@@ -207,6 +207,18 @@ def slab_min_range(cx, cy, cz, slab):
 
 
 @numba.njit(inline="always", **_JIT)
+def _tile_sphere_reaches(tile_centre, m, ant, t, rad, r_lo, r_hi):
+    """Offset (x, y, z) of tile ``m``'s centre from antenna ``t``, its squared distance, and
+    whether the tile's bounding sphere (radius ``rad``) reaches the ranges [``r_lo``, ``r_hi``]."""
+    cx = tile_centre[m, 0] - ant[t, 0]
+    cy = tile_centre[m, 1] - ant[t, 1]
+    cz = tile_centre[m, 2] - ant[t, 2]
+    d2 = cx * cx + cy * cy + cz * cz
+    d = math.sqrt(d2)
+    return cx, cy, cz, d2, not ((d - rad > r_hi) | (d + rad < r_lo))
+
+
+@numba.njit(inline="always", **_JIT)
 def _tile_reaches_window(tile_centre, tile_slab, m, ant, t, rad, bin0_s, nb, dt_s):
     """Offset (x, y, z) of tile ``m``'s centre from antenna ``t``, and whether the tile can reach
     the range interval of that trace's window of ``nb`` bins.
@@ -221,14 +233,10 @@ def _tile_reaches_window(tile_centre, tile_slab, m, ant, t, rad, bin0_s, nb, dt_
     tile's ρ as about ρ sin α of range), so fewer tiles are evaluated for nothing.
     """
     half_c = 0.5 * SPEED_OF_LIGHT_M_S
-    cx = tile_centre[m, 0] - ant[t, 0]
-    cy = tile_centre[m, 1] - ant[t, 1]
-    cz = tile_centre[m, 2] - ant[t, 2]
-    d2 = cx * cx + cy * cy + cz * cz
-    d = math.sqrt(d2)
     r_lo = bin0_s[t] * half_c
     r_hi = r_lo + nb * dt_s * half_c
-    if (d - rad > r_hi) | (d + rad < r_lo):
+    cx, cy, cz, d2, sphere = _tile_sphere_reaches(tile_centre, m, ant, t, rad, r_lo, r_hi)
+    if not sphere:
         return cx, cy, cz, False
     dz = cx * tile_slab[m, 0] + cy * tile_slab[m, 1] + cz * tile_slab[m, 2]
     h = math.sqrt(max(d2 - dz * dz, 0.0))
