@@ -57,7 +57,7 @@ from .config import SimulationConfig, default_config
 from . import engines
 from .dem import DemSource, crs_linear_unit_m
 from .demcrs import vsi_path
-from .engines import Engine, _dask, _quiet_dask_logs, dask_client  # noqa: F401  (names segments and callers use here)
+from .engines import Engine, _dask
 from .errors import (
     ClutterSimError,
     ConfigError,
@@ -549,11 +549,6 @@ def run_jobs(jobs, engine: Engine, on_result, task=None) -> None:
     result as it completes. Jobs need ``track_id``, ``key`` and ``numba_threads`` fields (as
     :class:`TrackJob`)."""
     engines.run_jobs(jobs, engine, on_result, task or survey_track)
-
-
-def _dask_survey_track(job: TrackJob, task=None) -> TrackResult:
-    """The Dask task of :mod:`cluttersim.engines` running :func:`survey_track` (or ``task``)."""
-    return engines._dask_task(job, task or survey_track)
 
 
 # --------------------------------------------------------------------------- the survey
