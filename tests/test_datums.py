@@ -23,7 +23,6 @@ from cluttersim.datums import HeightDatum, parse_height_datum, track_in_dem_datu
 from cluttersim.dem import DemSource
 from cluttersim.errors import TrackError
 from scenes import write_geotiff
-from test_geometry_edges import config
 
 C = 299_792_458.0  # m/s, SI definition
 
