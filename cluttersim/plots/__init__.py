@@ -112,6 +112,7 @@ from .maps import (  # noqa: F401
     _draw_track,
     _frame_map,
     _grey_hillshade_rgba,
+    _grey_map,
     _grid,
     _HILLSHADE_GREY_RANGE,
     hillshade_intensity,
