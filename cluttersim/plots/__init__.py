@@ -100,6 +100,7 @@ from .comparison import (  # noqa: F401
     DIFFERENCE_CMAP,
     DIFFERENCE_RANGE_DB,
     _draw_candidates,
+    _no_data_handles,
     OVERLAY_BACKGROUND_CMAP,
     plot_comparison_difference,
     plot_comparison_overlay,
