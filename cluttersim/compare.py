@@ -476,6 +476,7 @@ def compare_to_dir(
     (Comparison, dict of Path)
     """
     from .observed import load_observed
+    from .products import remove_figures_in_other_formats
     from .radargram import open_radargram
 
     if (sim is None) == (dem is None):
@@ -505,6 +506,7 @@ def compare_to_dir(
                                                   tec_el_m2=tec_el_m2)  # fmt: skip
     result = compare(observed, sim_ds, settings, progress=progress, sim_source=sim_source)
     write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None, figures=figures)
+    remove_figures_in_other_formats(paths.values(), overwrite)
     return result, paths
 
 

@@ -179,6 +179,24 @@ def remove_stale_products(out_dir, names) -> None:
         warnings.warn(f"{out_dir}: removed {', '.join(removed)} of the previous run (not made by this one)", stacklevel=3)
 
 
+def remove_figures_in_other_formats(paths, overwrite: bool) -> None:
+    """Once a run with ``overwrite`` has written its products ``paths``: remove the figures an earlier
+    run left beside them in another format (``clutter_map.png`` beside a new ``clutter_map.pdf``), which
+    would pass for this run's, saying so (:func:`remove_stale_products`). Without ``overwrite``
+    nothing is removed."""
+    from .plots import FIGURE_FORMATS
+
+    if not overwrite:
+        return
+    stale: dict[Path, set[str]] = {}
+    for p in map(Path, paths):
+        fmt = p.suffix[1:]
+        if fmt in FIGURE_FORMATS:
+            stale.setdefault(p.parent, set()).update(p.with_suffix(f".{f}").name for f in FIGURE_FORMATS if f != fmt)
+    for out_dir, names in stale.items():
+        remove_stale_products(out_dir, names)
+
+
 def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15,
               figures: "FigureOptions | None" = None) -> None:  # fmt: skip
     """Write a radargram and its figures atomically to ``paths`` (keys of :func:`run_files`)."""

@@ -600,6 +600,8 @@ def run_survey(
     -------
     SurveySummary
     """
+    from .products import remove_figures_in_other_formats
+
     t0 = time.perf_counter()
     engine = engine if engine is not None else Engine()
     sim_config = survey_sim_config(sim_config if sim_config is not None else default_config(), band)
@@ -662,6 +664,7 @@ def run_survey(
             stacklevel=2,
         )
     write_survey_products(src, config, grid, results, paths, figures=figures)
+    remove_figures_in_other_formats(paths.values(), overwrite)
     return SurveySummary(paths=paths, tracks=len(planned), resumed=resumed, computed=len(jobs),
                          seconds=time.perf_counter() - t0, warnings=seen_warnings,
                          track_seconds=[done[j.track_id].seconds for j in jobs])  # fmt: skip

@@ -273,3 +273,26 @@ def test_plan_named_target_options_the_old_spelling_and_figure_options(massif, t
     assert both.exit_code == 2 and "not both" in both.output
     half = CliRunner().invoke(cli, base + ["--target-lat", "2", "--out", str(tmp_path / "y")])
     assert half.exit_code == 2 and "missing --target-lon" in half.output
+
+
+def test_overwrite_in_another_figure_format_removes_the_old_figures(massif, tmp_path):
+    """Re-run with --overwrite and --figure-format pdf, plan removes the PNG figures of the run before
+    (as simulate does), saying so."""
+    from cli_helpers import invoke
+    from figure_files import assert_all_in_format
+
+    path, _, plan, *_ = massif
+    radar = tmp_path / "radar.toml"
+    radar.write_text('[radar]\nsamples = 256\n[antenna]\npattern = "gaussian"\nbeamwidth_along_deg = 8.0\n'
+                     'beamwidth_across_deg = 80.0\n')  # fmt: skip
+    out = tmp_path / "p"
+    base = ["plan", "--dem", path, "--depth-m", "50", "300", "--alt-m", "25000", "--radar", radar,
+            "--coarse-step-deg", "90", "--fine-step-deg", "90", "--track-length-km", "2", "--workers", "1", "-q",
+            "--target-lat", repr(plan.target.lat_deg), "--target-lon", repr(plan.target.lon_deg), "--out", out]  # fmt: skip
+    assert invoke(*base).exit_code == 0
+    assert_all_in_format([out / "objective_polar.png", out / "best_worst.png"], "png")
+    res = invoke(*base, "--figure-format", "pdf", "--overwrite")
+    assert res.exit_code == 0, res.output
+    assert_all_in_format([out / "objective_polar.pdf", out / "best_worst.pdf"], "pdf")
+    assert not list(out.glob("*.png")), sorted(p.name for p in out.iterdir())
+    assert "removed best_worst.png, objective_polar.png" in res.output

@@ -444,6 +444,23 @@ def test_survey_map_follows_the_figure_options(massif, tmp_path):
     assert (tmp_path / "a" / "clutter_map.png").read_bytes() != (tmp_path / "b" / "clutter_map.png").read_bytes()
 
 
+def test_overwrite_in_another_figure_format_removes_the_old_map(massif, tmp_path):
+    """Re-run with --overwrite and --figure-format pdf, the survey removes the PNG map of the run
+    before (as simulate does), saying so: no figure of another run passes for this one's."""
+    from figure_files import figure_format
+
+    out = tmp_path / "s"
+    base = ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
+            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q", "--out", out]  # fmt: skip
+    assert invoke(*base).exit_code == 0
+    assert figure_format(out / "clutter_map.png") == "png"
+    res = invoke(*base, "--figure-format", "pdf", "--overwrite")
+    assert res.exit_code == 0, res.output
+    assert figure_format(out / "clutter_map.pdf") == "pdf"
+    assert not list(out.glob("*.png")), sorted(p.name for p in out.iterdir())
+    assert "removed clutter_map.png" in res.output
+
+
 def _png_size_of_default(massif, tmp_path):
     from figure_files import png_size
 
