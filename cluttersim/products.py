@@ -91,7 +91,7 @@ def simulate_to_dir(
     Existing products are refused before any work unless ``overwrite``; all
     are written under temporary names and renamed together at the end; with
     ``overwrite``, figures of the previous run that this one does not make (the
-    side figure without the source record, other bands') are removed, with a warning.
+    side figure without the source record, other bands', other formats') are removed, with a warning.
     The directory is locked while the run lasts (:func:`~cluttersim.outputs.lock_directory`).
     ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
     and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
@@ -117,6 +117,7 @@ def simulate_to_dir(
     config = config if config is not None else default_config()
     config = dataclasses.replace(config, processing=config.processing.with_track_speed(track, src.body))
     streamed = engine is not None and engine.uses_dask
+    stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
     plan = segments.plan_segments(src, track, config, sources=sources, max_memory_bytes=max_memory_bytes,
                                   segment_traces=segment_traces if segment_traces is not None or not streamed else "auto")  # fmt: skip
     if len(plan) > 1 or streamed:
@@ -130,6 +131,7 @@ def simulate_to_dir(
             stats.seconds_total = run.seconds
         if summary is not None:
             summary.update(segments=run.segments, resumed=run.resumed, computed=run.computed)
+        remove_stale_products(out_dir, stale)
         return paths
     ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
                   nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
@@ -140,7 +142,6 @@ def simulate_to_dir(
         ds.attrs[HEIGHT_UNIT_ATTR] = src.height_scale_m
     if summary is not None:
         summary.update(segments=1, resumed=0, computed=1)
-    stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
     write_run(ds, src, paths, permittivity=permittivity, figures=figures)
     remove_stale_products(out_dir, stale)
     return paths
