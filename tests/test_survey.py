@@ -419,6 +419,12 @@ def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
         Engine(scheduler="local", scheduler_file=str(path))
 
 
+def _small_survey_command(massif) -> list[str]:
+    """``cluttersim survey`` of :func:`_small`'s region on one worker, quiet; --out to add."""
+    return ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
+            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]
+
+
 def test_survey_map_follows_the_figure_options(massif, tmp_path):
     """--figure-format svg writes clutter_map.svg (SVG bytes), --dpi sets the PNG's pixel size, and
     --db-range sets the map's colour span (a quarter below the threshold): a narrower span saturates
@@ -429,8 +435,7 @@ def test_survey_map_follows_the_figure_options(massif, tmp_path):
 
     assert survey_map_range_db(None) == (6.0, 18.0)
     assert survey_map_range_db(8.0) == pytest.approx((2.0, 6.0))
-    base = ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
-            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]  # fmt: skip
+    base = _small_survey_command(massif)
     runs = {"svg": ["--figure-format", "svg"], "a": ["--dpi", "50"], "b": ["--dpi", "50", "--db-range", "4"]}
     for name, extra in runs.items():
         res = invoke(*base, "--out", tmp_path / name, *extra)
@@ -450,8 +455,7 @@ def test_overwrite_in_another_figure_format_removes_the_old_map(massif, tmp_path
     from figure_files import figure_format
 
     out = tmp_path / "s"
-    base = ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
-            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q", "--out", out]  # fmt: skip
+    base = _small_survey_command(massif) + ["--out", out]
     assert invoke(*base).exit_code == 0
     assert figure_format(out / "clutter_map.png") == "png"
     res = invoke(*base, "--figure-format", "pdf", "--overwrite")
