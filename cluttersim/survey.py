@@ -419,7 +419,7 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
     """The configuration a survey simulates with: [noise], [subsurface] and [ionosphere] dropped (the
     index compares surface clutter with the surface echo, both delayed alike by a layer, and its
     window is placed by the geometric nadir delay); one band of a multi-band radar (``band``,
-    default the first); coherent mode refused."""
+    default the first); coherent mode refused; [processing] presum set to 1 (one pulse per trace)."""
     if config.processing.mode == "coherent":
         raise ConfigError("[processing] mode = 'coherent': the survey needs the incoherent mode's source record; "
                           "expected mode = 'incoherent'")  # fmt: skip
@@ -436,6 +436,13 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
             "([subsurface]) is not clutter; compare its power with the clutter of one track with `cluttersim simulate`",
             stacklevel=3,
         )
+    if config.processing.presum > 1:
+        warnings.warn(
+            f"survey: [processing] presum = {config.processing.presum} is ignored: a survey simulates one pulse per "
+            "trace, the traces --trace-spacing-m apart (give the spacing of the presummed traces)",
+            stacklevel=3,
+        )
+        config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, presum=1))
     return dataclasses.replace(config, noise=None, subsurface=None, ionosphere=None)
 
 

@@ -398,6 +398,22 @@ def test_a_multi_band_radar_is_surveyed_one_band_at_a_time():
         survey_sim_config(SimulationConfig(), "low")
 
 
+def test_presum_in_the_radar_is_ignored_with_a_warning(massif, tmp_path):
+    """A radar that presums pulses ([processing] presum = 2) is surveyed one pulse per trace, as without
+    presum (the same survey.csv), with a warning saying so; it used to fail, the level-ground reference
+    and the presummed radargram having different trace counts."""
+    from cluttersim.survey import survey_sim_config
+
+    cfg = radar_config()
+    presummed = dataclasses.replace(cfg, processing=dataclasses.replace(cfg.processing, presum=2))
+    with pytest.warns(UserWarning, match=r"presum = 2 is ignored"):
+        assert survey_sim_config(presummed).processing.presum == 1
+    with pytest.warns(UserWarning, match=r"presum = 2 is ignored"):
+        run_survey(massif, _small(), presummed, tmp_path / "two", engine=Engine(workers=1))
+    run_survey(massif, _small(), cfg, tmp_path / "one", engine=Engine(workers=1))
+    assert (tmp_path / "two" / "survey.csv").read_bytes() == (tmp_path / "one" / "survey.csv").read_bytes()
+
+
 def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
     """--scheduler-file: the survey's tracks as Dask tasks on the cluster named in the file (a real
     LocalCluster here), the same results as in this process."""
