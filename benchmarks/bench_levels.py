@@ -27,8 +27,8 @@ from bench_simulate import case_inputs  # noqa: E402
 
 def main(argv=None) -> int:
     from cluttersim import simulate
-    from cluttersim.aperture import ProcessingConfig
-    from cluttersim.ionosphere import IonosphereConfig
+    from cluttersim.physics.aperture import ProcessingConfig
+    from cluttersim.physics.ionosphere import IonosphereConfig
     from cluttersim.simulate import RunStats
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])

@@ -98,7 +98,7 @@ def main(argv=None) -> int:
     ap.add_argument("--traces", type=int, default=5000)
     ap.add_argument("--samples", type=int, default=2048)
     args = ap.parse_args(argv)
-    from cluttersim.observed import ObservedFormat, load_observed
+    from cluttersim.io.observed import ObservedFormat, load_observed
 
     machine = {**machine_info(), "cpu_vector_features": vector_features()}
     print_machine(machine)

@@ -13,7 +13,7 @@ record on and off, and with the benchmark-only centre-binned kernel variant
 (``simulate.DELAY_SPREADING``: each facet's power in the bin of its centre, a
 bound on what the delay spreading costs). Then:
 
-* the NumPy reference (:mod:`cluttersim.reference`, no culling, no
+* the NumPy reference (:mod:`cluttersim.physics.reference`, no culling, no
   compilation) against the compiled kernel on the same small scene: time per
   trace and their ratio;
 * kernel start-up: the first call of the kernels in a fresh process with an
@@ -84,9 +84,9 @@ def synthetic_dem(path: Path, n: int, res_deg: float, seed: int = 42) -> Path:
 
 def case_inputs(name: str, shadowing: bool = False, coherent: bool = False, specular: bool = False):
     from cluttersim import Body, SimulationConfig, great_circle_track
-    from cluttersim.aperture import ProcessingConfig
+    from cluttersim.physics.aperture import ProcessingConfig
     from cluttersim.config import SurfaceConfig
-    from cluttersim.radar import RadarConfig
+    from cluttersim.physics.radar import RadarConfig
 
     n, res, ntraces, samples = CASES[name]
     CACHE.mkdir(exist_ok=True)
@@ -126,8 +126,8 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
 
     import numba
 
-    from cluttersim import kernels, kernels_coherent
-    from cluttersim.radargram import write_netcdf_to
+    from cluttersim import kernels
+    from cluttersim.io.radargram import write_netcdf_to
     from cluttersim.simulate import RunStats, simulate
 
     if spreading == "centre":  # the module (the package's `simulate` is the function)
@@ -143,7 +143,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
             kernel_cpu[0] += time.process_time() - c0
 
     kernels.accumulate_power = timed_kernel
-    compiled_spec = kernels_coherent.accumulate_specular
+    compiled_spec = kernels.accumulate_specular
     specular_cpu = [0.0]
 
     def timed_specular(*args):
@@ -153,7 +153,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
         finally:
             specular_cpu[0] += time.process_time() - c0
 
-    kernels_coherent.accumulate_specular = timed_specular
+    kernels.accumulate_specular = timed_specular
     dem, track, cfg = case_inputs(name, shadowing, coherent, specular)
     runs = []
     write_s = []
@@ -172,7 +172,7 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
             write_s.append(time.perf_counter() - t1)
             runs.append((time.perf_counter() - t0, st, time.process_time() - c0, kernel_cpu[0], specular_cpu[0]))
     kernels.accumulate_power = compiled
-    kernels_coherent.accumulate_specular = compiled_spec
+    kernels.accumulate_specular = compiled_spec
     warm = runs[1:]
     kernel = statistics.median(r[1].seconds_kernel for r in warm)
     kernel_cpu_s = statistics.median(r[3] for r in warm)
@@ -215,8 +215,8 @@ def worker_case(name: str, sources: bool, repeat: int, shadowing: bool = False, 
 
 def worker_reference() -> dict:
     """Kernel vs NumPy reference per trace on the medium case's scene (a few traces of it)."""
-    from cluttersim.dem import DemSource
-    from cluttersim.reference import reference_binned_power
+    from cluttersim.io.dem import DemSource
+    from cluttersim.physics.reference import reference_binned_power
     from cluttersim.simulate import binned_power, prepare_scene
 
     dem, track, cfg = case_inputs("medium")
@@ -257,7 +257,7 @@ def worker_startup() -> dict:
     import cluttersim.kernels  # noqa: F401
     from cluttersim import Body, SimulationConfig, Track
     from cluttersim.config import SurfaceConfig
-    from cluttersim.radar import RadarConfig
+    from cluttersim.physics.radar import RadarConfig
     from cluttersim.simulate import simulate
 
     t_import = time.perf_counter() - t0

@@ -77,7 +77,7 @@ def worker(extra: list[str]) -> dict:
     """One survey in this (fresh) process, as the command runs it: wall time from the start of
     ``run_survey`` (worker spawn and cache loads included) and the workers' time per track."""
     from cluttersim.config import SimulationConfig
-    from cluttersim.survey import Engine, SurveyConfig, run_survey
+    from cluttersim.analysis.survey import Engine, SurveyConfig, run_survey
 
     workdir = Path(extra[0])
     workers = int(extra[1])

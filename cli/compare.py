@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.compare import CompareSettings, compare_many, compare_to_dir, format_summary
-from cluttersim.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
-from cluttersim.readers import ARCHIVE_SUFFIXES
+from cluttersim.analysis.compare import CompareSettings, compare_many, compare_to_dir, format_summary
+from cluttersim.io.observed import AXIS_ORDERS, BYTE_ORDERS, FORMAT_SUFFIXES, RAW_DTYPES, VALUE_KINDS, ObservedFormat, file_format_of
+from cluttersim.io.readers import ARCHIVE_SUFFIXES
 
 from .options import (
     band_option, dem_height_unit_option, dem_in_unit, figure_options_with, height_datum_options, load_config,
@@ -203,7 +203,7 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
         if field_map or geometry_path:
             raise click.UsageError("--map and --geometry apply to PDS3/PDS4, MATLAB and SEG-Y products only")
     else:  # read here: the reader may need the body (radii), and says where each field came from
-        from cluttersim.observed import body_for_observed, load_observed
+        from cluttersim.io.observed import body_for_observed, load_observed
 
         observed = load_observed(observed_path, track_path, sample_interval_s, window_start_s=window_start_s,
                                  window_start_column=window_start_column, fmt=fmt,
@@ -222,8 +222,8 @@ def compare_cmd(observed_path, track_path, sim_path, dem_path, radar_path, body_
             raise click.UsageError("--track-height-datum and --dem-height-datum apply with --dem")
         from dataclasses import replace
 
-        from cluttersim.dem import DemSource
-        from cluttersim.observed import load_observed
+        from cluttersim.io.dem import DemSource
+        from cluttersim.io.observed import load_observed
 
         observed = load_observed(observed, track_path, sample_interval_s, window_start_s=window_start_s,
                                  window_start_column=window_start_column, fmt=fmt)  # fmt: skip

@@ -70,7 +70,7 @@ class _Group(click.Group):
         except OSError as exc:  # an output the library did not wrap (a figure, a directory)
             if ctx.obj and ctx.obj.get("debug"):
                 raise
-            from cluttersim.outputs import describe_os_error
+            from cluttersim.io.outputs import describe_os_error
 
             click.echo(f"cluttersim: error: {describe_os_error(exc)}", err=True)
             ctx.exit(1)
@@ -84,7 +84,7 @@ class _Group(click.Group):
 
 def interrupt_message() -> str:
     """The one line for an interrupt: whether any product was put in place before it."""
-    from cluttersim import outputs
+    from cluttersim.io import outputs
 
     if not outputs.committed:
         return "cluttersim: interrupted; no output was written"
@@ -124,7 +124,7 @@ def cli(ctx, debug):
 def main(argv=None):
     """Console entry point: SIGINT and SIGTERM both interrupt (exit 130), and an interrupt is never
     followed by exit 0, even where a library swallowed the KeyboardInterrupt."""
-    from cluttersim import outputs
+    from cluttersim.io import outputs
 
     outputs.install_interrupt_handlers()
     try:

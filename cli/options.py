@@ -71,7 +71,7 @@ def with_antenna(config, pattern=None, axis=None, beamwidths_deg=None):
     """The config with command-line overrides of its [antenna] table."""
     import dataclasses
 
-    from cluttersim.antenna import AntennaConfig
+    from cluttersim.physics.antenna import AntennaConfig
 
     changes = {}
     if pattern is not None:
@@ -93,7 +93,7 @@ band_option = click.option(
 
 
 def height_datum_options(fn):
-    """--track-height-datum and --dem-height-datum (vertical datums; cluttersim.datums)."""
+    """--track-height-datum and --dem-height-datum (vertical datums; cluttersim.io.datums)."""
     fn = click.option(
         "--dem-height-datum", default=None, metavar="DATUM",
         help="Declare the DEM heights' reference when its CRS has no vertical part: ellipsoid, geoid:EGM96, "
@@ -118,8 +118,8 @@ def dem_in_unit(dem, dem_height_unit, body_radius_m=None):
     (``--dem-height-unit``); a usage error if the DEM already states its heights' scale or unit."""
     import dataclasses
 
-    from cluttersim.datums import HEIGHT_UNITS_M
-    from cluttersim.dem import DemSource
+    from cluttersim.io.datums import HEIGHT_UNITS_M
+    from cluttersim.io.dem import DemSource
 
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     if dem_height_unit is None:
@@ -132,7 +132,7 @@ def dem_in_unit(dem, dem_height_unit, body_radius_m=None):
 
 def track_for_dem(track, dem_source, track_height_datum, dem_height_datum, quiet):
     """The track in the DEM's vertical reference (prints what was done unless quiet)."""
-    from cluttersim.datums import parse_height_datum, track_in_dem_datum
+    from cluttersim.io.datums import parse_height_datum, track_in_dem_datum
 
     if track_height_datum is None:
         if dem_height_datum is not None:

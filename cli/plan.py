@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import click
 
-from cluttersim.plan import PlanConfig, PlanTarget, run_plan
-from cluttersim.survey import Engine
+from cluttersim.analysis.plan import PlanConfig, PlanTarget, run_plan
+from cluttersim.analysis.survey import Engine
 
 from .options import (
     band_option, deprecated_pair, figure_options_with, load_config, make_figure_options, max_memory_option,
@@ -82,7 +82,7 @@ def plan_cmd(dem_path, target_lat, target_lon, target, target_radius_m, target_p
           --alt-m 300000 --radar radar.toml --out plan1
     (--target LON LAT still works but is deprecated.)
     """
-    from cluttersim.dem_error import DemErrorConfig
+    from cluttersim.analysis.dem_error import DemErrorConfig
     from cluttersim.errors import ConfigError
 
     error = None

@@ -91,10 +91,10 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
     if not quiet:  # at once: the libraries below take seconds to load on a busy machine
         click.echo(f"simulating {track_path} over {dem_path} into {out_dir}/", err=True)
     from cluttersim.products import simulate_to_dir
-    from cluttersim.dem_error import dem_error_paths, simulate_dem_error, write_dem_error
-    from cluttersim.outputs import check_new
-    from cluttersim.segments import SEGMENTS_DIR
-    from cluttersim.survey import Engine
+    from cluttersim.analysis.dem_error import dem_error_paths, simulate_dem_error, write_dem_error
+    from cluttersim.io.outputs import check_new
+    from cluttersim.analysis.segments import SEGMENTS_DIR
+    from cluttersim.analysis.survey import Engine
 
     if segment_traces != "auto":
         try:
@@ -154,7 +154,7 @@ def simulate_cmd(ctx, dem_path, track_path, radar_path, body_radius_m, no_source
 
 def _dem_error_config(radar_path, option, realisations, seed):
     """The DEM-error settings: the radar TOML's [dem_error] table, overridden by the options."""
-    from cluttersim.dem_error import DemErrorConfig
+    from cluttersim.analysis.dem_error import DemErrorConfig
     from cluttersim.errors import ConfigError
 
     table = DemErrorConfig.from_toml(radar_path) if radar_path else None

@@ -36,7 +36,7 @@ def sources_cmd(run_dir, depth_window, trace, delay_us, depth_m, top, permittivi
       cluttersim sources run1 --trace 120 --delay-us 14.2
       cluttersim sources run1 --trace 120 --depth-m 180
     """
-    from cluttersim.sources import (
+    from cluttersim.analysis.sources import (
         ask_echo, depth_window_map, format_echo_answer, load_run, write_echo_answer, write_source_map,
     )  # fmt: skip
 

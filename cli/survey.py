@@ -90,7 +90,7 @@ def survey_cmd(ctx, dem_path, lat_min, lat_max, lon_min, lon_max, region, spacin
           --spacing-km 5 --heading-deg 10 --alt-m 300000 --out survey1
     (--region LON_MIN LAT_MIN LON_MAX LAT_MAX still works but is deprecated.)
     """
-    from cluttersim.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
+    from cluttersim.analysis.survey import TRACKS_DIR, Engine, SurveyConfig, run_survey
 
     box = pick_coordinates(region, {"lat_min": lat_min, "lat_max": lat_max, "lon_min": lon_min, "lon_max": lon_max},
                            "--region", ("lon_min", "lat_min", "lon_max", "lat_max"))  # fmt: skip

@@ -20,13 +20,13 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree wi
 
 #: Public name → module that defines it (imported on first access).
 _EXPORTS = {
-    "Body": "body",
+    "Body": "physics.body",
     "SimulationConfig": "config", "SurfaceConfig": "config", "default_config": "config",
-    "DemSource": "dem",
+    "DemSource": "io.dem",
     "ClutterSimError": "errors", "ConfigError": "errors", "DemError": "errors", "GeometryError": "errors",
     "ObservedDataError": "errors", "TrackError": "errors",
-    "RadarConfig": "radar",
-    "open_radargram": "radargram", "write_netcdf": "radargram",
+    "RadarConfig": "physics.radar",
+    "open_radargram": "io.radargram", "write_netcdf": "io.radargram",
     "simulate": "simulate",
     "Track": "track", "great_circle_track": "track",
     "simulate_to_dir": "api", "echo_sources": "api", "write_report": "api", "compare_observed": "api",
@@ -35,8 +35,13 @@ _EXPORTS = {
     "FigureOptions": "products",
     "radar_template": "template",
 }  # fmt: skip
-#: Submodules reachable as attributes of the package.
-_SUBMODULES = ("api", "compare", "survey", "sources", "report", "plots", "palette", "examples", "template", "products")
+#: Submodules reachable as attributes of the package → their module (``cluttersim.compare`` is
+#: :mod:`cluttersim.analysis.compare`).
+_SUBMODULES = {
+    "api": "api", "compare": "analysis.compare", "survey": "analysis.survey", "sources": "analysis.sources",
+    "report": "report", "plots": "plots", "palette": "palette", "examples": "examples", "template": "template",
+    "products": "products",
+}  # fmt: skip
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
 
@@ -47,7 +52,7 @@ def __getattr__(name):
         globals()[name] = value
         return value
     if name in _SUBMODULES:
-        return import_module(f".{name}", __name__)
+        return import_module(f".{_SUBMODULES[name]}", __name__)
     raise AttributeError(f"module 'cluttersim' has no attribute {name!r}")
 
 

@@ -55,9 +55,9 @@ def echo_sources(run_dir, *, trace: int | None = None, delay_s: float | None = N
     Either one echo — ``trace`` and ``delay_s`` (after the trace's window start)
     or ``depth_m`` (apparent depth below the nadir surface): the ground cells
     behind it, ranked by their share of its power
-    (:func:`cluttersim.sources.ask_echo`) — or, with ``depth_window_m=(min,
+    (:func:`cluttersim.analysis.sources.ask_echo`) — or, with ``depth_window_m=(min,
     max)``, the power each DEM cell sends into that band of apparent depth,
-    summed over the track (:func:`cluttersim.sources.depth_window_map`).
+    summed over the track (:func:`cluttersim.analysis.sources.depth_window_map`).
 
     Returns
     -------
@@ -75,7 +75,7 @@ def echo_sources(run_dir, *, trace: int | None = None, delay_s: float | None = N
     >>> smap.power_w.shape == smap.elevation_m.shape
     True
     """
-    from .sources import ask_echo, depth_window_map, load_run
+    from .analysis.sources import ask_echo, depth_window_map, load_run
 
     run = load_run(run_dir, dem=dem)
     if depth_window_m is not None:
@@ -113,7 +113,7 @@ def compare_observed(observed, track, sample_interval_s: float, out_dir, **optio
     simulated surface does not explain (subsurface candidates). ``observed`` is a
     file (netCDF/HDF5, .npy, image, raw binary) of one value per trace and sample;
     ``track`` its track CSV; give ``sim=`` a simulated ``radargram.nc`` or ``dem=``
-    to simulate the track. Wraps :func:`cluttersim.compare.compare_to_dir`.
+    to simulate the track. Wraps :func:`cluttersim.analysis.compare.compare_to_dir`.
 
     Returns
     -------
@@ -136,7 +136,7 @@ def compare_observed(observed, track, sample_interval_s: float, out_dir, **optio
     >>> written["comparison"].name
     'comparison.nc'
     """
-    from .compare import compare_to_dir
+    from .analysis.compare import compare_to_dir
 
     return compare_to_dir(observed, track, sample_interval_s, out_dir, **options)
 
@@ -146,10 +146,10 @@ def survey_region(dem, region, out_dir, *, sim_config=None, engine=None, progres
     """Map where over a region off-nadir clutter will hide the subsurface, before flying.
 
     ``region`` = (lon_min, lat_min, lon_max, lat_max) in degrees; the other
-    options are those of :class:`cluttersim.survey.SurveyConfig` (``spacing_km``,
+    options are those of :class:`cluttersim.analysis.survey.SurveyConfig` (``spacing_km``,
     ``heading_deg``, ``alt_m`` for generated tracks, or ``tracks_path``;
     ``max_depth_m``, ``permittivity``, ``threshold_db``...). Wraps
-    :func:`cluttersim.survey.run_survey`; writes ``survey.csv``,
+    :func:`cluttersim.analysis.survey.run_survey`; writes ``survey.csv``,
     ``clutter_map.tif`` and ``clutter_map.png`` into ``out_dir`` (``figures=FigureOptions(dpi=,
     fmt=, db_range=)`` for another resolution, pdf/svg or colour range).
 
@@ -162,7 +162,7 @@ def survey_region(dem, region, out_dir, *, sim_config=None, engine=None, progres
     >>> summary.tracks, sorted(p.name for p in summary.paths.values())
     (3, ['clutter_map.png', 'clutter_map.tif', 'survey.csv'])
     """
-    from .survey import Engine, SurveyConfig, run_survey
+    from .analysis.survey import Engine, SurveyConfig, run_survey
 
     workers = survey_options.pop("workers", None)
     engine = engine or Engine(workers=workers)

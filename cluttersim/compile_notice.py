@@ -1,11 +1,13 @@
 """Say so when the compiled kernels are not cached yet, and show the compilation's progress.
 
-Numba compiles :mod:`cluttersim.kernels` on first use and keeps the machine code in its
-on-disk cache (``cache=True``): an index file (``kernels.<function>-<line>.py311.nbi``) per
-compiled function, in ``__pycache__`` beside ``kernels.py`` or under ``NUMBA_CACHE_DIR``.
-Numba uses an index only if it records the SHA-256 digest of ``kernels.py`` as it is now
-(numba.core.caching: the index pickles the digest's 32 bytes as they are), so the cache
-counts as empty when no index holds that digest. Nothing here imports Numba.
+Numba compiles the modules of :mod:`cluttersim.kernels` on first use and keeps the machine code
+in its on-disk cache (``cache=True``): an index file (``<module>.<function>-<line>.py311.nbi``,
+e.g. ``diffuse.accumulate_power-15.py311.nbi``) per compiled function, in ``__pycache__`` beside
+the module (``cluttersim/kernels/``) or under ``NUMBA_CACHE_DIR``. Numba uses an index only if
+it records the SHA-256 digest of its module's file as it is now (numba.core.caching: the index
+pickles the digest's 32 bytes as they are). An index is fresh when it holds the digest of the
+module its name starts with; the cache counts as empty when no index is fresh (as before the
+kernels were split into modules, when one file's digest decided). Nothing here imports Numba.
 """
 
 from __future__ import annotations
@@ -20,26 +22,34 @@ from pathlib import Path
 MESSAGE = "cluttersim: compiling the kernels once, about a minute (later runs load them from the cache)"
 
 
-def _kernels_source() -> Path:
-    return Path(__file__).with_name("kernels.py")
+def _kernels_dir() -> Path:
+    return Path(__file__).with_name("kernels")
+
+
+def kernel_sources() -> list[Path]:
+    """The kernel modules (``cluttersim/kernels/*.py``), each with its own cache index files."""
+    return sorted(p for p in _kernels_dir().glob("*.py") if p.name != "__init__.py")
+
+
+def _index_files() -> list[Path]:
+    user_dir = os.environ.get("NUMBA_CACHE_DIR")
+    if user_dir:
+        parent = _kernels_dir().parts[-2:]  # ("cluttersim", "kernels"), under the cache dir's mirror
+        return [p for p in Path(user_dir).rglob("*.nbi") if p.parent.parts[-2:] == parent]
+    return list((_kernels_dir() / "__pycache__").glob("*.nbi"))
 
 
 def cache_index_files() -> list[Path]:
-    """The kernels' cache index files that Numba would use (holding ``kernels.py``'s digest)."""
-    source = _kernels_source()
-    try:
-        digest = hashlib.sha256(source.read_bytes()).digest()
-    except OSError:
-        return []
-    user_dir = os.environ.get("NUMBA_CACHE_DIR")
-    if user_dir:
-        candidates = [p for p in Path(user_dir).rglob("kernels.*.nbi") if "cluttersim" in str(p.parent)]
-    else:
-        candidates = list((source.parent / "__pycache__").glob("kernels.*.nbi"))
-    fresh = []
-    for p in candidates:
+    """The kernels' cache index files that Numba would use (each holding its own module's digest)."""
+    digests = {}
+    for source in kernel_sources():
         with contextlib.suppress(OSError):
-            if digest in p.read_bytes():
+            digests[source.stem] = hashlib.sha256(source.read_bytes()).digest()
+    fresh = []
+    for p in _index_files():
+        digest = digests.get(p.name.split(".", 1)[0])
+        with contextlib.suppress(OSError):
+            if digest is not None and digest in p.read_bytes():
                 fresh.append(p)
     return fresh
 

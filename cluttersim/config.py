@@ -4,10 +4,10 @@ A radar TOML has two tables::
 
     [radar]      # RadarConfig: instrument settings
     [surface]    # SurfaceConfig: backscatter law and its parameters
-    [noise]      # optional NoiseConfig (cluttersim.noise): receiver noise floor k T B F
-    [subsurface] # optional SubsurfaceConfig (cluttersim.subsurface): predicted interface echo
-    [ionosphere] # optional IonosphereConfig (cluttersim.ionosphere): thin dispersive layer
-    [[band]]     # optional, repeated: frequency bands (cluttersim.radar.BandConfig) simulated
+    [noise]      # optional NoiseConfig (cluttersim.physics.noise): receiver noise floor k T B F
+    [subsurface] # optional SubsurfaceConfig (cluttersim.physics.subsurface): predicted interface echo
+    [ionosphere] # optional IonosphereConfig (cluttersim.physics.ionosphere): thin dispersive layer
+    [[band]]     # optional, repeated: frequency bands (cluttersim.physics.radar.BandConfig) simulated
                  # in one run; each overrides some [radar] keys (centre frequency, bandwidth...)
 
 Unknown tables or keys, wrong types and out-of-range values raise
@@ -25,14 +25,14 @@ from pathlib import Path
 
 import numpy as np
 
-from .antenna import AntennaConfig
-from .aperture import ProcessingConfig
+from .physics.antenna import AntennaConfig
+from .physics.aperture import ProcessingConfig
 from .errors import ConfigError
-from .ionosphere import IonosphereConfig
-from .noise import NoiseConfig
-from .radar import BAND_KEYS, BandConfig, RadarConfig, pulse_power_kernel
-from .scattering import LAWS
-from .subsurface import SubsurfaceConfig
+from .physics.ionosphere import IonosphereConfig
+from .physics.noise import NoiseConfig
+from .physics.radar import BAND_KEYS, BandConfig, RadarConfig, pulse_power_kernel
+from .physics.scattering import LAWS
+from .physics.subsurface import SubsurfaceConfig
 from .validate import check_sigma0_peak
 
 
@@ -41,13 +41,13 @@ class SurfaceConfig:
     """Backscatter law (the ``[surface]`` table): ``law`` and its parameters.
 
     Parameters not given take the law's defaults from
-    :data:`cluttersim.scattering.LAWS`.
+    :data:`cluttersim.physics.scattering.LAWS`.
     """
 
     law: str = "hagfors"
     params: dict = field(default_factory=dict)
     #: Real relative permittivity ε′ of the ground: with it the surface also reflects
-    #: specularly (:mod:`cluttersim.physical_optics`), Fresnel reflectivity at normal incidence.
+    #: specularly (:mod:`cluttersim.physics.physical_optics`), Fresnel reflectivity at normal incidence.
     permittivity: float | None = None
     #: Standard deviation σh of the heights below a DEM cell (m): the specular part is weighted
     #: in power by exp(−(4π σh cos θ / λ)²). Needs ``permittivity``.
@@ -114,7 +114,7 @@ class SurfaceConfig:
         ``permittivity``; else, with ``fallback_to_law``, Γ = −√ρ from the law's ``rho``
         (Hagfors and Gaussian: the Fresnel reflectivity); else None."""
         if self.permittivity is not None:
-            from .physical_optics import normal_reflection_coefficient
+            from .physics.physical_optics import normal_reflection_coefficient
 
             return normal_reflection_coefficient(self.permittivity)
         if fallback_to_law and "rho" in self.params:
@@ -134,9 +134,9 @@ class SimulationConfig:
     surface: SurfaceConfig = field(default_factory=SurfaceConfig)
     antenna: AntennaConfig = field(default_factory=AntennaConfig)
     processing: ProcessingConfig = field(default_factory=ProcessingConfig)  # [processing]: along-track aperture
-    noise: NoiseConfig | None = None  # [noise]: receiver noise floor (cluttersim.noise)
-    subsurface: SubsurfaceConfig | None = None  # [subsurface]: predicted interface echo (cluttersim.subsurface)
-    ionosphere: IonosphereConfig | None = None  # [ionosphere]: thin dispersive layer (cluttersim.ionosphere)
+    noise: NoiseConfig | None = None  # [noise]: receiver noise floor (cluttersim.physics.noise)
+    subsurface: SubsurfaceConfig | None = None  # [subsurface]: predicted interface echo (cluttersim.physics.subsurface)
+    ionosphere: IonosphereConfig | None = None  # [ionosphere]: thin dispersive layer (cluttersim.physics.ionosphere)
     bands: tuple[BandConfig, ...] = ()  # [[band]] tables: several bands in one run (empty: [radar] alone)
 
     def __post_init__(self):
@@ -158,7 +158,7 @@ class SimulationConfig:
 
     def pulse_kernel(self) -> tuple[np.ndarray, np.ndarray]:
         """This (single-band) configuration's compressed-pulse power kernel on the sample grid,
-        peak-normalised, through the ionosphere if any (:func:`cluttersim.radar.pulse_power_kernel`)."""
+        peak-normalised, through the ionosphere if any (:func:`cluttersim.physics.radar.pulse_power_kernel`)."""
         r = self.radar
         return pulse_power_kernel(r.bandwidth_hz, r.sample_interval_s, r.range_window, r.center_frequency_hz,
                                   self.ionosphere)  # fmt: skip
@@ -218,8 +218,8 @@ class SimulationConfig:
                     f"unknown table [{table}]: expected [radar], [surface], [antenna], [processing], [noise], "
                     "[subsurface], [ionosphere], [dem_error] and [[band]]"
                 )
-        if "dem_error" in data:  # read by cluttersim.dem_error.DemErrorConfig.from_toml; checked here
-            from .dem_error import DemErrorConfig
+        if "dem_error" in data:  # read by cluttersim.analysis.dem_error.DemErrorConfig.from_toml; checked here
+            from .analysis.dem_error import DemErrorConfig
 
             DemErrorConfig.from_dict(data["dem_error"])
         radar_data = data.get("radar", {})

@@ -12,17 +12,17 @@ import importlib.util
 from pathlib import Path
 
 from . import plots
-from .aperture import ProcessingConfig
+from .physics.aperture import ProcessingConfig
 from .config import default_config
-from .ionosphere import IonosphereConfig
-from .noise import NoiseConfig
-from .radar import BandConfig
-from .dem import DemSource
+from .physics.ionosphere import IonosphereConfig
+from .physics.noise import NoiseConfig
+from .physics.radar import BandConfig
+from .io.dem import DemSource
 from .errors import DemError
 from .products import FigureOptions, figure_name, run_files, simulate_to_dir
 from .report import REPORT_FILE, write_report
-from .outputs import atomic_paths, check_new, locked_output
-from .radargram import open_radargram
+from .io.outputs import atomic_paths, check_new, locked_output
+from .io.radargram import open_radargram
 from .simulate import RunStats, simulate
 from .track import great_circle_track
 

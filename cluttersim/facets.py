@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import kernels
-from .dem import DemWindow
+from .io.dem import DemWindow
 from .errors import DemError
 
 #: Side of a culling tile, in DEM cells.

@@ -12,11 +12,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .body import Body
+from .physics.body import Body
 from .constants import SPEED_OF_LIGHT_M_S
-from .dem import DemSource, crs_linear_unit_m
-from .outputs import atomic_paths, check_new, locked_output
-from .radargram import band_names, select_band, thin_traces, write_netcdf_to
+from .io.dem import DemSource, crs_linear_unit_m
+from .io.outputs import atomic_paths, check_new, locked_output
+from .io.radargram import band_names, select_band, thin_traces, write_netcdf_to
 from .simulate import _window_for_radius, ground_radius_m, simulate
 from .track import Track, great_circle_track
 
@@ -92,13 +92,13 @@ def simulate_to_dir(
     are written under temporary names and renamed together at the end; with
     ``overwrite``, figures of the previous run that this one does not make (the
     side figure without the source record, other bands', other formats') are removed, with a warning.
-    The directory is locked while the run lasts (:func:`~cluttersim.outputs.lock_directory`).
+    The directory is locked while the run lasts (:func:`~cluttersim.io.outputs.lock_directory`).
     ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
     and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
 
-    A track that needs segments (:func:`cluttersim.segments.plan_segments`), or any
-    track with a Dask ``engine`` (:class:`cluttersim.survey.Engine`), is streamed:
-    :func:`cluttersim.segments.run_segments_to_dir` writes each finished segment to
+    A track that needs segments (:func:`cluttersim.analysis.segments.plan_segments`), or any
+    track with a Dask ``engine`` (:class:`cluttersim.analysis.survey.Engine`), is streamed:
+    :func:`cluttersim.analysis.segments.run_segments_to_dir` writes each finished segment to
     ``OUT/segments/`` (resumed after an interruption) and joins them into
     ``radargram.nc`` without holding the whole radargram. ``summary``, if given, is
     filled with ``segments``, ``resumed`` and ``computed``.
@@ -111,7 +111,7 @@ def simulate_to_dir(
     check_new(paths.values(), overwrite)
     src = dem if isinstance(dem, DemSource) else DemSource.open(dem, body_radius_m)
     track = track if isinstance(track, Track) else Track.from_csv(track)
-    from . import segments
+    from .analysis import segments
     from .config import default_config
 
     config = config if config is not None else default_config()
@@ -137,7 +137,7 @@ def simulate_to_dir(
                   nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
                   max_memory_bytes=max_memory_bytes, segment_traces=None)  # fmt: skip
     if src.height_scale_m != 1.0:  # so that `sources` and `report` read the DEM's heights as simulated
-        from .datums import HEIGHT_UNIT_ATTR
+        from .io.datums import HEIGHT_UNIT_ATTR
 
         ds.attrs[HEIGHT_UNIT_ATTR] = src.height_scale_m
     if summary is not None:

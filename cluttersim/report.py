@@ -2,7 +2,7 @@
 
 :func:`write_report` reads a finished run directory — a simulation
 (``radargram.nc``, :data:`cluttersim.products.RUN_FILES`) or a comparison
-(``comparison.nc`` and ``candidates.csv``, :data:`cluttersim.compare.COMPARE_FILES`,
+(``comparison.nc`` and ``candidates.csv``, :data:`cluttersim.analysis.compare.COMPARE_FILES`,
 with the simulated radargram it was compared with) — and writes one HTML file
 that needs no network to open: images are PNG data URIs, the data behind the
 pointer readout are compressed arrays in the page, and the CSS and JavaScript
@@ -39,9 +39,9 @@ after a byte shuffle, quantised as :class:`Quantiser` describes:
   cell or largest / 65534).
 
 Side: the largest of the left share, the right share and the nadir-strip share
-1 − left − right (:mod:`cluttersim.attribution`). Apparent depth below the
+1 − left − right (:mod:`cluttersim.analysis.attribution`). Apparent depth below the
 trace's own nadir surface: d = c (τ − τ_nadir) / (2 √ε′)
-(:func:`cluttersim.radar.apparent_depth_m`).
+(:func:`cluttersim.physics.radar.apparent_depth_m`).
 """
 
 from __future__ import annotations
@@ -63,7 +63,7 @@ import numpy as np
 
 from .constants import SPEED_OF_LIGHT_M_S
 from .errors import ClutterSimError, ConfigError, DemError
-from .outputs import atomic_paths, check_new
+from .io.outputs import atomic_paths, check_new
 from . import palette
 from .plots import hillshade_intensity, power_db
 
@@ -325,7 +325,7 @@ class RunInputs:
 
 def run_kind(run_dir) -> str:
     """"comparison" if ``run_dir`` holds ``comparison.nc``, "simulation" if it holds ``radargram.nc``."""
-    from .compare import COMPARE_FILES
+    from .analysis.compare import COMPARE_FILES
     from .products import RUN_FILES
 
     run_dir = Path(run_dir)
@@ -346,7 +346,7 @@ REQUIRED_VARIABLES = ("window_start", "lat", "lon", "alt", "nadir_delay", "on_de
 
 
 def _open_sim(path, band):
-    from .radargram import open_radargram
+    from .io.radargram import open_radargram
 
     ds = open_radargram(path, band=band)
     for name in REQUIRED_VARIABLES:
@@ -361,7 +361,7 @@ def load_inputs(run_dir, *, sim=None, band=None) -> RunInputs:
     """Read a run directory for :func:`write_report` (see there for ``sim`` and ``band``)."""
     import xarray as xr
 
-    from .compare import COMPARE_FILES
+    from .analysis.compare import COMPARE_FILES
     from .products import RUN_FILES
 
     run_dir = Path(run_dir)
@@ -434,7 +434,7 @@ def check_same_simulation(comparison, sim_ds, cmp_path, sim_path) -> None:
 
 
 def _read_candidates(path) -> list[dict]:
-    from .compare import CANDIDATE_COLUMNS
+    from .analysis.compare import CANDIDATE_COLUMNS
 
     with open(path, newline="", encoding="utf-8") as fh:
         reader = csv.DictReader(fh)
@@ -491,7 +491,7 @@ def _sim_grid(ds, shape: GridShape, frame, src, blobs: _Blobs, prefix: str, cent
     """Embed a simulated radargram's pointing grid; returns its JSON description (and images).
 
     The images use the colour scale of the run's figures (:func:`cluttersim.plots.db_limits`
-    of the whole radargram); ``centroids`` (:class:`cluttersim.sources.SideCentroids`) adds
+    of the whole radargram); ``centroids`` (:class:`cluttersim.analysis.sources.SideCentroids`) adds
     each side's power-weighted source centre per cell."""
     from .plots import db_limits
 
@@ -746,9 +746,9 @@ def _page_file(name: str) -> str:
 def build_report_html(inputs: RunInputs, src, *, permittivity: float = 3.15, max_columns: int = MAX_COLUMNS,
                       max_rows: int = MAX_ROWS, centroids=None) -> str:  # fmt: skip
     """The report page of a run as one HTML string (see the module docstring); ``centroids``
-    (:func:`cluttersim.sources.side_centroids` of the simulated run) marks each side's centre."""
+    (:func:`cluttersim.analysis.sources.side_centroids` of the simulated run) marks each side's centre."""
     from .products import track_map_data
-    from .radar import apparent_depth_m
+    from .physics.radar import apparent_depth_m
 
     apparent_depth_m(0.0, permittivity)  # validates ε′ (ConfigError)
     ds = inputs.sim
@@ -881,18 +881,18 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
         The simulated radargram, if not the run's own (for a comparison: the
         one it was compared with, when it has moved).
     band : optional
-        Passed to :func:`cluttersim.radargram.open_radargram` when given.
+        Passed to :func:`cluttersim.io.radargram.open_radargram` when given.
     max_columns, max_rows : int
         Size of the embedded pointing grid before samples are grouped in blocks.
     centroids : bool
         Mark each side's power-weighted source centre on the map
-        (:func:`cluttersim.sources.side_centroids`: rebuilds the run's scene from
+        (:func:`cluttersim.analysis.sources.side_centroids`: rebuilds the run's scene from
         its DEM and runs the kernel three more times).
     progress : bool
         Show a progress bar while the centroids are computed.
     """
-    from .datums import with_recorded_height_unit
-    from .dem import DemSource
+    from .io.datums import with_recorded_height_unit
+    from .io.dem import DemSource
 
     if not (isinstance(permittivity, (int, float)) and math.isfinite(permittivity) and permittivity >= 1):
         raise ConfigError(f"permittivity {permittivity}: expected a real relative permittivity >= 1")
@@ -913,7 +913,7 @@ def write_report(run_dir, out_path=None, *, permittivity: float = 3.15, overwrit
         raise DemError(f"{exc}{hint}") from None
     cents = None
     if centroids and "left_fraction" in ds and "nadir_strip_half_width" in ds:
-        from .sources import load_run, side_centroids
+        from .analysis.sources import load_run, side_centroids
 
         try:
             cents = side_centroids(load_run(inputs.sim_path.parent, dem=dem_path, band=band), progress=progress)

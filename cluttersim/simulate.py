@@ -8,8 +8,8 @@ Data flow::
                                       kernels.accumulate_power (chunks of traces, progress)
                                       ──► convolution with the compressed pulse ──► Dataset
 
-The physics lives in :mod:`cluttersim.kernels` (per facet), :mod:`cluttersim.radar`
-and :mod:`cluttersim.scattering`; this module only decides what to compute.
+The physics lives in :mod:`cluttersim.kernels` (per facet), :mod:`cluttersim.physics.radar`
+and :mod:`cluttersim.physics.scattering`; this module only decides what to compute.
 """
 
 from __future__ import annotations
@@ -27,16 +27,17 @@ from rasterio.windows import Window
 from scipy.ndimage import convolve1d
 from tqdm.auto import tqdm
 
-from . import __version__, kernels, kernels_coherent, memory, physical_optics, presum
+from . import __version__, kernels, memory, presum
+from .physics import physical_optics
 from .config import SimulationConfig, default_config
 from .constants import SPEED_OF_LIGHT_M_S
-from .dem import DemSource, DemWindow, warn_holes
+from .io.dem import DemSource, DemWindow, warn_holes
 from .errors import GeometryError, TrackError
 from .facets import Facets, build_facets
-from .noise import add_complex_noise, add_noise_by_pulse
-from .antenna import trace_frames
-from .attribution import first_return, right_unit_vectors, side_fractions
-from .radar import (
+from .physics.noise import add_complex_noise, add_noise_by_pulse
+from .physics.antenna import trace_frames
+from .analysis.attribution import first_return, right_unit_vectors, side_fractions
+from .physics.radar import (
     POWER_CONVENTION,
     POWER_CONVENTION_TEXT,
     noise_bandwidth_factor,
@@ -45,8 +46,8 @@ from .radar import (
     pulse_limited_radius_m,
     pulse_power_kernel,
 )
-from .radargram import build_dataset, flatten_config_attrs, stack_bands
-from .subsurface import subsurface_variables
+from .io.radargram import build_dataset, flatten_config_attrs, stack_bands
+from .physics.subsurface import subsurface_variables
 from .track import Track, wrap_lon_like
 from .validate import check_far_field, check_noise_power, check_power_bound, check_run_arguments
 
@@ -130,13 +131,13 @@ def simulate(
         (:func:`cluttersim.memory.estimate_memory_bytes`) exceeds this; "auto":
         80 % of the available memory; None: no check.
     segment_traces : int, "auto" or None
-        Pulses per segment (:mod:`cluttersim.segments`): a long track is simulated in
+        Pulses per segment (:mod:`cluttersim.analysis.segments`): a long track is simulated in
         segments, each with its own DEM window, so memory is bounded by one segment.
-        "auto": one piece when the whole track fits :data:`cluttersim.segments.SEGMENT_BUDGET_BYTES`,
+        "auto": one piece when the whole track fits :data:`cluttersim.analysis.segments.SEGMENT_BUDGET_BYTES`,
         else segments of the size that reads the fewest DEM cells; None: one piece.
     first_pulse : int
         Index of this track's first pulse in a longer track it is a segment of (the
-        per-pulse noise seeds, :func:`cluttersim.noise.add_noise_by_pulse`).
+        per-pulse noise seeds, :func:`cluttersim.physics.noise.add_noise_by_pulse`).
     require_echo : bool
         Raise :class:`GeometryError` when no sample receives surface power (a segment
         of a longer track may have none).
@@ -147,10 +148,10 @@ def simulate(
     Returns
     -------
     xarray.Dataset
-        The radargram (see :mod:`cluttersim.radargram` for the variables). With
-        ``config.noise``, seeded noise (:func:`cluttersim.noise.add_noise`) is added
+        The radargram (see :mod:`cluttersim.io.radargram` for the variables). With
+        ``config.noise``, seeded noise (:func:`cluttersim.physics.noise.add_noise`) is added
         to ``power`` after the source record is made; with ``config.subsurface``,
-        the predicted interface echo (:func:`cluttersim.subsurface.predict_subsurface`).
+        the predicted interface echo (:func:`cluttersim.physics.subsurface.predict_subsurface`).
     """
     t_start = time.perf_counter()
     check_run_arguments(first_return_db=first_return_db, nadir_strip_m=nadir_strip_m)
@@ -166,7 +167,7 @@ def simulate(
     if len(track) < proc.presum:
         raise TrackError(f"{track.source}: {len(track)} pulses, fewer than [processing] presum = {proc.presum}")
     if segment_traces is not None:
-        from . import segments
+        from .analysis import segments
 
         plan = segments.plan_segments(src, track, config, sources=sources, segment_traces=segment_traces,
                                       max_memory_bytes=max_memory_bytes)  # fmt: skip
@@ -358,7 +359,7 @@ class _BandRun:
         """Mean noise power per sample of one pulse on the ``power`` scale (W): the input noise
         (:meth:`NoiseConfig.noise_power_w`) times the range window's equivalent noise bandwidth
         B τ_eff, divided by the processing gains of ``[processing]`` (range compression τB and the
-        aperture's integration gain), which the echo does not get (see :mod:`cluttersim.noise`)."""
+        aperture's integration gain), which the echo does not get (see :mod:`cluttersim.physics.noise`)."""
         noise = self.scene.config.noise
         if noise is None:
             return None
@@ -367,7 +368,7 @@ class _BandRun:
 
     def processing_gain(self) -> float:
         """Range-compression gain τB times the aperture's integration gain at the track's median
-        height above the nadir surface (:class:`~cluttersim.aperture.ProcessingConfig`); 1 without
+        height above the nadir surface (:class:`~cluttersim.physics.aperture.ProcessingConfig`); 1 without
         ``pulse_length_s`` and ``prf_hz``."""
         proc = self.scene.config.processing
         gain = proc.range_compression_gain(self.radar.bandwidth_hz)
@@ -485,7 +486,7 @@ def prepare_scene(
     """Read the DEM window a track needs, build its facets and each trace's recording window.
 
     ``range_margin_m`` widens the DEM window as if every window reached that much farther
-    (the DEM-error Monte Carlo, :mod:`cluttersim.dem_error`, raises terrain by up to it).
+    (the DEM-error Monte Carlo, :mod:`cluttersim.analysis.dem_error`, raises terrain by up to it).
 
     Raises :class:`TrackError` or :class:`GeometryError` for tracks off the DEM,
     below the terrain, or windows that cannot hold any surface echo, and
@@ -667,7 +668,7 @@ def binned_power(scene: Scene, ant_m, bin0_s, nbins: int, right_unit=None, strip
     ``ant_m`` (n, 3) are antenna positions relative to ``scene.facets.origin_m``
     and bin k of trace t covers [bin0_s[t] + k dt, bin0_s[t] + (k+1) dt).
     ``frames`` (n, 3, 3) are the traces' along/right/down frames
-    (:func:`cluttersim.antenna.trace_frames`), needed for antenna patterns and
+    (:func:`cluttersim.physics.antenna.trace_frames`), needed for antenna patterns and
     apertures; ``traces`` their indices in the track, needed for shadowing.
     Returns ``(binned, best_facet, evaluations)``: binned (n, 1 or 3, nbins) W —
     row 0 the total, rows 1 and 2 the left and right shares when ``sources``.
@@ -707,7 +708,7 @@ COHERENT_OVERSAMPLE = 8
 
 def pulse_amplitude_grid(radar, oversample: int, ionosphere=None) -> np.ndarray:
     """Compressed-pulse complex amplitude h sampled every dt/oversample, peak-normalised (max|h| = 1
-    without an ionosphere; :func:`cluttersim.radar.pulse_amplitude_response`): a complex field
+    without an ionosphere; :func:`cluttersim.physics.radar.pulse_amplitude_response`): a complex field
     deposited in a bin and convolved with it reads its power at its peak sample (the ``power``
     convention), and random-phase facets average to the incoherent mode's power."""
     offsets, _ = pulse_power_kernel(radar.bandwidth_hz, radar.sample_interval_s, radar.range_window,
@@ -782,11 +783,11 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
     """The specular (physical-optics) echo of some traces, range-compressed: complex (n, nside, nbins)
     at the (padded) sample centres, and the number of (sub-)facet evaluations.
 
-    ``kernels_coherent.accumulate_specular`` deposits every facet's field on a grid of
+    ``kernels.accumulate_specular`` deposits every facet's field on a grid of
     :data:`SPECULAR_CELLS_PER_SAMPLE` cells per sample; the cells are convolved with the
     compressed pulse's amplitude response h, normalised to max |h| = 1 (a point target, or
     a mirror, reads its radar-equation power at its peak sample), through the ionosphere if
-    any (:func:`cluttersim.radar.pulse_amplitude_response`). With ``right_unit``
+    any (:func:`cluttersim.physics.radar.pulse_amplitude_response`). With ``right_unit``
     (n, 3) and ``strip_half_m`` (n,) the rows are the nadir strip, left and right sides
     (:data:`cluttersim.kernels.SIDE_NADIR`...), else one row. Γ is the surface's
     (``[surface] permittivity``) unless ``reflection_coefficient`` is given.
@@ -813,7 +814,7 @@ def specular_signal(scene: Scene, ant_m, bin0_s, nbins: int, frames, traces, rig
     for a in range(0, n, SPECULAR_TRACES_PER_CALL):  # the fine grid is 9× a trace: a few traces at a time
         b = min(a + SPECULAR_TRACES_PER_CALL, n)
         cells = np.zeros((b - a, nside, nbins * k), dtype=np.complex128)
-        n_eval += kernels_coherent.accumulate_specular(
+        n_eval += kernels.accumulate_specular(
             np.ascontiguousarray(ant_m[a:b], dtype=np.float64), np.ascontiguousarray(right_unit[a:b], dtype=np.float64),
             np.ascontiguousarray(strip_half_m[a:b], dtype=np.float64), np.ascontiguousarray(bin0_s[a:b], dtype=np.float64),
             radar.sample_interval_s, k, f.tile_centre_m, f.tile_radius_m, f.tile_slab, f.tile_offsets, f.rel_m, f.normal, f.e_col_m,

@@ -142,7 +142,7 @@ def radar_template(kind: str = "orbital") -> str:
     """
     if kind not in PRESETS:
         raise ValueError(f"radar template {kind!r}: expected one of {', '.join(PRESETS)}")
-    from .scattering import LAWS
+    from .physics.scattering import LAWS
 
     preset = PRESETS[kind]
     lines = [
@@ -184,7 +184,7 @@ def radar_template(kind: str = "orbital") -> str:
 
 def template_keys() -> dict[str, set[str]]:
     """Every key the template names, per table (for the tests)."""
-    from .scattering import LAWS
+    from .physics.scattering import LAWS
 
     return {
         "radar": {r[0] for r in _RADAR},

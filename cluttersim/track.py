@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .body import Body
+from .physics.body import Body
 from .errors import TrackError
 from .validate import check_longitudes, check_trace_steps
 
@@ -113,8 +113,8 @@ class Track:
 class TrackOverDem:
     """A track over a DEM as a worker process or a Dask task receives it: small and picklable, the
     DEM travels as its path (never its pixels), the track as arrays. The fields every such job
-    shares; :class:`cluttersim.survey.TrackJob`, :class:`cluttersim.segments.SegmentJob` and
-    :class:`cluttersim.plan.PlanJob` extend it with their own (keyword-only here, so theirs
+    shares; :class:`cluttersim.analysis.survey.TrackJob`, :class:`cluttersim.analysis.segments.SegmentJob` and
+    :class:`cluttersim.analysis.plan.PlanJob` extend it with their own (keyword-only here, so theirs
     keep their places)."""
 
     dem_path: str

@@ -73,7 +73,7 @@ def central_angle_deg(lat1, lon1, lat2, lon2):
 
 def check_trace_steps(lat_deg, lon_deg, source: str) -> None:
     """Refuse consecutive traces more than :data:`MAX_TRACE_STEP_DEG` apart (TrackError). Traces at
-    the same position are allowed (a hovering platform); :func:`cluttersim.attribution.right_unit_vectors`
+    the same position are allowed (a hovering platform); :func:`cluttersim.analysis.attribution.right_unit_vectors`
     gives them the direction of travel of the nearest moving trace, with a warning."""
     lat = np.asarray(lat_deg, dtype=np.float64)
     lon = np.asarray(lon_deg, dtype=np.float64)
@@ -119,10 +119,10 @@ def check_far_field(track, h_nadir_m, config) -> None:
 
 
 def check_sigma0_peak(law: str, params: dict) -> None:
-    """Refuse a [surface] law whose largest σ0 over incidence (:func:`cluttersim.scattering.sigma0_peak`)
+    """Refuse a [surface] law whose largest σ0 over incidence (:func:`cluttersim.physics.scattering.sigma0_peak`)
     exceeds :data:`MAX_SIGMA0`, naming the key(s) that set it (ConfigError, when the config is read)."""
     from .errors import ConfigError
-    from .scattering import LAWS, sigma0_peak
+    from .physics.scattering import LAWS, sigma0_peak
 
     peak, incidence_deg = sigma0_peak(law, params)
     if math.isfinite(peak) and peak <= MAX_SIGMA0:
@@ -149,7 +149,7 @@ def check_power_bound(config, nearest_m: float, area_m2: float, pulse_sum: float
     :data:`MAX_POWER_BOUND_W`.
     """
     from .errors import ConfigError
-    from .scattering import sigma0_peak
+    from .physics.scattering import sigma0_peak
 
     sigma0_max, _ = sigma0_peak(config.surface.law, config.surface.params)
     worst = None

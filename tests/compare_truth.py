@@ -23,8 +23,8 @@ import math
 import numpy as np
 from scipy.interpolate import CubicSpline
 
-from cluttersim.compare_grid import bandwidth_of
-from cluttersim.observed import ObservedRadargram
+from cluttersim.analysis.compare_grid import bandwidth_of
+from cluttersim.io.observed import ObservedRadargram
 
 C = 299_792_458.0  # m/s, SI definition
 ICE = 3.15  # ε′ of water ice (common practice)

@@ -7,10 +7,10 @@ import pytest
 from scipy.integrate import quad
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.antenna import DIPOLE_PEAK, AntennaConfig, dipole_directivity, gaussian_beam, trace_frames
+from cluttersim.physics.antenna import DIPOLE_PEAK, AntennaConfig, dipole_directivity, gaussian_beam, trace_frames
 from cluttersim.errors import ConfigError
 from cluttersim.kernels import pattern_gain_two_way
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 
 # Balanis, Antenna Theory (2005), §4.6: half-wave dipole directivity D0 = 1.643 = 2.15 dBi

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.aperture import (
+from cluttersim.physics.aperture import (
     ProcessingConfig,
     along_track_weight,
     doppler_resolution_m,
@@ -15,7 +15,7 @@ from cluttersim.aperture import (
     unfocused_response,
 )
 from cluttersim.errors import ConfigError
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 
 BUMP_EAST_M, BUMP_RADIUS_M, BUMP_CENTRE_Z_M = 700.0, 15.0, -5.0  # a 10 m spherical cap: nearly a point

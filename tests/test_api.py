@@ -39,13 +39,14 @@ def test_docstring_examples_run(name, tmp_path, monkeypatch):
 
 def test_the_main_jobs_are_reachable_from_import_cluttersim_and_imported_lazily():
     code = ("import sys, cluttersim; heavy = [m for m in ('numba', 'matplotlib', 'xarray') if m in sys.modules]; "
-            "print(heavy); import cluttersim.sources; print(callable(cluttersim.simulate), "
+            "print(heavy); import cluttersim.analysis.sources; print(callable(cluttersim.simulate), "
             "cluttersim.compare.__name__, cluttersim.survey.__name__, cluttersim.report.__name__, "
             "cluttersim.sources.__name__, callable(cluttersim.write_report))")  # fmt: skip
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.split("\n")
     assert out[0] == "[]"  # nothing heavy on import
     # cluttersim.simulate stays the function even after its module is imported
-    assert out[1] == "True cluttersim.compare cluttersim.survey cluttersim.report cluttersim.sources True"
+    # the attribute submodules resolve to their modules in the subpackages
+    assert out[1] == "True cluttersim.analysis.compare cluttersim.analysis.survey cluttersim.report cluttersim.analysis.sources True"
     for name in ("compare_observed", "survey_region", "echo_sources", "write_report"):
         doc = getattr(cluttersim, name).__doc__
         assert "Examples" in doc and ">>>" in doc and ":func:`cluttersim." in doc  # names the function doing the work
@@ -73,13 +74,13 @@ def test_radargram_opens_with_coordinates_a_scientist_expects(tmp_path):
 
 
 def test_radar_template_parses_and_names_every_key(tmp_path):
-    from cluttersim.antenna import AntennaConfig
-    from cluttersim.aperture import ProcessingConfig
+    from cluttersim.physics.antenna import AntennaConfig
+    from cluttersim.physics.aperture import ProcessingConfig
     from cluttersim.config import SimulationConfig
-    from cluttersim.noise import NoiseConfig
-    from cluttersim.radar import BAND_KEYS, RadarConfig
-    from cluttersim.scattering import LAWS
-    from cluttersim.subsurface import SubsurfaceConfig
+    from cluttersim.physics.noise import NoiseConfig
+    from cluttersim.physics.radar import BAND_KEYS, RadarConfig
+    from cluttersim.physics.scattering import LAWS
+    from cluttersim.physics.subsurface import SubsurfaceConfig
     from cluttersim.template import template_keys
 
     for kind in ("orbital", "airborne"):
@@ -91,7 +92,7 @@ def test_radar_template_parses_and_names_every_key(tmp_path):
         if kind == "orbital":
             assert config == cluttersim.default_config()  # the built-in radar's values
     keys = template_keys()
-    from cluttersim.ionosphere import IonosphereConfig
+    from cluttersim.physics.ionosphere import IonosphereConfig
 
     tables = {"radar": RadarConfig, "noise": NoiseConfig, "subsurface": SubsurfaceConfig, "antenna": AntennaConfig,
               "processing": ProcessingConfig, "ionosphere": IonosphereConfig}  # fmt: skip
@@ -176,8 +177,8 @@ def test_geometry_errors_give_the_extents_and_the_unit_hint(tmp_path):
 
 
 def test_survey_says_it_ignores_noise_and_subsurface():
-    from cluttersim.noise import NoiseConfig
-    from cluttersim.survey import survey_sim_config
+    from cluttersim.physics.noise import NoiseConfig
+    from cluttersim.analysis.survey import survey_sim_config
 
     config = dataclasses.replace(cluttersim.default_config(), noise=NoiseConfig(noise_figure_db=3.0))
     with pytest.warns(UserWarning, match=r"\[noise\] table\(s\) are ignored"):

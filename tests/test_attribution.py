@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.radar import RadarConfig, apparent_depth_m, delay_after_surface_s, pulse_limited_radius_m
+from cluttersim.physics.radar import RadarConfig, apparent_depth_m, delay_after_surface_s, pulse_limited_radius_m
 from scenes import UTM_X0_M, UTM_Y0_M, to_utm, utm_grid, utm_track, write_utm
 
 C = 299_792_458.0  # SI definition
@@ -88,7 +88,7 @@ def block_scene(tmp_path, res=20.0, n=200, h=1000.0, offset=800.0):
 
 
 def test_depth_window_map_lights_only_the_block(tmp_path):
-    from cluttersim.sources import depth_window_map, load_run
+    from cluttersim.analysis.sources import depth_window_map, load_run
     from cluttersim.products import simulate_to_dir
 
     dem, _ = block_scene(tmp_path)
@@ -134,7 +134,7 @@ def dome_range_m(alt_m, along_m):
 @pytest.mark.parametrize("northbound", [True, False])
 def test_point_like_hill_traces_a_hyperbola_and_is_named_with_its_side(tmp_path, northbound):
     from cluttersim.products import simulate_to_dir
-    from cluttersim.sources import ask_echo, load_run
+    from cluttersim.analysis.sources import ask_echo, load_run
 
     dem = dome_scene(tmp_path)
     north = UTM_Y0_M + np.linspace(-500, 500, 41)

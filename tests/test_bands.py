@@ -9,8 +9,8 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim import Body, SimulationConfig, great_circle_track, simulate
 from cluttersim.errors import ClutterSimError, ConfigError
-from cluttersim.radar import effective_pulse_duration_s
-from cluttersim.radargram import open_radargram, select_band, write_netcdf
+from cluttersim.physics.radar import effective_pulse_duration_s
+from cluttersim.io.radargram import open_radargram, select_band, write_netcdf
 from scenes import MARS_RADIUS_M, flat_geographic
 
 C = 299_792_458.0  # SI definition
@@ -196,7 +196,7 @@ def test_each_band_predicts_its_own_interface_echo(flat_bands):
     single-band run of that band."""
     import dataclasses
 
-    from cluttersim.subsurface import SubsurfaceConfig
+    from cluttersim.physics.subsurface import SubsurfaceConfig
 
     *_, cfg, track, dem, _ = flat_bands
     lossy = dataclasses.replace(cfg, subsurface=SubsurfaceConfig(depth_m=50.0, layer_permittivity=3.15,

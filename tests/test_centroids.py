@@ -9,8 +9,8 @@ import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig
 from cluttersim.products import simulate_to_dir
-from cluttersim.radar import RadarConfig
-from cluttersim.sources import load_run, side_centroids
+from cluttersim.physics.radar import RadarConfig
+from cluttersim.analysis.sources import load_run, side_centroids
 from scenes import UTM_X0_M, UTM_Y0_M, to_utm, utm_track
 from test_attribution import AIRBORNE, C, dome_scene
 

@@ -7,9 +7,9 @@ import pytest
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim import kernels
-from cluttersim.aperture import ProcessingConfig
+from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.simulate import detect_coherent
 from scenes import MARS_RADIUS_M, write_geotiff
 

@@ -18,13 +18,13 @@ from scipy.interpolate import CubicSpline
 from scipy.optimize import brentq
 
 from cluttersim import Track, simulate
-from cluttersim.compare import CompareSettings, body_of, compare, compare_to_dir, match_traces
-from cluttersim.compare_detect import (
+from cluttersim.analysis.compare import CompareSettings, body_of, compare, compare_to_dir, match_traces
+from cluttersim.analysis.compare_detect import (
     NoiseFloor, candidate_score, continuity_fraction, detect_unexplained, gamma_looks_sf, noise_floor,
     parabolic_peak_offset, ratio_p_value,
 )  # fmt: skip
-from cluttersim.compare_grid import cubic_convolution, resample_bin_mean_power
-from cluttersim.observed import ObservedRadargram
+from cluttersim.analysis.compare_grid import cubic_convolution, resample_bin_mean_power
+from cluttersim.io.observed import ObservedRadargram
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 from test_attribution import AIRBORNE, config
 
@@ -335,7 +335,7 @@ def test_noise_alone_gives_no_candidate_at_the_default_pfa(scene, seed):
 
 def test_products_are_written_together(scene, tmp_path):
     dem, track, _, sim = scene
-    from cluttersim.radargram import write_netcdf
+    from cluttersim.io.radargram import write_netcdf
 
     write_netcdf(sim, tmp_path / "run" / "radargram.nc")
     power, start = observe(sim, shift_samples=7.3, seed=7, reflector_depth_m=40.0)
@@ -388,7 +388,7 @@ def test_candidates_geojson_holds_the_csv_rows_at_nadir_and_at_the_clutter_sourc
     import json
 
     dem, track, _, sim = scene
-    from cluttersim.radargram import write_netcdf
+    from cluttersim.io.radargram import write_netcdf
 
     write_netcdf(sim, tmp_path / "run" / "radargram.nc")
     power, start = observe(sim, shift_samples=-2.2, seed=9, reflector_depth_m=40.0)

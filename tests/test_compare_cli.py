@@ -12,7 +12,7 @@ from click.testing import CliRunner
 from rasterio.transform import from_origin
 
 from cli.main import cli
-from cluttersim.observed import ObservedFormat, load_observed
+from cluttersim.io.observed import ObservedFormat, load_observed
 from cluttersim.products import simulate_to_dir
 from test_compare import DT, NTRACE, hill_scene, observe
 
@@ -384,7 +384,7 @@ def test_many_tracks_give_one_combined_table_geojson_and_map(files, tmp_path):
 def test_a_given_tec_delays_the_simulation_before_the_alignment(files, tmp_path):
     """--tec-el-m2: the simulation is seen through the layer, later by 2 · 40.3 · TEC / (c f²) at the
     centre frequency (Davies, Ionospheric Radio), so the offset found shrinks by that many samples."""
-    from cluttersim.ionosphere import group_delay_two_way_s
+    from cluttersim.physics.ionosphere import group_delay_two_way_s
 
     out = tmp_path / "cmp_tec"
     res = run(base_args(files, out) + ["--sim", files["sim"], "--tec-el-m2", "3e14"])

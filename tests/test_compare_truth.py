@@ -18,11 +18,11 @@ import pytest
 from matplotlib import cbook
 
 from cluttersim import simulate
-from cluttersim.body import Body
-from cluttersim.compare import CompareSettings, compare
-from cluttersim.compare_grid import bandwidth_of
+from cluttersim.physics.body import Body
+from cluttersim.analysis.compare import CompareSettings, compare
+from cluttersim.analysis.compare_grid import bandwidth_of
 from cluttersim.config import SimulationConfig, SurfaceConfig, default_config
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.track import great_circle_track
 from compare_truth import GAIN_DB, identical, layer, observe
 from scenes import write_geotiff
@@ -39,7 +39,7 @@ def hill(tmp_path_factory):
 def demo_section():
     """42 traces of the demo pass over the site's centre (default radar, 300 km up), 768 samples."""
     from cluttersim.demo import DEMO_ALT_M, DEMO_SPEED_M_S, demo_dem_path
-    from cluttersim.dem import DemSource
+    from cluttersim.io.dem import DemSource
 
     src = DemSource.open(demo_dem_path())
     track = great_circle_track(src.body, 11.9, 41.0, 12.25, 41.0, DEMO_ALT_M, 500.0, speed_m_s=DEMO_SPEED_M_S)

@@ -19,8 +19,8 @@ from click.testing import CliRunner
 
 from cli.main import cli
 from cluttersim import Track
-from cluttersim.datums import HeightDatum, parse_height_datum, track_in_dem_datum, use_system_proj_data
-from cluttersim.dem import DemSource
+from cluttersim.io.datums import HeightDatum, parse_height_datum, track_in_dem_datum, use_system_proj_data
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import TrackError
 from scenes import write_geotiff
 
@@ -187,7 +187,7 @@ def test_declared_height_unit_feet(tmp_path):
     delay, _ = simulate_cli(tmp_path, dem, "--dem-height-unit", "ft")
     np.testing.assert_allclose(delay, 2 * (H_TRACK - 304.8) / C, rtol=0, atol=2e-11)
     # the run records the declared unit: its scene rebuilt later (sources, report) has the same heights
-    from cluttersim.sources import load_run
+    from cluttersim.analysis.sources import load_run
 
     run = load_run(tmp_path / "run0")
     assert np.nanmax(np.abs(run.scene.window.elevation_m - 304.8)) < 1e-9

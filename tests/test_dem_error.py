@@ -18,8 +18,8 @@ from scenes import MARS_RADIUS_M, flat_geographic, write_geotiff
 
 from cluttersim import default_config
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
-from cluttersim.dem import DemSource
-from cluttersim.dem_error import (
+from cluttersim.io.dem import DemSource
+from cluttersim.analysis.dem_error import (
     DemErrorConfig,
     correlated_field_m,
     explained_probability,
@@ -262,8 +262,8 @@ def test_compare_gives_candidates_a_probability(flat):
     """Observed = an independent DEM realisation (another seed) + noise, plus an invented echo 20 dB below
     the peak 25 samples before the surface, where no realisation has any: the comparison against the
     realisations explains most detected samples with a high probability and gives that echo ~0."""
-    from cluttersim.compare import compare
-    from cluttersim.observed import ObservedRadargram
+    from cluttersim.analysis.compare import compare
+    from cluttersim.io.observed import ObservedRadargram
 
     src, track = flat
     cfg = small_radar()

@@ -22,7 +22,7 @@ from rasterio.crs import CRS as RioCRS
 from rasterio.transform import from_origin
 
 from cluttersim import Track, simulate
-from cluttersim.dem import DemSource
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import DemError
 from scenes import MARS_RADIUS_M, MARS_SPHERE, write_geotiff
 from test_geometry_edges import config

@@ -7,8 +7,8 @@ import pyproj
 import pytest
 from rasterio.windows import Window
 
-from cluttersim.body import Body
-from cluttersim.dem import DemSource
+from cluttersim.physics.body import Body
+from cluttersim.io.dem import DemSource
 from cluttersim.facets import build_facets
 from cluttersim.track import great_circle_track
 from scenes import MARS_RADIUS_M, MARS_SPHERE, write_geotiff

@@ -10,8 +10,8 @@ import pyproj
 import pytest
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, Track, great_circle_track, simulate
-from cluttersim.dem import DemSource
-from cluttersim.radar import RadarConfig
+from cluttersim.io.dem import DemSource
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.simulate import RunStats
 from scenes import MARS_RADIUS_M, MARS_SPHERE, write_geotiff
 

@@ -26,9 +26,9 @@ from rasterio.crs import CRS as RioCRS
 from rasterio.transform import from_origin
 
 from cli.main import cli
-from cluttersim import outputs
-from cluttersim.body import Body
-from cluttersim.dem import DemSource
+from cluttersim.io import outputs
+from cluttersim.physics.body import Body
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import DemError, OutputLockedError
 from cluttersim.track import great_circle_track
 from cluttersim.validate import height_limit_m
@@ -243,7 +243,7 @@ def test_kernel_is_index_safe_for_any_finite_height(d, tmp_path):
     """With the height check switched off, cells of ±3.4e38, 1e20 and 1e9 m reach the compiled kernel:
     it must end normally (a clean error is acceptable), never with a crash (exit 139 = SIGSEGV)."""
     script = textwrap.dedent(f"""
-        import cluttersim.dem as dem
+        import cluttersim.io.dem as dem
         dem.mask_implausible_heights = lambda elevation, body, path: (0, 0.0)
         from cluttersim.errors import ClutterSimError
         from cluttersim import simulate
@@ -266,7 +266,8 @@ def test_kernel_is_index_safe_for_any_finite_height(d, tmp_path):
 def test_no_space_left_is_one_line_and_nothing_is_left(d, run, tmp_path, monkeypatch, command):
     """ENOSPC injected where the bytes go to disk (the netCDF image, the CSV): one line naming the
     product, exit 1, no temporary file, no directory."""
-    from cluttersim import radargram, track
+    from cluttersim.io import radargram
+    from cluttersim import track
 
     def full(*args, **kwargs):
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
@@ -338,8 +339,8 @@ def test_read_only_file_system(d, tmp_path):
 
 _INJECT = """
 import os, signal, sys
-import cluttersim.radargram as rg
-import cluttersim.outputs as outputs
+import cluttersim.io.radargram as rg
+import cluttersim.io.outputs as outputs
 mode = sys.argv[1]
 original_write = rg.write_netcdf_to
 original_replace = os.replace
@@ -391,7 +392,7 @@ def test_an_interrupt_while_the_products_are_renamed_ends_in_130_with_the_new_on
     assert len(lines) == 1 and lines[0].startswith("cluttersim: interrupted; 5 product(s) written before it are complete")  # with the elevation figure
     assert sorted(p.name for p in out.iterdir()) == ["radargram.nc", "radargram.png", "radargram_elevation.png", "radargram_sides.png",
                                                         "track_map.png"]
-    from cluttersim.radargram import open_radargram
+    from cluttersim.io.radargram import open_radargram
 
     assert open_radargram(out / "radargram.nc")["power"].shape == (2, 2048)
 
@@ -522,7 +523,7 @@ def test_survey_workers_die_with_their_parent(massif, tmp_path, sig):
 
 _HOLD = """
 import sys, time
-from cluttersim.outputs import lock_directory
+from cluttersim.io.outputs import lock_directory
 with lock_directory(sys.argv[1]):
     print("locked", flush=True)
     time.sleep(120)
@@ -563,7 +564,7 @@ def test_the_lock_is_reentrant_and_leaves_nothing(tmp_path):
 
 def test_survey_resume_key_follows_the_dem_content(massif, tmp_path):
     """Same path, same size, one pixel changed: the finished tracks are not reused."""
-    from cluttersim.survey import dem_digest
+    from cluttersim.analysis.survey import dem_digest
 
     dem = tmp_path / "dem.tif"
     dem.write_bytes(massif.read_bytes())
@@ -624,7 +625,7 @@ def test_unknown_vertical_unit_is_refused(tmp_path):
 
 def test_survey_grid_on_a_crs_in_feet_has_cells_of_grid_km(tmp_path):
     """EPSG:2229 (California zone 5, US survey feet): --grid-km 1 gives 1000 m cells, 3280.8 ft."""
-    from cluttersim.survey import SurveyConfig, SurveyGrid
+    from cluttersim.analysis.survey import SurveyConfig, SurveyGrid
 
     crs = pyproj.CRS("EPSG:2229")
     x0, y0 = 6_500_000.0, 1_900_000.0  # ft

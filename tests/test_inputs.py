@@ -5,7 +5,7 @@ import pytest
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, Track, great_circle_track, simulate
 from cluttersim.errors import TrackError
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from scenes import MARS_RADIUS_M, flat_geographic, write_geotiff
 
 C = 299_792_458.0  # SI definition

@@ -8,8 +8,8 @@ from scipy.integrate import quad
 
 from cluttersim import SimulationConfig
 from cluttersim.errors import ConfigError
-from cluttersim.ionosphere import K_IONO, IonosphereConfig, group_delay_two_way_s, phase_two_way_rad
-from cluttersim.radar import (
+from cluttersim.physics.ionosphere import K_IONO, IonosphereConfig, group_delay_two_way_s, phase_two_way_rad
+from cluttersim.physics.radar import (
     compressed_pulse_amplitude,
     effective_pulse_duration_s,
     pulse_amplitude_response,
@@ -114,7 +114,7 @@ def test_compare_correction_delays_and_smears_a_finished_simulation():
 
     import xarray as xr
 
-    from cluttersim.ionosphere import disperse_radargram
+    from cluttersim.physics.ionosphere import disperse_radargram
 
     cfg = SimulationConfig()  # 20 MHz, 10 MHz, 37.5 ns, Hann
     dt = cfg.radar.sample_interval_s

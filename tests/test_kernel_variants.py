@@ -14,9 +14,9 @@ from cluttersim import (
     great_circle_track,
     kernels,
 )
-from cluttersim.dem import DemSource
-from cluttersim.radar import RadarConfig, pulse_power_kernel
-from cluttersim.reference import reference_binned_power
+from cluttersim.io.dem import DemSource
+from cluttersim.physics.radar import RadarConfig, pulse_power_kernel
+from cluttersim.physics.reference import reference_binned_power
 from cluttersim.simulate import binned_power, prepare_scene
 
 simulate_module = importlib.import_module("cluttersim.simulate")  # the module (the package exports a function of that name)
@@ -64,7 +64,7 @@ def small_scene(tmp_path_factory):
 
 def test_centre_binned_variant_keeps_each_traces_total_power(small_scene, monkeypatch):
     """Benchmark-only centre binning moves power between bins but not in or out of the window's
-    interior: per trace it sums to the NumPy reference's total (cluttersim.reference, exact
+    interior: per trace it sums to the NumPy reference's total (cluttersim.physics.reference, exact
     trapezoids) to the share that straddles the window's edges (within 1e-3; the trapezoids, whose
     corners are on a 1/32-sample grid, within 1e-4)."""
     scene, cfg, ant, bin0, nbins = small_scene
@@ -101,7 +101,7 @@ def test_netcdf_chunks_compressed_in_parallel_read_back_exactly(tmp_path, shape)
     import h5py
     import xarray as xr
 
-    from cluttersim.radargram import write_netcdf_to
+    from cluttersim.io.radargram import write_netcdf_to
 
     rng = np.random.default_rng(5)
     dims = ("band", "trace", "sample")[-len(shape) :]
@@ -133,7 +133,7 @@ def _float64_discretisation(scene, cfg, ant, bin0, nbins, right=None, strip=None
     (kernels.trapezoid_kinks), the four slope changes, twice summed and added per bin; with ``right``,
     each facet's side row and per bin the facet of largest power density whose centre is there."""
     from cluttersim.constants import SPEED_OF_LIGHT_M_S
-    from cluttersim.scattering import sigma0_hagfors
+    from cluttersim.physics.scattering import sigma0_hagfors
 
     f = scene.facets
     ov = simulate_module.OVERSAMPLE

@@ -1,5 +1,5 @@
 """The level-ground reference of the survey's clutter index, computed over a level scene in memory
-(:class:`cluttersim.clutter_index.LevelGround`), against the way it was computed before: the same
+(:class:`cluttersim.analysis.clutter_index.LevelGround`), against the way it was computed before: the same
 level scene written to a float32 GeoTIFF on disk and opened as any DEM (the oracle below). Both run
 the same kernel on the same grid, so they must agree to rounding: tolerance 1e-9 dB. (When the
 in-memory scene replaced the GeoTIFF, the two also agreed bit for bit on 14 tracks of the survey
@@ -18,9 +18,9 @@ from rasterio.transform import from_origin
 from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_grid, utm_track, write_utm
 
 from cluttersim import SurfaceConfig, default_config
-from cluttersim.body import Body
-from cluttersim.clutter_index import LevelGround, level_ground_index_db, level_index_db, level_scene
-from cluttersim.dem import DemSource
+from cluttersim.physics.body import Body
+from cluttersim.analysis.clutter_index import LevelGround, level_ground_index_db, level_index_db, level_scene
+from cluttersim.io.dem import DemSource
 from cluttersim.simulate import simulate
 from cluttersim.track import great_circle_track
 

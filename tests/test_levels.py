@@ -13,16 +13,16 @@ import pytest
 from scipy.constants import Boltzmann
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
-from cluttersim.aperture import ProcessingConfig
-from cluttersim.noise import NoiseConfig, galactic_temperature_k
-from cluttersim.radar import (
+from cluttersim.physics.aperture import ProcessingConfig
+from cluttersim.physics.noise import NoiseConfig, galactic_temperature_k
+from cluttersim.physics.radar import (
     LEGACY_POWER_CONVENTION,
     POWER_CONVENTION,
     RadarConfig,
     radar_equation_power_w,
 )
-from cluttersim.radargram import open_radargram, write_netcdf
-from cluttersim.subsurface import specular_echo_power_w
+from cluttersim.io.radargram import open_radargram, write_netcdf
+from cluttersim.physics.subsurface import specular_echo_power_w
 from scenes import MARS_RADIUS_M, flat_geographic, utm_grid, utm_track, write_utm
 
 C = 299_792_458.0  # SI definition
@@ -117,7 +117,7 @@ def test_spherical_divergence_and_nadir_gain_of_the_predicted_surface_echo():
     moon = specular_echo_power_w(10.0, 1.0, 15.0, 0.1, 300e3, 1_737_400.0)
     assert 10 * math.log10(flat / mars) == pytest.approx(0.74, abs=0.01)
     assert 10 * math.log10(flat / moon) == pytest.approx(1.38, abs=0.01)
-    from cluttersim.antenna import AntennaConfig
+    from cluttersim.physics.antenna import AntennaConfig
 
     # a horizontal half-wave dipole looks at nadir with its peak directivity 1.64 (Balanis 2005, eq. 4-91)
     assert AntennaConfig(pattern="dipole").nadir_pattern_gain() == pytest.approx(1.641, abs=1e-3)
@@ -203,7 +203,7 @@ def _quasi_specular_trace_w(cfg, window_start_s, samples, nadir_delay_s, c_hagfo
     (Brown 1977, IEEE Trans. Antennas Propag. 25(1)): P(t) = ∫ K σ0(θ(R)) (dA/dR) R⁻⁴ |h(2(R − h)/c − t)|² dR,
     dA/dR = 2π Rp R / (Rp + h), cos θ from the law of cosines, K = Pt λ² / (4π)³ (isotropic), h the
     compressed pulse's amplitude response (radar.compressed_pulse_amplitude, peak 1)."""
-    from cluttersim.radar import compressed_pulse_amplitude
+    from cluttersim.physics.radar import compressed_pulse_amplitude
 
     r_ = cfg.radar
     lam = C / r_.center_frequency_hz
@@ -232,8 +232,8 @@ def test_a_near_mirror_reads_its_predicted_surface_power(tmp_path, pattern):
     (within 0.3 dB), which is 1–2 dB under the mirror prediction (with the divergence (1 + h/Rp)²), and
     the dipole reads its nadir directivity² (1.64², Balanis 2005 eq. 4-91) more than the isotropic
     antenna, as predicted_surface_power does. ρ for ε′ = 3.15 (Born & Wolf §1.5)."""
-    from cluttersim.antenna import DIPOLE_PEAK, AntennaConfig
-    from cluttersim.subsurface import SubsurfaceConfig, fresnel_power_reflectivity
+    from cluttersim.physics.antenna import DIPOLE_PEAK, AntennaConfig
+    from cluttersim.physics.subsurface import SubsurfaceConfig, fresnel_power_reflectivity
 
     rho = float(fresnel_power_reflectivity(1.0, 3.15))
     dem = flat_geographic(tmp_path / "mirror.tif", 0.002, 0.15)
@@ -259,7 +259,7 @@ def test_a_survey_track_file_without_the_convention_is_rescaled(tmp_path):
     surface_power is rescaled by τ_eff/Δt = 4 for the default radar (1.5/(10 MHz × 37.5 ns))."""
     import xarray as xr
 
-    from cluttersim.survey import TrackResult, read_track_result, write_track_result
+    from cluttersim.analysis.survey import TrackResult, read_track_result, write_track_result
 
     res = TrackResult(track_id="a", lat_deg=np.zeros(3), lon_deg=np.zeros(3), index_db=np.array([-3.0, 0.0, 2.0]),
                       fraction=np.zeros(3), depth_m=np.zeros(3), surface_power_w=np.full(3, 2e-13), truncated=0,

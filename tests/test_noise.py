@@ -7,8 +7,8 @@ import pytest
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim.errors import ConfigError
-from cluttersim.noise import BOLTZMANN_J_K, NoiseConfig, add_noise, noise_power_w
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.noise import BOLTZMANN_J_K, NoiseConfig, add_noise, noise_power_w
+from cluttersim.physics.radar import RadarConfig
 from scenes import MARS_RADIUS_M, flat_geographic
 
 C = 299_792_458.0  # SI definition

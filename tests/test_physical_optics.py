@@ -11,11 +11,11 @@ import pytest
 from scenes import MARS_RADIUS_M, UTM, UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_geotiff, write_utm
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
-from cluttersim import kernels_coherent
-from cluttersim.antenna import AntennaConfig
-from cluttersim.aperture import ProcessingConfig
+from cluttersim import kernels
+from cluttersim.physics.antenna import AntennaConfig
+from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
-from cluttersim.physical_optics import (
+from cluttersim.physics.physical_optics import (
     coherent_power_fraction,
     facet_integral,
     facet_integral_brute_force,
@@ -23,7 +23,7 @@ from cluttersim.physical_optics import (
     normal_reflection_coefficient,
     subdivisions,
 )
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 
 C = 299_792_458.0  # SI definition
 LAMBDA_M = C / 20e6  # the default radar's 20 MHz
@@ -120,7 +120,7 @@ def test_kernel_cells_sum_to_the_closed_form(offset_sides, tilt_deg, side_rf):
     cells_per_sample, nb = 9, 400
     out = np.zeros((1, 1, nb * cells_per_sample), dtype=np.complex128)
     f32 = lambda v: np.asarray(v, np.float32).reshape(3, 1)  # noqa: E731
-    kernels_coherent.accumulate_specular(
+    kernels.accumulate_specular(
         ant[None, :], np.zeros((1, 3)), np.zeros(1), np.array([2 * (r - 2 * side) / C]), DT_S, cells_per_sample,
         c[None, :], np.array([3.0 * side]), np.array([[0.0, 0.0, 1.0, 1e30, -1e30, 1e30]]),  # slab: no bound
         np.array([0, 1]), f32([0, 0, 0]), f32(n), f32(ea), f32(eb),

@@ -24,10 +24,10 @@ import pytest
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, utm_grid, write_utm
 
 from cluttersim import default_config
-from cluttersim.antenna import AntennaConfig
+from cluttersim.physics.antenna import AntennaConfig
 from cluttersim.errors import ConfigError
-from cluttersim.plan import PlanConfig, PlanTarget, candidate_track, run_plan, search, target_height_m
-from cluttersim.survey import Engine
+from cluttersim.analysis.plan import PlanConfig, PlanTarget, candidate_track, run_plan, search, target_height_m
+from cluttersim.analysis.survey import Engine
 
 ALT_M = 25e3
 DEPTH_M = (50.0, 300.0)
@@ -68,8 +68,8 @@ def brute(massif):
 def massif_cells_seen(path, plan, heading_deg, east, north, elev):
     """Massif cells (above 100 m: the massif itself, not its low skirt, whose echo does not stand out
     from the plain's) in the depth window and inside the Fresnel strip of some target trace."""
-    from cluttersim.dem import DemSource
-    from cluttersim.plan import Candidate
+    from cluttersim.io.dem import DemSource
+    from cluttersim.analysis.plan import Candidate
 
     src = DemSource.open(path)
     body = src.body
@@ -159,8 +159,8 @@ def test_airborne_offsets_and_bad_geometry(massif):
     with pytest.raises(ConfigError, match="fine-step-deg"):
         dataclasses.replace(plan, fine_step_deg=60.0)
     air = dataclasses.replace(plan, platform="airborne", altitudes_m=(3000.0,), offsets_m=(-400.0, 400.0))
-    from cluttersim.body import Body
-    from cluttersim.plan import Candidate
+    from cluttersim.physics.body import Body
+    from cluttersim.analysis.plan import Candidate
 
     body = Body.from_crs(pyproj.CRS(UTM))
     tr = candidate_track(body, air, Candidate(0.0, 3000.0, 400.0), ground_m=10.0)
@@ -176,7 +176,7 @@ def test_probability_under_dem_error(massif):
     """Known truths of the probability objective: with a negligible error (1 cm) it is 1 exactly when the
     error-free objective reaches the threshold and 0 otherwise; with a real error it lies in [0, 1] and
     its quoted error is the binomial one."""
-    from cluttersim.dem_error import DemErrorConfig
+    from cluttersim.analysis.dem_error import DemErrorConfig
 
     path, cfg, plan, *_ = massif
     tiny = DemErrorConfig(0.01, 2000.0, realisations=2, seed=0)

@@ -34,7 +34,7 @@ from cluttersim.plots import (
     side_colours,
     SIDE_BRIGHTNESS_GAMMA,
 )
-from cluttersim.radar import apparent_depth_m
+from cluttersim.physics.radar import apparent_depth_m
 
 NTRACE, NSAMPLE = 50, 200
 SAMPLE_INTERVAL_S = 50e-9
@@ -450,16 +450,15 @@ def test_plot_echo_sources(tmp_path):
 
 def test_every_name_of_the_plots_package_is_reachable_from_cluttersim_plots():
     """The figures live in cluttersim/plots/<concern>.py; notebooks and the library call plots.*: every
-    name a submodule defines is re-exported by the package, and planning_plots keeps its old names."""
+    name a submodule defines is re-exported by the package."""
     import importlib
     import inspect
     import pkgutil
 
-    import cluttersim.planning_plots as old_path
     import cluttersim.plots as plots
 
     modules = [m.name for m in pkgutil.iter_modules(plots.__path__)]
-    assert {"style", "radargram_views", "sides", "comparison", "maps", "planning"} <= set(modules)
+    assert {"style", "radargram_views", "overlays", "sides", "comparison", "maps", "planning"} <= set(modules)
     for name in modules:
         module = importlib.import_module(f"cluttersim.plots.{name}")
         own = [k for k, v in vars(module).items() if not k.startswith("__")
@@ -467,5 +466,3 @@ def test_every_name_of_the_plots_package_is_reachable_from_cluttersim_plots():
                and not inspect.ismodule(v)]  # fmt: skip
         missing = [k for k in own if getattr(plots, k, None) is not getattr(module, k)]
         assert not missing, f"cluttersim.plots.{name} defines {missing}, not re-exported by cluttersim.plots"
-    for name in ("plot_dem_error", "plot_objective_polar", "plot_best_worst"):
-        assert getattr(old_path, name) is getattr(plots, name)

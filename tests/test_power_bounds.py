@@ -12,7 +12,7 @@ from scenes import flat_geographic
 from cluttersim import kernels
 from cluttersim.config import SurfaceConfig, default_config
 from cluttersim.errors import ConfigError
-from cluttersim.scattering import sigma0, sigma0_peak
+from cluttersim.physics.scattering import sigma0, sigma0_peak
 from cluttersim.simulate import simulate
 from cluttersim.track import Track
 from cluttersim.validate import MAX_SIGMA0

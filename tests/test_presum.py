@@ -7,11 +7,11 @@ import numpy as np
 import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.aperture import ProcessingConfig
+from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError, TrackError
-from cluttersim.noise import NoiseConfig
+from cluttersim.physics.noise import NoiseConfig
 from cluttersim.presum import group_mean, presum_track
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 
 C = 299_792_458.0  # SI definition

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
-from cluttersim.radar import (
+from cluttersim.physics.radar import (
     compressed_pulse_amplitude,
     effective_pulse_duration_s,
     pulse_amplitude_response,

@@ -21,7 +21,7 @@ import pytest
 from click.testing import CliRunner
 
 from cli.main import cli
-from cluttersim.observed import ObservedFormat, load_observed
+from cluttersim.io.observed import ObservedFormat, load_observed
 from test_compare import DT, NTRACE
 from test_compare_cli import SAMPLES, files_fixture  # noqa: F401  (the pytest fixture `files`, used as a test argument)
 
@@ -156,7 +156,7 @@ def test_pds4_product_with_radius_and_mapped_columns(files, tmp_path):
     maps = ["--map", "lat=PLANETOCENTRIC_LAT", "--map", "lon=EAST_LON", "--map", "radius=SC_RAD",
             "--map", "window_start=RX_OPEN"]  # fmt: skip
     body_attrs = pyproj.CRS("EPSG:4326").ellipsoid
-    from cluttersim.body import Body
+    from cluttersim.physics.body import Body
 
     body = Body("WGS 84", body_attrs.semi_major_metre, body_attrs.semi_minor_metre)
     fields = tuple(maps[1::2])
@@ -307,12 +307,12 @@ def test_segy_headers_give_track_and_timing(files, tmp_path):
 
 def test_radius_without_a_body_is_explained(tmp_path):
     from cluttersim.errors import ObservedDataError
-    from cluttersim.readers import radius_to_height
+    from cluttersim.io.readers import radius_to_height
 
     with pytest.raises(ObservedDataError, match="give --dem"):
         radius_to_height(np.zeros(2), np.zeros(2), np.full(2, 3.4e6), None, "x.xml")
     # on a sphere: h = r - R, latitude unchanged (exact)
-    from cluttersim.body import Body
+    from cluttersim.physics.body import Body
 
     lat, h = radius_to_height(np.array([10.0]), np.array([5.0]), np.array([3.7e6]), Body.sphere(3.4e6), "x")
     assert lat[0] == 10.0 and h[0] == pytest.approx(3.0e5)

@@ -6,9 +6,9 @@ from scenes import MARS_RADIUS_M, write_geotiff
 from scipy.ndimage import convolve1d
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track
-from cluttersim.dem import DemSource
-from cluttersim.radar import RadarConfig
-from cluttersim.reference import reference_binned_power, spread_exact
+from cluttersim.io.dem import DemSource
+from cluttersim.physics.radar import RadarConfig
+from cluttersim.physics.reference import reference_binned_power, spread_exact
 from cluttersim.simulate import binned_power, prepare_scene
 
 
@@ -96,13 +96,13 @@ def test_sources_rows_split_the_total(rough_scene):
 @pytest.mark.parametrize("antenna", [{"pattern": "dipole", "axis": "cross-track"},
                                      {"pattern": "gaussian", "beamwidth_along_deg": 3.0, "beamwidth_across_deg": 8.0}])  # fmt: skip
 def test_kernel_agrees_with_numpy_reference_with_antenna_pattern(rough_scene, antenna):
-    from cluttersim.antenna import AntennaConfig
+    from cluttersim.physics.antenna import AntennaConfig
 
     src, track = rough_scene
     cfg = SimulationConfig(radar=RadarConfig(samples=512), surface=SurfaceConfig("hagfors", {"C": 300.0, "rho": 0.1}),
                            antenna=AntennaConfig(**antenna))  # fmt: skip
     ref, plain = _kernel_matches_reference_with_frames(src, track, cfg)
-    from cluttersim.antenna import DIPOLE_PEAK
+    from cluttersim.physics.antenna import DIPOLE_PEAK
 
     peak = DIPOLE_PEAK if antenna["pattern"] == "dipole" else 1.0
     assert 0 < ref.sum() < peak**2 * plain.sum()  # below the peak gain everywhere off the peak
@@ -112,7 +112,7 @@ def test_kernel_agrees_with_numpy_reference_with_antenna_pattern(rough_scene, an
                                         {"aperture": "focused", "doppler_bandwidth_hz": 4.0, "platform_speed_m_s": 3500.0},
                                         {"aperture": "unfocused"}])  # fmt: skip
 def test_kernel_agrees_with_numpy_reference_with_along_track_processing(rough_scene, processing):
-    from cluttersim.aperture import ProcessingConfig
+    from cluttersim.physics.aperture import ProcessingConfig
 
     src, track = rough_scene
     cfg = SimulationConfig(radar=RadarConfig(samples=512), surface=SurfaceConfig("hagfors", {"C": 300.0, "rho": 0.1}),
@@ -125,8 +125,8 @@ def _kernel_matches_reference_with_frames(src, track, cfg):
     """Kernel and NumPy reference on the scene with the traces' frames (antenna patterns and
     along-track processing need them): total power per trace to 1e-5. Returns the reference's
     binned power and that of the same radar without pattern or processing."""
-    from cluttersim.antenna import trace_frames
-    from cluttersim.attribution import right_unit_vectors
+    from cluttersim.physics.antenna import trace_frames
+    from cluttersim.analysis.attribution import right_unit_vectors
 
     scene = prepare_scene(src, track, cfg)
     dt = cfg.radar.sample_interval_s

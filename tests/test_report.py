@@ -18,7 +18,7 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim import SimulationConfig, SurfaceConfig
 from cluttersim.products import simulate_to_dir
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.report import GridShape, Quantiser, pack_array, strongest_in_blocks, unpack_array, write_report
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_track
 from test_attribution import AIRBORNE, dome_scene
@@ -272,7 +272,7 @@ def test_a_5000_trace_report_stays_under_30_mb(tmp_path):
 
 def make_comparison(d):
     """A comparison directory: the hill scene of tests/test_compare.py observed with a reflector 40 m deep."""
-    from cluttersim.compare import compare_to_dir
+    from cluttersim.analysis.compare import compare_to_dir
     from test_compare import DT, hill_scene, observe
 
     dem, track, cfg = hill_scene(d)

@@ -86,7 +86,7 @@ def text(driver, element_id: str) -> str:
 
 
 def test_pointing_at_the_hills_echo_names_the_hill_and_its_side(page, browser, tmp_path):
-    from cluttersim.radargram import open_radargram
+    from cluttersim.io.radargram import open_radargram
 
     run, report = page
     ds = open_radargram(run / "radargram.nc")
@@ -155,7 +155,7 @@ def test_pointing_at_the_hills_echo_names_the_hill_and_its_side(page, browser, t
 
 
 def test_the_side_view_the_depth_axis_and_the_parameters_render(page, browser):
-    from cluttersim.radargram import open_radargram
+    from cluttersim.io.radargram import open_radargram
 
     run, report = page
     browser.get(report.resolve().as_uri())
@@ -205,7 +205,7 @@ def test_report_colours_match_the_figures_and_the_readout_gives_shares_and_centr
     """The side colours the page shows are the palette's (the PNGs' too: tests/test_visual_language.py);
     pointing shows the shares, names a side only with a majority, and marks each side's centre."""
     from cluttersim import palette
-    from cluttersim.radargram import open_radargram
+    from cluttersim.io.radargram import open_radargram
 
     run = dome_run(tmp_path)
     report = write_report(run, tmp_path / "report.html")  # with the side centroids

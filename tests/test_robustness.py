@@ -16,9 +16,9 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim import memory
-from cluttersim.dem import DemSource
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import MemoryLimitError
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from cluttersim.simulate import prepare_scene
 from scenes import MARS_RADIUS_M, write_geotiff
 
@@ -219,8 +219,8 @@ def test_coherent_presummed_noisy_run_is_bit_identical_across_thread_counts(roug
     chunk sizes follow the thread count, the draws do not."""
     import dataclasses
 
-    from cluttersim.aperture import ProcessingConfig
-    from cluttersim.noise import NoiseConfig
+    from cluttersim.physics.aperture import ProcessingConfig
+    from cluttersim.physics.noise import NoiseConfig
 
     _, dem, track = rough
     sub = type(track)(track.lat_deg[::3], track.lon_deg[::3], track.alt_m[::3], source="t")

@@ -6,8 +6,9 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from cluttersim import kernels, scattering
-from cluttersim.scattering import LAWS, sigma0
+from cluttersim import kernels
+from cluttersim.physics import scattering
+from cluttersim.physics.scattering import LAWS, sigma0
 
 
 def hagfors_published(theta_deg, c, rho):

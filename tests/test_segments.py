@@ -7,15 +7,15 @@ import pytest
 import xarray as xr
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.aperture import ProcessingConfig
-from cluttersim.dem import DemSource
+from cluttersim.physics.aperture import ProcessingConfig
+from cluttersim.io.dem import DemSource
 from cluttersim.errors import OutputExistsError
-from cluttersim.noise import NoiseConfig
+from cluttersim.physics.noise import NoiseConfig
 from cluttersim.products import simulate_to_dir
-from cluttersim.radar import RadarConfig
-from cluttersim.radargram import open_radargram
-from cluttersim import segments
-from cluttersim.segments import plan_segments
+from cluttersim.physics.radar import RadarConfig
+from cluttersim.io.radargram import open_radargram
+from cluttersim.analysis import segments
+from cluttersim.analysis.segments import plan_segments
 from scenes import UTM_X0_M, UTM_Y0_M, utm_track, write_utm
 
 N_CELLS, RES_M = 240, 50.0  # 12 km square, 50 m cells
@@ -212,7 +212,7 @@ def test_lazy_radargram_slices_and_plots_without_loading(tmp_path):
     import dask.array as da
 
     from cluttersim import plots
-    from cluttersim.radargram import PICTURE_TRACES
+    from cluttersim.io.radargram import PICTURE_TRACES
 
     ntr, ns = 100_000, 2048
     power = da.random.RandomState(3).exponential(1e-12, size=(ntr, ns), chunks=(2048, ns)).astype(np.float32)

@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 
 from cluttersim import SimulationConfig, SurfaceConfig, simulate
-from cluttersim.aperture import ProcessingConfig
+from cluttersim.physics.aperture import ProcessingConfig
 from cluttersim.errors import ConfigError
 from cluttersim.kernels import hidden_from_antenna
-from cluttersim.radar import RadarConfig
+from cluttersim.physics.radar import RadarConfig
 from scenes import UTM_X0_M, UTM_Y0_M, utm_grid, utm_track, write_utm
 
 ALT_M = 200.0

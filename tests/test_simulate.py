@@ -9,7 +9,7 @@ from scipy.interpolate import RegularGridInterpolator
 
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
-from cluttersim.radar import RadarConfig, effective_pulse_duration_s
+from cluttersim.physics.radar import RadarConfig, effective_pulse_duration_s
 from scenes import MARS_RADIUS_M, flat_geographic, write_geotiff
 
 C = 299_792_458.0  # SI definition

@@ -38,23 +38,38 @@ def test_public_names_load_on_first_use():
 def test_compile_notice_when_the_cache_is_empty(tmp_path, monkeypatch):
     monkeypatch.setenv("NUMBA_CACHE_DIR", str(tmp_path))
     said = []
-    digest = hashlib.sha256(compile_notice._kernels_source().read_bytes()).digest()
+    digest = hashlib.sha256((compile_notice._kernels_dir() / "diffuse.py").read_bytes()).digest()
     with compile_notice.compile_notice(said.append, poll_s=0.05):
-        index = tmp_path / "x" / "cluttersim" / "kernels.accumulate_power-1.py311.nbi"
+        index = tmp_path / "x" / "cluttersim" / "kernels" / "diffuse.accumulate_power-1.py311.nbi"
         index.parent.mkdir(parents=True)
         index.write_bytes(pickle.dumps("0.0") + pickle.dumps((digest, {})))  # as Numba writes it
         time.sleep(0.2)
     assert said == [compile_notice.MESSAGE] and "about a minute" in said[0]
-    # an index of this kernels.py: the cache is used, nothing said
+    # an index of this diffuse.py: the cache is used, nothing said
     said.clear()
     with compile_notice.compile_notice(said.append):
         pass
     assert said == []
-    # an index of another kernels.py is stale (Numba recompiles): said again
+    # an index of another diffuse.py is stale (Numba recompiles): said again
     index.write_bytes(pickle.dumps("0.0") + pickle.dumps((hashlib.sha256(b"other").digest(), {})))
     with compile_notice.compile_notice(said.append, poll_s=0.05):
         pass
     assert said == [compile_notice.MESSAGE]
+    # each module's index holds that module's digest: diffuse.py's digest under another module's name is stale
+    said.clear()
+    other = index.with_name("geodesy.grid_to_ecef-1.py311.nbi")
+    other.write_bytes(pickle.dumps("0.0") + pickle.dumps((digest, {})))
+    with compile_notice.compile_notice(said.append, poll_s=0.05):
+        pass
+    assert said == [compile_notice.MESSAGE]
+    # every kernel module is covered: a fresh index of the coherent kernels counts
+    coherent = hashlib.sha256((compile_notice._kernels_dir() / "coherent.py").read_bytes()).digest()
+    other.with_name("coherent.accumulate_specular-1.py311.nbi").write_bytes(pickle.dumps("0.0") + pickle.dumps((coherent, {})))
+    said.clear()
+    with compile_notice.compile_notice(said.append):
+        pass
+    assert said == []
+    assert {p.stem for p in compile_notice.kernel_sources()} >= {"diffuse", "coherent", "geodesy", "tiling", "weights"}
 
 
 def test_the_notice_reads_numbas_own_index_of_the_warm_cache():
@@ -62,6 +77,6 @@ def test_the_notice_reads_numbas_own_index_of_the_warm_cache():
     import numba  # noqa: F401 - only to be sure the kernels were compiled in this tree
     from cluttersim import kernels  # noqa: F401
 
-    if not list(compile_notice._kernels_source().parent.glob("__pycache__/kernels.*.nbi")):
+    if not list(compile_notice._kernels_dir().glob("__pycache__/*.nbi")):
         pytest.skip("no compiled kernels cached in this tree yet")
     assert compile_notice.cache_index_files()

@@ -8,9 +8,9 @@ import pytest
 from cluttersim import Body, SimulationConfig, SurfaceConfig, great_circle_track, simulate
 from cluttersim import plots
 from cluttersim.errors import ConfigError
-from cluttersim.noise import NoiseConfig
-from cluttersim.radar import RadarConfig
-from cluttersim.subsurface import (
+from cluttersim.physics.noise import NoiseConfig
+from cluttersim.physics.radar import RadarConfig
+from cluttersim.physics.subsurface import (
     DB_PER_NEPER, SubsurfaceConfig, attenuation_np_per_m, fresnel_amplitude_reflection, fresnel_power_reflectivity,
     predict_subsurface, specular_echo_power_w, surface_transmission_two_way, two_way_loss_db, two_way_loss_factor,
     wave_speed_m_s,
@@ -156,7 +156,7 @@ def test_cli_run_with_noise_and_subsurface_tables_round_trips(tmp_path):
     from click.testing import CliRunner
 
     from cli.main import cli
-    from cluttersim.sources import load_run
+    from cluttersim.analysis.sources import load_run
     from scenes import write_geotiff
 
     dem = write_geotiff(tmp_path / "dem.tif", np.zeros((100, 100)), -0.5, 0.5, 0.01)

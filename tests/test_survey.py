@@ -20,9 +20,9 @@ from cli_helpers import CLUTTERSIM, interrupt_when, invoke, one_line, region_arg
 from scenes import UTM, UTM_X0_M, UTM_Y0_M, utm_grid, write_utm
 
 from cluttersim import SurfaceConfig, default_config
-from cluttersim.body import Body
+from cluttersim.physics.body import Body
 from cluttersim.constants import SPEED_OF_LIGHT_M_S
-from cluttersim.survey import (
+from cluttersim.analysis.survey import (
     Engine,
     SurveyConfig,
     clutter_index,
@@ -386,7 +386,7 @@ def test_finished_survey_is_not_overwritten_without_the_flag(survey_run, massif)
 def test_a_multi_band_radar_is_surveyed_one_band_at_a_time():
     from cluttersim import SimulationConfig
     from cluttersim.errors import ConfigError
-    from cluttersim.survey import survey_sim_config
+    from cluttersim.analysis.survey import survey_sim_config
 
     bands = SimulationConfig.from_dict({"band": [{"name": "low", "center_frequency_hz": 10e6, "bandwidth_hz": 5e6},
                                                  {"name": "high", "center_frequency_hz": 20e6, "bandwidth_hz": 10e6}]})  # fmt: skip
@@ -402,7 +402,7 @@ def test_presum_in_the_radar_is_ignored_with_a_warning(massif, tmp_path):
     """A radar that presums pulses ([processing] presum = 2) is surveyed one pulse per trace, as without
     presum (the same survey.csv), with a warning saying so; it used to fail, the level-ground reference
     and the presummed radargram having different trace counts."""
-    from cluttersim.survey import survey_sim_config
+    from cluttersim.analysis.survey import survey_sim_config
 
     cfg = radar_config()
     presummed = dataclasses.replace(cfg, processing=dataclasses.replace(cfg.processing, presum=2))
@@ -447,7 +447,7 @@ def test_survey_map_follows_the_figure_options(massif, tmp_path):
     more cells, so the two maps differ while the numbers (GeoTIFF, CSV) do not."""
     from figure_files import figure_format, png_size
 
-    from cluttersim.survey import survey_map_range_db
+    from cluttersim.analysis.survey import survey_map_range_db
 
     assert survey_map_range_db(None) == (6.0, 18.0)
     assert survey_map_range_db(8.0) == pytest.approx((2.0, 6.0))

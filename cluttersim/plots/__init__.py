@@ -15,6 +15,7 @@ The figures live by concern in this package; every name is importable from
 
 * :mod:`~cluttersim.plots.style`: sizes, colours, :func:`power_db`, :func:`save_figure`;
 * :mod:`~cluttersim.plots.radargram_views`: power and elevation radargrams, dB ranges, axes;
+* :mod:`~cluttersim.plots.overlays`: the noise-floor mark and the predicted subsurface echo on a radargram;
 * :mod:`~cluttersim.plots.sides`: the side-coloured radargram;
 * :mod:`~cluttersim.plots.comparison`: observed against simulated;
 * :mod:`~cluttersim.plots.maps`: track, echo-source and one-echo maps over shaded relief;
@@ -50,6 +51,14 @@ from .style import (  # noqa: F401
     TERRAIN_CMAP,
     TRACK_COLOUR,
     TRACK_MAP_FIGSIZE_IN,
+)
+from .overlays import (  # noqa: F401
+    draw_noise_floor,
+    draw_predicted_subsurface,
+    NOISE_FLOOR_COLOUR,
+    noise_floor_db,
+    _STROKE,
+    SUBSURFACE_COLOUR,
 )
 from .radargram_views import (  # noqa: F401
     _add_depth_axis,

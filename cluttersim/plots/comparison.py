@@ -63,7 +63,7 @@ def comparison_layers(ds, dynamic_range_db: float = 60.0) -> tuple[RadargramLaye
     Parameters
     ----------
     ds : xarray.Dataset
-        From :func:`cluttersim.compare.compare` (``observed_power``,
+        From :func:`cluttersim.analysis.compare.compare` (``observed_power``,
         ``simulated_power`` (trace, sample), ``delay``, ``window_start``,
         ``nadir_delay``, ``noise_floor``).
     dynamic_range_db : float
@@ -201,7 +201,7 @@ def plot_comparison_overlay(
     ds : xarray.Dataset
         A comparison Dataset (see :func:`comparison_layers`).
     candidates : sequence of dict
-        Ranked candidates from :func:`cluttersim.compare.compare` (keys
+        Ranked candidates from :func:`cluttersim.analysis.compare.compare` (keys
         ``trace``, ``grid_sample``, ``score``), drawn as open circles.
     threshold_db
         As above.
@@ -322,8 +322,8 @@ def plot_candidate_map(results, path=None, *, ax=None, title: str | None = None,
                        fmt: str | None = None):  # fmt: skip
     """Every track's antenna path and its candidates (colour: score) on a lon/lat map.
 
-    ``results``: (name, :class:`cluttersim.compare.Comparison`) pairs, as
-    :func:`cluttersim.compare.compare_many` returns them. ``path``, ``ax``, ``dpi``, ``fmt``: see
+    ``results``: (name, :class:`cluttersim.analysis.compare.Comparison`) pairs, as
+    :func:`cluttersim.analysis.compare.compare_many` returns them. ``path``, ``ax``, ``dpi``, ``fmt``: see
     :func:`plot_radargram`. Returns the new Figure, the given ``ax``, or ``path`` if one was given.
     """
     fig, ax, given = _figure_for(ax, CANDIDATE_MAP_FIGSIZE_IN)

@@ -11,9 +11,9 @@ from matplotlib import colormaps
 from matplotlib.patches import Patch
 from matplotlib.patheffects import withStroke
 
-from ..overlays import draw_noise_floor, draw_predicted_subsurface
-from ..radar import apparent_depth_m, delay_after_surface_s
-from ..radargram import thin_traces
+from .overlays import draw_noise_floor, draw_predicted_subsurface
+from ..physics.radar import apparent_depth_m, delay_after_surface_s
+from ..io.radargram import thin_traces
 from .style import (
     _figure_for, _finish, _LEGEND_STYLE, _new_figure, NO_DATA_COLOUR, _note_below, OVERLAY_COLOUR, power_db,
     RADARGRAM_CMAP, RADARGRAM_FIGSIZE_IN, save_figure,
@@ -37,7 +37,7 @@ class RadargramLayers:
         Nadir surface delay on the y axis, NaN where unknown; None if not drawn.
     trace_step : int
         Traces of the radargram per column (a long radargram is drawn from every k-th
-        trace, :func:`cluttersim.radargram.thin_traces`); the x axis counts the radargram's traces.
+        trace, :func:`cluttersim.io.radargram.thin_traces`); the x axis counts the radargram's traces.
     """
 
     image_db: np.ndarray
@@ -201,7 +201,7 @@ def plot_radargram(
         Dims ``trace``, ``sample``; ``power`` (trace, sample) in W, NaN for no
         data; coordinate ``delay`` (sample) in s after the window start;
         ``window_start`` and ``nadir_delay`` (trace) absolute two-way delays
-        in s (NaN allowed). See :mod:`cluttersim.radargram`.
+        in s (NaN allowed). See :mod:`cluttersim.io.radargram`.
     path : str or Path, optional
         Save the figure there (atomically; format from ``fmt`` or the suffix)
         and return the path. Without it nothing is written.
@@ -219,7 +219,7 @@ def plot_radargram(
     permittivity : float, optional
         Real relative permittivity ε′ ≥ 1. If given, a second y axis on the
         right shows the apparent depth below the nadir surface,
-        :func:`cluttersim.radar.apparent_depth_m` of the delay after the
+        :func:`cluttersim.physics.radar.apparent_depth_m` of the delay after the
         median nadir delay (see :func:`plot_side_radargram`).
     distance_axis : bool
         With a ``distance`` coordinate (or lat/lon), an along-track distance
@@ -229,7 +229,7 @@ def plot_radargram(
 
     If ``ds`` has ``noise_power`` its level is marked on the colour bar, and if
     it has ``predicted_subsurface_delay`` that delay is drawn as a line
-    (:mod:`cluttersim.overlays`).
+    (:mod:`cluttersim.plots.overlays`).
 
     Returns
     -------
@@ -252,13 +252,13 @@ def plot_radargram(
 
 def plot_band_radargrams(ds, path=None, *, ax=None, dynamic_range_db: float | None = None, title: str | None = None,
                          permittivity: float | None = None, distance_axis: bool = True, dpi=None, fmt=None):  # fmt: skip
-    """Draw each band of a multi-band radargram (``band`` dimension, :mod:`cluttersim.radargram`)
+    """Draw each band of a multi-band radargram (``band`` dimension, :mod:`cluttersim.io.radargram`)
     as one panel of a column, each with its own colour scale (the bands' power levels differ by
     their radar constants), titled with its centre frequency and bandwidth.
 
     ``ax``: a sequence of one Axes per band (default: a new Figure). Returns the Figure, the
     given axes, or ``path`` (as :func:`plot_radargram`)."""
-    from ..radargram import band_names, select_band
+    from ..io.radargram import band_names, select_band
 
     _check_permittivity(permittivity)
     names = band_names(ds)
@@ -362,7 +362,7 @@ def elevation_layers(ds, permittivity: float = 3.15, height_step_m: float | None
     Each sample's height assumes the echo came from straight below the antenna:
     above the nadir surface h = alt − c τ / 2 (free space), below it
     h = h_s − c (τ − τ_n) / (2 √ε′) (the apparent depth of
-    :func:`cluttersim.radar.apparent_depth_m`), with τ the absolute two-way
+    :func:`cluttersim.physics.radar.apparent_depth_m`), with τ the absolute two-way
     delay, τ_n the nadir delay and h_s = alt − c τ_n / 2 the nadir surface
     height. Off-nadir clutter therefore appears at the height it would have
     if it were below the antenna — the way an analyst reads such a view.
@@ -511,9 +511,9 @@ def nadir_reference_us(layers: RadargramLayers) -> tuple[float, float] | None:
 def depth_axis_functions(surface_us: float, permittivity: float):
     """Forward and inverse maps between the delay axis (µs) and apparent depth (m).
 
-    depth_m = :func:`~cluttersim.radar.apparent_depth_m` ((delay_us −
+    depth_m = :func:`~cluttersim.physics.radar.apparent_depth_m` ((delay_us −
     surface_us) · 1e-6 s, ε′), and its inverse through
-    :func:`~cluttersim.radar.delay_after_surface_s`; for
+    :func:`~cluttersim.physics.radar.delay_after_surface_s`; for
     ``Axes.secondary_yaxis(functions=...)``.
 
     Parameters

@@ -9,7 +9,7 @@ from matplotlib.patches import Patch
 from matplotlib.patheffects import withStroke
 
 from .. import palette
-from ..radargram import thin_traces
+from ..io.radargram import thin_traces
 from .style import (
     _finish, _LEGEND_STYLE, _new_figure, power_db, RADARGRAM_FIGSIZE_IN, SIDE_LEFT_COLOUR, SIDE_NADIR_COLOUR,
     SIDE_NO_DATA_COLOUR, SIDE_RIGHT_COLOUR,

@@ -1,0 +1,1 @@
+"""What is done with simulations: comparison with observed radargrams, echo sources and their attribution, surveys, long-track segments, the clutter index, track planning, DEM-error Monte Carlo, and the engines that run their jobs."""

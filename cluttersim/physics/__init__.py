@@ -1,0 +1,1 @@
+"""The physics as pure functions with units in their names: body, radar and pulse, backscatter laws, physical optics, ionosphere, noise, aperture, subsurface, antenna pattern, and the plain NumPy reference of the simulation."""
