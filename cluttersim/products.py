@@ -92,7 +92,7 @@ def simulate_to_dir(
     Existing products are refused before any work unless ``overwrite``; all
     are written under temporary names and renamed together at the end; with
     ``overwrite``, figures of the previous run that this one does not make (the
-    side figure without the source record, other bands') are removed, with a warning.
+    side figure without the source record, other bands', other formats') are removed, with a warning.
     The directory is locked while the run lasts (:func:`~cluttersim.io.outputs.lock_directory`).
     ``permittivity`` sets the apparent-depth axis of the figures; ``max_memory_bytes``
     and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
@@ -118,6 +118,7 @@ def simulate_to_dir(
     config = config if config is not None else default_config()
     config = dataclasses.replace(config, processing=config.processing.with_track_speed(track, src.body))
     streamed = engine is not None and engine.uses_dask
+    stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
     plan = segments.plan_segments(src, track, config, sources=sources, max_memory_bytes=max_memory_bytes,
                                   segment_traces=segment_traces if segment_traces is not None or not streamed else "auto")  # fmt: skip
     if len(plan) > 1 or streamed:
@@ -131,6 +132,7 @@ def simulate_to_dir(
             stats.seconds_total = run.seconds
         if summary is not None:
             summary.update(segments=run.segments, resumed=run.resumed, computed=run.computed)
+        remove_stale_products(out_dir, stale)
         return paths
     ds = simulate(src, track, config, body_radius_m=body_radius_m, progress=progress, stats=stats, sources=sources,
                   nadir_strip_m=nadir_strip_m, first_return_db=first_return_db,
@@ -141,7 +143,6 @@ def simulate_to_dir(
         ds.attrs[HEIGHT_UNIT_ATTR] = src.height_scale_m
     if summary is not None:
         summary.update(segments=1, resumed=0, computed=1)
-    stale = previous_run_files(out_dir) - {p.name for p in paths.values()} if overwrite else set()
     write_run(ds, src, paths, permittivity=permittivity, figures=figures)
     remove_stale_products(out_dir, stale)
     return paths
@@ -178,6 +179,24 @@ def remove_stale_products(out_dir, names) -> None:
             removed.append(name)
     if removed:
         warnings.warn(f"{out_dir}: removed {', '.join(removed)} of the previous run (not made by this one)", stacklevel=3)
+
+
+def remove_figures_in_other_formats(paths, overwrite: bool) -> None:
+    """Once a run with ``overwrite`` has written its products ``paths``: remove the figures an earlier
+    run left beside them in another format (``clutter_map.png`` beside a new ``clutter_map.pdf``), which
+    would pass for this run's, saying so (:func:`remove_stale_products`). Without ``overwrite``
+    nothing is removed."""
+    from .plots import FIGURE_FORMATS
+
+    if not overwrite:
+        return
+    stale: dict[Path, set[str]] = {}
+    for p in map(Path, paths):
+        fmt = p.suffix[1:]
+        if fmt in FIGURE_FORMATS:
+            stale.setdefault(p.parent, set()).update(p.with_suffix(f".{f}").name for f in FIGURE_FORMATS if f != fmt)
+    for out_dir, names in stale.items():
+        remove_stale_products(out_dir, names)
 
 
 def write_run(ds, src: DemSource, paths: dict[str, Path], permittivity: float = 3.15,

@@ -363,6 +363,24 @@ def test_products_are_written_together(scene, tmp_path):
         assert imread(paths[name]).shape[:2] == (600, 1200)  # 10 × 5 in at 120 dpi
 
 
+def test_side_by_side_on_given_axes_returns_them_and_marks_missing_traces(scene):
+    """With ``ax`` (a pair: left, right) the figure is drawn there and the pair is returned, as
+    documented; traces without data get the no-data legend entry."""
+    from matplotlib.figure import Figure
+
+    from cluttersim.plots import plot_comparison_side_by_side
+
+    _, track, _, sim = scene
+    ds = compare(observed(sim, track, shift_samples=2.0, seed=3), sim).dataset
+    axes = Figure().subplots(1, 2)
+    assert plot_comparison_side_by_side(ds, ax=axes) is axes
+    assert "no data / unmatched trace" not in [t.get_text() for t in axes[0].get_legend().get_texts()]
+    ds["observed_power"][5:9, :] = np.nan
+    axes = Figure().subplots(1, 2)
+    plot_comparison_side_by_side(ds, ax=axes)
+    assert "no data / unmatched trace" in [t.get_text() for t in axes[0].get_legend().get_texts()]
+
+
 def test_candidates_geojson_holds_the_csv_rows_at_nadir_and_at_the_clutter_source(scene, tmp_path):
     """RFC 7946: a FeatureCollection of Points at [lon, lat]; one nadir point per candidate (the CSV's row as its
     properties) and, where the simulation records the dominant facet, a second point there."""

@@ -20,8 +20,8 @@ SAMPLES = 520  # observed samples per trace (see test_compare.observe)
 PNG_SCALE = 65535.0  # 16-bit image counts of the largest amplitude
 
 
-@pytest.fixture(scope="module")
-def files(tmp_path_factory):
+@pytest.fixture(scope="module", name="files")
+def files_fixture(tmp_path_factory):
     """A simulated run of the hill scene, and an observed radargram of the same track: the
     simulation 7.3 samples late, with a reflector 40 m deep (ε′ = 3.15), gain and noise."""
     d = tmp_path_factory.mktemp("compare")

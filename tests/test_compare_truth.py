@@ -24,7 +24,7 @@ from cluttersim.analysis.compare_grid import bandwidth_of
 from cluttersim.config import SimulationConfig, SurfaceConfig, default_config
 from cluttersim.physics.radar import RadarConfig
 from cluttersim.track import great_circle_track
-from compare_truth import GAIN_DB, identical, layer, observe, surface_peak
+from compare_truth import GAIN_DB, identical, layer, observe
 from scenes import write_geotiff
 from test_compare import hill_scene
 

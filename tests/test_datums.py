@@ -23,7 +23,6 @@ from cluttersim.io.datums import HeightDatum, parse_height_datum, track_in_dem_d
 from cluttersim.io.dem import DemSource
 from cluttersim.errors import TrackError
 from scenes import write_geotiff
-from test_geometry_edges import config
 
 C = 299_792_458.0  # m/s, SI definition
 

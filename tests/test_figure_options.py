@@ -133,6 +133,31 @@ def test_compare_list_writes_every_figure_in_the_format(scene, observed):
                           for n in ("side_by_side", "overlay", "difference")], "svg")  # fmt: skip
 
 
+def test_compare_overwrite_in_another_format_removes_the_old_figures(scene, observed):
+    """Re-run with --overwrite in another --figure-format, compare (one track, and --list with its
+    candidates map) removes the figures of the run before, as simulate does, saying so."""
+    d = scene[0]
+    names = ("side_by_side", "overlay", "difference")
+    out = d / "cmp_switch"
+    assert run(["compare", *observed, "--out", out]).exit_code == 0
+    assert_all_in_format([out / f"{n}.png" for n in names], "png")
+    res = run(["compare", *observed, "--out", out, "--figure-format", "pdf", "--overwrite"])
+    assert res.exit_code == 0, res.output
+    assert_all_in_format([out / f"{n}.pdf" for n in names], "pdf")
+    assert not list(out.glob("*.png")), sorted(p.name for p in out.iterdir())
+    assert "removed difference.png, overlay.png, side_by_side.png" in res.output
+    listing = d / "list_switch.csv"
+    listing.write_text("name,observed,observed_track,sample_interval_s,sim,window_start_column\n"
+                       f"one,{observed[1]},{observed[3]},{observed[5]},{observed[9]},window_start\n")  # fmt: skip
+    many = d / "many_switch"
+    assert run(["compare", "--list", listing, "--out", many, "-q"]).exit_code == 0
+    assert (many / "candidates_map.png").exists() and (many / "one" / "overlay.png").exists()
+    res = run(["compare", "--list", listing, "--out", many, "--figure-format", "svg", "--overwrite", "-q"])
+    assert res.exit_code == 0, res.output
+    assert_all_in_format([many / "candidates_map.svg"] + [many / "one" / f"{n}.svg" for n in names], "svg")
+    assert not list(many.rglob("*.png")), sorted(str(p) for p in many.rglob("*"))
+
+
 def test_compare_dem_height_unit(tmp_path):
     """compare --dem simulates the observed track; a DEM without a vertical CRS whose values are feet
     (0.3048 m, NIST SP 811) declared with --dem-height-unit ft as simulate does: the simulation's nadir

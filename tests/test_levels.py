@@ -19,12 +19,11 @@ from cluttersim.physics.radar import (
     LEGACY_POWER_CONVENTION,
     POWER_CONVENTION,
     RadarConfig,
-    effective_pulse_duration_s,
     radar_equation_power_w,
 )
 from cluttersim.io.radargram import open_radargram, write_netcdf
 from cluttersim.physics.subsurface import specular_echo_power_w
-from scenes import MARS_RADIUS_M, UTM_X0_M, UTM_Y0_M, flat_geographic, utm_grid, utm_track, write_utm
+from scenes import MARS_RADIUS_M, flat_geographic, utm_grid, utm_track, write_utm
 
 C = 299_792_458.0  # SI definition
 ALT_M = 300e3

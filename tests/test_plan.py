@@ -195,22 +195,28 @@ def test_probability_under_dem_error(massif):
         assert r.probability_se == pytest.approx(math.sqrt(r.probability * (1 - r.probability) / 4))
 
 
+def _plan_command(dem_path, tmp_path) -> list[str]:
+    """``cluttersim plan`` on the massif with a quick search (90° steps, 2 km tracks, one worker) and a
+    256-sample radar with a Gaussian beam (written to ``tmp_path``); the target and --out to add."""
+    radar = tmp_path / "radar.toml"
+    radar.write_text('[radar]\nsamples = 256\n[antenna]\npattern = "gaussian"\nbeamwidth_along_deg = 8.0\n'
+                     'beamwidth_across_deg = 80.0\n')  # fmt: skip
+    return ["plan", "--dem", str(dem_path), "--depth-m", "50", "300", "--alt-m", "25000", "--radar", str(radar),
+            "--coarse-step-deg", "90", "--fine-step-deg", "90", "--track-length-km", "2", "--workers", "1", "-q"]
+
+
 def test_plan_command_and_bad_input(massif, tmp_path):
     from click.testing import CliRunner
 
     from cli.main import cli
 
     path, _, plan, *_ = massif
-    radar = tmp_path / "radar.toml"
-    radar.write_text('[radar]\nsamples = 256\n[antenna]\npattern = "gaussian"\nbeamwidth_along_deg = 8.0\n'
-                     'beamwidth_across_deg = 80.0\n')  # fmt: skip
     poly = tmp_path / "target.csv"
     t = plan.target
     d = 0.005  # a small square around the target (~0.5 km)
     poly.write_text("lon,lat\n" + "".join(f"{t.lon_deg + a * d},{t.lat_deg + b * d}\n"
                                           for a, b in ((-1, -1), (1, -1), (1, 1), (-1, 1))))  # fmt: skip
-    base = ["plan", "--dem", str(path), "--depth-m", "50", "300", "--alt-m", "25000", "--radar", str(radar),
-            "--coarse-step-deg", "90", "--fine-step-deg", "90", "--track-length-km", "2", "--workers", "1", "-q"]  # fmt: skip
+    base = _plan_command(path, tmp_path)
     ok = CliRunner().invoke(cli, base + ["--target-polygon", str(poly), "--out", str(tmp_path / "p")])
     assert ok.exit_code == 0, ok.output
     assert {p.name for p in (tmp_path / "p").iterdir()} == {"plan.csv", "best_track.csv", "objective_polar.png",
@@ -252,12 +258,8 @@ def test_plan_named_target_options_the_old_spelling_and_figure_options(massif, t
     from figure_files import assert_all_in_format, png_size
 
     path, _, plan, *_ = massif
-    radar = tmp_path / "radar.toml"
-    radar.write_text('[radar]\nsamples = 256\n[antenna]\npattern = "gaussian"\nbeamwidth_along_deg = 8.0\n'
-                     'beamwidth_across_deg = 80.0\n')  # fmt: skip
     t = plan.target
-    base = ["plan", "--dem", str(path), "--depth-m", "50", "300", "--alt-m", "25000", "--radar", str(radar),
-            "--coarse-step-deg", "90", "--fine-step-deg", "90", "--track-length-km", "2", "--workers", "1", "-q"]  # fmt: skip
+    base = _plan_command(path, tmp_path)
     named = CliRunner().invoke(cli, base + ["--target-lat", repr(t.lat_deg), "--target-lon", repr(t.lon_deg),
                                             "--figure-format", "svg", "--out", str(tmp_path / "named")])  # fmt: skip
     assert named.exit_code == 0, named.output
@@ -273,3 +275,22 @@ def test_plan_named_target_options_the_old_spelling_and_figure_options(massif, t
     assert both.exit_code == 2 and "not both" in both.output
     half = CliRunner().invoke(cli, base + ["--target-lat", "2", "--out", str(tmp_path / "y")])
     assert half.exit_code == 2 and "missing --target-lon" in half.output
+
+
+def test_overwrite_in_another_figure_format_removes_the_old_figures(massif, tmp_path):
+    """Re-run with --overwrite and --figure-format pdf, plan removes the PNG figures of the run before
+    (as simulate does), saying so."""
+    from cli_helpers import invoke
+    from figure_files import assert_all_in_format
+
+    path, _, plan, *_ = massif
+    out = tmp_path / "p"
+    base = _plan_command(path, tmp_path) + ["--target-lat", repr(plan.target.lat_deg), "--target-lon",
+                                            repr(plan.target.lon_deg), "--out", out]  # fmt: skip
+    assert invoke(*base).exit_code == 0
+    assert_all_in_format([out / "objective_polar.png", out / "best_worst.png"], "png")
+    res = invoke(*base, "--figure-format", "pdf", "--overwrite")
+    assert res.exit_code == 0, res.output
+    assert_all_in_format([out / "objective_polar.pdf", out / "best_worst.pdf"], "pdf")
+    assert not list(out.glob("*.png")), sorted(p.name for p in out.iterdir())
+    assert "removed best_worst.png, objective_polar.png" in res.output

@@ -23,7 +23,7 @@ from click.testing import CliRunner
 from cli.main import cli
 from cluttersim.io.observed import ObservedFormat, load_observed
 from test_compare import DT, NTRACE
-from test_compare_cli import SAMPLES, files  # noqa: F401  (the module's fixture)
+from test_compare_cli import SAMPLES, files_fixture  # noqa: F401  (the pytest fixture `files`, used as a test argument)
 
 pdr = pytest.importorskip("pdr", reason="the [pds] extra (pdr) is not installed")
 

@@ -304,6 +304,13 @@ def test_streamed_run_writes_its_figures_in_the_chosen_format(airborne, tmp_path
         assert not (out / "segments").exists()  # streamed, then joined
         assert_all_in_format([out / run_files(fmt=fmt)[k] for k in figures], fmt)
     assert png_size(tmp_path / "png" / "radargram.png") == (400, 200)  # 10 × 5 in at 40 dpi
+    # re-run over the PNG run with --overwrite in PDF: the PNG figures go, as after a one-piece run
+    res = CliRunner().invoke(cli, ["simulate", "--dem", str(dem), "--track", str(tmp_path / "track.csv"), "--radar",
+                                   str(radar), "--segment-traces", "16", "--out", str(tmp_path / "png"), "-q",
+                                   "--figure-format", "pdf", "--overwrite"])  # fmt: skip
+    assert res.exit_code == 0, res.output
+    assert_all_in_format([tmp_path / "png" / run_files(fmt="pdf")[k] for k in figures], "pdf")
+    assert not list((tmp_path / "png").glob("*.png")) and "of the previous run" in res.output
     out = tmp_path / "lib"
     paths = {k: out / v for k, v in run_files(fmt="svg").items()}
     src = DemSource.open(dem)

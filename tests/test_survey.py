@@ -398,6 +398,22 @@ def test_a_multi_band_radar_is_surveyed_one_band_at_a_time():
         survey_sim_config(SimulationConfig(), "low")
 
 
+def test_presum_in_the_radar_is_ignored_with_a_warning(massif, tmp_path):
+    """A radar that presums pulses ([processing] presum = 2) is surveyed one pulse per trace, as without
+    presum (the same survey.csv), with a warning saying so; it used to fail, the level-ground reference
+    and the presummed radargram having different trace counts."""
+    from cluttersim.analysis.survey import survey_sim_config
+
+    cfg = radar_config()
+    presummed = dataclasses.replace(cfg, processing=dataclasses.replace(cfg.processing, presum=2))
+    with pytest.warns(UserWarning, match=r"presum = 2 is ignored"):
+        assert survey_sim_config(presummed).processing.presum == 1
+    with pytest.warns(UserWarning, match=r"presum = 2 is ignored"):
+        run_survey(massif, _small(), presummed, tmp_path / "two", engine=Engine(workers=1))
+    run_survey(massif, _small(), cfg, tmp_path / "one", engine=Engine(workers=1))
+    assert (tmp_path / "two" / "survey.csv").read_bytes() == (tmp_path / "one" / "survey.csv").read_bytes()
+
+
 def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
     """--scheduler-file: the survey's tracks as Dask tasks on the cluster named in the file (a real
     LocalCluster here), the same results as in this process."""
@@ -419,6 +435,12 @@ def test_survey_on_a_scheduler_file_is_bit_identical(massif, tmp_path):
         Engine(scheduler="local", scheduler_file=str(path))
 
 
+def _small_survey_command(massif) -> list[str]:
+    """``cluttersim survey`` of :func:`_small`'s region on one worker, quiet; --out to add."""
+    return ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
+            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]
+
+
 def test_survey_map_follows_the_figure_options(massif, tmp_path):
     """--figure-format svg writes clutter_map.svg (SVG bytes), --dpi sets the PNG's pixel size, and
     --db-range sets the map's colour span (a quarter below the threshold): a narrower span saturates
@@ -429,8 +451,7 @@ def test_survey_map_follows_the_figure_options(massif, tmp_path):
 
     assert survey_map_range_db(None) == (6.0, 18.0)
     assert survey_map_range_db(8.0) == pytest.approx((2.0, 6.0))
-    base = ["survey", "--dem", str(massif), *region_args(_small().region), "--spacing-km", "6", "--alt-m", str(ALT_M),
-            "--trace-spacing-m", "1400", "--max-depth-m", str(MAX_DEPTH_M), "--workers", "1", "-q"]  # fmt: skip
+    base = _small_survey_command(massif)
     runs = {"svg": ["--figure-format", "svg"], "a": ["--dpi", "50"], "b": ["--dpi", "50", "--db-range", "4"]}
     for name, extra in runs.items():
         res = invoke(*base, "--out", tmp_path / name, *extra)
@@ -442,6 +463,22 @@ def test_survey_map_follows_the_figure_options(massif, tmp_path):
     assert abs(w50 - w120 * 50 / 120) <= 2 and abs(h50 - h120 * 50 / 120) <= 2
     assert (tmp_path / "a" / "survey.csv").read_bytes() == (tmp_path / "b" / "survey.csv").read_bytes()
     assert (tmp_path / "a" / "clutter_map.png").read_bytes() != (tmp_path / "b" / "clutter_map.png").read_bytes()
+
+
+def test_overwrite_in_another_figure_format_removes_the_old_map(massif, tmp_path):
+    """Re-run with --overwrite and --figure-format pdf, the survey removes the PNG map of the run
+    before (as simulate does), saying so: no figure of another run passes for this one's."""
+    from figure_files import figure_format
+
+    out = tmp_path / "s"
+    base = _small_survey_command(massif) + ["--out", out]
+    assert invoke(*base).exit_code == 0
+    assert figure_format(out / "clutter_map.png") == "png"
+    res = invoke(*base, "--figure-format", "pdf", "--overwrite")
+    assert res.exit_code == 0, res.output
+    assert figure_format(out / "clutter_map.pdf") == "pdf"
+    assert not list(out.glob("*.png")), sorted(p.name for p in out.iterdir())
+    assert "removed clutter_map.png" in res.output
 
 
 def _png_size_of_default(massif, tmp_path):

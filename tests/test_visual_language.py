@@ -11,7 +11,6 @@ import re
 import numpy as np
 import pytest
 import xarray as xr
-from matplotlib.colors import to_rgb
 from PIL import Image
 
 from cluttersim import palette, plots

@@ -477,6 +477,7 @@ def compare_to_dir(
     """
     from ..io.observed import load_observed
     from ..io.radargram import open_radargram
+    from ..products import remove_figures_in_other_formats
 
     if (sim is None) == (dem is None):
         raise ObservedDataError("give either a simulated radargram or a DEM to simulate from, not both")
@@ -505,6 +506,7 @@ def compare_to_dir(
                                                   tec_el_m2=tec_el_m2)  # fmt: skip
     result = compare(observed, sim_ds, settings, progress=progress, sim_source=sim_source)
     write_comparison(result, paths, sim_ds=sim_ds if dem is not None else None, figures=figures)
+    remove_figures_in_other_formats(paths.values(), overwrite)
     return result, paths
 
 

@@ -426,6 +426,7 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
     from .compare import compare_to_dir
     from ..config import SimulationConfig
     from ..io.observed import ObservedFormat
+    from ..products import remove_figures_in_other_formats
 
     jobs = read_track_list(list_path)
     out_dir = Path(out_dir)
@@ -463,4 +464,5 @@ def compare_many(list_path, out_dir, *, settings=None, overwrite: bool = False, 
         from ..plots import plot_candidate_map
 
         plot_candidate_map(results, t_png, dpi=figures.dpi if figures else None, fmt=fmt)
+    remove_figures_in_other_formats(combined.values(), overwrite)
     return results, combined

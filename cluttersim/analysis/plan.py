@@ -485,7 +485,7 @@ def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, 
 
     t0 = time.perf_counter()
     out_dir = Path(out_dir)
-    from ..products import figure_name
+    from ..products import figure_name, remove_figures_in_other_formats
 
     fmt = figures.fmt if figures is not None else "png"
     paths = {k: out_dir / figure_name(v, fmt) for k, v in PLAN_FILES.items()}
@@ -501,6 +501,7 @@ def run_plan(dem, plan: PlanConfig, sim_config: SimulationConfig | None = None, 
     datasets = {name: simulate(src, tr, cfg, body_radius_m=body_radius_m, sources=False,
                                max_memory_bytes=max_memory_bytes) for name, tr in tracks.items()}  # fmt: skip
     write_plan_products(src, plan, result, tracks, datasets, figures=figures)
+    remove_figures_in_other_formats(paths.values(), overwrite)
     result.seconds = time.perf_counter() - t0
     return result
 

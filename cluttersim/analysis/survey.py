@@ -57,7 +57,7 @@ from ..config import SimulationConfig, default_config
 from . import engines
 from ..io.dem import DemSource, crs_linear_unit_m
 from ..io.demcrs import vsi_path
-from .engines import Engine, _dask, _quiet_dask_logs, dask_client  # noqa: F401  (names segments and callers use here)
+from .engines import Engine, _dask
 from ..errors import (
     ClutterSimError,
     ConfigError,
@@ -419,7 +419,7 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
     """The configuration a survey simulates with: [noise], [subsurface] and [ionosphere] dropped (the
     index compares surface clutter with the surface echo, both delayed alike by a layer, and its
     window is placed by the geometric nadir delay); one band of a multi-band radar (``band``,
-    default the first); coherent mode refused."""
+    default the first); coherent mode refused; [processing] presum set to 1 (one pulse per trace)."""
     if config.processing.mode == "coherent":
         raise ConfigError("[processing] mode = 'coherent': the survey needs the incoherent mode's source record; "
                           "expected mode = 'incoherent'")  # fmt: skip
@@ -436,6 +436,13 @@ def survey_sim_config(config: SimulationConfig, band: str | None = None) -> Simu
             "([subsurface]) is not clutter; compare its power with the clutter of one track with `cluttersim simulate`",
             stacklevel=3,
         )
+    if config.processing.presum > 1:
+        warnings.warn(
+            f"survey: [processing] presum = {config.processing.presum} is ignored: a survey simulates one pulse per "
+            "trace, the traces --trace-spacing-m apart (give the spacing of the presummed traces)",
+            stacklevel=3,
+        )
+        config = dataclasses.replace(config, processing=dataclasses.replace(config.processing, presum=1))
     return dataclasses.replace(config, noise=None, subsurface=None, ionosphere=None)
 
 
@@ -551,11 +558,6 @@ def run_jobs(jobs, engine: Engine, on_result, task=None) -> None:
     engines.run_jobs(jobs, engine, on_result, task or survey_track)
 
 
-def _dask_survey_track(job: TrackJob, task=None) -> TrackResult:
-    """The Dask task of :mod:`cluttersim.analysis.engines` running :func:`survey_track` (or ``task``)."""
-    return engines._dask_task(job, task or survey_track)
-
-
 # --------------------------------------------------------------------------- the survey
 
 
@@ -605,6 +607,8 @@ def run_survey(
     -------
     SurveySummary
     """
+    from ..products import remove_figures_in_other_formats
+
     t0 = time.perf_counter()
     engine = engine if engine is not None else Engine()
     sim_config = survey_sim_config(sim_config if sim_config is not None else default_config(), band)
@@ -667,6 +671,7 @@ def run_survey(
             stacklevel=2,
         )
     write_survey_products(src, config, grid, results, paths, figures=figures)
+    remove_figures_in_other_formats(paths.values(), overwrite)
     return SurveySummary(paths=paths, tracks=len(planned), resumed=resumed, computed=len(jobs),
                          seconds=time.perf_counter() - t0, warnings=seen_warnings,
                          track_seconds=[done[j.track_id].seconds for j in jobs])  # fmt: skip

@@ -15,7 +15,7 @@ from matplotlib.patches import Patch
 from .. import palette
 from .style import (
     _figure_for, _finish, _LEGEND_STYLE, _new_figure, NO_DATA_COLOUR, OVERLAY_COLOUR, power_db, RADARGRAM_CMAP,
-    RADARGRAM_FIGSIZE_IN, save_figure,
+    RADARGRAM_FIGSIZE_IN,
 )
 from .radargram_views import (
     _add_depth_axis, _check_permittivity, _draw_nadir_line, _label_radargram, _radargram_extent, radargram_layers,
@@ -114,6 +114,13 @@ def _draw_candidates(ax, layers: RadargramLayers, candidates, *, colour: str = C
                   label=label)  # fmt: skip
 
 
+def _no_data_handles(image_db) -> list:
+    """The legend entry of the no-data colour, in a list, if the image has NaN (no data) cells; else []."""
+    if np.isnan(image_db).any():
+        return [Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data / unmatched trace")]
+    return []
+
+
 def plot_comparison_side_by_side(
     ds, path=None, *, ax=None, dpi=None, fmt=None, dynamic_range_db: float = 60.0, permittivity: float | None = 3.15,
     title: str | None = None,
@@ -128,7 +135,7 @@ def plot_comparison_side_by_side(
     path : str or Path
         Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
         without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
-        :func:`plot_radargram`.
+        :func:`plot_radargram`; here ``ax`` is a pair of Axes (left, right).
     dynamic_range_db : float
         Largest range of the shared colour scale, dB.
     permittivity : float or None
@@ -156,27 +163,24 @@ def plot_comparison_side_by_side(
         "observed" + (f", aligned (offset {offset:+.2f} samples removed)" if offset is not None else ""),
         "simulated clutter" + (f" × gain ({gain:+.1f} dB)" if gain is not None else ""),
     )
-    for ax, layers, panel_title in ((left, obs, titles[0]), (right, sim, titles[1])):
-        image = ax.imshow(layers.image_db, cmap=cmap, vmin=layers.vmin_db, vmax=layers.vmax_db, aspect="auto",
-                          interpolation="antialiased", interpolation_stage="rgba", origin="upper",
-                          extent=_radargram_extent(layers))  # fmt: skip
-        _draw_nadir_line(ax, layers, OVERLAY_COLOUR)
-        _label_radargram(ax, layers, panel_title)
+    for panel, layers, panel_title in ((left, obs, titles[0]), (right, sim, titles[1])):
+        image = panel.imshow(layers.image_db, cmap=cmap, vmin=layers.vmin_db, vmax=layers.vmax_db, aspect="auto",
+                             interpolation="antialiased", interpolation_stage="rgba", origin="upper",
+                             extent=_radargram_extent(layers))  # fmt: skip
+        _draw_nadir_line(panel, layers, OVERLAY_COLOUR)
+        _label_radargram(panel, layers, panel_title)
     right.set_ylabel("")
     _add_depth_axis(right, sim, permittivity)
     handles = []
     if obs.nadir_us is not None:
         handles.append(Line2D([], [], color=OVERLAY_COLOUR, lw=0.8, ls=(0, (4, 3)), label="simulated nadir surface"))
-    if np.isnan(obs.image_db).any():
-        handles.append(Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data / unmatched trace"))
+    handles += _no_data_handles(obs.image_db)
     if handles:
         left.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
     fig.colorbar(image, ax=[left, right], label="echo power (dB, observed units)", pad=0.01)
     if title:
         fig.suptitle(title)
-    if path is not None:
-        return save_figure(fig, path, dpi=dpi, fmt=fmt)
-    return ax if given else fig
+    return _finish(fig, ax, given, path, dpi, fmt)
 
 
 def plot_comparison_overlay(
@@ -196,15 +200,13 @@ def plot_comparison_overlay(
     ----------
     ds : xarray.Dataset
         A comparison Dataset (see :func:`comparison_layers`).
-    path : str or Path
-        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
-        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
-        :func:`plot_radargram`.
     candidates : sequence of dict
         Ranked candidates from :func:`cluttersim.analysis.compare.compare` (keys
         ``trace``, ``grid_sample``, ``score``), drawn as open circles.
-    threshold_db, dynamic_range_db, permittivity, title
-        As above and for :func:`plot_comparison_side_by_side`.
+    threshold_db
+        As above.
+    path, ax, dpi, fmt, dynamic_range_db, permittivity, title
+        As for :func:`plot_comparison_side_by_side`.
 
     Returns
     -------
@@ -238,8 +240,7 @@ def plot_comparison_overlay(
     marker = _draw_candidates(ax, obs, list(candidates))
     if marker is not None:
         handles.append(marker)
-    if np.isnan(obs.image_db).any():
-        handles.append(Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data / unmatched trace"))
+    handles += _no_data_handles(obs.image_db)
     _label_radargram(ax, obs, title or "simulated clutter contours over the observed radargram")
     _add_depth_axis(ax, obs, permittivity)
     ax.legend(handles=handles, loc="lower right", **_LEGEND_STYLE)
@@ -274,15 +275,11 @@ def plot_comparison_difference(
     ----------
     ds : xarray.Dataset
         A comparison Dataset (needs ``noise_floor``).
-    path : str or Path
-        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
-        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
-        :func:`plot_radargram`.
     candidates : sequence of dict
         As for :func:`plot_comparison_overlay`.
     range_db : float
         The colour scale spans ±``range_db`` dB.
-    permittivity, title
+    path, ax, dpi, fmt, permittivity, title
         As for :func:`plot_comparison_side_by_side`.
 
     Returns
@@ -307,8 +304,7 @@ def plot_comparison_difference(
     marker = _draw_candidates(ax, layers, list(candidates), colour="black")
     if marker is not None:
         handles.append(marker)
-    if np.isnan(diff).any():
-        handles.append(Patch(facecolor=NO_DATA_COLOUR, edgecolor="none", label="no data / unmatched trace"))
+    handles += _no_data_handles(diff)
     _label_radargram(ax, layers, title or "observed − predicted (gain-matched simulation + noise floor)")
     _add_depth_axis(ax, layers, permittivity)
     if handles:

@@ -113,10 +113,8 @@ def plot_track_map(
     _draw_track(ax, lon, lat)
     if first_return is not None:
         _draw_first_returns(ax, lon, lat, fr_x, fr_y)
-    _frame_map(ax, view, axis_labels, geographic)
+    _frame_map(ax, view, axis_labels, geographic, title)
     ax.legend(loc="best", **_LEGEND_STYLE)
-    if title:
-        ax.set_title(title)
     fig.colorbar(ScalarMappable(norm=norm, cmap=TERRAIN_CMAP), ax=ax, label="elevation (m)", shrink=0.8)
     return _finish(fig, ax, given, path, dpi, fmt)
 
@@ -210,15 +208,12 @@ def plot_source_map(
         raise ValueError(f"power_w {power.shape} and elevation_m {elev.shape} must have the same shape")
     if not dynamic_range_db > 0:
         raise ValueError(f"dynamic_range_db must be positive, got {dynamic_range_db!r}")
-    tx = _map_x(track_x, extent, geographic)
-    ty = np.asarray(track_y, dtype=np.float64).ravel()
     db = power_db(power)
     vmin_db, vmax_db = _db_limits(db, dynamic_range_db)
     with np.errstate(invalid="ignore"):
         shown = np.ma.masked_where(~(db >= vmin_db), db)  # NaN, −inf and weak cells transparent
 
-    fig, ax, given = _figure_for(ax, _map_figsize(extent, geographic))
-    _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
+    fig, ax, given = _grey_map(ax, _map_figsize(extent, geographic), elev, extent, track_x, track_y, geographic)
     image = ax.imshow(
         shown,
         cmap=colormaps[SOURCE_MAP_CMAP].with_extremes(bad=(0.0, 0.0, 0.0, 0.0)),
@@ -229,14 +224,11 @@ def plot_source_map(
         interpolation_stage="rgba",
         alpha=0.85,  # a hint of the relief shows through
     )
-    _draw_track(ax, tx, ty, halo=True)
-    _frame_map(ax, extent, axis_labels, geographic)
+    _frame_map(ax, extent, axis_labels, geographic, title)
     handles, _ = ax.get_legend_handles_labels()
     handles.append(Patch(facecolor=_HILLSHADE_MID_GREY, edgecolor="0.4", linewidth=0.5,
                          label=f"grey only: no power, or > {dynamic_range_db:g} dB below the maximum"))  # fmt: skip
     ax.legend(handles=handles, loc="upper right", **_LEGEND_STYLE)
-    if title:
-        ax.set_title(title)
     fig.colorbar(image, ax=ax, label=label, shrink=0.8)
     return _finish(fig, ax, given, path, dpi, fmt)
 
@@ -263,12 +255,8 @@ def plot_echo_sources(
 
     Parameters
     ----------
-    elevation_m : array_like (ny, nx)
-        Heights in metres, row 0 at the north (top) edge; drawn as a grey hillshade.
-    extent : tuple of float
-        (west, east, south, north) outer edges of the grid.
-    track_x, track_y : array_like
-        Track positions in the same coordinates (NaN breaks the line).
+    elevation_m, extent, track_x, track_y
+        As for :func:`plot_source_map`.
     antenna_xy : (float, float)
         The antenna's nadir point when it recorded the echo.
     cells_xy : array_like (N, 2)
@@ -277,14 +265,7 @@ def plot_echo_sources(
         Each cell's fraction of the echo's power (sum ≤ 1); marker area is
         proportional to it (with a minimum, so that small shares stay visible).
         The legend lists the first ten ranks with their shares.
-    path : str or Path
-        Optional: save the figure there (format from the suffix: png, pdf, svg) and return the path;
-        without it the Figure (or the given ``ax``) is returned. ``ax``, ``dpi``, ``fmt``: see
-        :func:`plot_radargram`.
-    title : str, optional
-    axis_labels : (str, str)
-        x and y axis labels.
-    geographic : bool
+    path, ax, dpi, fmt, title, axis_labels, geographic
         As for :func:`plot_source_map`.
     view : (float, float, float, float), optional
         (west, east, south, north) of the area shown, e.g. a box around the
@@ -307,15 +288,11 @@ def plot_echo_sources(
     antenna = np.asarray(antenna_xy, dtype=np.float64).ravel()
     if antenna.size != 2:
         raise ValueError(f"antenna_xy must be one (x, y) point, got {antenna.size} values")
-    tx = _map_x(track_x, extent, geographic)
-    ty = np.asarray(track_y, dtype=np.float64).ravel()
     cell_x = _map_x(cells[:, 0], extent, geographic)
     cell_y = cells[:, 1]
     antenna_x = _map_x(antenna[:1], extent, geographic)[0]
 
-    fig, ax, given = _figure_for(ax, ECHO_SOURCES_FIGSIZE_IN)
-    _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
-    _draw_track(ax, tx, ty, halo=True)
+    fig, ax, given = _grey_map(ax, ECHO_SOURCES_FIGSIZE_IN, elev, extent, track_x, track_y, geographic)
     ok = np.isfinite(cell_x) & np.isfinite(cell_y) & np.isfinite(share)
     area_pt2 = _share_marker_area_pt2(share)
     for rank in np.flatnonzero(ok)[::-1]:  # rank 1 drawn last, on top
@@ -323,7 +300,7 @@ def plot_echo_sources(
                    linewidths=0.8, zorder=5 + 1.0 / (rank + 1))  # fmt: skip
     ax.plot(antenna_x, antenna[1], ls="none", marker="*", ms=15, mfc="white", mec="black", mew=1.2, zorder=7,
             label="antenna nadir at this echo")  # fmt: skip
-    _frame_map(ax, extent if view is None else view, axis_labels, geographic)
+    _frame_map(ax, extent if view is None else view, axis_labels, geographic, title)
     features = ax.legend(loc="upper right", **_LEGEND_STYLE)
     ranked = np.flatnonzero(ok)
     if ranked.size:
@@ -343,8 +320,6 @@ def plot_echo_sources(
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0,
                   title="\n".join(lines), title_fontsize="small", labelspacing=1.0, borderpad=0.8,
                   **_LEGEND_STYLE)  # fmt: skip
-    if title:
-        ax.set_title(title)
     # labels last: the legends and title above settle the layout that their positions depend on
     place_labels(ax, cell_x[ok], cell_y[ok], [str(r + 1) for r in np.flatnonzero(ok)],
                  marker_radius_pt=np.sqrt(area_pt2[ok] / np.pi))  # fmt: skip
@@ -466,8 +441,18 @@ def _draw_track(ax, x: np.ndarray, y: np.ndarray, *, halo: bool = False) -> None
                     color="black", bbox=_LABEL_BOX)  # fmt: skip
 
 
-def _frame_map(ax, extent, axis_labels: tuple[str, str], geographic: bool) -> None:
-    """Limits to ``extent``, true-shape aspect and axis labels."""
+def _grey_map(ax, figsize_in, elev: np.ndarray, extent, track_x, track_y, geographic: bool):
+    """Begin a map: the caller's ``ax`` or a new figure, the grey hillshade of ``elev`` filling
+    ``extent`` and the track on it with a white halo (x wrapped as :func:`_map_x` does), for
+    :func:`_frame_map` to frame once the map's own layers are drawn: ``(figure, axes, given)``."""
+    fig, ax, given = _figure_for(ax, figsize_in)
+    _draw_relief(ax, _grey_hillshade_rgba(elev), extent)
+    _draw_track(ax, _map_x(track_x, extent, geographic), np.asarray(track_y, dtype=np.float64).ravel(), halo=True)
+    return fig, ax, given
+
+
+def _frame_map(ax, extent, axis_labels: tuple[str, str], geographic: bool, title: str | None = None) -> None:
+    """Limits to ``extent``, true-shape aspect, axis labels and the title (if any)."""
     west, east, south, north = _image_extent(extent)
     ax.set_xlim(west, east)
     ax.set_ylim(south, north)
@@ -478,6 +463,8 @@ def _frame_map(ax, extent, axis_labels: tuple[str, str], geographic: bool) -> No
         ax.set_aspect("equal")
     ax.set_xlabel(axis_labels[0])
     ax.set_ylabel(axis_labels[1])
+    if title:
+        ax.set_title(title)
 
 
 def _relief_inputs(elev: np.ndarray) -> tuple[np.ndarray, np.ndarray, Normalize, float]:
