@@ -98,7 +98,7 @@ def simulate_to_dir(
     and ``segment_traces`` are passed to :func:`~cluttersim.simulate.simulate`.
 
     A track that needs segments (:func:`cluttersim.analysis.segments.plan_segments`), or any
-    track with a Dask ``engine`` (:class:`cluttersim.analysis.survey.Engine`), is streamed:
+    track with a Dask ``engine`` (:class:`cluttersim.analysis.engines.Engine`), is streamed:
     :func:`cluttersim.analysis.segments.run_segments_to_dir` writes each finished segment to
     ``OUT/segments/`` (resumed after an interruption) and joins them into
     ``radargram.nc`` without holding the whole radargram. ``summary``, if given, is
@@ -163,7 +163,9 @@ def previous_run_files(out_dir) -> set[str]:
                 bands = [b.decode() if isinstance(b, bytes) else str(b) for b in f["band"][()]]
     except (OSError, ValueError, KeyError):
         pass
-    return {name for fmt in ("png", "pdf", "svg") for name in run_files(bands, sources=True, fmt=fmt).values()} | set(
+    from .plots import FIGURE_FORMATS
+
+    return {name for fmt in FIGURE_FORMATS for name in run_files(bands, sources=True, fmt=fmt).values()} | set(
         RUN_FILES.values())
 
 

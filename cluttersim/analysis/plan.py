@@ -7,12 +7,12 @@ target are simulated and scored, coarse to fine::
     PlanConfig ──► candidates (heading × altitude × cross-track offset) ──► candidate_track
        level 1: every heading of the range at the coarse step, for each (altitude, offset)
        level n: around the best REFINE_BEST headings of each (altitude, offset), step / 3, until the fine step
-    [PlanJob] ──► survey engines (survey.run_jobs: local processes or Dask) ──► plan_candidate:
+    [PlanJob] ──► survey engines (engines.run_jobs: local processes or Dask) ──► plan_candidate:
        simulate() (source record) ──► depth_window_index_db ──► objective at the target's traces
     all results ──► ranked table (plan.csv), best track (best_track.csv), polar plot of the
                     objective vs heading, best and worst radargrams side by side
 
-Objective. For each trace, the clutter index of :func:`cluttersim.analysis.survey.clutter_index`
+Objective. For each trace, the clutter index of :func:`cluttersim.analysis.clutter_index.clutter_index`
 evaluated over the target's depth window only: samples between the nadir echo and the
 apparent depth ``depth_min`` are left out (outside the nadir echo's main lobe), the window
 ends at ``depth_max`` (apparent depths for the real permittivity ε′). The candidate's
@@ -259,7 +259,7 @@ class CandidateResult:
 
 
 def depth_window_index_db(ds, depth_m, permittivity: float, threshold_db: float = 0.0) -> np.ndarray:
-    """Per trace, :func:`cluttersim.analysis.survey.clutter_index` over the apparent depths ``depth_m`` =
+    """Per trace, :func:`cluttersim.analysis.clutter_index.clutter_index` over the apparent depths ``depth_m`` =
     (min, max) only: power between the nadir echo's main lobe and the minimum depth is left out."""
     return index_in_depth_window_db(
         ds["power"].values, ds["left_fraction"].values, ds["right_fraction"].values, ds["window_start"].values,

@@ -493,7 +493,7 @@ def run_segments_to_dir(src: DemSource, track: Track, config, plan, out_dir, pat
     (:class:`cluttersim.products.FigureOptions`: dpi, png/pdf/svg, dB range; the names in
     ``paths`` carry the format's suffix, :func:`cluttersim.products.run_files`).
 
-    ``engine``: None (this process) or a :class:`cluttersim.analysis.survey.Engine` with a Dask
+    ``engine``: None (this process) or a :class:`cluttersim.analysis.engines.Engine` with a Dask
     scheduler: the segments run as Dask tasks carrying paths and arrays; the results
     are the same bytes as in this process.
     """
